@@ -1,0 +1,79 @@
+//! The library's error type. Every variant carries the numbers that explain it, and its message
+//! ends with what the user can do next.
+
+use std::path::PathBuf;
+
+/// Everything that can stop a measurement. Measurement-quality problems that still leave a usable
+/// number are *warnings* in the result instead (see [`crate::analysis::tone::ToneResult::warnings`]).
+#[derive(Debug, thiserror::Error)]
+pub enum Error {
+    #[error("cannot open {path}: {source}. Check the path and that the file is readable.")]
+    Open {
+        path: PathBuf,
+        source: std::io::Error,
+    },
+
+    #[error("cannot write {path}: {source}. Check that the folder exists and has space.")]
+    Write {
+        path: PathBuf,
+        source: std::io::Error,
+    },
+
+    #[error("{path} is not a WAV file ({detail}). Export the recording as WAV (RIFF/WAVE, PCM or 32-bit float) and try again.")]
+    NotWav { path: PathBuf, detail: String },
+
+    #[error("{path} is a WAV file in a format ampnote does not read ({detail}). Supported: 16-, 24- and 32-bit integer PCM and 32-bit float; convert it, for example with `sox in.wav -b 24 out.wav`.")]
+    UnsupportedFormat { path: PathBuf, detail: String },
+
+    #[error("{path} has a sample rate of {rate_hz} Hz; ampnote reads 8000 Hz to 384000 Hz. Resample the file or record at a common rate such as 48000 or 96000 Hz.")]
+    UnsupportedRate { path: PathBuf, rate_hz: u32 },
+
+    #[error("{path} holds no audio (its data chunk is empty). Check that the recorder actually captured the input.")]
+    Empty { path: PathBuf },
+
+    #[error("{path} is truncated: the header promises {expected_frames} frames but the file ends after {read_frames}. Re-export it, or pass --accept-truncated to analyse the {read_frames} frames that are there.")]
+    Truncated {
+        path: PathBuf,
+        expected_frames: u64,
+        read_frames: u64,
+    },
+
+    #[error("sample {index} of channel {channel} is {what}. The recording holds invalid floating-point data; re-export it from the recorder.")]
+    NotFinite {
+        channel: usize,
+        index: usize,
+        what: &'static str,
+    },
+
+    #[error("channel {requested} does not exist: the capture has {available} channel(s). Pick --channel 1..{available} or --channel all.")]
+    NoSuchChannel { requested: usize, available: usize },
+
+    #[error("channel {channel} is silent (every sample is zero). Check the cable, the input selected on the interface, and --channel.")]
+    Silent { channel: usize },
+
+    #[error("channel {channel} holds only a DC level ({dc_fraction:.6} of full scale) and no tone. Check that the stimulus is playing and reaching this input.")]
+    DcOnly { channel: usize, dc_fraction: f64 },
+
+    #[error("channel {channel} is too short for steady-tone analysis: {have_samples} samples ({have_s:.4} s) where at least {need_samples} ({need_s:.4} s) are needed{why}. Record at least 1 s of the steady tone.")]
+    TooShort {
+        channel: usize,
+        have_samples: usize,
+        have_s: f64,
+        need_samples: usize,
+        need_s: f64,
+        why: String,
+    },
+
+    #[error("channel {channel}: no steady tone found. The strongest line, at {strongest_hz:.1} Hz, stands only {above_noise_db:.1} dB above the noise. Check that the stimulus reaches this input, or give its frequency with --fundamental.")]
+    NoTone {
+        channel: usize,
+        strongest_hz: f64,
+        above_noise_db: f64,
+    },
+
+    #[error("invalid setting: {0}")]
+    InvalidSetting(String),
+}
+
+/// Shorthand used across the library.
+pub type Result<T> = std::result::Result<T, Error>;

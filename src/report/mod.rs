@@ -1,0 +1,6 @@
+//! Rendering results: terminal tables, JSON, CSV. Every renderer draws the same typed result.
+
+pub mod tone;
+
+/// Version of the JSON layout; bumped when a field changes meaning or disappears.
+pub const SCHEMA_VERSION: u32 = 1;

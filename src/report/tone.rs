@@ -1,0 +1,259 @@
+//! The `analyze` report: one capture, one result per channel.
+
+use crate::analysis::tone::ToneResult;
+use crate::capture::Encoding;
+use serde::Serialize;
+use std::fmt::Write as _;
+
+/// A channel that could not be analysed, and why.
+#[derive(Debug, Clone, Serialize)]
+pub struct ChannelError {
+    pub channel: usize,
+    pub error: String,
+}
+
+/// What `ampnote analyze` prints, in every format.
+#[derive(Debug, Clone, Serialize)]
+pub struct AnalyzeReport {
+    pub schema_version: u32,
+    pub file: String,
+    pub sample_rate_hz: u32,
+    pub encoding: Encoding,
+    pub frames: usize,
+    pub channel_count: usize,
+    pub truncated: bool,
+    pub channels: Vec<ToneResult>,
+    #[serde(skip_serializing_if = "Vec::is_empty")]
+    pub channel_errors: Vec<ChannelError>,
+}
+
+impl AnalyzeReport {
+    pub fn to_json(&self) -> String {
+        serde_json::to_string_pretty(self).expect("report serializes") + "\n"
+    }
+
+    /// One row per channel; harmonics and hum lines as columns.
+    pub fn to_csv(&self) -> String {
+        let max_h = self.channels.iter().map(|c| c.harmonics.len()).max().unwrap_or(0);
+        let max_hum = self.channels.iter().map(|c| c.hum.len()).max().unwrap_or(0);
+        let mut head = vec![
+            "channel", "fundamental_hz", "fundamental_dbfs", "fundamental_vrms", "output_w", "thd_percent", "thd_db",
+            "thdn_percent", "thdn_db", "sinad_db", "band_low_hz", "band_high_hz", "noise_dbfs", "noise_weighting",
+            "dc_offset", "crest_factor", "overload_samples", "mains_hz",
+        ]
+        .into_iter()
+        .map(String::from)
+        .collect::<Vec<_>>();
+        for i in 0..max_h {
+            let o = i + 2;
+            head.push(format!("h{o}_dbc"));
+            head.push(format!("h{o}_phase_deg"));
+        }
+        for i in 0..max_hum {
+            head.push(format!("hum{}_dbc", i + 1));
+        }
+        head.push("warnings".into());
+        let mut out = head.join(",") + "\n";
+        let opt = |v: Option<f64>| v.map(|x| format!("{x}")).unwrap_or_default();
+        for c in &self.channels {
+            let mut row = vec![
+                c.channel.to_string(),
+                format!("{}", c.fundamental_hz),
+                format!("{}", c.fundamental_dbfs),
+                opt(c.fundamental_vrms),
+                opt(c.output_w),
+                format!("{}", c.thd_percent),
+                format!("{}", c.thd_db),
+                format!("{}", c.thdn_percent),
+                format!("{}", c.thdn_db),
+                format!("{}", c.sinad_db),
+                format!("{}", c.band_hz[0]),
+                format!("{}", c.band_hz[1]),
+                format!("{}", c.noise_dbfs),
+                c.noise_weighting.label().to_string(),
+                format!("{}", c.dc_offset),
+                format!("{}", c.crest_factor),
+                c.overload_samples.to_string(),
+                format!("{}", c.mains_hz),
+            ];
+            for i in 0..max_h {
+                match c.harmonics.get(i) {
+                    Some(h) => {
+                        row.push(format!("{}", h.level_dbc));
+                        row.push(format!("{}", h.phase_deg));
+                    }
+                    None => row.extend([String::new(), String::new()]),
+                }
+            }
+            for i in 0..max_hum {
+                row.push(c.hum.get(i).map(|h| format!("{}", h.level_dbc)).unwrap_or_default());
+            }
+            row.push(csv_quote(&c.warnings.join("; ")));
+            out += &(row.join(",") + "\n");
+        }
+        out
+    }
+
+    /// The readable terminal table.
+    pub fn to_table(&self) -> String {
+        let mut s = String::new();
+        let _ = writeln!(
+            s,
+            "{}: {} Hz, {} channel(s), {}, {:.3} s{}",
+            self.file,
+            self.sample_rate_hz,
+            self.channel_count,
+            self.encoding.describe(),
+            self.frames as f64 / self.sample_rate_hz as f64,
+            if self.truncated { " (truncated file)" } else { "" }
+        );
+        for c in &self.channels {
+            s.push('\n');
+            channel_table(&mut s, c);
+        }
+        for e in &self.channel_errors {
+            let _ = writeln!(s, "\nChannel {}: not analysed: {}", e.channel, e.error);
+        }
+        s
+    }
+}
+
+fn channel_table(s: &mut String, c: &ToneResult) {
+    let _ = writeln!(
+        s,
+        "Channel {}  ({:.3} s analysed, band {}-{} Hz)",
+        c.channel, c.duration_s, fmt_hz(c.band_hz[0]), fmt_hz(c.band_hz[1])
+    );
+    let mut level = format!("{:>12.4} Hz   {:>8.2} dBFS", c.fundamental_hz, c.fundamental_dbfs);
+    if let Some(v) = c.fundamental_vrms {
+        let _ = write!(level, "   {} rms", fmt_volts(v));
+        if let Some(dbv) = c.fundamental_dbv {
+            let _ = write!(level, " ({dbv:+.2} dBV)");
+        }
+    }
+    if let (Some(w), Some(r)) = (c.output_w, c.load_ohms) {
+        let _ = write!(level, "   {} into {} ohm", fmt_watts(w), fmt_num(r));
+    }
+    let _ = writeln!(s, "  Fundamental {level}");
+    let _ = writeln!(s, "  THD         {:>12} %   {:>8.2} dB", fmt_pct(c.thd_percent), c.thd_db);
+    let _ = writeln!(
+        s,
+        "  THD+N       {:>12} %   {:>8.2} dB   (SINAD {:.2} dB)",
+        fmt_pct(c.thdn_percent),
+        c.thdn_db,
+        c.sinad_db
+    );
+    let mut noise = format!("{:>12.2} dBFS {}", c.noise_dbfs, c.noise_weighting.label());
+    if let Some(v) = c.noise_vrms {
+        let _ = write!(noise, "   {} rms", fmt_volts(v));
+    }
+    let _ = writeln!(s, "  Noise       {noise}");
+    let _ = writeln!(
+        s,
+        "  DC offset   {:>12.4} % FS   crest factor {:.3}   overload {} sample(s)",
+        c.dc_offset * 100.0,
+        c.crest_factor,
+        c.overload_samples
+    );
+    if let Some(d) = c.frequency_drift_ppm {
+        let _ = writeln!(
+            s,
+            "  Stability   drift {:+.2} ppm, phase wander {:.4} deg rms",
+            d,
+            c.phase_wander_deg.unwrap_or(0.0)
+        );
+    }
+    let _ = writeln!(s, "\n  Harmonic   Frequency        dBc          %      Phase");
+    for h in &c.harmonics {
+        let mark = match (h.in_band, h.at_noise_floor) {
+            (false, _) => "  (out of band)",
+            (true, true) => "  (noise floor)",
+            _ => "",
+        };
+        let _ = writeln!(
+            s,
+            "  H{:<8} {:>10.1} Hz {:>8.2} {:>10} {:>+9.1} deg{}",
+            h.order,
+            h.frequency_hz,
+            h.level_dbc,
+            fmt_pct(h.level_percent),
+            h.phase_deg,
+            mark
+        );
+    }
+    if !c.hum.is_empty() {
+        let _ = writeln!(s, "\n  Hum (mains {} Hz, {})", fmt_num(c.mains_hz), c.mains_source);
+        for h in &c.hum {
+            let mut line = format!(
+                "  {:>6} Hz {:>9.2} dBc {:>9.2} dBFS",
+                fmt_num(h.frequency_hz),
+                h.level_dbc,
+                h.level_dbfs
+            );
+            if let Some(v) = h.level_vrms {
+                let _ = write!(line, "   {} rms", fmt_volts(v));
+            }
+            if h.at_noise_floor {
+                line += "  (noise floor)";
+            }
+            let _ = writeln!(s, "{line}");
+        }
+    }
+    if !c.warnings.is_empty() {
+        let _ = writeln!(s);
+        for w in &c.warnings {
+            let _ = writeln!(s, "  warning: {w}");
+        }
+    }
+}
+
+fn csv_quote(s: &str) -> String {
+    if s.contains([',', '"', '\n']) {
+        format!("\"{}\"", s.replace('"', "\"\""))
+    } else {
+        s.to_string()
+    }
+}
+
+fn fmt_num(v: f64) -> String {
+    if v.fract() == 0.0 && v.abs() < 1e9 {
+        format!("{}", v as i64)
+    } else {
+        format!("{v:.2}")
+    }
+}
+
+fn fmt_hz(v: f64) -> String {
+    fmt_num(v)
+}
+
+/// Percent with enough significant digits for small values.
+pub fn fmt_pct(p: f64) -> String {
+    if p >= 1.0 {
+        format!("{p:.3}")
+    } else if p >= 1e-4 {
+        format!("{p:.6}")
+    } else {
+        format!("{p:.3e}")
+    }
+}
+
+/// Volts with a sensible unit prefix.
+pub fn fmt_volts(v: f64) -> String {
+    if v >= 1.0 {
+        format!("{v:.3} V")
+    } else if v >= 1e-3 {
+        format!("{:.3} mV", v * 1e3)
+    } else {
+        format!("{:.3} uV", v * 1e6)
+    }
+}
+
+/// Watts with a sensible unit prefix.
+pub fn fmt_watts(w: f64) -> String {
+    if w >= 1.0 {
+        format!("{w:.3} W")
+    } else {
+        format!("{:.3} mW", w * 1e3)
+    }
+}

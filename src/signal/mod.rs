@@ -1,0 +1,4 @@
+//! Signals ampnote makes: test tones, dither, and WAV writing.
+
+pub mod dither;
+pub mod wav;
