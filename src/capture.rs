@@ -127,7 +127,7 @@ impl Capture {
         }
         let truncated = match outcome {
             Ok(()) => false,
-            Err(hound::Error::IoError(e)) if e.kind() == std::io::ErrorKind::UnexpectedEof => true,
+            Err(hound::Error::IoError(e)) if is_eof(&e) => true,
             Err(e) => {
                 return Err(Error::NotWav {
                     path: p(),
@@ -177,7 +177,7 @@ fn header_error(e: hound::Error, path: PathBuf) -> Error {
             path,
             detail: "an encoding hound cannot decode (compressed or unusual layout)".into(),
         },
-        hound::Error::IoError(io) if io.kind() == std::io::ErrorKind::UnexpectedEof => Error::NotWav {
+        hound::Error::IoError(io) if is_eof(&io) => Error::NotWav {
             path,
             detail: "the file ends inside its header".into(),
         },
@@ -187,6 +187,11 @@ fn header_error(e: hound::Error, path: PathBuf) -> Error {
             detail: other.to_string(),
         },
     }
+}
+
+/// hound reports a short read as `ErrorKind::Other` with this message; std as `UnexpectedEof`.
+fn is_eof(e: &std::io::Error) -> bool {
+    e.kind() == std::io::ErrorKind::UnexpectedEof || e.to_string().contains("Failed to read enough bytes")
 }
 
 /// Pick channels by 1-based number; `None` means all of them.

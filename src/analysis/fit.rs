@@ -7,7 +7,7 @@
 //! three-parameter fit, but costs a few hundred operations instead of a pass over the samples, and
 //! lines whose main lobes overlap (a hum line near a harmonic) are separated rather than summed.
 //! The fundamental's frequency is found by maximising the fitted energy over frequency (the
-//! four-parameter fit's criterion). [`sine_fit_3`] is the direct time-domain form, kept as an
+//! four-parameter fit's criterion). [`sine_fit_time_domain`] is the direct time-domain form, kept as an
 //! independent oracle for the tests.
 
 use super::window::CosineSum;
@@ -87,39 +87,24 @@ pub fn fit_lines(spec: &[Complex64], n: usize, window: &CosineSum, freqs_bins: &
         })
         .collect();
 
-    // Normal equations over real parameters (Re C_i, Im C_i).
-    let m = 2 * bases.len();
-    let mut g = vec![0.0; m * m];
-    let mut b = vec![0.0; m];
-    for (i, bi) in bases.iter().enumerate() {
-        for pi in 0..2 {
-            let vi = if pi == 0 { &bi.re } else { &bi.im };
-            let row = 2 * i + pi;
-            b[row] = vi
-                .iter()
-                .enumerate()
-                .map(|(o, v)| (v.conj() * spec[bi.start + o]).re)
-                .sum();
-            for (j, bj) in bases.iter().enumerate().skip(i) {
-                let lo = bi.start.max(bj.start);
-                let hi = (bi.start + bi.re.len()).min(bj.start + bj.re.len());
-                for pj in 0..2 {
-                    let col = 2 * j + pj;
-                    if col < row {
-                        continue;
-                    }
-                    let vj = if pj == 0 { &bj.re } else { &bj.im };
-                    let mut s = 0.0;
-                    for k in lo..hi {
-                        s += (vi[k - bi.start].conj() * vj[k - bj.start]).re;
-                    }
-                    g[row * m + col] = s;
-                    g[col * m + row] = s;
-                }
-            }
+    // Lines whose bins overlap are solved together; separate groups independently, so a long
+    // harmonic series costs time in proportion to its length.
+    let mut order: Vec<usize> = (0..bases.len()).collect();
+    order.sort_by_key(|&i| bases[i].start);
+    let mut p = vec![0.0; 2 * bases.len()];
+    let mut group: Vec<usize> = Vec::new();
+    let mut group_end = 0usize;
+    for (pos, &i) in order.iter().enumerate() {
+        if !group.is_empty() && bases[i].start >= group_end {
+            solve_group(&bases, &group, spec, &mut p)?;
+            group.clear();
+        }
+        group.push(i);
+        group_end = group_end.max(bases[i].start + bases[i].re.len());
+        if pos == order.len() - 1 {
+            solve_group(&bases, &group, spec, &mut p)?;
         }
     }
-    let p = solve_spd(&mut g, &b, m)?;
     let amplitudes: Vec<Complex64> = (0..bases.len())
         .map(|i| Complex64::new(p[2 * i], p[2 * i + 1]))
         .collect();
@@ -137,6 +122,47 @@ pub fn fit_lines(spec: &[Complex64], n: usize, window: &CosineSum, freqs_bins: &
         amplitudes,
         line_models,
     })
+}
+
+/// Least squares for the lines in `group` (indices into `bases`) over real parameters
+/// (Re C, Im C); writes them into `p`.
+fn solve_group(bases: &[Basis], group: &[usize], spec: &[Complex64], p: &mut [f64]) -> Option<()> {
+    let m = 2 * group.len();
+    let mut g = vec![0.0; m * m];
+    let mut b = vec![0.0; m];
+    for (gi, &i) in group.iter().enumerate() {
+        let bi = &bases[i];
+        for pi in 0..2 {
+            let vi = if pi == 0 { &bi.re } else { &bi.im };
+            let row = 2 * gi + pi;
+            b[row] = vi
+                .iter()
+                .enumerate()
+                .map(|(o, v)| (v.conj() * spec[bi.start + o]).re)
+                .sum();
+            for (gj, &j) in group.iter().enumerate() {
+                let bj = &bases[j];
+                let lo = bi.start.max(bj.start);
+                let hi = (bi.start + bi.re.len()).min(bj.start + bj.re.len());
+                for pj in 0..2 {
+                    let col = 2 * gj + pj;
+                    if col < row {
+                        continue;
+                    }
+                    let vj = if pj == 0 { &bj.re } else { &bj.im };
+                    let s: f64 = (lo..hi).map(|k| (vi[k - bi.start].conj() * vj[k - bj.start]).re).sum();
+                    g[row * m + col] = s;
+                    g[col * m + row] = s;
+                }
+            }
+        }
+    }
+    let sol = solve_spd(&mut g, &b, m)?;
+    for (gi, &i) in group.iter().enumerate() {
+        p[2 * i] = sol[2 * gi];
+        p[2 * i + 1] = sol[2 * gi + 1];
+    }
+    Some(())
 }
 
 /// Refines the frequency of the line near `f_init` (bins) by golden-section search over
@@ -228,24 +254,30 @@ pub fn solve_spd(g: &mut [f64], b: &[f64], m: usize) -> Option<Vec<f64>> {
     Some(y)
 }
 
-/// IEEE Std 1057 three-parameter least-squares sine fit in the time domain: for a known frequency
-/// `freq_cycles_per_sample`, finds `A, B, C` minimising `sum (x[n] - A cos(w n) - B sin(w n) - C)^2`.
-/// Returns `(A, B, C)`. One pass over the samples; used as a slow, independent check of
-/// [`fit_lines`].
-pub fn sine_fit_3(x: &[f64], freq_cycles_per_sample: f64) -> (f64, f64, f64) {
-    let w = 2.0 * std::f64::consts::PI * freq_cycles_per_sample;
-    let mut g = [0.0f64; 9];
-    let mut b = [0.0f64; 3];
+/// IEEE Std 1057 least-squares sine fit in the time domain, generalised to several known
+/// frequencies at once (the three-parameter fit when `freqs` has one entry): finds `A_i, B_i, C`
+/// minimising `sum_n (x[n] - sum_i (A_i cos(w_i n) + B_i sin(w_i n)) - C)^2`, with `w_i = 2 pi
+/// freqs[i]` (cycles per sample). Returns `([(A_i, B_i)], C)`. Costs `O(N m^2)`: it is the slow,
+/// independent check of [`fit_lines`] in the tests, not the engine.
+pub fn sine_fit_time_domain(x: &[f64], freqs: &[f64]) -> Option<(Vec<(f64, f64)>, f64)> {
+    let m = 2 * freqs.len() + 1;
+    let mut g = vec![0.0f64; m * m];
+    let mut b = vec![0.0f64; m];
+    let mut r = vec![0.0f64; m];
     for (n, &v) in x.iter().enumerate() {
-        let (s, c) = (w * n as f64).sin_cos();
-        let r = [c, s, 1.0];
-        for i in 0..3 {
+        for (i, &f) in freqs.iter().enumerate() {
+            let (s, c) = (2.0 * std::f64::consts::PI * f * n as f64).sin_cos();
+            r[2 * i] = c;
+            r[2 * i + 1] = s;
+        }
+        r[m - 1] = 1.0;
+        for i in 0..m {
             b[i] += r[i] * v;
-            for j in 0..3 {
-                g[i * 3 + j] += r[i] * r[j];
+            for j in 0..m {
+                g[i * m + j] += r[i] * r[j];
             }
         }
     }
-    let p = solve_spd(&mut g, &b, 3).unwrap_or_else(|| vec![0.0; 3]);
-    (p[0], p[1], p[2])
+    let p = solve_spd(&mut g, &b, m)?;
+    Some(((0..freqs.len()).map(|i| (p[2 * i], p[2 * i + 1])).collect(), p[m - 1]))
 }

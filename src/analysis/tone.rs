@@ -271,6 +271,10 @@ impl ToneAnalyzer {
         let mut buffers = plan.make_buffers();
         plan.transform(input.samples, stats.dc, &mut buffers);
         let spec = &buffers.output;
+        // DC offset as the window-weighted mean: X[0] / sum(w) is what is left after removing the
+        // plain mean. The plain mean of a tone over a fractional number of periods is biased by up
+        // to A / (pi * periods); the weighted mean's bias is the window's leakage, below -180 dB.
+        let dc = stats.dc + spec[0].re / (n as f64 * TONE_WINDOW.coherent_gain());
         let bin_hz = fs / n as f64;
         let to_bins = |hz: f64| hz / bin_hz;
 
@@ -460,7 +464,7 @@ impl ToneAnalyzer {
             noise_dbfs,
             noise_weighting: self.config.weighting,
             noise_vrms: cal.vrms_from_dbfs(noise_dbfs),
-            dc_offset: stats.dc,
+            dc_offset: dc,
             crest_factor: stats.crest_factor,
             overload_samples: stats.overload,
             frequency_drift_ppm: drift.map(|d| d.drift_ppm),

@@ -1,0 +1,40 @@
+//! Helpers shared by the reference tests: synthesis of known signals and one-call analysis.
+
+use ampnote::analysis::tone::{ChannelInput, ToneAnalyzer, ToneConfig, ToneResult};
+use ampnote::calibration::Calibration;
+use std::f64::consts::PI;
+
+/// A sum of sines `sum amp * sin(2 pi f t + phase)`, `(f_hz, amp, phase_rad)` each.
+pub fn sines(fs: f64, n: usize, parts: &[(f64, f64, f64)]) -> Vec<f64> {
+    (0..n)
+        .map(|i| {
+            let t = i as f64 / fs;
+            parts.iter().map(|&(f, a, p)| a * (2.0 * PI * f * t + p).sin()).sum()
+        })
+        .collect()
+}
+
+/// Analyse `x` (full scale 1.0, float-like resolution) with `config`.
+pub fn analyze_with(x: &[f64], fs: f64, config: ToneConfig) -> ToneResult {
+    analyze_bits(x, fs, config, 53)
+}
+
+pub fn analyze_bits(x: &[f64], fs: f64, config: ToneConfig, bits: u32) -> ToneResult {
+    let analyzer = ToneAnalyzer::new(config).expect("valid config");
+    let input = ChannelInput {
+        channel: 1,
+        samples: x,
+        sample_rate_hz: fs,
+        overload_threshold: 1.0,
+        resolution_bits: bits,
+    };
+    analyzer.analyze(&input, &Calibration::default()).expect("analysis succeeds")
+}
+
+pub fn analyze(x: &[f64], fs: f64) -> ToneResult {
+    analyze_with(x, fs, ToneConfig::default())
+}
+
+pub fn db(ratio: f64) -> f64 {
+    20.0 * ratio.log10()
+}

@@ -1,0 +1,12 @@
+//! ampnote's checks against outside references, in one test binary (one link, one run).
+//! Each module names its source beside every check.
+
+mod bad_input;
+mod closed_form;
+mod common;
+mod numpy_fixtures;
+mod properties;
+mod quantization;
+mod targets;
+mod weighting;
+mod window;
