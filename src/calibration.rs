@@ -37,7 +37,8 @@ impl Calibration {
         check("--input-fs-vrms", self.input_fs_vrms)?;
         check("--attenuation", self.attenuation)?;
         check("--load-ohms", self.load_ohms)?;
-        if self.input_fs_vrms.is_none() && (self.attenuation.is_some() || self.load_ohms.is_some()) {
+        if self.input_fs_vrms.is_none() && (self.attenuation.is_some() || self.load_ohms.is_some())
+        {
             return Err(Error::InvalidSetting(
                 "--attenuation and --load-ohms need --input-fs-vrms (the interface input's full-scale RMS voltage) to turn dBFS into volts".into(),
             ));

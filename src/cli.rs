@@ -98,23 +98,25 @@ impl AnalyzeArgs {
         if self.channel.eq_ignore_ascii_case("all") {
             return Ok(None);
         }
-        self.channel
-            .parse::<usize>()
-            .map(Some)
-            .map_err(|_| format!("--channel takes a number from 1 or `all`, got `{}`", self.channel))
+        self.channel.parse::<usize>().map(Some).map_err(|_| {
+            format!(
+                "--channel takes a number from 1 or `all`, got `{}`",
+                self.channel
+            )
+        })
     }
 
     /// The validated analysis settings.
     pub fn tone_config(&self) -> Result<ToneConfig, String> {
         let mut cfg = ToneConfig::default();
         if let Some(b) = &self.band {
-            let (lo, hi) = b
-                .split_once(':')
-                .ok_or_else(|| format!("--band takes LO:HI in Hz, for example 20:20000; got `{b}`"))?;
+            let (lo, hi) = b.split_once(':').ok_or_else(|| {
+                format!("--band takes LO:HI in Hz, for example 20:20000; got `{b}`")
+            })?;
             let parse = |s: &str| {
-                s.trim()
-                    .parse::<f64>()
-                    .map_err(|_| format!("--band takes LO:HI in Hz, for example 20:20000; `{s}` is not a number"))
+                s.trim().parse::<f64>().map_err(|_| {
+                    format!("--band takes LO:HI in Hz, for example 20:20000; `{s}` is not a number")
+                })
             };
             cfg.band_low_hz = parse(lo)?;
             cfg.band_high_hz = Some(parse(hi)?);
@@ -127,11 +129,12 @@ impl AnalyzeArgs {
         cfg.mains = if self.mains.eq_ignore_ascii_case("auto") {
             Mains::Auto
         } else {
-            Mains::Hz(
-                self.mains
-                    .parse::<f64>()
-                    .map_err(|_| format!("--mains takes auto, 50, 60 or a frequency in Hz; got `{}`", self.mains))?,
-            )
+            Mains::Hz(self.mains.parse::<f64>().map_err(|_| {
+                format!(
+                    "--mains takes auto, 50, 60 or a frequency in Hz; got `{}`",
+                    self.mains
+                )
+            })?)
         };
         cfg.fundamental_hint_hz = self.fundamental;
         Ok(cfg)

@@ -28,34 +28,46 @@ fn main() -> ExitCode {
 
 fn analyze(args: &AnalyzeArgs) -> Result<ExitCode, String> {
     let config = args.tone_config()?;
-    let cal = args.calibration.calibration().validated().map_err(|e| e.to_string())?;
+    let cal = args
+        .calibration
+        .calibration()
+        .validated()
+        .map_err(|e| e.to_string())?;
     let channel = args.channel_choice()?;
     let analyzer = ToneAnalyzer::new(config).map_err(|e| e.to_string())?;
-    let capture = Capture::read_wav(&args.capture, args.accept_truncated).map_err(|e| e.to_string())?;
-    let chosen = select_channels(capture.channels.len(), channel).map_err(|e| e.to_string())?;
+    let info = Capture::probe_wav(&args.capture).map_err(|e| e.to_string())?;
+    let chosen = select_channels(info.channel_count, channel).map_err(|e| e.to_string())?;
 
-    let inputs: Vec<ChannelInput> = chosen
-        .iter()
-        .map(|&ch| ChannelInput {
+    // One channel decoded at a time: memory stays at one channel's samples plus the analysis.
+    let mut channels = Vec::new();
+    let mut channel_errors = Vec::new();
+    let (mut frames, mut truncated) = (0, false);
+    for &ch in &chosen {
+        let capture = Capture::read_wav_channels(&args.capture, args.accept_truncated, Some(&[ch]))
+            .map_err(|e| e.to_string())?;
+        frames = capture.frames();
+        truncated = capture.truncated;
+        let input = ChannelInput {
             channel: ch,
-            samples: &capture.channels[ch - 1],
+            samples: &capture.channels[0],
             sample_rate_hz: capture.sample_rate_hz as f64,
             overload_threshold: capture.encoding.overload_threshold(),
             resolution_bits: capture.encoding.resolution_bits(),
-        })
-        .collect();
-    let mut channels = Vec::new();
-    let mut channel_errors = Vec::new();
-    for (input, outcome) in inputs.iter().zip(analyze_all(&analyzer, &inputs, &cal)) {
-        match outcome {
+        };
+        match analyzer.analyze(&input, &cal) {
             Ok(mut r) => {
                 if capture.truncated {
-                    r.warnings.push("the file was truncated: only the complete frames were analysed".into());
+                    r.warnings.push(
+                        "the file was truncated: only the complete frames were analysed".into(),
+                    );
+                }
+                if info.length_unknown {
+                    r.warnings.push("the WAV header left the data length open (a recorder that stopped abruptly?): the samples were read to the end of the file".into());
                 }
                 channels.push(r)
             }
             Err(e) => channel_errors.push(ChannelError {
-                channel: input.channel,
+                channel: ch,
                 error: e.to_string(),
             }),
         }
@@ -63,22 +75,24 @@ fn analyze(args: &AnalyzeArgs) -> Result<ExitCode, String> {
     let report = AnalyzeReport {
         schema_version: SCHEMA_VERSION,
         file: args.capture.display().to_string(),
-        sample_rate_hz: capture.sample_rate_hz,
-        encoding: capture.encoding,
-        frames: capture.frames(),
-        channel_count: capture.channels.len(),
-        truncated: capture.truncated,
+        sample_rate_hz: info.sample_rate_hz,
+        encoding: info.encoding,
+        frames,
+        channel_count: info.channel_count,
+        truncated,
         channels,
         channel_errors,
     };
     let table_mode = !args.json && args.csv.is_none();
-    for c in report.channels.iter().filter(|_| !table_mode) {
-        for w in &c.warnings {
-            eprintln!("warning: channel {}: {w}", c.channel);
+    if !table_mode {
+        for c in &report.channels {
+            for w in &c.warnings {
+                eprintln!("warning: channel {}: {w}", c.channel);
+            }
         }
-    }
-    for e in report.channel_errors.iter().filter(|_| !table_mode) {
-        eprintln!("error: {}", e.error);
+        for e in &report.channel_errors {
+            eprintln!("error: {}", e.error);
+        }
     }
     let text = if args.json {
         report.to_json()
@@ -101,21 +115,17 @@ fn analyze(args: &AnalyzeArgs) -> Result<ExitCode, String> {
     })
 }
 
-/// Channels in parallel (one thread per channel up to the core count); results in input order.
-fn analyze_all(
-    analyzer: &ToneAnalyzer,
-    inputs: &[ChannelInput],
-    cal: &ampnote::calibration::Calibration,
-) -> Vec<ampnote::Result<ampnote::analysis::tone::ToneResult>> {
-    ampnote::analysis::tone::analyze_channels(analyzer, inputs, cal)
-}
-
 /// Write a file whole or not at all: temporary name, then rename.
 fn write_whole(path: &std::path::Path, text: &str) -> Result<(), String> {
     let tmp = path.with_extension("partial");
     std::fs::write(&tmp, text)
         .and_then(|_| std::fs::rename(&tmp, path))
-        .map_err(|e| format!("cannot write {}: {e}. Check that the folder exists and has space.", path.display()))
+        .map_err(|e| {
+            format!(
+                "cannot write {}: {e}. Check that the folder exists and has space.",
+                path.display()
+            )
+        })
 }
 
 /// Print to stdout; a closed pipe (`| head`) is not an error.

@@ -61,7 +61,12 @@ impl LineFit {
 /// transform windowed by `window`). Each line is fitted over its main lobe plus one bin either side;
 /// beyond that the 7-term window's sidelobes are below -180 dB. Returns `None` when two lines are
 /// too close to separate (the normal equations are not positive definite).
-pub fn fit_lines(spec: &[Complex64], n: usize, window: &CosineSum, freqs_bins: &[f64]) -> Option<LineFit> {
+pub fn fit_lines(
+    spec: &[Complex64],
+    n: usize,
+    window: &CosineSum,
+    freqs_bins: &[f64],
+) -> Option<LineFit> {
     let half = window.main_lobe_half_width() + 1;
     let last_bin = spec.len() - 1;
     let bases: Vec<Basis> = freqs_bins
@@ -114,7 +119,12 @@ pub fn fit_lines(spec: &[Complex64], n: usize, window: &CosineSum, freqs_bins: &
         .enumerate()
         .map(|(i, basis)| {
             let (u, v) = (p[2 * i], p[2 * i + 1]);
-            let vals = basis.re.iter().zip(&basis.im).map(|(r, q)| r * u + q * v).collect();
+            let vals = basis
+                .re
+                .iter()
+                .zip(&basis.im)
+                .map(|(r, q)| r * u + q * v)
+                .collect();
             (basis.start, vals)
         })
         .collect();
@@ -150,7 +160,9 @@ fn solve_group(bases: &[Basis], group: &[usize], spec: &[Complex64], p: &mut [f6
                         continue;
                     }
                     let vj = if pj == 0 { &bj.re } else { &bj.im };
-                    let s: f64 = (lo..hi).map(|k| (vi[k - bi.start].conj() * vj[k - bj.start]).re).sum();
+                    let s: f64 = (lo..hi)
+                        .map(|k| (vi[k - bi.start].conj() * vj[k - bj.start]).re)
+                        .sum();
                     g[row * m + col] = s;
                     g[col * m + row] = s;
                 }
@@ -168,7 +180,13 @@ fn solve_group(bases: &[Basis], group: &[usize], spec: &[Complex64], p: &mut [f6
 /// Refines the frequency of the line near `f_init` (bins) by golden-section search over
 /// `f_init +/- 1` bin, minimising the residual of a joint fit of that line and `others` (fixed
 /// frequencies of nearby lines). Converges to about 1e-9 bin.
-pub fn refine_frequency(spec: &[Complex64], n: usize, window: &CosineSum, f_init: f64, others: &[f64]) -> f64 {
+pub fn refine_frequency(
+    spec: &[Complex64],
+    n: usize,
+    window: &CosineSum,
+    f_init: f64,
+    others: &[f64],
+) -> f64 {
     let cost = |f: f64| -> f64 {
         let mut freqs = Vec::with_capacity(others.len() + 1);
         freqs.push(f);
@@ -225,7 +243,7 @@ pub fn solve_spd(g: &mut [f64], b: &[f64], m: usize) -> Option<Vec<f64>> {
         for k in 0..j {
             d -= g[j * m + k] * g[j * m + k];
         }
-        if !(d > scale * 1e-12) {
+        if d.is_nan() || d <= scale * 1e-12 {
             return None;
         }
         let d = d.sqrt();
@@ -279,5 +297,8 @@ pub fn sine_fit_time_domain(x: &[f64], freqs: &[f64]) -> Option<(Vec<(f64, f64)>
         }
     }
     let p = solve_spd(&mut g, &b, m)?;
-    Some(((0..freqs.len()).map(|i| (p[2 * i], p[2 * i + 1])).collect(), p[m - 1]))
+    Some((
+        (0..freqs.len()).map(|i| (p[2 * i], p[2 * i + 1])).collect(),
+        p[m - 1],
+    ))
 }

@@ -6,7 +6,7 @@
 //! square of the signal (Parseval), so a sum over a band is the signal's power in that band with
 //! the window's noise bandwidth already accounted for.
 
-use super::window::CosineSum;
+use super::window::{CosineSum, WindowGenerator, WINDOW_BLOCK};
 use realfft::num_complex::Complex64;
 use realfft::{RealFftPlanner, RealToComplex};
 use std::collections::HashMap;
@@ -16,10 +16,13 @@ use std::sync::{Arc, Mutex};
 pub struct SpectrumPlan {
     pub len: usize,
     pub window: CosineSum,
-    pub window_samples: Vec<f64>,
+    /// Makes the window block by block (it is never stored whole).
+    pub window_generator: WindowGenerator,
     /// `sum(w^2)`
     pub window_energy: f64,
     fft: Arc<dyn RealToComplex<f64>>,
+    /// Buffers handed back after use, so repeated analyses of one length allocate once.
+    pool: Mutex<Vec<SpectrumBuffers>>,
 }
 
 impl SpectrumPlan {
@@ -33,7 +36,21 @@ impl SpectrumPlan {
         2.0 / (self.len as f64 * self.window_energy)
     }
 
-    /// Buffers sized for this plan; reuse them across calls.
+    /// Buffers sized for this plan: a pooled set when one is free, else new ones. Hand them back
+    /// with [`SpectrumPlan::give_back`].
+    pub fn take_buffers(&self) -> SpectrumBuffers {
+        if let Some(b) = self.pool.lock().expect("pool lock").pop() {
+            return b;
+        }
+        self.make_buffers()
+    }
+
+    /// Return buffers from [`SpectrumPlan::take_buffers`] for the next analysis of this length.
+    pub fn give_back(&self, buffers: SpectrumBuffers) {
+        self.pool.lock().expect("pool lock").push(buffers);
+    }
+
+    /// New buffers sized for this plan.
     pub fn make_buffers(&self) -> SpectrumBuffers {
         SpectrumBuffers {
             input: vec![0.0; self.len],
@@ -42,21 +59,35 @@ impl SpectrumPlan {
         }
     }
 
+    /// Transform what the caller already placed (windowed) in `buffers.input`; the spectrum lands
+    /// in `buffers.output` and `buffers.input` is used as scratch.
+    pub fn transform_prepared(&self, buffers: &mut SpectrumBuffers) {
+        self.fft
+            .process_with_scratch(
+                &mut buffers.input,
+                &mut buffers.output,
+                &mut buffers.scratch,
+            )
+            .expect("buffers come from make_buffers and match the plan");
+    }
+
     /// Window `samples[..len]` after subtracting `offset`, transform, and leave the spectrum in
-    /// `buffers.output`.
+    /// `buffers.output`. The window is generated block by block, never stored whole.
     pub fn transform(&self, samples: &[f64], offset: f64, buffers: &mut SpectrumBuffers) {
         debug_assert!(samples.len() >= self.len);
-        for ((dst, &x), &w) in buffers
-            .input
-            .iter_mut()
-            .zip(&samples[..self.len])
-            .zip(&self.window_samples)
+        let mut w = [0.0; WINDOW_BLOCK];
+        for (b, (xc, oc)) in samples[..self.len]
+            .chunks(WINDOW_BLOCK)
+            .zip(buffers.input.chunks_mut(WINDOW_BLOCK))
+            .enumerate()
         {
-            *dst = (x - offset) * w;
+            let w = &mut w[..xc.len()];
+            self.window_generator.fill_block(b * WINDOW_BLOCK, w);
+            for ((o, &x), &wv) in oc.iter_mut().zip(xc).zip(w.iter()) {
+                *o = (x - offset) * wv;
+            }
         }
-        self.fft
-            .process_with_scratch(&mut buffers.input, &mut buffers.output, &mut buffers.scratch)
-            .expect("buffers come from make_buffers and match the plan");
+        self.transform_prepared(buffers);
     }
 }
 
@@ -86,14 +117,15 @@ impl SpectrumPlanner {
             return Arc::clone(p);
         }
         let fft = self.fft.lock().expect("planner lock").plan_fft_forward(len);
-        let window_samples = window.samples(len);
-        let window_energy = window_samples.iter().map(|w| w * w).sum();
+        // sum(w^2) = N * mean square, exact for the periodic cosine-sum form.
+        let window_energy = len as f64 * window.mean_square();
         let plan = Arc::new(SpectrumPlan {
             len,
             window,
-            window_samples,
+            window_generator: WindowGenerator::new(window, len),
             window_energy,
             fft,
+            pool: Mutex::new(Vec::new()),
         });
         self.plans
             .lock()

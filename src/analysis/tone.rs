@@ -25,7 +25,7 @@
 use super::fit::{fit_lines, refine_frequency, LineFit};
 use super::spectrum::{fast_length, SpectrumPlan, SpectrumPlanner};
 use super::weighting::Weighting;
-use super::window::{CosineSum, BLACKMAN_HARRIS_7, HANN};
+use super::window::{CosineSum, WindowGenerator, BLACKMAN_HARRIS_7, HANN, WINDOW_BLOCK};
 use crate::calibration::Calibration;
 use crate::error::{Error, Result};
 use realfft::num_complex::Complex64;
@@ -243,38 +243,61 @@ impl ToneAnalyzer {
 
     /// Analyse one channel.
     pub fn analyze(&self, input: &ChannelInput, cal: &Calibration) -> Result<ToneResult> {
-        let stats = sample_stats(input)?;
         let fs = input.sample_rate_hz;
         let nyquist = fs / 2.0;
         let band_hi = self.config.band_high_hz.unwrap_or(20_000f64.min(nyquist));
-        let band_lo = self.config.band_low_hz;
         if band_hi > nyquist + 1e-9 {
             return Err(Error::InvalidSetting(format!(
-                "the band's high edge {band_hi} Hz is above the capture's Nyquist frequency {nyquist} Hz; use --band {band_lo}:{nyquist}"
+                "the band's high edge {band_hi} Hz is above the capture's Nyquist frequency {nyquist} Hz; use --band {}:{nyquist}",
+                self.config.band_low_hz
             )));
         }
-        let half = TONE_WINDOW.main_lobe_half_width() as f64 + 1.0;
-        const MIN_SAMPLES: usize = 512;
-        let too_short = |need_samples: usize, why: &str| Error::TooShort {
-            channel: input.channel,
-            have_samples: input.samples.len(),
-            have_s: input.samples.len() as f64 / fs,
-            need_samples,
-            need_s: need_samples as f64 / fs,
-            why: why.to_string(),
-        };
         if input.samples.len() < MIN_SAMPLES {
-            return Err(too_short(MIN_SAMPLES, ""));
+            // Still report invalid or silent data for what it is.
+            sample_stats(input.samples, input, None)?;
+            return Err(too_short(input, MIN_SAMPLES, ""));
         }
         let n = fast_length(input.samples.len());
         let plan = self.planner.plan(TONE_WINDOW, n);
-        let mut buffers = plan.make_buffers();
-        plan.transform(input.samples, stats.dc, &mut buffers);
-        let spec = &buffers.output;
+        let mut buffers = plan.take_buffers();
+        // One pass over the samples gathers the statistics and fills the FFT input with the
+        // windowed samples; the mean is taken out of the spectrum afterwards (below).
+        let outcome = sample_stats(
+            input.samples,
+            input,
+            Some((&plan.window_generator, &mut buffers.input)),
+        )
+        .and_then(|stats| {
+            plan.transform_prepared(&mut buffers);
+            // A constant d windowed shows only in bins 0..=M-1 of the DFT, as d * W(k).
+            for k in 0..TONE_WINDOW.coefficients.len().min(buffers.output.len()) {
+                buffers.output[k] -= TONE_WINDOW.kernel(k as f64, n) * stats.dc_in_window;
+            }
+            self.analyze_spectrum(input, cal, &stats, &plan, &buffers.output, band_hi)
+        });
+        plan.give_back(buffers);
+        outcome
+    }
+
+    /// Everything after the transform: fits, sums, figures, warnings.
+    fn analyze_spectrum(
+        &self,
+        input: &ChannelInput,
+        cal: &Calibration,
+        stats: &SampleStats,
+        plan: &SpectrumPlan,
+        spec: &[Complex64],
+        band_hi: f64,
+    ) -> Result<ToneResult> {
+        let fs = input.sample_rate_hz;
+        let n = plan.len;
+        let band_lo = self.config.band_low_hz;
+        let half = TONE_WINDOW.main_lobe_half_width() as f64 + 1.0;
+        let too_short = |need: usize, why: &str| too_short(input, need, why);
         // DC offset as the window-weighted mean: X[0] / sum(w) is what is left after removing the
         // plain mean. The plain mean of a tone over a fractional number of periods is biased by up
         // to A / (pi * periods); the weighted mean's bias is the window's leakage, below -180 dB.
-        let dc = stats.dc + spec[0].re / (n as f64 * TONE_WINDOW.coherent_gain());
+        let dc = stats.dc_in_window + spec[0].re / (n as f64 * TONE_WINDOW.coherent_gain());
         let bin_hz = fs / n as f64;
         let to_bins = |hz: f64| hz / bin_hz;
 
@@ -285,13 +308,20 @@ impl ToneAnalyzer {
             Some(h) => {
                 let c = to_bins(h);
                 let w = (0.02 * c).max(3.0);
-                (((c - w).floor().max(1.0)) as usize, ((c + w).ceil() as usize).min(k_max))
+                (
+                    ((c - w).floor().max(1.0)) as usize,
+                    ((c + w).ceil() as usize).min(k_max),
+                )
             }
             None => (k_min, k_max),
         };
         if search_hi <= search_lo {
-            let need = ((2.0 * half + 2.0) * fs / self.config.fundamental_hint_hz.unwrap_or(20.0)) as usize;
-            return Err(too_short(need.max(MIN_SAMPLES), " to resolve the fundamental"));
+            let need = ((2.0 * half + 2.0) * fs / self.config.fundamental_hint_hz.unwrap_or(20.0))
+                as usize;
+            return Err(too_short(
+                need.max(MIN_SAMPLES),
+                " to resolve the fundamental",
+            ));
         }
         let k_peak = (search_lo..=search_hi)
             .max_by(|&a, &b| spec[a].norm_sqr().total_cmp(&spec[b].norm_sqr()))
@@ -335,11 +365,16 @@ impl ToneAnalyzer {
             freqs.extend(hum.iter().map(|h| h.1));
             fit_lines(spec, n, &TONE_WINDOW, &freqs)
         };
-        let mut best: Option<(f64, Vec<(usize, f64)>, LineFit, f64)> = None;
+        // (mains Hz, hum lines as (order, bin), the joint fit, fitted hum power)
+        type FamilyFit = (f64, Vec<(usize, f64)>, LineFit, f64);
+        let mut best: Option<FamilyFit> = None;
         for &m in &mains_candidates {
             let hum = hum_lines_for(m);
             let Some(fit) = fit_with(&hum) else { continue };
-            let hum_power: f64 = fit.amplitudes[tone_lines.len()..].iter().map(|c| c.norm_sqr()).sum();
+            let hum_power: f64 = fit.amplitudes[tone_lines.len()..]
+                .iter()
+                .map(|c| c.norm_sqr())
+                .sum();
             if best.as_ref().is_none_or(|b| hum_power > b.3) {
                 best = Some((m, hum, fit, hum_power));
             }
@@ -400,7 +435,8 @@ impl ToneAnalyzer {
                     level_percent: 100.0 * ratio,
                     phase_deg: wrap_degrees((phase_sin(c) - order as f64 * phi1).to_degrees()),
                     in_band: in_band(frequency_hz),
-                    at_noise_floor: c.norm_sqr() / 2.0 < NOISE_FLOOR_FACTOR * line_noise(tone_lines[i]),
+                    at_noise_floor: c.norm_sqr() / 2.0
+                        < NOISE_FLOOR_FACTOR * line_noise(tone_lines[i]),
                     level_vrms: cal.vrms_from_dbfs(level_dbfs),
                 }
             })
@@ -433,7 +469,11 @@ impl ToneAnalyzer {
             .map(|h| (h.level_percent / 100.0 * a1).powi(2) / 2.0)
             .sum();
         let thd_ratio = (harmonic_power / p1).sqrt();
-        let thdn_ratio = if p_total > 0.0 { (p_thdn / p_total).sqrt() } else { 0.0 };
+        let thdn_ratio = if p_total > 0.0 {
+            (p_thdn / p_total).sqrt()
+        } else {
+            0.0
+        };
         let thdn_db = 20.0 * thdn_ratio.max(1e-300).log10();
         let noise_dbfs = 10.0 * (p_noise / 0.5).max(1e-300).log10();
         let fundamental_vrms = cal.vrms_from_dbfs(fundamental_dbfs);
@@ -482,6 +522,21 @@ impl ToneAnalyzer {
     }
 }
 
+/// Fewer samples than this cannot hold a resolvable tone and its harmonics.
+const MIN_SAMPLES: usize = 512;
+
+fn too_short(input: &ChannelInput, need_samples: usize, why: &str) -> Error {
+    let fs = input.sample_rate_hz;
+    Error::TooShort {
+        channel: input.channel,
+        have_samples: input.samples.len(),
+        have_s: input.samples.len() as f64 / fs,
+        need_samples,
+        need_s: need_samples as f64 / fs,
+        why: why.to_string(),
+    }
+}
+
 /// Wraps degrees into (-180, 180].
 pub fn wrap_degrees(d: f64) -> f64 {
     let w = d.rem_euclid(360.0);
@@ -493,37 +548,84 @@ pub fn wrap_degrees(d: f64) -> f64 {
 }
 
 struct SampleStats {
+    /// Mean of all samples.
     dc: f64,
+    /// Mean of the samples inside the FFT (the capture may be trimmed to a fast length).
+    dc_in_window: f64,
     crest_factor: f64,
     overload: usize,
 }
 
-/// One pass for validity, mean and overload; one for RMS and peak of the AC part.
-fn sample_stats(input: &ChannelInput) -> Result<SampleStats> {
-    let x = input.samples;
-    let mut sum = 0.0;
-    let mut overload = 0usize;
-    for (i, &v) in x.iter().enumerate() {
-        if !v.is_finite() {
-            return Err(Error::NotFinite {
-                channel: input.channel,
-                index: i,
-                what: if v.is_nan() { "NaN" } else { "infinite" },
-            });
+/// One pass for validity, mean, spread, extremes and overload, in eight independent lanes so the
+/// compiler can vectorise it. With `window` (the window and the FFT input of length N), the first
+/// N samples are also written, windowed, into the FFT input, so the samples are read once.
+fn sample_stats(
+    x: &[f64],
+    input: &ChannelInput,
+    window: Option<(&WindowGenerator, &mut [f64])>,
+) -> Result<SampleStats> {
+    const L: usize = 8;
+    let mut acc = Lanes::<L>::new();
+    let thr = input.overload_threshold;
+    let head_len = window.as_ref().map_or(0, |(_, out)| out.len());
+    if let Some((win, out)) = window {
+        let mut w = [0.0f64; WINDOW_BLOCK];
+        for (b, (xb, ob)) in x[..head_len]
+            .chunks(WINDOW_BLOCK)
+            .zip(out.chunks_mut(WINDOW_BLOCK))
+            .enumerate()
+        {
+            let w = &mut w[..xb.len()];
+            win.fill_block(b * WINDOW_BLOCK, w);
+            for ((c, wc), oc) in xb
+                .chunks_exact(L)
+                .zip(w.chunks_exact(L))
+                .zip(ob.chunks_exact_mut(L))
+            {
+                for (j, ((&v, &wv), o)) in c.iter().zip(wc).zip(oc.iter_mut()).enumerate() {
+                    acc.add(j, v, thr);
+                    *o = v * wv;
+                }
+            }
+            let done = xb.len() - xb.len() % L;
+            for i in done..xb.len() {
+                acc.add(i % L, xb[i], thr);
+                ob[i] = xb[i] * w[i];
+            }
         }
-        sum += v;
-        overload += (v.abs() >= input.overload_threshold) as usize;
     }
-    let dc = sum / x.len().max(1) as f64;
-    let (mut sq, mut peak) = (0.0f64, 0.0f64);
-    for &v in x {
-        let d = v - dc;
-        sq += d * d;
-        peak = peak.max(d.abs());
+    let rest = &x[head_len..];
+    let head_sum = (head_len > 0).then(|| acc.sum.iter().sum::<f64>());
+    for c in rest.chunks_exact(L) {
+        for (j, &v) in c.iter().enumerate() {
+            acc.add(j, v, thr);
+        }
     }
-    let rms = (sq / x.len().max(1) as f64).sqrt();
-    if rms <= 1e-12 {
-        return Err(if dc == 0.0 {
+    for (j, &v) in rest.chunks_exact(L).remainder().iter().enumerate() {
+        acc.add(j, v, thr);
+    }
+    if acc.bad {
+        let (i, v) = x
+            .iter()
+            .enumerate()
+            .find(|(_, v)| !v.is_finite())
+            .expect("a non-finite sample exists");
+        return Err(Error::NotFinite {
+            channel: input.channel,
+            index: i,
+            what: if v.is_nan() { "NaN" } else { "infinite" },
+        });
+    }
+    let n = x.len().max(1) as f64;
+    let dc = acc.sum.iter().sum::<f64>() / n;
+    let max = acc.hi.iter().copied().fold(f64::NEG_INFINITY, f64::max);
+    let min = acc.lo.iter().copied().fold(f64::INFINITY, f64::min);
+    // Mean square about the mean; the subtraction loses precision only when the DC exceeds the
+    // AC part by a factor of about 10^6, far outside any usable capture.
+    let ms = (acc.sq.iter().sum::<f64>() / n - dc * dc).max(0.0);
+    let rms = ms.sqrt();
+    if rms <= 1e-12 || max - min <= 1e-15 {
+        return Err(if dc == 0.0 && max == 0.0 && min == 0.0 {
             Error::Silent {
                 channel: input.channel,
             }
@@ -536,9 +638,43 @@ fn sample_stats(input: &ChannelInput) -> Result<SampleStats> {
     }
     Ok(SampleStats {
         dc,
-        crest_factor: peak / rms,
-        overload,
+        dc_in_window: head_sum.map_or(dc, |s| s / head_len as f64),
+        crest_factor: (max - dc).max(dc - min) / rms,
+        overload: acc.over.iter().sum::<u64>() as usize,
     })
+}
+
+/// Per-lane running statistics for [`sample_stats`].
+struct Lanes<const L: usize> {
+    sum: [f64; L],
+    sq: [f64; L],
+    hi: [f64; L],
+    lo: [f64; L],
+    over: [u64; L],
+    bad: bool,
+}
+
+impl<const L: usize> Lanes<L> {
+    fn new() -> Self {
+        Lanes {
+            sum: [0.0; L],
+            sq: [0.0; L],
+            hi: [f64::NEG_INFINITY; L],
+            lo: [f64::INFINITY; L],
+            over: [0; L],
+            bad: false,
+        }
+    }
+
+    #[inline(always)]
+    fn add(&mut self, j: usize, v: f64, thr: f64) {
+        self.bad |= !v.is_finite();
+        self.sum[j] += v;
+        self.sq[j] += v * v;
+        self.hi[j] = self.hi[j].max(v);
+        self.lo[j] = self.lo[j].min(v);
+        self.over[j] += (v.abs() >= thr) as u64;
+    }
 }
 
 struct BandSums {
@@ -623,6 +759,10 @@ struct Drift {
 
 /// Tracks the fundamental's phase over Hann-windowed segments (8, or 4 for short captures, each
 /// holding at least 8 periods). Returns `None` when the capture is too short to track.
+///
+/// Segment `s` starting at sample `a` gives `z_s = exp(-j w a) * sum_i x[a + i] T[i]` with the
+/// table `T[i] = hann[i] exp(-j w i)` built once, so the pass over the samples is a plain dot
+/// product with no loop-carried rotation.
 fn phase_track(x: &[f64], dc: f64, f_cps: f64, fs: f64) -> Option<Drift> {
     let segments = [8usize, 4]
         .into_iter()
@@ -630,21 +770,43 @@ fn phase_track(x: &[f64], dc: f64, f_cps: f64, fs: f64) -> Option<Drift> {
     let len = x.len() / segments;
     let hann = HANN.samples(len);
     let step = Complex64::from_polar(1.0, -2.0 * PI * f_cps);
+    let mut rot = Complex64::new(1.0, 0.0);
+    let mut table_re = Vec::with_capacity(len);
+    let mut table_im = Vec::with_capacity(len);
+    for (i, &h) in hann.iter().enumerate() {
+        if i % 1024 == 0 {
+            // Re-anchor the rotating phasor so rounding cannot accumulate.
+            rot = Complex64::from_polar(1.0, -2.0 * PI * (f_cps * i as f64).fract());
+        }
+        table_re.push(h * rot.re);
+        table_im.push(h * rot.im);
+        rot *= step;
+    }
+    // The mean was not removed from the samples: each segment's sum holds dc * sum(T) extra.
+    let t_sum = Complex64::new(table_re.iter().sum(), table_im.iter().sum());
     let mut phases = Vec::with_capacity(segments);
     let mut times = Vec::with_capacity(segments);
     for s in 0..segments {
         let start = s * len;
-        let mut z = Complex64::new(0.0, 0.0);
-        let mut rot = Complex64::new(1.0, 0.0);
-        for (i, (&v, &h)) in x[start..start + len].iter().zip(&hann).enumerate() {
-            if i % 4096 == 0 {
-                // Re-anchor the rotating phasor so rounding cannot accumulate.
-                let ph = -2.0 * PI * ((f_cps * (start + i) as f64).fract());
-                rot = Complex64::from_polar(1.0, ph);
+        let seg = &x[start..start + len];
+        let (mut re, mut im) = ([0.0f64; 4], [0.0f64; 4]);
+        let chunks = seg
+            .chunks_exact(4)
+            .zip(table_re.chunks_exact(4))
+            .zip(table_im.chunks_exact(4));
+        for ((xv, tr), ti) in chunks {
+            for (j, ((&v, &r), &i)) in xv.iter().zip(tr).zip(ti).enumerate() {
+                re[j] += v * r;
+                im[j] += v * i;
             }
-            z += rot * ((v - dc) * h);
-            rot *= step;
         }
+        let done = len - len % 4;
+        let mut z = Complex64::new(re.iter().sum(), im.iter().sum());
+        for i in done..len {
+            z += Complex64::new(seg[i] * table_re[i], seg[i] * table_im[i]);
+        }
+        z -= t_sum * dc;
+        z *= Complex64::from_polar(1.0, -2.0 * PI * (f_cps * start as f64).fract());
         phases.push(z.arg());
         times.push((start as f64 + len as f64 / 2.0) / fs);
     }
@@ -694,12 +856,22 @@ fn polyfit(t: &[f64], y: &[f64], deg: usize) -> Option<Vec<f64>> {
     // Shift back from (t - t0) to t: only the linear and quadratic terms are used.
     Some(match deg {
         1 => vec![c[0] - c[1] * t0, c[1]],
-        _ => vec![c[0] - c[1] * t0 + c[2] * t0 * t0, c[1] - 2.0 * c[2] * t0, c[2]],
+        _ => vec![
+            c[0] - c[1] * t0 + c[2] * t0 * t0,
+            c[1] - 2.0 * c[2] * t0,
+            c[2],
+        ],
     })
 }
 
 /// Measurement-quality warnings: what a technician must know before trusting the figures.
-fn quality_warnings(r: &ToneResult, input: &ChannelInput, p_thdn: f64, p1: f64, drift: Option<Drift>) -> Vec<String> {
+fn quality_warnings(
+    r: &ToneResult,
+    input: &ChannelInput,
+    p_thdn: f64,
+    p1: f64,
+    drift: Option<Drift>,
+) -> Vec<String> {
     let mut w = Vec::new();
     if r.overload_samples > 0 {
         w.push(format!(
@@ -784,18 +956,4 @@ fn quality_warnings(r: &ToneResult, input: &ChannelInput, p_thdn: f64, p1: f64, 
         ));
     }
     w
-}
-
-/// Analyse several channels of one capture, in parallel when cores allow.
-pub fn analyze_channels(
-    analyzer: &ToneAnalyzer,
-    inputs: &[ChannelInput],
-    cal: &Calibration,
-) -> Vec<Result<ToneResult>> {
-    inputs.iter().map(|i| analyzer.analyze(i, cal)).collect()
-}
-
-#[doc(hidden)]
-pub fn plan_for_bench(analyzer: &ToneAnalyzer, n: usize) -> std::sync::Arc<SpectrumPlan> {
-    analyzer.planner.plan(TONE_WINDOW, fast_length(n))
 }

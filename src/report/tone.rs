@@ -34,12 +34,32 @@ impl AnalyzeReport {
 
     /// One row per channel; harmonics and hum lines as columns.
     pub fn to_csv(&self) -> String {
-        let max_h = self.channels.iter().map(|c| c.harmonics.len()).max().unwrap_or(0);
+        let max_h = self
+            .channels
+            .iter()
+            .map(|c| c.harmonics.len())
+            .max()
+            .unwrap_or(0);
         let max_hum = self.channels.iter().map(|c| c.hum.len()).max().unwrap_or(0);
         let mut head = vec![
-            "channel", "fundamental_hz", "fundamental_dbfs", "fundamental_vrms", "output_w", "thd_percent", "thd_db",
-            "thdn_percent", "thdn_db", "sinad_db", "band_low_hz", "band_high_hz", "noise_dbfs", "noise_weighting",
-            "dc_offset", "crest_factor", "overload_samples", "mains_hz",
+            "channel",
+            "fundamental_hz",
+            "fundamental_dbfs",
+            "fundamental_vrms",
+            "output_w",
+            "thd_percent",
+            "thd_db",
+            "thdn_percent",
+            "thdn_db",
+            "sinad_db",
+            "band_low_hz",
+            "band_high_hz",
+            "noise_dbfs",
+            "noise_weighting",
+            "dc_offset",
+            "crest_factor",
+            "overload_samples",
+            "mains_hz",
         ]
         .into_iter()
         .map(String::from)
@@ -86,7 +106,12 @@ impl AnalyzeReport {
                 }
             }
             for i in 0..max_hum {
-                row.push(c.hum.get(i).map(|h| format!("{}", h.level_dbc)).unwrap_or_default());
+                row.push(
+                    c.hum
+                        .get(i)
+                        .map(|h| format!("{}", h.level_dbc))
+                        .unwrap_or_default(),
+                );
             }
             row.push(csv_quote(&c.warnings.join("; ")));
             out += &(row.join(",") + "\n");
@@ -105,7 +130,11 @@ impl AnalyzeReport {
             self.channel_count,
             self.encoding.describe(),
             self.frames as f64 / self.sample_rate_hz as f64,
-            if self.truncated { " (truncated file)" } else { "" }
+            if self.truncated {
+                " (truncated file)"
+            } else {
+                ""
+            }
         );
         for c in &self.channels {
             s.push('\n');
@@ -122,9 +151,15 @@ fn channel_table(s: &mut String, c: &ToneResult) {
     let _ = writeln!(
         s,
         "Channel {}  ({:.3} s analysed, band {}-{} Hz)",
-        c.channel, c.duration_s, fmt_hz(c.band_hz[0]), fmt_hz(c.band_hz[1])
+        c.channel,
+        c.duration_s,
+        fmt_hz(c.band_hz[0]),
+        fmt_hz(c.band_hz[1])
     );
-    let mut level = format!("{:>12.4} Hz   {:>8.2} dBFS", c.fundamental_hz, c.fundamental_dbfs);
+    let mut level = format!(
+        "{:>12.4} Hz   {:>8.2} dBFS",
+        c.fundamental_hz, c.fundamental_dbfs
+    );
     if let Some(v) = c.fundamental_vrms {
         let _ = write!(level, "   {} rms", fmt_volts(v));
         if let Some(dbv) = c.fundamental_dbv {
@@ -135,7 +170,12 @@ fn channel_table(s: &mut String, c: &ToneResult) {
         let _ = write!(level, "   {} into {} ohm", fmt_watts(w), fmt_num(r));
     }
     let _ = writeln!(s, "  Fundamental {level}");
-    let _ = writeln!(s, "  THD         {:>12} %   {:>8.2} dB", fmt_pct(c.thd_percent), c.thd_db);
+    let _ = writeln!(
+        s,
+        "  THD         {:>12} %   {:>8.2} dB",
+        fmt_pct(c.thd_percent),
+        c.thd_db
+    );
     let _ = writeln!(
         s,
         "  THD+N       {:>12} %   {:>8.2} dB   (SINAD {:.2} dB)",
@@ -163,7 +203,10 @@ fn channel_table(s: &mut String, c: &ToneResult) {
             c.phase_wander_deg.unwrap_or(0.0)
         );
     }
-    let _ = writeln!(s, "\n  Harmonic   Frequency        dBc          %      Phase");
+    let _ = writeln!(
+        s,
+        "\n  Harmonic   Frequency        dBc          %      Phase"
+    );
     for h in &c.harmonics {
         let mark = match (h.in_band, h.at_noise_floor) {
             (false, _) => "  (out of band)",
@@ -182,7 +225,12 @@ fn channel_table(s: &mut String, c: &ToneResult) {
         );
     }
     if !c.hum.is_empty() {
-        let _ = writeln!(s, "\n  Hum (mains {} Hz, {})", fmt_num(c.mains_hz), c.mains_source);
+        let _ = writeln!(
+            s,
+            "\n  Hum (mains {} Hz, {})",
+            fmt_num(c.mains_hz),
+            c.mains_source
+        );
         for h in &c.hum {
             let mut line = format!(
                 "  {:>6} Hz {:>9.2} dBc {:>9.2} dBFS",

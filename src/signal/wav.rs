@@ -15,7 +15,13 @@ pub enum WavFormat {
 }
 
 /// Write `channels` (equal lengths, full scale 1.0) at `rate_hz`. `seed` fixes the dither.
-pub fn write_wav(path: &Path, rate_hz: u32, channels: &[Vec<f64>], format: WavFormat, seed: u64) -> Result<()> {
+pub fn write_wav(
+    path: &Path,
+    rate_hz: u32,
+    channels: &[Vec<f64>],
+    format: WavFormat,
+    seed: u64,
+) -> Result<()> {
     let werr = |e: hound::Error| Error::Write {
         path: path.to_path_buf(),
         source: match e {
@@ -24,7 +30,9 @@ pub fn write_wav(path: &Path, rate_hz: u32, channels: &[Vec<f64>], format: WavFo
         },
     };
     if channels.is_empty() || channels.iter().any(|c| c.len() != channels[0].len()) {
-        return Err(Error::InvalidSetting("channels to write must be non-empty and of equal length".into()));
+        return Err(Error::InvalidSetting(
+            "channels to write must be non-empty and of equal length".into(),
+        ));
     }
     let (bits, sample_format) = match format {
         WavFormat::Int { bits } => (bits, hound::SampleFormat::Int),
@@ -43,7 +51,9 @@ pub fn write_wav(path: &Path, rate_hz: u32, channels: &[Vec<f64>], format: WavFo
         for i in 0..channels[0].len() {
             for ch in channels {
                 match format {
-                    WavFormat::Int { bits } => w.write_sample(quantize_tpdf(ch[i], bits, &mut rng)).map_err(werr)?,
+                    WavFormat::Int { bits } => w
+                        .write_sample(quantize_tpdf(ch[i], bits, &mut rng))
+                        .map_err(werr)?,
                     WavFormat::Float32 => w.write_sample(ch[i] as f32).map_err(werr)?,
                 }
             }

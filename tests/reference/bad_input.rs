@@ -12,7 +12,10 @@ fn tmpdir(tag: &str) -> PathBuf {
 }
 
 fn run(args: &[&str]) -> (i32, String, String) {
-    let out = Command::new(env!("CARGO_BIN_EXE_ampnote")).args(args).output().unwrap();
+    let out = Command::new(env!("CARGO_BIN_EXE_ampnote"))
+        .args(args)
+        .output()
+        .unwrap();
     (
         out.status.code().unwrap_or(-1),
         String::from_utf8_lossy(&out.stdout).into(),
@@ -22,7 +25,10 @@ fn run(args: &[&str]) -> (i32, String, String) {
 
 fn expect_error(args: &[&str], needles: &[&str]) {
     let (code, out, err) = run(args);
-    assert_eq!(code, 2, "args {args:?}: exit {code}, stdout {out}, stderr {err}");
+    assert_eq!(
+        code, 2,
+        "args {args:?}: exit {code}, stdout {out}, stderr {err}"
+    );
     let all = format!("{out}{err}");
     for n in needles {
         assert!(all.contains(n), "args {args:?}: message lacks `{n}`: {all}");
@@ -31,7 +37,9 @@ fn expect_error(args: &[&str], needles: &[&str]) {
 }
 
 fn tone(n: usize) -> Vec<f64> {
-    (0..n).map(|i| 0.5 * (2.0 * std::f64::consts::PI * 997.0 * i as f64 / 48_000.0).sin()).collect()
+    (0..n)
+        .map(|i| 0.5 * (2.0 * std::f64::consts::PI * 997.0 * i as f64 / 48_000.0).sin())
+        .collect()
 }
 
 fn write(dir: &Path, name: &str, chans: &[Vec<f64>], fmt: WavFormat) -> String {
@@ -45,26 +53,45 @@ fn bad_files_give_clear_errors() {
     let d = tmpdir("files");
     let text = d.join("notes.wav");
     std::fs::write(&text, "bias 42 mA, plate 380 V\n").unwrap();
-    expect_error(&["analyze", text.to_str().unwrap()], &["not a WAV file", "Export the recording as WAV"]);
+    expect_error(
+        &["analyze", text.to_str().unwrap()],
+        &["not a WAV file", "Export the recording as WAV"],
+    );
 
     let empty = d.join("empty.wav");
     std::fs::write(&empty, b"").unwrap();
     expect_error(&["analyze", empty.to_str().unwrap()], &["not a WAV file"]);
 
-    expect_error(&["analyze", d.join("missing.wav").to_str().unwrap()], &["cannot open", "Check the path"]);
+    expect_error(
+        &["analyze", d.join("missing.wav").to_str().unwrap()],
+        &["cannot open", "Check the path"],
+    );
 
     // Truncated: cut a good file in the middle of its data.
     let good = write(&d, "good.wav", &[tone(48_000)], WavFormat::Int { bits: 24 });
     let bytes = std::fs::read(&good).unwrap();
     let cut = d.join("cut.wav");
     std::fs::write(&cut, &bytes[..bytes.len() / 2 + 1]).unwrap();
-    expect_error(&["analyze", cut.to_str().unwrap()], &["truncated", "--accept-truncated"]);
-    let (code, out, _) = run(&["analyze", cut.to_str().unwrap(), "--accept-truncated", "--json"]);
+    expect_error(
+        &["analyze", cut.to_str().unwrap()],
+        &["truncated", "--accept-truncated"],
+    );
+    let (code, out, _) = run(&[
+        "analyze",
+        cut.to_str().unwrap(),
+        "--accept-truncated",
+        "--json",
+    ]);
     assert_eq!(code, 0, "truncated file with --accept-truncated: {out}");
     assert!(out.contains("\"truncated\": true"), "{out}");
 
     // A header with no data.
-    let nodata = write(&d, "nodata.wav", &[tone(48_000)], WavFormat::Int { bits: 16 });
+    let nodata = write(
+        &d,
+        "nodata.wav",
+        &[tone(48_000)],
+        WavFormat::Int { bits: 16 },
+    );
     let b = std::fs::read(&nodata).unwrap();
     let mut h = b[..44].to_vec();
     h[40..44].copy_from_slice(&0u32.to_le_bytes());
@@ -91,7 +118,10 @@ fn bad_files_give_clear_errors() {
     std::fs::write(&f64wav, &w).unwrap();
     let (code, out, err) = run(&["analyze", f64wav.to_str().unwrap()]);
     assert_eq!(code, 2, "{out}{err}");
-    assert!(err.contains("format ampnote does not read") || err.contains("not a WAV"), "{err}");
+    assert!(
+        err.contains("format ampnote does not read") || err.contains("not a WAV"),
+        "{err}"
+    );
 
     // NaN samples in a float file.
     let mut x = tone(48_000);
@@ -114,12 +144,30 @@ fn bad_files_give_clear_errors() {
     expect_error(&["analyze", &noisy], &["no steady tone found"]);
 
     // Channel that isn't there; bad flags.
-    expect_error(&["analyze", &good, "--channel", "3"], &["channel 3 does not exist", "1 channel"]);
-    expect_error(&["analyze", &good, "--channel", "left"], &["--channel takes a number"]);
-    expect_error(&["analyze", &good, "--band", "20-20000"], &["--band takes LO:HI"]);
-    expect_error(&["analyze", &good, "--band", "20:30000"], &["above the capture's Nyquist"]);
-    expect_error(&["analyze", &good, "--load-ohms", "8"], &["need --input-fs-vrms"]);
-    expect_error(&["analyze", &good, "--input-fs-vrms=-1"], &["must be a positive number"]);
+    expect_error(
+        &["analyze", &good, "--channel", "3"],
+        &["channel 3 does not exist", "1 channel"],
+    );
+    expect_error(
+        &["analyze", &good, "--channel", "left"],
+        &["--channel takes a number"],
+    );
+    expect_error(
+        &["analyze", &good, "--band", "20-20000"],
+        &["--band takes LO:HI"],
+    );
+    expect_error(
+        &["analyze", &good, "--band", "20:30000"],
+        &["above the capture's Nyquist"],
+    );
+    expect_error(
+        &["analyze", &good, "--load-ohms", "8"],
+        &["need --input-fs-vrms"],
+    );
+    expect_error(
+        &["analyze", &good, "--input-fs-vrms=-1"],
+        &["must be a positive number"],
+    );
     std::fs::remove_dir_all(&d).ok();
 }
 
@@ -140,8 +188,20 @@ fn good_file_all_formats_and_outputs() {
         }
         let c = &v["channels"][1];
         for key in [
-            "channel", "fundamental_hz", "fundamental_dbfs", "thd_percent", "thd_db", "thdn_percent", "thdn_db",
-            "band_hz", "harmonics", "hum", "noise_dbfs", "dc_offset", "overload_samples", "warnings",
+            "channel",
+            "fundamental_hz",
+            "fundamental_dbfs",
+            "thd_percent",
+            "thd_db",
+            "thdn_percent",
+            "thdn_db",
+            "band_hz",
+            "harmonics",
+            "hum",
+            "noise_dbfs",
+            "dc_offset",
+            "overload_samples",
+            "warnings",
         ] {
             assert!(c.get(key).is_some(), "{name}: channel JSON lacks {key}");
         }
@@ -152,18 +212,40 @@ fn good_file_all_formats_and_outputs() {
         }
         let (code, csv, _) = run(&["analyze", &p, "--csv", "--channel", "1"]);
         assert_eq!(code, 0);
-        assert_eq!(csv.lines().count(), 2, "{name}: CSV header + one row: {csv}");
-        let (code, table, _) = run(&["analyze", &p, "--input-fs-vrms", "2", "--attenuation", "10", "--load-ohms", "8"]);
+        assert_eq!(
+            csv.lines().count(),
+            2,
+            "{name}: CSV header + one row: {csv}"
+        );
+        let (code, table, _) = run(&[
+            "analyze",
+            &p,
+            "--input-fs-vrms",
+            "2",
+            "--attenuation",
+            "10",
+            "--load-ohms",
+            "8",
+        ]);
         assert_eq!(code, 0);
-        assert!(table.contains("into 8 ohm") && table.contains("dBV"), "{table}");
+        assert!(
+            table.contains("into 8 ohm") && table.contains("dBV"),
+            "{table}"
+        );
     }
     // Overload: a clipped float file is counted and warned about.
-    let clipped: Vec<f64> = tone(48_000).into_iter().map(|v| (v * 2.5).clamp(-1.0, 1.0)).collect();
+    let clipped: Vec<f64> = tone(48_000)
+        .into_iter()
+        .map(|v| (v * 2.5).clamp(-1.0, 1.0))
+        .collect();
     let p = write(&d, "clipped.wav", &[clipped], WavFormat::Float32);
     let (code, out, _) = run(&["analyze", &p, "--json"]);
     assert_eq!(code, 0);
     let v: serde_json::Value = serde_json::from_str(&out).unwrap();
     assert!(v["channels"][0]["overload_samples"].as_u64().unwrap() > 1000);
-    assert!(v["channels"][0]["warnings"][0].as_str().unwrap().contains("input overload"));
+    assert!(v["channels"][0]["warnings"][0]
+        .as_str()
+        .unwrap()
+        .contains("input overload"));
     std::fs::remove_dir_all(&d).ok();
 }

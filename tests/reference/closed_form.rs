@@ -35,7 +35,12 @@ fn config_all_harmonics(f0: f64) -> ToneConfig {
     }
 }
 
-fn check_series(name: &str, f0: f64, fs: f64, coef: impl Fn(usize) -> f64 + Copy) -> ampnote::analysis::tone::ToneResult {
+fn check_series(
+    name: &str,
+    f0: f64,
+    fs: f64,
+    coef: impl Fn(usize) -> f64 + Copy,
+) -> ampnote::analysis::tone::ToneResult {
     let x = sines(fs, fs as usize, &series(f0, fs, coef));
     let r = analyze_with(&x, fs, config_all_harmonics(f0));
     let expected = truncated_thd(f0, 20_000.0, coef);
@@ -49,7 +54,12 @@ fn check_series(name: &str, f0: f64, fs: f64, coef: impl Fn(usize) -> f64 + Copy
     // AES17 THD+N: all in-band terms but the fundamental over all in-band terms (no noise here).
     let thd_r = expected / (1.0 + expected * expected).sqrt(); // IEC 60268-3 THD_R = THD_F / sqrt(1 + THD_F^2)
     let err_n = db(r.thdn_percent / 100.0) - db(thd_r);
-    assert!(err_n.abs() < 0.01, "{name}: THD+N {:.6} % vs THD_R {:.6} % ({err_n:+.4} dB)", r.thdn_percent, thd_r * 100.0);
+    assert!(
+        err_n.abs() < 0.01,
+        "{name}: THD+N {:.6} % vs THD_R {:.6} % ({err_n:+.4} dB)",
+        r.thdn_percent,
+        thd_r * 100.0
+    );
     // Individual harmonics against their coefficients.
     for h in r.harmonics.iter().filter(|h| coef(h.order) != 0.0) {
         let want = db(coef(h.order).abs() / coef(1).abs());
@@ -66,12 +76,21 @@ fn check_series(name: &str, f0: f64, fs: f64, coef: impl Fn(usize) -> f64 + Copy
 #[test]
 fn square_wave_series() {
     // Square wave: b_n = 4/(pi n) for odd n. Infinite-sum THD_F = sqrt(pi^2/8 - 1) = 48.34 %.
-    let coef = |n: usize| if n % 2 == 1 { 4.0 / (PI * n as f64) } else { 0.0 };
+    let coef = |n: usize| {
+        if n % 2 == 1 {
+            4.0 / (PI * n as f64)
+        } else {
+            0.0
+        }
+    };
     let r = check_series("square", 211.7, 96_000.0, coef);
     // The band holds 94 harmonics; the missing tail, sum over odd n > 94 of 1/n^2, is about 1/(2*95).
     let infinite = (PI * PI / 8.0 - 1.0).sqrt();
     let with_tail = ((r.thd_percent / 100.0).powi(2) + 1.0 / 190.0).sqrt();
-    assert!((with_tail - infinite).abs() < 0.002, "square THD with tail {with_tail:.4} vs {infinite:.4}");
+    assert!(
+        (with_tail - infinite).abs() < 0.002,
+        "square THD with tail {with_tail:.4} vs {infinite:.4}"
+    );
 }
 
 #[test]
@@ -87,13 +106,25 @@ fn triangle_wave_series() {
     };
     let r = check_series("triangle", 503.3, 48_000.0, coef);
     // The 1/n^4 tail beyond the band is negligible: the truncated figure is the textbook 12.12 %.
-    assert!((r.thd_percent - 12.12).abs() < 0.01, "triangle THD {:.4} % vs 12.12 %", r.thd_percent);
+    assert!(
+        (r.thd_percent - 12.12).abs() < 0.01,
+        "triangle THD {:.4} % vs 12.12 %",
+        r.thd_percent
+    );
     // Alternating signs: H3 is inverted (phase 180), H5 not (phase 0); the convention's phase
     // is phi_n - n phi_1 with phi_1 = 0 here.
     let h3 = &r.harmonics[1];
     let h5 = &r.harmonics[3];
-    assert!((h3.phase_deg.abs() - 180.0).abs() < 0.01, "triangle H3 phase {}", h3.phase_deg);
-    assert!(h5.phase_deg.abs() < 0.01, "triangle H5 phase {}", h5.phase_deg);
+    assert!(
+        (h3.phase_deg.abs() - 180.0).abs() < 0.01,
+        "triangle H3 phase {}",
+        h3.phase_deg
+    );
+    assert!(
+        h5.phase_deg.abs() < 0.01,
+        "triangle H5 phase {}",
+        h5.phase_deg
+    );
 }
 
 #[test]
@@ -123,7 +154,8 @@ fn clipped_coef(c: f64) -> impl Fn(usize) -> f64 + Copy {
             (2.0 * alpha + (2.0 * alpha).sin()) / PI
         } else if n % 2 == 1 {
             let nf = n as f64;
-            4.0 * (nf * (nf * alpha).sin() * alpha.cos() - alpha.sin() * (nf * alpha).cos()) / (PI * nf * (nf * nf - 1.0))
+            4.0 * (nf * (nf * alpha).sin() * alpha.cos() - alpha.sin() * (nf * alpha).cos())
+                / (PI * nf * (nf * nf - 1.0))
         } else {
             0.0
         }
@@ -152,7 +184,11 @@ fn hard_clipped_sine_matches_table() {
             );
         }
         let fund_dbfs = db(b1);
-        assert!((r.fundamental_dbfs - fund_dbfs).abs() < 0.001, "clip {c}: fundamental {} vs {fund_dbfs}", r.fundamental_dbfs);
+        assert!(
+            (r.fundamental_dbfs - fund_dbfs).abs() < 0.001,
+            "clip {c}: fundamental {} vs {fund_dbfs}",
+            r.fundamental_dbfs
+        );
         // Harmonics above 20 kHz (order > 205) fall like 1/n^2: the band keeps all but ~1e-5 of THD.
         assert!(
             (r.thd_percent - thd).abs() / thd < 0.002,
@@ -178,20 +214,43 @@ fn memoryless_polynomial_closed_form() {
         let h2 = a2 * amp * amp / 2.0;
         let h3 = a3 * amp.powi(3) / 4.0;
         let ctx = format!("a2 {a2}, a3 {a3}, A {amp}");
-        assert!((r.fundamental_dbfs - db(h1.abs())).abs() < 1e-3, "{ctx}: H1 {}", r.fundamental_dbfs);
-        assert!((r.harmonics[0].level_dbc - db(h2.abs() / h1)).abs() < 0.01, "{ctx}: H2 {}", r.harmonics[0].level_dbc);
-        assert!((r.harmonics[1].level_dbc - db(h3.abs() / h1)).abs() < 0.01, "{ctx}: H3 {}", r.harmonics[1].level_dbc);
+        assert!(
+            (r.fundamental_dbfs - db(h1.abs())).abs() < 1e-3,
+            "{ctx}: H1 {}",
+            r.fundamental_dbfs
+        );
+        assert!(
+            (r.harmonics[0].level_dbc - db(h2.abs() / h1)).abs() < 0.01,
+            "{ctx}: H2 {}",
+            r.harmonics[0].level_dbc
+        );
+        assert!(
+            (r.harmonics[1].level_dbc - db(h3.abs() / h1)).abs() < 0.01,
+            "{ctx}: H3 {}",
+            r.harmonics[1].level_dbc
+        );
         let want_p2 = if a2 > 0.0 { -90.0 } else { 90.0 };
         let want_p3 = if a3 > 0.0 { 180.0 } else { 0.0 };
         let p2 = r.harmonics[0].phase_deg;
         let p3 = r.harmonics[1].phase_deg;
-        assert!((p2 - want_p2).abs() < 0.05, "{ctx}: H2 phase {p2} vs {want_p2}");
+        assert!(
+            (p2 - want_p2).abs() < 0.05,
+            "{ctx}: H2 phase {p2} vs {want_p2}"
+        );
         assert!(
             (ampnote::analysis::tone::wrap_degrees(p3 - want_p3)).abs() < 0.05,
             "{ctx}: H3 phase {p3} vs {want_p3}"
         );
-        assert!((r.dc_offset - h2).abs() < 1e-7, "{ctx}: DC {} vs {h2}", r.dc_offset);
+        assert!(
+            (r.dc_offset - h2).abs() < 1e-7,
+            "{ctx}: DC {} vs {h2}",
+            r.dc_offset
+        );
         // Higher orders are absent: at the analysis's numerical floor, far below -150 dBc.
-        assert!(r.harmonics[2..].iter().all(|h| h.level_dbc < -150.0), "{ctx}: spurious harmonics {:?}", r.harmonics);
+        assert!(
+            r.harmonics[2..].iter().all(|h| h.level_dbc < -150.0),
+            "{ctx}: spurious harmonics {:?}",
+            r.harmonics
+        );
     }
 }

@@ -9,7 +9,10 @@ pub fn sines(fs: f64, n: usize, parts: &[(f64, f64, f64)]) -> Vec<f64> {
     (0..n)
         .map(|i| {
             let t = i as f64 / fs;
-            parts.iter().map(|&(f, a, p)| a * (2.0 * PI * f * t + p).sin()).sum()
+            parts
+                .iter()
+                .map(|&(f, a, p)| a * (2.0 * PI * f * t + p).sin())
+                .sum()
         })
         .collect()
 }
@@ -28,7 +31,9 @@ pub fn analyze_bits(x: &[f64], fs: f64, config: ToneConfig, bits: u32) -> ToneRe
         overload_threshold: 1.0,
         resolution_bits: bits,
     };
-    analyzer.analyze(&input, &Calibration::default()).expect("analysis succeeds")
+    analyzer
+        .analyze(&input, &Calibration::default())
+        .expect("analysis succeeds")
 }
 
 pub fn analyze(x: &[f64], fs: f64) -> ToneResult {

@@ -26,7 +26,11 @@ fn fixture_cases() -> Vec<(String, Value)> {
         })
         .collect();
     out.sort_by(|a, b| a.0.cmp(&b.0));
-    assert!(out.len() >= 4, "expected the four numpy fixtures, found {}", out.len());
+    assert!(
+        out.len() >= 4,
+        "expected the four numpy fixtures, found {}",
+        out.len()
+    );
     out
 }
 
@@ -64,15 +68,30 @@ fn numpy_fixtures_agree() {
                 let ctx = format!("{name} ch{c}");
                 let rel_db = |a: f64, b: f64| 20.0 * (a / b).log10();
                 assert!(
-                    (r.fundamental_hz - f(&ch["fundamental_hz"])).abs() / f(&ch["fundamental_hz"]) < 1e-6,
+                    (r.fundamental_hz - f(&ch["fundamental_hz"])).abs() / f(&ch["fundamental_hz"])
+                        < 1e-6,
                     "{ctx}: f0 {}",
                     r.fundamental_hz
                 );
-                assert!((r.fundamental_dbfs - f(&ch["fundamental_dbfs"])).abs() < 0.01, "{ctx}: level {}", r.fundamental_dbfs);
+                assert!(
+                    (r.fundamental_dbfs - f(&ch["fundamental_dbfs"])).abs() < 0.01,
+                    "{ctx}: level {}",
+                    r.fundamental_dbfs
+                );
                 let thd = rel_db(r.thd_percent, f(&ch["thd_percent"]));
-                assert!(thd.abs() < 0.02, "{ctx}: THD {} % vs numpy {} % ({thd:+.4} dB)", r.thd_percent, ch["thd_percent"]);
+                assert!(
+                    thd.abs() < 0.02,
+                    "{ctx}: THD {} % vs numpy {} % ({thd:+.4} dB)",
+                    r.thd_percent,
+                    ch["thd_percent"]
+                );
                 let thdn = rel_db(r.thdn_percent, f(&ch["thdn_percent"]));
-                assert!(thdn.abs() < 0.02, "{ctx}: THD+N {} % vs numpy {} % ({thdn:+.4} dB)", r.thdn_percent, ch["thdn_percent"]);
+                assert!(
+                    thdn.abs() < 0.02,
+                    "{ctx}: THD+N {} % vs numpy {} % ({thdn:+.4} dB)",
+                    r.thdn_percent,
+                    ch["thdn_percent"]
+                );
                 let key = match weighting {
                     Weighting::None => "noise_dbfs",
                     Weighting::A => "noise_a_weighted_dbfs",
@@ -86,16 +105,35 @@ fn numpy_fixtures_agree() {
                 // Noise in one fitted line: the band's noise power times ENBW / band bins. A line
                 // `snr` dB above it has a level spread of about 8.686 / sqrt(2) * 10^(-snr/20) dB
                 // (one standard deviation); allow three on top of the 0.05 dB target.
-                let band = (20_000.0f64.min(cap.sample_rate_hz as f64 / 2.0) - 20.0) / r.analysis.bin_width_hz;
-                let line_noise_dbfs = f(&ch["noise_dbfs"]) + 10.0 * (r.analysis.enbw_bins / band).log10();
-                let tol = |level_dbfs: f64| 0.05 + 3.0 * 6.142 * 10f64.powf(-(level_dbfs - line_noise_dbfs) / 20.0);
+                let band = (20_000.0f64.min(cap.sample_rate_hz as f64 / 2.0) - 20.0)
+                    / r.analysis.bin_width_hz;
+                let line_noise_dbfs =
+                    f(&ch["noise_dbfs"]) + 10.0 * (r.analysis.enbw_bins / band).log10();
+                let tol = |level_dbfs: f64| {
+                    0.05 + 3.0 * 6.142 * 10f64.powf(-(level_dbfs - line_noise_dbfs) / 20.0)
+                };
                 for h in ch["harmonics"].as_array().unwrap() {
                     let order = h["order"].as_u64().unwrap() as usize;
-                    let got = r.harmonics.iter().find(|x| x.order == order).expect("harmonic reported");
+                    let got = r
+                        .harmonics
+                        .iter()
+                        .find(|x| x.order == order)
+                        .expect("harmonic reported");
                     let t = tol(f(&h["level_dbc"]) + r.fundamental_dbfs);
-                    assert!((got.level_dbc - f(&h["level_dbc"])).abs() < t, "{ctx}: H{order} {} dBc vs {} (tolerance {t:.3} dB)", got.level_dbc, h["level_dbc"]);
-                    let dp = ampnote::analysis::tone::wrap_degrees(got.phase_deg - f(&h["phase_deg"]));
-                    assert!(dp.abs() < 0.2, "{ctx}: H{order} phase {} vs {}", got.phase_deg, h["phase_deg"]);
+                    assert!(
+                        (got.level_dbc - f(&h["level_dbc"])).abs() < t,
+                        "{ctx}: H{order} {} dBc vs {} (tolerance {t:.3} dB)",
+                        got.level_dbc,
+                        h["level_dbc"]
+                    );
+                    let dp =
+                        ampnote::analysis::tone::wrap_degrees(got.phase_deg - f(&h["phase_deg"]));
+                    assert!(
+                        dp.abs() < 0.2,
+                        "{ctx}: H{order} phase {} vs {}",
+                        got.phase_deg,
+                        h["phase_deg"]
+                    );
                 }
                 for h in ch["hum"].as_array().unwrap() {
                     let fh = f(&h["frequency_hz"]);
@@ -103,10 +141,23 @@ fn numpy_fixtures_agree() {
                         .hum
                         .iter()
                         .find(|x| (x.frequency_hz - fh).abs() < 0.01)
-                        .unwrap_or_else(|| panic!("{ctx}: hum line {fh} Hz not reported (mains {} Hz)", r.mains_hz));
+                        .unwrap_or_else(|| {
+                            panic!(
+                                "{ctx}: hum line {fh} Hz not reported (mains {} Hz)",
+                                r.mains_hz
+                            )
+                        });
                     let t = tol(f(&h["level_dbc"]) + r.fundamental_dbfs);
-                    assert!((got.level_dbc - f(&h["level_dbc"])).abs() < t, "{ctx}: hum {fh} Hz {} dBc vs {} (tolerance {t:.3} dB)", got.level_dbc, h["level_dbc"]);
-                    assert!(!got.at_noise_floor, "{ctx}: hum {fh} Hz flagged at the noise floor");
+                    assert!(
+                        (got.level_dbc - f(&h["level_dbc"])).abs() < t,
+                        "{ctx}: hum {fh} Hz {} dBc vs {} (tolerance {t:.3} dB)",
+                        got.level_dbc,
+                        h["level_dbc"]
+                    );
+                    assert!(
+                        !got.at_noise_floor,
+                        "{ctx}: hum {fh} Hz flagged at the noise floor"
+                    );
                 }
                 if !ch["hum"].as_array().unwrap().is_empty() {
                     assert_eq!(r.mains_source, "detected", "{ctx}");

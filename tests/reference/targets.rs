@@ -13,15 +13,29 @@ fn harmonics_to_minus_120_dbc_on_float_input_within_0_05_db() {
     // WAV, whose rounding noise sits near -150 dB.
     let fs = 96_000.0;
     let a1 = 0.5;
-    let levels = [(2, -60.0), (3, -80.0), (4, -100.0), (5, -110.0), (6, -120.0)];
+    let levels = [
+        (2, -60.0),
+        (3, -80.0),
+        (4, -100.0),
+        (5, -110.0),
+        (6, -120.0),
+    ];
     let mut parts = vec![(1000.3, a1, 0.1)];
     for &(k, dbc) in &levels {
-        parts.push((1000.3 * k as f64, a1 * 10f64.powf(dbc / 20.0), 0.7 * k as f64));
+        parts.push((
+            1000.3 * k as f64,
+            a1 * 10f64.powf(dbc / 20.0),
+            0.7 * k as f64,
+        ));
     }
     let r = analyze(&to_f32(sines(fs, 96_000, &parts)), fs);
     for &(k, dbc) in &levels {
         let h = &r.harmonics[k - 2];
-        assert!((h.level_dbc - dbc).abs() < 0.05, "H{k}: {:.4} dBc vs {dbc}", h.level_dbc);
+        assert!(
+            (h.level_dbc - dbc).abs() < 0.05,
+            "H{k}: {:.4} dBc vs {dbc}",
+            h.level_dbc
+        );
     }
 }
 
@@ -37,7 +51,11 @@ fn fundamental_within_1_ppm_on_one_second() {
             .collect();
         let r = analyze(&x, fs);
         let ppm = (r.fundamental_hz - f0) / f0 * 1e6;
-        assert!(ppm.abs() < 1.0, "f0 {f0} Hz: measured {} Hz ({ppm:+.4} ppm)", r.fundamental_hz);
+        assert!(
+            ppm.abs() < 1.0,
+            "f0 {f0} Hz: measured {} Hz ({ppm:+.4} ppm)",
+            r.fundamental_hz
+        );
     }
 }
 
@@ -46,7 +64,11 @@ fn thdn_floor_on_ideal_float32_sine_below_minus_140_db() {
     for (fs, f0) in [(48_000.0, 997.0), (96_000.0, 1000.0), (44_100.0, 3141.59)] {
         let x = to_f32(sines(fs, fs as usize, &[(f0, 0.9, 0.2)]));
         let r = analyze(&x, fs);
-        assert!(r.thdn_db < -140.0, "fs {fs}, f0 {f0}: THD+N floor {:.1} dB", r.thdn_db);
+        assert!(
+            r.thdn_db < -140.0,
+            "fs {fs}, f0 {f0}: THD+N floor {:.1} dB",
+            r.thdn_db
+        );
     }
 }
 
@@ -65,16 +87,32 @@ fn time_domain_ieee_1057_fit_agrees() {
     let amp = |i: usize| (lines[i].0.powi(2) + lines[i].1.powi(2)).sqrt();
     // A cos + B sin = R sin(wn + phi) with phi = atan2(A, B)
     let phase = |i: usize| lines[i].0.atan2(lines[i].1);
-    assert!((r.fundamental_dbfs - db(amp(0))).abs() < 1e-6, "fundamental {} vs {}", r.fundamental_dbfs, db(amp(0)));
+    assert!(
+        (r.fundamental_dbfs - db(amp(0))).abs() < 1e-6,
+        "fundamental {} vs {}",
+        r.fundamental_dbfs,
+        db(amp(0))
+    );
     for k in 2..=3 {
         let h = &r.harmonics[k - 2];
         let want_dbc = db(amp(k - 1) / amp(0));
-        assert!((h.level_dbc - want_dbc).abs() < 1e-4, "H{k}: spectral {:.6} dBc vs time-domain {want_dbc:.6}", h.level_dbc);
+        assert!(
+            (h.level_dbc - want_dbc).abs() < 1e-4,
+            "H{k}: spectral {:.6} dBc vs time-domain {want_dbc:.6}",
+            h.level_dbc
+        );
         let want_phase = wrap_degrees((phase(k - 1) - k as f64 * phase(0)).to_degrees());
-        assert!(wrap_degrees(h.phase_deg - want_phase).abs() < 1e-3, "H{k}: phase {} vs {want_phase}", h.phase_deg);
+        assert!(
+            wrap_degrees(h.phase_deg - want_phase).abs() < 1e-3,
+            "H{k}: phase {} vs {want_phase}",
+            h.phase_deg
+        );
         // and both agree with the synthesis
         let synth = db(parts[k - 1].1 / parts[0].1);
-        assert!((want_dbc - synth).abs() < 1e-4, "H{k}: time-domain {want_dbc} vs synthesis {synth}");
+        assert!(
+            (want_dbc - synth).abs() < 1e-4,
+            "H{k}: time-domain {want_dbc} vs synthesis {synth}"
+        );
     }
 }
 
@@ -106,8 +144,16 @@ fn calibration_volts_and_watts() {
             &cal,
         )
         .unwrap();
-    assert!((r.fundamental_vrms.unwrap() - 2.828_427).abs() < 1e-5, "V {:?}", r.fundamental_vrms);
-    assert!((r.output_w.unwrap() - 1.0).abs() < 1e-5, "W {:?}", r.output_w);
+    assert!(
+        (r.fundamental_vrms.unwrap() - 2.828_427).abs() < 1e-5,
+        "V {:?}",
+        r.fundamental_vrms
+    );
+    assert!(
+        (r.output_w.unwrap() - 1.0).abs() < 1e-5,
+        "W {:?}",
+        r.output_w
+    );
     // dBV of 2.828 V is +9.03; dBu (0.7746 V reference) is +11.25.
     assert!((r.fundamental_dbv.unwrap() - 9.031).abs() < 0.001);
     assert!((r.fundamental_dbu.unwrap() - 11.249).abs() < 0.001);

@@ -66,5 +66,8 @@ fn a_weighting_matches_table_at_exact_frequencies() {
             "A({f:.3} Hz, nominal {nominal}) = {a:.4} dB vs table {table} dB"
         );
     }
-    assert!(a_weighting_db(1000.0).abs() < 0.001, "A(1 kHz) must be 0 dB (A1000 normalisation)");
+    assert!(
+        a_weighting_db(1000.0).abs() < 0.001,
+        "A(1 kHz) must be 0 dB (A1000 normalisation)"
+    );
 }

@@ -30,16 +30,37 @@ fn published_window_figures() {
     ];
     for (w, sidelobe, tol, enbw, scallop, cg) in cases {
         let sl = peak_sidelobe_db(&w);
-        assert!((sl - sidelobe).abs() < tol, "{}: sidelobe {sl:.2} dB vs {sidelobe}", w.name);
-        assert!((w.enbw_bins() - enbw).abs() < 0.001, "{}: ENBW {:.4} vs {enbw}", w.name, w.enbw_bins());
+        assert!(
+            (sl - sidelobe).abs() < tol,
+            "{}: sidelobe {sl:.2} dB vs {sidelobe}",
+            w.name
+        );
+        assert!(
+            (w.enbw_bins() - enbw).abs() < 0.001,
+            "{}: ENBW {:.4} vs {enbw}",
+            w.name,
+            w.enbw_bins()
+        );
         let loss = 20.0 * (w.kernel(0.0, N).norm() / w.kernel(0.5, N).norm()).log10();
-        assert!((loss - scallop).abs() < 0.01, "{}: scalloping {loss:.3} dB vs {scallop}", w.name);
-        assert!((w.coherent_gain() - cg).abs() < 0.001, "{}: coherent gain", w.name);
+        assert!(
+            (loss - scallop).abs() < 0.01,
+            "{}: scalloping {loss:.3} dB vs {scallop}",
+            w.name
+        );
+        assert!(
+            (w.coherent_gain() - cg).abs() < 0.001,
+            "{}: coherent gain",
+            w.name
+        );
         // ENBW from the sampled window agrees with the closed form.
         let s = w.samples(N);
         let sum: f64 = s.iter().sum();
         let sq: f64 = s.iter().map(|v| v * v).sum();
-        assert!((N as f64 * sq / (sum * sum) - w.enbw_bins()).abs() < 1e-9, "{}: sampled ENBW", w.name);
+        assert!(
+            (N as f64 * sq / (sum * sum) - w.enbw_bins()).abs() < 1e-9,
+            "{}: sampled ENBW",
+            w.name
+        );
     }
 }
 
@@ -51,9 +72,14 @@ fn kernel_equals_direct_dtft() {
         let direct: Complex64 = w
             .iter()
             .enumerate()
-            .map(|(i, &v)| Complex64::from_polar(v, -2.0 * std::f64::consts::PI * d * i as f64 / n as f64))
+            .map(|(i, &v)| {
+                Complex64::from_polar(v, -2.0 * std::f64::consts::PI * d * i as f64 / n as f64)
+            })
             .sum();
         let k = BLACKMAN_HARRIS_7.kernel(d, n);
-        assert!((direct - k).norm() < 1e-9 * n as f64 * 0.3, "offset {d}: direct {direct} vs kernel {k}");
+        assert!(
+            (direct - k).norm() < 1e-9 * n as f64 * 0.3,
+            "offset {d}: direct {direct} vs kernel {k}"
+        );
     }
 }
