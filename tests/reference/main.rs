@@ -8,5 +8,6 @@ mod numpy_fixtures;
 mod properties;
 mod quantization;
 mod targets;
+mod wav_reading;
 mod weighting;
 mod window;
