@@ -21,6 +21,8 @@ pub struct Calibration {
     pub attenuation: Option<f64>,
     /// Dummy-load resistance in ohms.
     pub load_ohms: Option<f64>,
+    /// RMS voltage of a full-scale sine at the interface output (what the amplifier is fed).
+    pub output_fs_vrms: Option<f64>,
 }
 
 impl Calibration {
@@ -37,6 +39,7 @@ impl Calibration {
         check("--input-fs-vrms", self.input_fs_vrms)?;
         check("--attenuation", self.attenuation)?;
         check("--load-ohms", self.load_ohms)?;
+        check("--output-fs-vrms", self.output_fs_vrms)?;
         if self.input_fs_vrms.is_none() && (self.attenuation.is_some() || self.load_ohms.is_some())
         {
             return Err(Error::InvalidSetting(
@@ -55,6 +58,13 @@ impl Calibration {
     pub fn vrms_from_dbfs(&self, dbfs: f64) -> Option<f64> {
         self.input_fs_vrms
             .map(|fs| 10f64.powf(dbfs / 20.0) * fs * self.attenuation.unwrap_or(1.0))
+    }
+
+    /// Amplifier voltage gain in dB from a digital gain (capture dBFS minus stimulus dBFS), when
+    /// both interface full scales are known: `g + 20 lg(V_in_fs * attenuation / V_out_fs)`.
+    pub fn absolute_gain_db(&self, digital_gain_db: f64) -> Option<f64> {
+        let (fs_in, fs_out) = (self.input_fs_vrms?, self.output_fs_vrms?);
+        Some(digital_gain_db + 20.0 * (fs_in * self.attenuation.unwrap_or(1.0) / fs_out).log10())
     }
 
     /// Watts into the load for a level in dBFS.

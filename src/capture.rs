@@ -52,8 +52,12 @@ impl Encoding {
 pub const MIN_RATE_HZ: u32 = 8_000;
 pub const MAX_RATE_HZ: u32 = 384_000;
 
+/// RIFF chunk id under which ampnote stores a stimulus description (JSON) in the WAVs it makes.
+/// Players and recorders skip chunks they do not know.
+pub const DESCRIPTION_CHUNK: &[u8; 4] = b"ampn";
+
 /// What a WAV header says, before any sample is decoded.
-#[derive(Debug, Clone, Copy)]
+#[derive(Debug, Clone)]
 pub struct WavInfo {
     pub sample_rate_hz: u32,
     pub encoding: Encoding,
@@ -65,6 +69,8 @@ pub struct WavInfo {
     /// The data chunk's length was 0 or 0xFFFFFFFF, as recorders that stream or crash leave it:
     /// the samples run to the end of the file.
     pub length_unknown: bool,
+    /// The stimulus description ampnote embedded, if the file is one of its stimuli.
+    pub description_json: Option<String>,
     bytes_per_sample: usize,
 }
 
@@ -80,6 +86,8 @@ pub struct Capture {
     pub channels: Vec<Vec<f64>>,
     /// The file ended before its header said it would and `accept_truncated` was set.
     pub truncated: bool,
+    /// The stimulus description ampnote embedded, if the file is one of its stimuli.
+    pub description_json: Option<String>,
 }
 
 impl Capture {
@@ -189,6 +197,7 @@ impl Capture {
             channel_numbers: numbers,
             channels: out,
             truncated,
+            description_json: info.description_json,
         })
     }
 }
@@ -215,6 +224,7 @@ fn read_header<R: Read>(reader: &mut R, path: &Path) -> Result<WavInfo> {
         return Err(not_wav("no RIFF/WAVE signature at the start"));
     }
     let mut fmt: Option<(u16, usize, u32, usize, u16)> = None; // tag, channels, rate, block align, valid bits
+    let mut description_json = None;
     let data_len = loop {
         let mut ch = [0u8; 8];
         read_exact_or(reader, &mut ch)
@@ -248,6 +258,14 @@ fn read_header<R: Read>(reader: &mut R, path: &Path) -> Result<WavInfo> {
                 fmt = Some((tag, channels, rate, block_align, bits));
             }
             b"data" => break len,
+            id if id == DESCRIPTION_CHUNK && len <= 1 << 20 => {
+                let mut body = vec![0u8; len as usize];
+                read_exact_or(reader, &mut body)
+                    .map_err(|_| not_wav("the file ends inside its description chunk"))?;
+                skip(reader, len & 1)
+                    .map_err(|_| not_wav("the file ends before its data chunk"))?;
+                description_json = String::from_utf8(body).ok();
+            }
             _ => skip(reader, len + (len & 1))
                 .map_err(|_| not_wav("the file ends before its data chunk"))?,
         }
@@ -296,6 +314,7 @@ fn read_header<R: Read>(reader: &mut R, path: &Path) -> Result<WavInfo> {
     }
     Ok(WavInfo {
         length_unknown,
+        description_json,
         sample_rate_hz: rate,
         encoding,
         channel_count: n_ch,

@@ -4,6 +4,8 @@
 use ampnote::analysis::tone::{Mains, ToneConfig};
 use ampnote::analysis::weighting::Weighting;
 use ampnote::calibration::Calibration;
+use ampnote::signal::stimulus::Common;
+use ampnote::signal::wav::WavFormat;
 use clap::{Args, Parser, Subcommand, ValueEnum};
 use std::path::PathBuf;
 
@@ -23,6 +25,178 @@ pub struct Cli {
 pub enum Command {
     /// Analyse a recorded steady tone: level, THD, THD+N, harmonics with phase, noise, hum, DC.
     Analyze(AnalyzeArgs),
+    /// Write a stimulus WAV (tone, staircase, sweep, two-tone) that remembers what it holds.
+    Generate {
+        #[command(subcommand)]
+        kind: GenerateKind,
+    },
+    /// Frequency response, phase, polarity, latency and harmonic distortion vs frequency from a
+    /// recorded sweep.
+    Response(ResponseArgs),
+    /// Intermodulation distortion from a recorded two-tone pair (IEC 60268-3).
+    Imd(ImdArgs),
+}
+
+#[derive(Debug, Subcommand)]
+pub enum GenerateKind {
+    /// A steady tone.
+    Tone {
+        /// Frequency in Hz (997 Hz is the AES17 test tone).
+        #[arg(long, default_value_t = 997.0, value_name = "HZ")]
+        freq: f64,
+        /// Length of the tone.
+        #[arg(long, default_value_t = 5.0, value_name = "S")]
+        seconds: f64,
+        #[command(flatten)]
+        common: GenerateCommon,
+    },
+    /// A staircase of tone levels for the output-power procedure.
+    Steps {
+        #[arg(long, default_value_t = 997.0, value_name = "HZ")]
+        freq: f64,
+        /// First (lowest) step, dBFS.
+        #[arg(long, default_value_t = -40.0, value_name = "DBFS", allow_negative_numbers = true)]
+        start: f64,
+        /// Last (highest) step, dBFS.
+        #[arg(long, default_value_t = -6.0, value_name = "DBFS", allow_negative_numbers = true)]
+        stop: f64,
+        /// Step size in dB.
+        #[arg(long, default_value_t = 1.0, value_name = "DB")]
+        step: f64,
+        /// Time at each level.
+        #[arg(long, default_value_t = 1.0, value_name = "S")]
+        dwell: f64,
+        /// Part of each step left for the amplifier to settle (not analysed).
+        #[arg(long, default_value_t = 0.25, value_name = "S")]
+        settle: f64,
+        #[command(flatten)]
+        common: GenerateCommon,
+    },
+    /// A synchronized exponential sweep (Novak et al. 2015).
+    Sweep {
+        /// Start frequency in Hz.
+        #[arg(long, default_value_t = 10.0, value_name = "HZ")]
+        from: f64,
+        /// Stop frequency in Hz (default: 0.45 x the rate, at most 40 kHz).
+        #[arg(long, value_name = "HZ")]
+        to: Option<f64>,
+        /// Approximate length (adjusted so the sweep is synchronized).
+        #[arg(long, default_value_t = 5.0, value_name = "S")]
+        seconds: f64,
+        #[command(flatten)]
+        common: GenerateCommon,
+    },
+    /// A two-tone pair for intermodulation: the modulation pair (default 60 Hz + 7 kHz, 4:1) or
+    /// the difference-frequency pair (default 19 + 20 kHz, 1:1).
+    Twotone {
+        #[arg(long, value_enum, default_value_t = TwoToneArg::Modulation)]
+        method: TwoToneArg,
+        /// Low tone in Hz.
+        #[arg(long, value_name = "HZ")]
+        low: Option<f64>,
+        /// High tone in Hz.
+        #[arg(long, value_name = "HZ")]
+        high: Option<f64>,
+        /// Amplitude of the low tone over the high tone.
+        #[arg(long, value_name = "R")]
+        ratio: Option<f64>,
+        #[arg(long, default_value_t = 5.0, value_name = "S")]
+        seconds: f64,
+        #[command(flatten)]
+        common: GenerateCommon,
+    },
+}
+
+#[derive(Debug, Clone, Copy, ValueEnum)]
+pub enum TwoToneArg {
+    Modulation,
+    Difference,
+}
+
+/// Options every stimulus takes.
+#[derive(Debug, Args)]
+pub struct GenerateCommon {
+    /// Sample rate in Hz.
+    #[arg(long, default_value_t = 48_000, value_name = "HZ")]
+    pub rate: u32,
+    /// Sample format: 16 or 24-bit integer (TPDF dither) or 32-bit float.
+    #[arg(long, default_value = "24", value_name = "16|24|32f")]
+    pub bits: String,
+    /// RMS level in dBFS (0 dBFS = a full-scale sine).
+    #[arg(long, default_value_t = -12.0, value_name = "DBFS", allow_negative_numbers = true)]
+    pub level: f64,
+    /// Channels in the file.
+    #[arg(long, default_value_t = 1, value_name = "N")]
+    pub channels: usize,
+    /// Channels that carry the signal (e.g. 1 or 1,2); the others stay silent.
+    #[arg(long, default_value = "all", value_name = "LIST|all")]
+    pub signal_on: String,
+    /// Silence before the signal.
+    #[arg(long, default_value_t = 0.2, value_name = "S")]
+    pub lead: f64,
+    /// Silence after the signal (sweeps need it for the response's tail).
+    #[arg(long, default_value_t = 0.5, value_name = "S")]
+    pub tail: f64,
+    /// Raised-cosine fade at each end (sweeps: fade-in only; default a few periods of the start).
+    #[arg(long, value_name = "S")]
+    pub fade: Option<f64>,
+    /// Seed of the dither (the same seed gives the same file).
+    #[arg(long, default_value_t = 1)]
+    pub seed: u64,
+    /// Output WAV file.
+    #[arg(short = 'o', long = "out", value_name = "FILE.wav")]
+    pub out: PathBuf,
+}
+
+#[derive(Debug, Args)]
+pub struct ResponseArgs {
+    /// The recording of the sweep.
+    pub capture: PathBuf,
+    /// The sweep file `ampnote generate sweep` wrote.
+    #[arg(long, value_name = "SWEEP.wav")]
+    pub stimulus: PathBuf,
+    /// Channel of the capture to analyse: a number from 1, or `all`.
+    #[arg(long, default_value = "all", value_name = "N|all")]
+    pub channel: String,
+    /// Smooth the magnitude over 1/N octave.
+    #[arg(long, value_name = "N")]
+    pub smooth: Option<u32>,
+    /// Points per octave in the curves.
+    #[arg(long, default_value_t = 24, value_name = "N")]
+    pub points_per_octave: usize,
+    /// Highest harmonic order reported against frequency.
+    #[arg(long, default_value_t = 5, value_name = "N")]
+    pub harmonics: usize,
+    /// Reference frequency for the relative magnitude.
+    #[arg(long, default_value_t = 1000.0, value_name = "HZ")]
+    pub reference: f64,
+    #[command(flatten)]
+    pub calibration: CalibrationArgs,
+    /// Print JSON instead of the table.
+    #[arg(long)]
+    pub json: bool,
+    /// Also write every point (response and harmonics) as CSV to FILE.
+    #[arg(long, value_name = "FILE")]
+    pub csv: Option<PathBuf>,
+    #[arg(long)]
+    pub accept_truncated: bool,
+}
+
+#[derive(Debug, Args)]
+pub struct ImdArgs {
+    /// The recording of the two-tone pair.
+    pub capture: PathBuf,
+    /// The two-tone file `ampnote generate twotone` wrote (tells the method and frequencies).
+    #[arg(long, value_name = "FILE.wav")]
+    pub stimulus: Option<PathBuf>,
+    /// Channel of the capture to analyse: a number from 1, or `all`.
+    #[arg(long, default_value = "all", value_name = "N|all")]
+    pub channel: String,
+    /// Print JSON instead of the table.
+    #[arg(long)]
+    pub json: bool,
+    #[arg(long)]
+    pub accept_truncated: bool,
 }
 
 #[derive(Debug, Args)]
@@ -84,6 +258,10 @@ pub struct CalibrationArgs {
     /// Dummy-load resistance in ohms (gives watts).
     #[arg(long, value_name = "OHMS")]
     pub load_ohms: Option<f64>,
+
+    /// RMS voltage of a full-scale sine at the interface output (gives absolute gain).
+    #[arg(long, value_name = "V")]
+    pub output_fs_vrms: Option<f64>,
 }
 
 #[derive(Debug, Clone, Copy, ValueEnum)]
@@ -92,18 +270,58 @@ pub enum WeightingArg {
     A,
 }
 
+/// `--channel N|all`: `None` for all.
+pub fn channel_choice(text: &str) -> Result<Option<usize>, String> {
+    if text.eq_ignore_ascii_case("all") {
+        return Ok(None);
+    }
+    text.parse::<usize>()
+        .map(Some)
+        .map_err(|_| format!("--channel takes a number from 1 or `all`, got `{text}`"))
+}
+
+impl GenerateCommon {
+    /// The validated common stimulus settings (fade: the kind's default when not given).
+    pub fn common(&self, default_fade_s: f64) -> Result<Common, String> {
+        let signal_channels = if self.signal_on.eq_ignore_ascii_case("all") {
+            (1..=self.channels).collect()
+        } else {
+            self.signal_on
+                .split(',')
+                .map(|t| t.trim().parse::<usize>())
+                .collect::<Result<Vec<_>, _>>()
+                .map_err(|_| {
+                    format!(
+                        "--signal-on takes channel numbers like 1 or 1,2, or `all`; got `{}`",
+                        self.signal_on
+                    )
+                })?
+        };
+        Ok(Common {
+            sample_rate_hz: self.rate,
+            level_dbfs: self.level,
+            channels: self.channels,
+            signal_channels,
+            lead_s: self.lead,
+            tail_s: self.tail,
+            fade_s: self.fade.unwrap_or(default_fade_s),
+        })
+    }
+
+    pub fn format(&self) -> Result<WavFormat, String> {
+        match self.bits.as_str() {
+            "16" => Ok(WavFormat::Int { bits: 16 }),
+            "24" => Ok(WavFormat::Int { bits: 24 }),
+            "32f" | "32" => Ok(WavFormat::Float32),
+            other => Err(format!("--bits takes 16, 24 or 32f, got `{other}`")),
+        }
+    }
+}
+
 impl AnalyzeArgs {
     /// The channel choice: `None` for all.
     pub fn channel_choice(&self) -> Result<Option<usize>, String> {
-        if self.channel.eq_ignore_ascii_case("all") {
-            return Ok(None);
-        }
-        self.channel.parse::<usize>().map(Some).map_err(|_| {
-            format!(
-                "--channel takes a number from 1 or `all`, got `{}`",
-                self.channel
-            )
-        })
+        channel_choice(&self.channel)
     }
 
     /// The validated analysis settings.
@@ -147,6 +365,7 @@ impl CalibrationArgs {
             input_fs_vrms: self.input_fs_vrms,
             attenuation: self.attenuation,
             load_ohms: self.load_ohms,
+            output_fs_vrms: self.output_fs_vrms,
         }
     }
 }

@@ -71,6 +71,21 @@ pub enum Error {
         above_noise_db: f64,
     },
 
+    #[error("the stimulus is at {stimulus_hz} Hz but the capture at {capture_hz} Hz. Record at the stimulus's rate, or generate the stimulus at the recorder's rate (--rate {capture_hz}).")]
+    SampleRateMismatch { stimulus_hz: u32, capture_hz: u32 },
+
+    #[error("{path} is not one of ampnote's {wanted} stimuli (it carries no description, or another kind). Give the file `ampnote generate {wanted}` wrote.")]
+    NotAStimulus { path: PathBuf, wanted: &'static str },
+
+    #[error("channel {channel}: the capture does not contain the sweep (the best match stands only {snr_db:.1} dB above the rest). Check that this is the recording of this stimulus and of the right channel.")]
+    SweepNotFound { channel: usize, snr_db: f64 },
+
+    #[error("channel {channel}: the capture ends {missing_s:.3} s before the sweep does. Record until the sweep and its tail have finished.")]
+    CaptureEndsEarly { channel: usize, missing_s: f64 },
+
+    #[error("channel {channel}: the capture starts after the sweep began. Start the recorder before the player.")]
+    CaptureStartsLate { channel: usize },
+
     #[error("invalid setting: {0}")]
     InvalidSetting(String),
 }

@@ -17,6 +17,7 @@ pub mod analysis;
 pub mod calibration;
 pub mod capture;
 pub mod error;
+pub mod files;
 pub mod report;
 pub mod signal;
 

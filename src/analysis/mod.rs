@@ -1,7 +1,9 @@
 //! Pure computation on samples: no I/O, no printing.
 
 pub mod fit;
+pub mod imd;
 pub mod spectrum;
+pub mod sweep;
 pub mod tone;
 pub mod weighting;
 pub mod window;

@@ -98,7 +98,8 @@ pub struct SpectrumBuffers {
     pub scratch: Vec<Complex64>,
 }
 
-/// Hands out [`SpectrumPlan`]s, one per (window, length), shared between threads.
+/// Hands out [`SpectrumPlan`]s, one per (window, length), and bare real FFT plans, shared between
+/// threads; realfft caches its own plans, so asking twice for a length plans once.
 #[derive(Default)]
 pub struct SpectrumPlanner {
     fft: Mutex<RealFftPlanner<f64>>,
@@ -108,6 +109,16 @@ pub struct SpectrumPlanner {
 impl SpectrumPlanner {
     pub fn new() -> Self {
         Self::default()
+    }
+
+    /// A forward real FFT of length `len` (no window).
+    pub fn forward(&self, len: usize) -> Arc<dyn RealToComplex<f64>> {
+        self.fft.lock().expect("planner lock").plan_fft_forward(len)
+    }
+
+    /// An inverse real FFT of length `len` (unnormalised: a round trip multiplies by `len`).
+    pub fn inverse(&self, len: usize) -> Arc<dyn realfft::ComplexToReal<f64>> {
+        self.fft.lock().expect("planner lock").plan_fft_inverse(len)
     }
 
     /// The plan for `window` at length `len` (computed on first use).
@@ -132,6 +143,23 @@ impl SpectrumPlanner {
             .expect("planner lock")
             .insert(key, Arc::clone(&plan));
         plan
+    }
+}
+
+/// The smallest even length `>= n` whose only prime factors are 2, 3, 5 and 7.
+pub fn fast_length_up(n: usize) -> usize {
+    let mut m = n.max(2);
+    loop {
+        let mut r = m;
+        for p in [2, 3, 5, 7] {
+            while r % p == 0 {
+                r /= p;
+            }
+        }
+        if r == 1 && m % 2 == 0 {
+            return m;
+        }
+        m += 1;
     }
 }
 

@@ -199,11 +199,11 @@ pub struct ToneAnalyzer {
 }
 
 /// Lines closer than this many bins to a stronger line are not fitted separately.
-const GUARD_BINS: f64 = 8.0;
+pub(crate) const GUARD_BINS: f64 = 8.0;
 /// A line less than 10 dB above the noise expected in one line is "at the noise floor". Noise alone
 /// fitted as a line has an exponentially distributed power (chi-square, 2 degrees of freedom), so
 /// it exceeds 10x its mean with probability e^-10: a line above that is real.
-const NOISE_FLOOR_FACTOR: f64 = 10.0;
+pub(crate) const NOISE_FLOOR_FACTOR: f64 = 10.0;
 /// The fundamental must stand this far (20 dB) above the noise in its line to count as a tone.
 const MIN_TONE_SNR: f64 = 100.0;
 
@@ -257,24 +257,8 @@ impl ToneAnalyzer {
             sample_stats(input.samples, input, None)?;
             return Err(too_short(input, MIN_SAMPLES, ""));
         }
-        let n = fast_length(input.samples.len());
-        let plan = self.planner.plan(TONE_WINDOW, n);
-        let mut buffers = plan.take_buffers();
-        // One pass over the samples gathers the statistics and fills the FFT input with the
-        // windowed samples; the mean is taken out of the spectrum afterwards (below).
-        let outcome = sample_stats(
-            input.samples,
-            input,
-            Some((&plan.window_generator, &mut buffers.input)),
-        )
-        .and_then(|stats| {
-            plan.transform_prepared(&mut buffers);
-            // A constant d windowed shows only in bins 0..=M-1 of the DFT, as d * W(k).
-            for k in 0..TONE_WINDOW.coefficients.len().min(buffers.output.len()) {
-                buffers.output[k] -= TONE_WINDOW.kernel(k as f64, n) * stats.dc_in_window;
-            }
-            self.analyze_spectrum(input, cal, &stats, &plan, &buffers.output, band_hi)
-        });
+        let (stats, plan, buffers) = measure_spectrum(&self.planner, input)?;
+        let outcome = self.analyze_spectrum(input, cal, &stats, &plan, &buffers.output, band_hi);
         plan.give_back(buffers);
         outcome
     }
@@ -522,8 +506,43 @@ impl ToneAnalyzer {
     }
 }
 
+/// The capture's statistics and its spectrum under [`TONE_WINDOW`] with the mean removed, from one
+/// pass over the samples. The caller hands the buffers back to the plan when done.
+pub(crate) fn measure_spectrum(
+    planner: &SpectrumPlanner,
+    input: &ChannelInput,
+) -> Result<(
+    SampleStats,
+    std::sync::Arc<SpectrumPlan>,
+    super::spectrum::SpectrumBuffers,
+)> {
+    let n = fast_length(input.samples.len());
+    let plan = planner.plan(TONE_WINDOW, n);
+    let mut buffers = plan.take_buffers();
+    // One pass over the samples gathers the statistics and fills the FFT input with the
+    // windowed samples; the mean is taken out of the spectrum afterwards.
+    match sample_stats(
+        input.samples,
+        input,
+        Some((&plan.window_generator, &mut buffers.input)),
+    ) {
+        Ok(stats) => {
+            plan.transform_prepared(&mut buffers);
+            // A constant d windowed shows only in bins 0..=M-1 of the DFT, as d * W(k).
+            for k in 0..TONE_WINDOW.coefficients.len().min(buffers.output.len()) {
+                buffers.output[k] -= TONE_WINDOW.kernel(k as f64, n) * stats.dc_in_window;
+            }
+            Ok((stats, plan, buffers))
+        }
+        Err(e) => {
+            plan.give_back(buffers);
+            Err(e)
+        }
+    }
+}
+
 /// Fewer samples than this cannot hold a resolvable tone and its harmonics.
-const MIN_SAMPLES: usize = 512;
+pub(crate) const MIN_SAMPLES: usize = 512;
 
 fn too_short(input: &ChannelInput, need_samples: usize, why: &str) -> Error {
     let fs = input.sample_rate_hz;
@@ -547,19 +566,19 @@ pub fn wrap_degrees(d: f64) -> f64 {
     }
 }
 
-struct SampleStats {
+pub(crate) struct SampleStats {
     /// Mean of all samples.
-    dc: f64,
+    pub dc: f64,
     /// Mean of the samples inside the FFT (the capture may be trimmed to a fast length).
-    dc_in_window: f64,
-    crest_factor: f64,
-    overload: usize,
+    pub dc_in_window: f64,
+    pub crest_factor: f64,
+    pub overload: usize,
 }
 
 /// One pass for validity, mean, spread, extremes and overload, in eight independent lanes so the
 /// compiler can vectorise it. With `window` (the window and the FFT input of length N), the first
 /// N samples are also written, windowed, into the FFT input, so the samples are read once.
-fn sample_stats(
+pub(crate) fn sample_stats(
     x: &[f64],
     input: &ChannelInput,
     window: Option<(&WindowGenerator, &mut [f64])>,
@@ -725,7 +744,12 @@ fn band_sums(
 
 /// Mean residual `|X - lines|^2` per bin within 50 bins of `f` (bins), excluding the line's own
 /// main lobe: the noise a line at `f` would pick up.
-fn local_density(spec: &[Complex64], all: &[(usize, Complex64)], f: f64, n: usize) -> f64 {
+pub(crate) fn local_density(
+    spec: &[Complex64],
+    all: &[(usize, Complex64)],
+    f: f64,
+    n: usize,
+) -> f64 {
     let centre = f.round() as isize;
     let lo = (centre - 50).max(1) as usize;
     let hi = ((centre + 50) as usize).min(n / 2 - 1);

@@ -1,5 +1,7 @@
 //! Rendering results: terminal tables, JSON, CSV. Every renderer draws the same typed result.
 
+pub mod imd;
+pub mod response;
 pub mod tone;
 
 /// Version of the JSON layout; bumped when a field changes meaning or disappears.

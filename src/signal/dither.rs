@@ -43,8 +43,12 @@ impl Rng {
 }
 
 /// Quantize `x` (full scale 1.0) to a `bits`-bit integer code with TPDF dither, clamped to the
-/// code range.
+/// code range. Exact zero stays digital silence (no dither), so a stimulus's lead and tail are
+/// silent and a recorder's level meter shows where the signal starts.
 pub fn quantize_tpdf(x: f64, bits: u16, rng: &mut Rng) -> i32 {
+    if x == 0.0 {
+        return 0;
+    }
     let half = (1i64 << (bits - 1)) as f64;
     let v = (x * half + rng.tpdf()).round();
     v.clamp(-half, half - 1.0) as i32

@@ -22,6 +22,19 @@ pub fn write_wav(
     format: WavFormat,
     seed: u64,
 ) -> Result<()> {
+    write_wav_described(path, rate_hz, channels, format, seed, None)
+}
+
+/// As [`write_wav`], with a description (JSON) stored in an extra RIFF chunk before the data
+/// ([`crate::capture::DESCRIPTION_CHUNK`]) that [`crate::capture::Capture`] reads back.
+pub fn write_wav_described(
+    path: &Path,
+    rate_hz: u32,
+    channels: &[Vec<f64>],
+    format: WavFormat,
+    seed: u64,
+    description: Option<&str>,
+) -> Result<()> {
     let werr = |e: hound::Error| Error::Write {
         path: path.to_path_buf(),
         source: match e {
@@ -44,9 +57,9 @@ pub fn write_wav(
         bits_per_sample: bits,
         sample_format,
     };
-    let tmp = path.with_extension("wav.partial");
+    let mut bytes = std::io::Cursor::new(Vec::new());
     {
-        let mut w = hound::WavWriter::create(&tmp, spec).map_err(werr)?;
+        let mut w = hound::WavWriter::new(&mut bytes, spec).map_err(werr)?;
         let mut rng = Rng::new(seed);
         for i in 0..channels[0].len() {
             for ch in channels {
@@ -60,8 +73,36 @@ pub fn write_wav(
         }
         w.finalize().map_err(werr)?;
     }
-    std::fs::rename(&tmp, path).map_err(|source| Error::Write {
-        path: path.to_path_buf(),
-        source,
-    })
+    let mut bytes = bytes.into_inner();
+    if let Some(text) = description {
+        insert_chunk_before_data(
+            &mut bytes,
+            crate::capture::DESCRIPTION_CHUNK,
+            text.as_bytes(),
+        );
+    }
+    crate::files::write_whole(path, &bytes)
+}
+
+/// Insert a RIFF chunk just before the `data` chunk of a complete WAV image and fix the RIFF size.
+fn insert_chunk_before_data(bytes: &mut Vec<u8>, id: &[u8; 4], body: &[u8]) {
+    let mut pos = 12;
+    while pos + 8 <= bytes.len() && &bytes[pos..pos + 4] != b"data" {
+        let len = u32::from_le_bytes([
+            bytes[pos + 4],
+            bytes[pos + 5],
+            bytes[pos + 6],
+            bytes[pos + 7],
+        ]) as usize;
+        pos += 8 + len + (len & 1);
+    }
+    let mut chunk = id.to_vec();
+    chunk.extend_from_slice(&(body.len() as u32).to_le_bytes());
+    chunk.extend_from_slice(body);
+    if body.len() % 2 == 1 {
+        chunk.push(b' ');
+    }
+    bytes.splice(pos..pos, chunk.iter().copied());
+    let riff = (bytes.len() - 8) as u32;
+    bytes[4..8].copy_from_slice(&riff.to_le_bytes());
 }

@@ -7,6 +7,7 @@ mod common;
 mod numpy_fixtures;
 mod properties;
 mod quantization;
+mod sweep_response;
 mod targets;
 mod wav_reading;
 mod weighting;

@@ -1,0 +1,614 @@
+//! Frequency response and harmonic distortion versus frequency from a synchronized swept sine.
+//!
+//! ## Method, and why
+//! 1. **Deconvolution by spectral division.** The capture's spectrum is divided by the stimulus's
+//!    own spectrum (both zero-padded to a fast length past their sum, so nothing wraps onto the
+//!    responses). Dividing by the exact stimulus, rather than by the analytic inverse filter of
+//!    Novak et al., makes the linear response exact for any linear system within the swept band;
+//!    outside the band the division is faded to zero over a third of an octave.
+//! 2. **Impulse responses** (Farina, AES preprint 5093, 2000): the linear response sits at the
+//!    latency; the n-th harmonic's response arrives `L ln n` earlier, where `L` is the sweep rate.
+//!    Because the sweep is synchronized (`f1 L` an integer; Novak, Lotton, Simon, JAES 63(10), 2015),
+//!    the n-th harmonic of the sweep is the sweep itself advanced by `L ln n`, so its deconvolution
+//!    is the harmonic's amplitude and phase, with no further correction.
+//! 3. **Windows.** Each response is cut out with a raised-cosine-edged window that stops halfway
+//!    to its neighbours, then transformed; the response at each reported frequency is read from an
+//!    FFT bin (no interpolation), the transform being long enough that bins are finer than the
+//!    spacing of the reported points wherever it matters.
+//! 4. **HD_n(f0) = |G_n(n f0)| / |G_1(f0)|** (REFERENCES.md, swept sine).
+
+use super::spectrum::{fast_length_up, SpectrumPlanner};
+use crate::error::{Error, Result};
+use realfft::num_complex::Complex64;
+use serde::Serialize;
+use std::f64::consts::PI;
+
+/// What the analysis needs to know about the sweep (from the stimulus description).
+#[derive(Debug, Clone, Copy)]
+pub struct SweepParams {
+    pub start_hz: f64,
+    pub stop_hz: f64,
+    /// Novak's L, seconds.
+    pub rate_s: f64,
+    /// One past the sweep's last sample in the stimulus file (lead silence included).
+    pub end_sample: usize,
+    /// Length of the sweep's fade-in, seconds.
+    pub fade_in_s: f64,
+}
+
+/// Settings of the response analysis.
+#[derive(Debug, Clone)]
+pub struct ResponseConfig {
+    /// Magnitudes are reported relative to the response here (1 kHz by default).
+    pub reference_hz: f64,
+    /// Points per octave in the reported curves.
+    pub points_per_octave: usize,
+    /// 1/N-octave smoothing of the magnitude, when set.
+    pub smoothing: Option<u32>,
+    /// Highest harmonic order (2..=this) reported against frequency.
+    pub max_harmonic: usize,
+    /// Band over which the largest deviation is reported.
+    pub deviation_band_hz: (f64, f64),
+}
+
+impl Default for ResponseConfig {
+    fn default() -> Self {
+        ResponseConfig {
+            reference_hz: 1000.0,
+            points_per_octave: 24,
+            smoothing: None,
+            max_harmonic: 5,
+            deviation_band_hz: (20.0, 20_000.0),
+        }
+    }
+}
+
+#[derive(Debug, Clone, Copy, Serialize)]
+pub struct ResponsePoint {
+    pub frequency_hz: f64,
+    /// Relative to the response at the reference frequency.
+    pub magnitude_db: f64,
+    /// With the latency removed.
+    pub phase_deg: f64,
+}
+
+#[derive(Debug, Clone, Copy, Serialize)]
+pub struct HarmonicPoint {
+    /// The excitation frequency f0 (the harmonic itself is at order * f0).
+    pub frequency_hz: f64,
+    pub level_dbc: f64,
+}
+
+#[derive(Debug, Clone, Serialize)]
+pub struct HarmonicCurve {
+    pub order: usize,
+    pub points: Vec<HarmonicPoint>,
+}
+
+/// The response of one channel. Units in field names; dB relative to the reference frequency
+/// unless the field says otherwise.
+#[derive(Debug, Clone, Serialize)]
+pub struct ResponseResult {
+    pub channel: usize,
+    pub reference_hz: f64,
+    /// Capture level over stimulus level at the reference frequency, dB (digital gain: dBFS in
+    /// over dBFS out, through the whole chain).
+    pub reference_gain_db: f64,
+    pub points: Vec<ResponsePoint>,
+    /// Where the magnitude first falls 1 dB and 3 dB below the reference, going down and up
+    /// from it; `null` when it stays within that inside the swept range.
+    pub low_1db_hz: Option<f64>,
+    pub low_3db_hz: Option<f64>,
+    pub high_1db_hz: Option<f64>,
+    pub high_3db_hz: Option<f64>,
+    /// Largest |magnitude| over the deviation band (within the swept range), and where.
+    pub max_deviation_db: f64,
+    pub max_deviation_hz: f64,
+    pub deviation_band_hz: [f64; 2],
+    pub latency_ms: f64,
+    pub latency_samples: f64,
+    /// "non-inverting" or "inverting".
+    pub polarity: &'static str,
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub smoothing_octave_fraction: Option<u32>,
+    pub harmonics: Vec<HarmonicCurve>,
+    /// THD against excitation frequency: the harmonics H2..Hmax that stay inside the sweep.
+    pub thd: Vec<HarmonicPoint>,
+    /// Peak of the linear impulse response over the RMS of the response's noise, dB.
+    pub impulse_snr_db: f64,
+    /// Clock drift between player and recorder inferred from the phase, ppm (`null` when the
+    /// sweep does not cover 2-10 kHz).
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub clock_drift_ppm: Option<f64>,
+    pub warnings: Vec<String>,
+}
+
+/// The sweep analyser; its planner caches FFT plans across channels and runs.
+#[derive(Default)]
+pub struct ResponseAnalyzer {
+    pub config: ResponseConfig,
+    planner: SpectrumPlanner,
+}
+
+/// Below this peak-to-noise ratio of the linear impulse response, the capture does not hold the
+/// sweep (a Gaussian noise record of a million samples has peaks about 15 dB above its RMS).
+const MIN_IMPULSE_SNR_DB: f64 = 25.0;
+
+impl ResponseAnalyzer {
+    pub fn new(config: ResponseConfig) -> Result<Self> {
+        if config.points_per_octave == 0 || config.max_harmonic < 2 {
+            return Err(Error::InvalidSetting(
+                "points per octave must be 1 or more and the highest harmonic 2 or more".into(),
+            ));
+        }
+        if config.reference_hz.is_nan() || config.reference_hz <= 0.0 {
+            return Err(Error::InvalidSetting(
+                "the reference frequency must be above 0 Hz".into(),
+            ));
+        }
+        Ok(ResponseAnalyzer {
+            config,
+            planner: SpectrumPlanner::new(),
+        })
+    }
+
+    /// Analyse `capture` (one channel) against `stimulus` (the stimulus file's signal channel,
+    /// lead silence included), both at `fs`.
+    pub fn analyze(
+        &self,
+        channel: usize,
+        stimulus: &[f64],
+        sweep: SweepParams,
+        capture: &[f64],
+        fs: f64,
+        overload_threshold: f64,
+    ) -> Result<ResponseResult> {
+        if let Some((i, _)) = capture.iter().enumerate().find(|(_, v)| !v.is_finite()) {
+            return Err(Error::NotFinite {
+                channel,
+                index: i,
+                what: "not a finite number",
+            });
+        }
+        let advance = |n: usize| sweep.rate_s * (n as f64).ln() * fs;
+        let max_order = self.config.max_harmonic;
+        // Transform length: both records plus room for the harmonic responses that land before
+        // time zero and wrap to the end.
+        let m =
+            fast_length_up(capture.len() + stimulus.len() + advance(max_order + 1) as usize + 16);
+        let fwd = self.planner.forward(m);
+        let inv = self.planner.inverse(m);
+        let spectrum = |x: &[f64]| -> Vec<Complex64> {
+            let mut buf = vec![0.0; m];
+            buf[..x.len()].copy_from_slice(x);
+            let mut out = fwd.make_output_vec();
+            fwd.process(&mut buf, &mut out)
+                .expect("sizes match the plan");
+            out
+        };
+        let xs = spectrum(stimulus);
+        let mut h_spec = spectrum(capture);
+        let bin_hz = fs / m as f64;
+        let max_x = xs.iter().map(|c| c.norm_sqr()).fold(0.0, f64::max);
+        let floor = max_x * 1e-14;
+        // Below the sweep: a causal high-pass (divided out again when the response is read) takes
+        // the response down first, so the zero-phase fade to nothing further down rings only
+        // after the impulse, where the window keeps it, not before it.
+        let guard = LowGuard::new(sweep.start_hz);
+        let lo_end = sweep.start_hz / 8.0;
+        let lo_full = sweep.start_hz / 4.0;
+        let hi_edge = (sweep.stop_hz * 2f64.powf(1.0 / 6.0)).min(fs / 2.0);
+        for (k, (h, x)) in h_spec.iter_mut().zip(&xs).enumerate() {
+            let f = k as f64 * bin_hz;
+            let taper = band_taper(f, lo_end, lo_full, sweep.stop_hz, hi_edge);
+            *h = if taper > 0.0 {
+                *h * x.conj() / (x.norm_sqr() + floor) * taper * guard.at(f)
+            } else {
+                Complex64::new(0.0, 0.0)
+            };
+        }
+        let mut ir = vec![0.0; m];
+        // realfft's inverse wants purely real DC and Nyquist bins.
+        h_spec[0].im = 0.0;
+        if let Some(last) = h_spec.last_mut() {
+            last.im = 0.0;
+        }
+        inv.process(&mut h_spec, &mut ir)
+            .expect("sizes match the plan");
+        let norm = 1.0 / m as f64;
+        ir.iter_mut().for_each(|v| *v *= norm);
+
+        // --- the linear response's peak: latency and polarity --------------------------------
+        let wrap_zone = advance(max_order + 1) as usize + 16;
+        let (peak, peak_val) = ir
+            .iter()
+            .enumerate()
+            .max_by(|a, b| a.1.abs().total_cmp(&b.1.abs()))
+            .map(|(i, v)| (i, *v))
+            .expect("non-empty response");
+        let noise_rms = {
+            // Noise: the response far from every impulse, between the linear response's tail and
+            // the wrapped harmonic responses.
+            let from = (peak + (0.6 * fs) as usize).min(m);
+            let to = m.saturating_sub(wrap_zone);
+            if to > from + 1000 {
+                (ir[from..to].iter().map(|v| v * v).sum::<f64>() / (to - from) as f64).sqrt()
+            } else {
+                (ir.iter().map(|v| v * v).sum::<f64>() / m as f64).sqrt()
+            }
+        };
+        let impulse_snr_db = 20.0 * (peak_val.abs() / noise_rms.max(1e-300)).log10();
+        if impulse_snr_db < MIN_IMPULSE_SNR_DB {
+            return Err(Error::SweepNotFound {
+                channel,
+                snr_db: impulse_snr_db,
+            });
+        }
+        if peak >= m - wrap_zone {
+            return Err(Error::CaptureStartsLate { channel });
+        }
+        // The capture must run until the sweep's last sample has come through.
+        let needed = peak + sweep.end_sample.min(stimulus.len());
+        if capture.len() < needed {
+            return Err(Error::CaptureEndsEarly {
+                channel,
+                missing_s: (needed - capture.len()) as f64 / fs,
+            });
+        }
+        let frac = parabolic_peak(&ir, peak);
+        let latency_samples = peak as f64 + frac;
+        let polarity = if peak_val < 0.0 {
+            "inverting"
+        } else {
+            "non-inverting"
+        };
+
+        // --- windows and spectra of the responses ---------------------------------------------
+        let gap = |n: usize| sweep.rate_s * ((n as f64 + 1.0) / n as f64).ln() * fs; // n+1 to n
+        let pre1 = (0.5 * gap(1)).min(0.005 * fs);
+        let post1 = (0.5 * fs).min((m - wrap_zone - peak) as f64 * 0.9);
+        let nf = fast_length_up(((pre1 + post1) as usize * 2).max((fs / 0.25) as usize));
+        let g1 = windowed_spectrum(&self.planner, &ir, latency_samples, pre1, post1, nf);
+        let gn: Vec<Vec<Complex64>> = (2..=max_order)
+            .map(|n| {
+                let centre = latency_samples - advance(n);
+                let pre = 0.5 * gap(n);
+                let post = 0.5 * gap(n - 1);
+                windowed_spectrum(
+                    &self.planner,
+                    &ir,
+                    centre.rem_euclid(m as f64),
+                    pre,
+                    post,
+                    nf,
+                )
+            })
+            .collect();
+        let nf_bin = fs / nf as f64;
+        let at = |spec: &[Complex64], f: f64| -> Complex64 {
+            let k = ((f / nf_bin).round() as usize).min(spec.len() - 1);
+            spec[k] / guard.at(k as f64 * nf_bin)
+        };
+
+        // --- reported points ------------------------------------------------------------------
+        let f_lo = sweep.start_hz;
+        let f_hi = sweep.stop_hz.min(fs / 2.0);
+        let reference_hz = if self.config.reference_hz > f_lo && self.config.reference_hz < f_hi {
+            self.config.reference_hz
+        } else {
+            (f_lo * f_hi).sqrt()
+        };
+        let h_ref = at(&g1, reference_hz).norm();
+        let freqs = log_points(f_lo, f_hi, self.config.points_per_octave, nf_bin);
+        let points: Vec<ResponsePoint> = freqs
+            .iter()
+            .map(|&f| {
+                let g = at(&g1, f);
+                let mag = match self.config.smoothing {
+                    Some(n) => smoothed(&g1, f, n, nf_bin),
+                    None => g.norm(),
+                };
+                ResponsePoint {
+                    frequency_hz: (f / nf_bin).round() * nf_bin,
+                    magnitude_db: 20.0 * (mag / h_ref).max(1e-300).log10(),
+                    phase_deg: g.arg().to_degrees(),
+                }
+            })
+            .collect();
+        // Harmonic curves: the excitation must be past the fade-in (a faded excitation makes its
+        // n-th harmonic fall n times faster than the fundamental), and the harmonic must stay a
+        // sixteenth of an octave inside the sweep's top, where the division by the stimulus is
+        // exact (closer, the band edge bends it by tenths of a dB).
+        // A frequency f is swept through over about sqrt(L / f) seconds (stationary phase), so
+        // the excitation counts as clear of the fade-in once it passes f at least two such spans
+        // after the fade has ended.
+        let mut f_ex_min = f_lo * (sweep.fade_in_s / sweep.rate_s).exp();
+        while sweep.rate_s * (f_ex_min / f_lo).ln() - sweep.fade_in_s
+            < 2.0 * (sweep.rate_s / f_ex_min).sqrt()
+            && f_ex_min < f_hi
+        {
+            f_ex_min *= 1.01;
+        }
+        let f_h_max = f_hi * 2f64.powf(-1.0 / 16.0);
+        let valid = |n: usize, f: f64| f >= f_ex_min && n as f64 * f <= f_h_max;
+        let harmonics: Vec<HarmonicCurve> = (2..=max_order)
+            .map(|n| HarmonicCurve {
+                order: n,
+                points: freqs
+                    .iter()
+                    .filter(|&&f| valid(n, f))
+                    .map(|&f| HarmonicPoint {
+                        frequency_hz: (f / nf_bin).round() * nf_bin,
+                        level_dbc: 20.0
+                            * (at(&gn[n - 2], n as f64 * f).norm() / at(&g1, f).norm())
+                                .max(1e-300)
+                                .log10(),
+                    })
+                    .collect(),
+            })
+            .collect();
+        let thd: Vec<HarmonicPoint> = freqs
+            .iter()
+            .filter(|&&f| valid(2, f))
+            .map(|&f| {
+                let p: f64 = (2..=max_order)
+                    .filter(|&n| valid(n, f))
+                    .map(|n| at(&gn[n - 2], n as f64 * f).norm_sqr())
+                    .sum();
+                HarmonicPoint {
+                    frequency_hz: (f / nf_bin).round() * nf_bin,
+                    level_dbc: 10.0 * (p / at(&g1, f).norm_sqr()).max(1e-300).log10(),
+                }
+            })
+            .collect();
+
+        let edge = |limit: f64, upward: bool| -> Option<f64> {
+            crossing(&points, reference_hz, -limit, upward)
+        };
+        let (low_1db_hz, low_3db_hz) = (edge(1.0, false), edge(3.0, false));
+        let (high_1db_hz, high_3db_hz) = (edge(1.0, true), edge(3.0, true));
+        let (dlo, dhi) = self.config.deviation_band_hz;
+        let (max_deviation_db, max_deviation_hz) = points
+            .iter()
+            .filter(|p| p.frequency_hz >= dlo && p.frequency_hz <= dhi)
+            .map(|p| (p.magnitude_db, p.frequency_hz))
+            .max_by(|a, b| a.0.abs().total_cmp(&b.0.abs()))
+            .unwrap_or((0.0, reference_hz));
+        let reference_gain_db = 20.0 * (h_ref).log10();
+        let clock_drift_ppm = drift_ppm(&g1, sweep, nf_bin);
+        let overload = capture
+            .iter()
+            .filter(|v| v.abs() >= overload_threshold)
+            .count();
+
+        let mut warnings = Vec::new();
+        if overload > 0 {
+            warnings.push(format!(
+                "input overload: {overload} sample(s) at or beyond full scale; the sweep was clipped and the harmonic curves show the interface's clipping. Lower the level or add attenuation."
+            ));
+        }
+        if impulse_snr_db < 60.0 {
+            warnings.push(format!(
+                "noisy measurement: the impulse response stands only {impulse_snr_db:.1} dB above its noise; raise the level or use a longer sweep."
+            ));
+        }
+        if let Some(d) = clock_drift_ppm {
+            if d.abs() > 20.0 {
+                warnings.push(format!(
+                    "the player's and recorder's clocks differ by about {d:.0} ppm: magnitudes hold, but phase and the harmonic curves are smeared. Play and record on one interface."
+                ));
+            }
+        }
+        if dlo < f_lo || dhi > f_hi {
+            warnings.push(format!(
+                "the sweep covers {f_lo:.0}-{f_hi:.0} Hz, less than the {dlo:.0}-{dhi:.0} Hz deviation band; figures outside the sweep are not reported."
+            ));
+        }
+        Ok(ResponseResult {
+            channel,
+            reference_hz,
+            reference_gain_db,
+            points,
+            low_1db_hz,
+            low_3db_hz,
+            high_1db_hz,
+            high_3db_hz,
+            max_deviation_db,
+            max_deviation_hz,
+            deviation_band_hz: [dlo.max(f_lo), dhi.min(f_hi)],
+            latency_ms: latency_samples / fs * 1000.0,
+            latency_samples,
+            polarity,
+            smoothing_octave_fraction: self.config.smoothing,
+            harmonics,
+            thd,
+            impulse_snr_db,
+            clock_drift_ppm,
+            warnings,
+        })
+    }
+}
+
+/// An analog 4th-order Butterworth high-pass an octave below the sweep's start, evaluated on the
+/// DFT grid: causal, so what it removes below the sweep rings after the impulse, not before.
+/// At the start frequency it takes off 0.017 dB, which is divided out when the response is read.
+struct LowGuard {
+    corner_hz: f64,
+    poles: [Complex64; 4],
+}
+
+impl LowGuard {
+    fn new(start_hz: f64) -> Self {
+        // Butterworth poles of order 4 on the unit circle, left half-plane.
+        let poles =
+            std::array::from_fn(|k| Complex64::from_polar(1.0, PI * (2.0 * k as f64 + 5.0) / 8.0));
+        LowGuard {
+            corner_hz: start_hz / 2.0,
+            poles,
+        }
+    }
+
+    fn at(&self, f: f64) -> Complex64 {
+        if f <= 0.0 {
+            return Complex64::new(0.0, 0.0);
+        }
+        let s = Complex64::new(0.0, f / self.corner_hz);
+        self.poles.iter().map(|&p| s / (s - p)).product()
+    }
+}
+
+/// 1 inside [f1, f2], raised-cosine down to 0 at `lo` and `hi`.
+fn band_taper(f: f64, lo: f64, f1: f64, f2: f64, hi: f64) -> f64 {
+    if f <= lo || f >= hi {
+        0.0
+    } else if f < f1 {
+        0.5 - 0.5 * (PI * (f / lo).ln() / (f1 / lo).ln()).cos()
+    } else if f > f2 {
+        0.5 + 0.5 * (PI * (f / f2).ln() / (hi / f2).ln()).cos()
+    } else {
+        1.0
+    }
+}
+
+/// Sub-sample offset of a peak by parabolic interpolation, in (-0.5, 0.5).
+fn parabolic_peak(x: &[f64], i: usize) -> f64 {
+    if i == 0 || i + 1 >= x.len() {
+        return 0.0;
+    }
+    let (a, b, c) = (x[i - 1].abs(), x[i].abs(), x[i + 1].abs());
+    let d = a - 2.0 * b + c;
+    if d.abs() < 1e-300 {
+        0.0
+    } else {
+        (0.5 * (a - c) / d).clamp(-0.5, 0.5)
+    }
+}
+
+/// Cuts the response around `centre` (fractional sample, taken modulo the record) from
+/// `centre - pre` to `centre + post`, with raised-cosine edges (the first `pre` samples rise,
+/// the last fifth of `post` falls), rotates `centre` to time zero, and transforms at length `nf`.
+/// The fractional part of `centre` is removed in the spectrum, so phases refer to the peak.
+fn windowed_spectrum(
+    planner: &SpectrumPlanner,
+    ir: &[f64],
+    centre: f64,
+    pre: f64,
+    post: f64,
+    nf: usize,
+) -> Vec<Complex64> {
+    let m = ir.len();
+    let c = centre.floor() as isize;
+    let frac = centre - c as f64;
+    let pre_n = pre.floor() as isize;
+    let post_n = post.floor() as isize;
+    let fall = (post_n / 5).max(1);
+    let mut buf = vec![0.0; nf];
+    for off in -pre_n..=post_n {
+        let src = (c + off).rem_euclid(m as isize) as usize;
+        let w = if off < 0 {
+            0.5 - 0.5 * (PI * (off + pre_n) as f64 / pre_n.max(1) as f64).cos()
+        } else if off > post_n - fall {
+            0.5 + 0.5 * (PI * (off - (post_n - fall)) as f64 / fall as f64).cos()
+        } else {
+            1.0
+        };
+        let dst = off.rem_euclid(nf as isize) as usize;
+        buf[dst] += ir[src] * w;
+    }
+    let fwd = planner.forward(nf);
+    let mut out = fwd.make_output_vec();
+    fwd.process(&mut buf, &mut out)
+        .expect("sizes match the plan");
+    // Undo the fractional delay: the peak sat `frac` samples after index 0.
+    for (k, v) in out.iter_mut().enumerate() {
+        *v *= Complex64::from_polar(1.0, 2.0 * PI * k as f64 * frac / nf as f64);
+    }
+    out
+}
+
+/// Log-spaced points from `lo` to `hi`, `per_octave` to the octave, snapped to bins and
+/// de-duplicated (at low frequencies several targets can share a bin).
+fn log_points(lo: f64, hi: f64, per_octave: usize, bin: f64) -> Vec<f64> {
+    let octaves = (hi / lo).log2();
+    let count = (octaves * per_octave as f64).floor() as usize + 1;
+    let mut out: Vec<f64> = Vec::with_capacity(count);
+    for i in 0..count {
+        let f = lo * 2f64.powf(i as f64 / per_octave as f64);
+        let snapped = (f / bin).round() * bin;
+        if out.last().is_none_or(|&l| snapped > l) && snapped >= lo && snapped <= hi {
+            out.push(snapped);
+        }
+    }
+    out
+}
+
+/// Power-averaged magnitude over 1/n octave centred on `f`.
+fn smoothed(spec: &[Complex64], f: f64, n: u32, bin: f64) -> f64 {
+    let half = 2f64.powf(0.5 / n as f64);
+    let lo = ((f / half) / bin).floor().max(0.0) as usize;
+    let hi = (((f * half) / bin).ceil() as usize).min(spec.len() - 1);
+    let sum: f64 = spec[lo..=hi].iter().map(|c| c.norm_sqr()).sum();
+    (sum / (hi - lo + 1) as f64).sqrt()
+}
+
+/// Where the magnitude first reaches `level_db` walking from the reference down (or up),
+/// interpolated in log frequency between the two points that bracket it.
+fn crossing(
+    points: &[ResponsePoint],
+    reference_hz: f64,
+    level_db: f64,
+    upward: bool,
+) -> Option<f64> {
+    let start = points.iter().position(|p| p.frequency_hz >= reference_hz)?;
+    let idx: Vec<usize> = if upward {
+        (start..points.len()).collect()
+    } else {
+        (0..=start).rev().collect()
+    };
+    for w in idx.windows(2) {
+        let (a, b) = (&points[w[0]], &points[w[1]]);
+        if a.magnitude_db > level_db && b.magnitude_db <= level_db {
+            let t = (a.magnitude_db - level_db) / (a.magnitude_db - b.magnitude_db);
+            return Some(
+                (a.frequency_hz.ln() + t * (b.frequency_hz.ln() - a.frequency_hz.ln())).exp(),
+            );
+        }
+    }
+    None
+}
+
+/// Clock drift from the group delay's change across 2-10 kHz, divided by the time the sweep
+/// took to get from one to the other (`L ln(f_b / f_a)`). An amplifier's own group delay changes
+/// by well under a microsecond over that range when its magnitude is flat there (it lies far from
+/// its band edges), so a change of tens of microseconds is the clocks.
+fn drift_ppm(g1: &[Complex64], sweep: SweepParams, bin: f64) -> Option<f64> {
+    let (fa, fb) = (2000.0, 10_000.0);
+    if sweep.start_hz > fa / 1.2 || sweep.stop_hz < fb * 1.2 {
+        return None;
+    }
+    let group_delay = |f: f64| -> f64 {
+        let k = (f / bin).round() as usize;
+        let d = (g1[k + 1] * g1[k - 1].conj()).arg(); // phase change over 2 bins
+        -d / (2.0 * PI * 2.0 * bin)
+    };
+    // Only where the magnitude is flat (within 0.5 dB across the range) is a minimum-phase
+    // system's group delay nearly constant; elsewhere (an equaliser, a band edge) say nothing.
+    let mag = |f: f64| g1[(f / bin).round() as usize].norm();
+    let (m_lo, m_hi) = [fa, 3000.0, 5000.0, 7000.0, fb]
+        .iter()
+        .map(|&f| 20.0 * mag(f).log10())
+        .fold((f64::INFINITY, f64::NEG_INFINITY), |(a, b), v| {
+            (a.min(v), b.max(v))
+        });
+    if m_hi - m_lo > 0.5 {
+        return None;
+    }
+    let average = |f: f64| -> f64 {
+        (0..9)
+            .map(|i| group_delay(f * (1.0 + 0.01 * (i as f64 - 4.0))))
+            .sum::<f64>()
+            / 9.0
+    };
+    let dt = sweep.rate_s * (fb / fa).ln();
+    Some((average(fb) - average(fa)) / dt * 1e6)
+}

@@ -1,0 +1,100 @@
+//! `ampnote generate`: make a stimulus and write it, with its description, whole or not at all.
+
+use crate::cli::{GenerateKind, TwoToneArg};
+use ampnote::signal::stimulus::{self, TwoToneMethod};
+use ampnote::signal::wav::write_wav_described;
+use std::process::ExitCode;
+
+pub fn run(kind: &GenerateKind) -> Result<ExitCode, String> {
+    let e = |err: ampnote::Error| err.to_string();
+    let (stim, common) = match kind {
+        GenerateKind::Tone {
+            freq,
+            seconds,
+            common,
+        } => (
+            stimulus::tone(&common.common(0.01)?, *freq, *seconds).map_err(e)?,
+            common,
+        ),
+        GenerateKind::Steps {
+            freq,
+            start,
+            stop,
+            step,
+            dwell,
+            settle,
+            common,
+        } => (
+            stimulus::steps(
+                &common.common(0.01)?,
+                *freq,
+                *start,
+                *stop,
+                *step,
+                *dwell,
+                *settle,
+            )
+            .map_err(e)?,
+            common,
+        ),
+        GenerateKind::Sweep {
+            from,
+            to,
+            seconds,
+            common,
+        } => {
+            let to = to.unwrap_or((0.45 * common.rate as f64).min(40_000.0));
+            (
+                stimulus::sweep(&common.common(0.0)?, *from, to, *seconds).map_err(e)?,
+                common,
+            )
+        }
+        GenerateKind::Twotone {
+            method,
+            low,
+            high,
+            ratio,
+            seconds,
+            common,
+        } => {
+            let (m, dl, dh, dr) = match method {
+                TwoToneArg::Modulation => (TwoToneMethod::Modulation, 60.0, 7000.0, 4.0),
+                TwoToneArg::Difference => {
+                    (TwoToneMethod::DifferenceFrequency, 19_000.0, 20_000.0, 1.0)
+                }
+            };
+            let c = common.common(0.01)?;
+            let s = stimulus::two_tone(
+                &c,
+                m,
+                low.unwrap_or(dl),
+                high.unwrap_or(dh),
+                ratio.unwrap_or(dr),
+                *seconds,
+            )
+            .map_err(e)?;
+            (s, common)
+        }
+    };
+    let format = common.format()?;
+    let d = &stim.description;
+    write_wav_described(
+        &common.out,
+        d.sample_rate_hz,
+        &stim.channel_data(),
+        format,
+        common.seed,
+        Some(&d.to_json()),
+    )
+    .map_err(e)?;
+    eprintln!(
+        "wrote {}: {:.3} s, {} Hz, {} channel(s) (signal on {:?}), {:.1} dBFS",
+        common.out.display(),
+        d.total_samples as f64 / d.sample_rate_hz as f64,
+        d.sample_rate_hz,
+        d.channels,
+        d.signal_channels,
+        d.level_dbfs
+    );
+    Ok(ExitCode::SUCCESS)
+}

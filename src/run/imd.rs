@@ -1,0 +1,94 @@
+//! `ampnote imd`: intermodulation from a two-tone capture.
+
+use crate::cli::{channel_choice, ImdArgs};
+use ampnote::analysis::imd::{ImdAnalyzer, PairHint};
+use ampnote::analysis::tone::ChannelInput;
+use ampnote::capture::{select_channels, Capture};
+use ampnote::error::Error;
+use ampnote::report::imd::ImdReport;
+use ampnote::report::tone::ChannelError;
+use ampnote::report::SCHEMA_VERSION;
+use ampnote::signal::stimulus::{Description, Kind};
+use std::process::ExitCode;
+
+pub fn run(args: &ImdArgs) -> Result<ExitCode, String> {
+    let e = |err: Error| err.to_string();
+    let hint = match &args.stimulus {
+        Some(path) => {
+            let info = Capture::probe_wav(path).map_err(e)?;
+            let not_pair = || Error::NotAStimulus {
+                path: path.clone(),
+                wanted: "twotone",
+            };
+            let desc = info
+                .description_json
+                .as_deref()
+                .and_then(Description::from_json)
+                .ok_or_else(|| e(not_pair()))?;
+            let Kind::TwoTone {
+                method,
+                low_hz,
+                high_hz,
+                ..
+            } = desc.kind
+            else {
+                return Err(e(not_pair()));
+            };
+            Some(PairHint {
+                method,
+                low_hz,
+                high_hz,
+                source: "stimulus description",
+            })
+        }
+        None => None,
+    };
+    let info = Capture::probe_wav(&args.capture).map_err(e)?;
+    let chosen = select_channels(info.channel_count, channel_choice(&args.channel)?).map_err(e)?;
+    let analyzer = ImdAnalyzer::new();
+    let mut channels = Vec::new();
+    let mut channel_errors = Vec::new();
+    for &ch in &chosen {
+        let cap = Capture::read_wav_channels(&args.capture, args.accept_truncated, Some(&[ch]))
+            .map_err(e)?;
+        let input = ChannelInput {
+            channel: ch,
+            samples: &cap.channels[0],
+            sample_rate_hz: cap.sample_rate_hz as f64,
+            overload_threshold: cap.encoding.overload_threshold(),
+            resolution_bits: cap.encoding.resolution_bits(),
+        };
+        match analyzer.analyze(&input, hint) {
+            Ok(r) => channels.push(r),
+            Err(err) => channel_errors.push(ChannelError {
+                channel: ch,
+                error: err.to_string(),
+            }),
+        }
+    }
+    let report = ImdReport {
+        schema_version: SCHEMA_VERSION,
+        file: args.capture.display().to_string(),
+        sample_rate_hz: info.sample_rate_hz,
+        first: channels.first().cloned(),
+        channels,
+        channel_errors,
+    };
+    if args.json {
+        super::report_to_stderr(
+            report
+                .channels
+                .iter()
+                .flat_map(|c| c.warnings.iter().map(move |w| (c.channel, w))),
+            report.channel_errors.iter().map(|c| &c.error),
+        );
+        super::print_stdout(&report.to_json());
+    } else {
+        super::print_stdout(&report.to_table());
+    }
+    Ok(if report.channel_errors.is_empty() {
+        ExitCode::SUCCESS
+    } else {
+        ExitCode::from(2)
+    })
+}

@@ -1,0 +1,29 @@
+//! One module per command: read inputs, call the library, render, choose the exit code.
+//! Errors come back as the message to print (exit code 2).
+
+pub mod analyze;
+pub mod generate;
+pub mod imd;
+pub mod response;
+
+use std::io::Write;
+
+/// Print to stdout; a closed pipe (`| head`) is not an error.
+pub fn print_stdout(text: &str) {
+    let mut out = std::io::stdout().lock();
+    let _ = out.write_all(text.as_bytes()).and_then(|_| out.flush());
+}
+
+/// Warnings and channel errors to stderr, for the machine-readable formats (the table carries
+/// them itself).
+pub fn report_to_stderr<'a>(
+    warnings: impl Iterator<Item = (usize, &'a String)>,
+    errors: impl Iterator<Item = &'a String>,
+) {
+    for (ch, w) in warnings {
+        eprintln!("warning: channel {ch}: {w}");
+    }
+    for e in errors {
+        eprintln!("error: {e}");
+    }
+}

@@ -1,0 +1,118 @@
+//! `ampnote response`: a sweep capture against the sweep file, one channel at a time.
+
+use crate::cli::{channel_choice, ResponseArgs};
+use ampnote::analysis::sweep::{ResponseAnalyzer, ResponseConfig, SweepParams};
+use ampnote::capture::{select_channels, Capture};
+use ampnote::error::Error;
+use ampnote::report::response::ResponseReport;
+use ampnote::report::tone::ChannelError;
+use ampnote::report::SCHEMA_VERSION;
+use ampnote::signal::stimulus::{Description, Kind};
+use std::process::ExitCode;
+
+pub fn run(args: &ResponseArgs) -> Result<ExitCode, String> {
+    let e = |err: Error| err.to_string();
+    let cal = args.calibration.calibration().validated().map_err(e)?;
+    let analyzer = ResponseAnalyzer::new(ResponseConfig {
+        reference_hz: args.reference,
+        points_per_octave: args.points_per_octave,
+        smoothing: args.smooth,
+        max_harmonic: args.harmonics,
+        ..ResponseConfig::default()
+    })
+    .map_err(e)?;
+    let stim = Capture::read_wav(&args.stimulus, false).map_err(e)?;
+    let not_sweep = || Error::NotAStimulus {
+        path: args.stimulus.clone(),
+        wanted: "sweep",
+    };
+    let desc = stim
+        .description_json
+        .as_deref()
+        .and_then(Description::from_json)
+        .ok_or_else(|| e(not_sweep()))?;
+    let Kind::Sweep {
+        start_hz,
+        stop_hz,
+        rate_s,
+        duration_s,
+        fade_in_s,
+        ..
+    } = desc.kind
+    else {
+        return Err(e(not_sweep()));
+    };
+    let sweep = SweepParams {
+        start_hz,
+        stop_hz,
+        rate_s,
+        end_sample: desc.signal_start_sample + desc.signal_samples,
+        fade_in_s,
+    };
+    let signal_ch = desc.signal_channels.first().copied().unwrap_or(1);
+    let x = stim.channel(signal_ch).ok_or_else(|| e(not_sweep()))?;
+
+    let info = Capture::probe_wav(&args.capture).map_err(e)?;
+    if info.sample_rate_hz != desc.sample_rate_hz {
+        return Err(e(Error::SampleRateMismatch {
+            stimulus_hz: desc.sample_rate_hz,
+            capture_hz: info.sample_rate_hz,
+        }));
+    }
+    let chosen = select_channels(info.channel_count, channel_choice(&args.channel)?).map_err(e)?;
+    let mut channels = Vec::new();
+    let mut channel_errors = Vec::new();
+    for &ch in &chosen {
+        let cap = Capture::read_wav_channels(&args.capture, args.accept_truncated, Some(&[ch]))
+            .map_err(e)?;
+        match analyzer.analyze(
+            ch,
+            x,
+            sweep,
+            &cap.channels[0],
+            cap.sample_rate_hz as f64,
+            cap.encoding.overload_threshold(),
+        ) {
+            Ok(r) => channels.push(r),
+            Err(err) => channel_errors.push(ChannelError {
+                channel: ch,
+                error: err.to_string(),
+            }),
+        }
+    }
+    let report = ResponseReport {
+        schema_version: SCHEMA_VERSION,
+        file: args.capture.display().to_string(),
+        stimulus: args.stimulus.display().to_string(),
+        sample_rate_hz: info.sample_rate_hz,
+        sweep_start_hz: start_hz,
+        sweep_stop_hz: stop_hz,
+        sweep_duration_s: duration_s,
+        first: channels.first().cloned(),
+        absolute_gain_db: channels
+            .first()
+            .and_then(|c| cal.absolute_gain_db(c.reference_gain_db)),
+        channels,
+        channel_errors,
+    };
+    if let Some(path) = &args.csv {
+        ampnote::files::write_whole(path, report.to_csv().as_bytes()).map_err(e)?;
+    }
+    if args.json {
+        super::report_to_stderr(
+            report
+                .channels
+                .iter()
+                .flat_map(|c| c.warnings.iter().map(move |w| (c.channel, w))),
+            report.channel_errors.iter().map(|c| &c.error),
+        );
+        super::print_stdout(&report.to_json());
+    } else {
+        super::print_stdout(&report.to_table());
+    }
+    Ok(if report.channel_errors.is_empty() {
+        ExitCode::SUCCESS
+    } else {
+        ExitCode::from(2)
+    })
+}

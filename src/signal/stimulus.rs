@@ -1,0 +1,428 @@
+//! The stimuli ampnote plays: steady tone, staircase of tone levels, synchronized exponential
+//! sweep, two-tone pairs. Each comes with a [`Description`] of what it holds, stored inside the
+//! WAV so that a later analysis never asks the user to retype frequencies or timings.
+//!
+//! Level convention: `level_dbfs` is the RMS of the stimulus referred to a full-scale sine
+//! (AES17), so a sine at 0 dBFS has a peak of 1.0, and a two-tone at 0 dBFS has the RMS of that sine.
+
+use crate::error::{Error, Result};
+use serde::{Deserialize, Serialize};
+use std::f64::consts::PI;
+
+/// Version of the description layout.
+pub const DESCRIPTION_VERSION: u32 = 1;
+
+/// Which two-tone method a pair serves (IEC 60268-3).
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize, Deserialize)]
+#[serde(rename_all = "kebab-case")]
+pub enum TwoToneMethod {
+    /// Low tone and high tone at a 4:1 amplitude ratio (60 Hz + 7 kHz classically).
+    Modulation,
+    /// Two equal tones close together (19 + 20 kHz classically).
+    DifferenceFrequency,
+}
+
+/// One level of a staircase.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+pub struct Step {
+    /// Level of this step, dBFS (RMS re full-scale sine).
+    pub level_dbfs: f64,
+    /// First sample of the step (the settle time starts here).
+    pub start_sample: usize,
+    /// First sample to analyse (after the settle time) and one past the last.
+    pub analyse_from_sample: usize,
+    pub analyse_to_sample: usize,
+}
+
+/// What a stimulus holds, by kind.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+#[serde(tag = "kind", rename_all = "snake_case")]
+pub enum Kind {
+    Tone {
+        frequency_hz: f64,
+    },
+    Steps {
+        frequency_hz: f64,
+        start_dbfs: f64,
+        stop_dbfs: f64,
+        step_db: f64,
+        dwell_s: f64,
+        settle_s: f64,
+        steps: Vec<Step>,
+    },
+    /// Synchronized exponential sweep (Novak, Lotton, Simon, JAES 63(10), 2015):
+    /// `x(t) = sin(2 pi f1 L exp(t / L))`, `0 <= t < L ln(f2 / f1)`.
+    Sweep {
+        start_hz: f64,
+        stop_hz: f64,
+        /// Sweep rate parameter L in seconds, `round(f1 T / ln(f2/f1)) / f1`.
+        rate_s: f64,
+        duration_s: f64,
+        fade_in_s: f64,
+        fade_out_s: f64,
+    },
+    TwoTone {
+        method: TwoToneMethod,
+        low_hz: f64,
+        high_hz: f64,
+        /// Amplitude of the low tone over the high tone (4 for modulation, 1 for difference).
+        ratio: f64,
+    },
+}
+
+/// Everything a later analysis needs to know about a stimulus file.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+pub struct Description {
+    pub ampnote_stimulus: u32,
+    #[serde(flatten)]
+    pub kind: Kind,
+    pub sample_rate_hz: u32,
+    /// RMS level of the signal part, dBFS re full-scale sine (for steps: the first step).
+    pub level_dbfs: f64,
+    /// Channels in the file, and the 1-based channels that carry the signal (others are silent).
+    pub channels: usize,
+    pub signal_channels: Vec<usize>,
+    /// Silence before and after the signal.
+    pub lead_s: f64,
+    pub tail_s: f64,
+    /// First sample of the signal and its length in samples.
+    pub signal_start_sample: usize,
+    pub signal_samples: usize,
+    pub total_samples: usize,
+}
+
+impl Description {
+    pub fn to_json(&self) -> String {
+        serde_json::to_string(self).expect("description serializes")
+    }
+
+    /// Parse a description found in a WAV; `None` when absent or not ampnote's.
+    pub fn from_json(text: &str) -> Option<Description> {
+        serde_json::from_str(text).ok()
+    }
+}
+
+/// Settings common to every stimulus.
+#[derive(Debug, Clone)]
+pub struct Common {
+    pub sample_rate_hz: u32,
+    pub level_dbfs: f64,
+    pub channels: usize,
+    pub signal_channels: Vec<usize>,
+    pub lead_s: f64,
+    pub tail_s: f64,
+    /// Fade in and out for tones and two-tones (raised-cosine), seconds.
+    pub fade_s: f64,
+}
+
+/// A generated stimulus: one signal (placed on the signal channels) and its description.
+#[derive(Debug, Clone)]
+pub struct Stimulus {
+    pub signal: Vec<f64>,
+    pub description: Description,
+}
+
+impl Stimulus {
+    /// The file's channels: the signal on the signal channels, silence elsewhere.
+    pub fn channel_data(&self) -> Vec<Vec<f64>> {
+        (1..=self.description.channels)
+            .map(|c| {
+                if self.description.signal_channels.contains(&c) {
+                    self.signal.clone()
+                } else {
+                    vec![0.0; self.signal.len()]
+                }
+            })
+            .collect()
+    }
+}
+
+fn amplitude_of(level_dbfs: f64) -> f64 {
+    10f64.powf(level_dbfs / 20.0)
+}
+
+fn check_common(c: &Common) -> Result<()> {
+    let bad = |m: String| Err(Error::InvalidSetting(m));
+    if !(crate::capture::MIN_RATE_HZ..=crate::capture::MAX_RATE_HZ).contains(&c.sample_rate_hz) {
+        return bad(format!(
+            "--rate {} Hz is outside 8000..384000 Hz",
+            c.sample_rate_hz
+        ));
+    }
+    if !(c.level_dbfs.is_finite() && c.level_dbfs <= 0.0) {
+        return bad(format!(
+            "--level {} dBFS: the level must be 0 dBFS or below (0 dBFS is a full-scale sine)",
+            c.level_dbfs
+        ));
+    }
+    if c.channels == 0 || c.signal_channels.iter().any(|&s| s == 0 || s > c.channels) {
+        return bad(format!(
+            "signal channels {:?} must lie within 1..{} (--channels)",
+            c.signal_channels, c.channels
+        ));
+    }
+    for (name, v) in [
+        ("--lead", c.lead_s),
+        ("--tail", c.tail_s),
+        ("--fade", c.fade_s),
+    ] {
+        if !(v.is_finite() && v >= 0.0) {
+            return bad(format!("{name} must be 0 s or more, got {v}"));
+        }
+    }
+    Ok(())
+}
+
+fn check_freq(c: &Common, name: &str, f: f64) -> Result<()> {
+    let nyquist = c.sample_rate_hz as f64 / 2.0;
+    if !(f.is_finite() && f > 0.0 && f < nyquist) {
+        return Err(Error::InvalidSetting(format!(
+            "{name} {f} Hz must lie between 0 and the Nyquist frequency {nyquist} Hz"
+        )));
+    }
+    Ok(())
+}
+
+fn secs(c: &Common, s: f64) -> usize {
+    (s * c.sample_rate_hz as f64).round() as usize
+}
+
+/// Pads `body` with the lead and tail silence and builds the description.
+fn finish(c: &Common, kind: Kind, body: Vec<f64>) -> Stimulus {
+    let lead = secs(c, c.lead_s);
+    let tail = secs(c, c.tail_s);
+    let signal_samples = body.len();
+    let mut signal = vec![0.0; lead];
+    signal.extend(body);
+    signal.extend(std::iter::repeat_n(0.0, tail));
+    let description = Description {
+        ampnote_stimulus: DESCRIPTION_VERSION,
+        kind,
+        sample_rate_hz: c.sample_rate_hz,
+        level_dbfs: c.level_dbfs,
+        channels: c.channels,
+        signal_channels: c.signal_channels.clone(),
+        lead_s: c.lead_s,
+        tail_s: c.tail_s,
+        signal_start_sample: lead,
+        signal_samples,
+        total_samples: signal.len(),
+    };
+    Stimulus {
+        signal,
+        description,
+    }
+}
+
+/// Raised-cosine fade of `n` samples at both ends.
+fn fade(x: &mut [f64], n_in: usize, n_out: usize) {
+    let len = x.len();
+    for (i, v) in x.iter_mut().take(n_in).enumerate() {
+        *v *= 0.5 - 0.5 * (PI * i as f64 / n_in as f64).cos();
+    }
+    for (i, v) in x.iter_mut().rev().take(n_out.min(len)).enumerate() {
+        *v *= 0.5 - 0.5 * (PI * i as f64 / n_out as f64).cos();
+    }
+}
+
+/// A steady tone.
+pub fn tone(c: &Common, frequency_hz: f64, seconds: f64) -> Result<Stimulus> {
+    check_common(c)?;
+    check_freq(c, "--freq", frequency_hz)?;
+    let n = secs(c, seconds);
+    if n == 0 {
+        return Err(Error::InvalidSetting("--seconds must be above 0".into()));
+    }
+    let a = amplitude_of(c.level_dbfs);
+    let w = 2.0 * PI * frequency_hz / c.sample_rate_hz as f64;
+    let mut x: Vec<f64> = (0..n).map(|i| a * (w * i as f64).sin()).collect();
+    let f = secs(c, c.fade_s);
+    fade(&mut x, f, f);
+    Ok(finish(c, Kind::Tone { frequency_hz }, x))
+}
+
+/// A staircase of tone levels from `start_dbfs` to `stop_dbfs` in `step_db` steps, each held
+/// `dwell_s` seconds, of which the first `settle_s` are for the amplifier to settle and are not
+/// analysed. The phase runs on across steps so no step boundary clicks.
+pub fn steps(
+    c: &Common,
+    frequency_hz: f64,
+    start_dbfs: f64,
+    stop_dbfs: f64,
+    step_db: f64,
+    dwell_s: f64,
+    settle_s: f64,
+) -> Result<Stimulus> {
+    check_common(c)?;
+    check_freq(c, "--freq", frequency_hz)?;
+    if !(step_db.is_finite() && step_db > 0.0) {
+        return Err(Error::InvalidSetting(format!(
+            "--step must be above 0 dB, got {step_db}"
+        )));
+    }
+    if !(stop_dbfs <= 0.0 && start_dbfs <= stop_dbfs) {
+        return Err(Error::InvalidSetting(format!(
+            "the staircase runs upward to at most 0 dBFS: --start {start_dbfs} must not exceed --stop {stop_dbfs}"
+        )));
+    }
+    if !(dwell_s > settle_s && settle_s >= 0.0) {
+        return Err(Error::InvalidSetting(format!(
+            "--dwell ({dwell_s} s) must exceed --settle ({settle_s} s)"
+        )));
+    }
+    let count = ((stop_dbfs - start_dbfs) / step_db + 1e-9).floor() as usize + 1;
+    if count > 1000 {
+        return Err(Error::InvalidSetting(format!(
+            "{count} steps is too many; use a larger --step"
+        )));
+    }
+    let w = 2.0 * PI * frequency_hz / c.sample_rate_hz as f64;
+    let dwell = secs(c, dwell_s);
+    let settle = secs(c, settle_s);
+    let lead = secs(c, c.lead_s);
+    let mut x = Vec::with_capacity(count * dwell);
+    let mut table = Vec::with_capacity(count);
+    for k in 0..count {
+        let level = start_dbfs + k as f64 * step_db;
+        let a = amplitude_of(level);
+        let start = x.len();
+        x.extend((start..start + dwell).map(|i| a * (w * i as f64).sin()));
+        table.push(Step {
+            level_dbfs: level,
+            start_sample: lead + start,
+            analyse_from_sample: lead + start + settle,
+            analyse_to_sample: lead + start + dwell,
+        });
+    }
+    let f = secs(c, c.fade_s);
+    fade(&mut x, f, f);
+    let mut cc = c.clone();
+    cc.level_dbfs = start_dbfs;
+    Ok(finish(
+        &cc,
+        Kind::Steps {
+            frequency_hz,
+            start_dbfs,
+            stop_dbfs,
+            step_db,
+            dwell_s,
+            settle_s,
+            steps: table,
+        },
+        x,
+    ))
+}
+
+/// The synchronized exponential sweep from `start_hz` to `stop_hz` lasting about `seconds`
+/// (Novak et al. 2015): `L = round(f1 T / ln(f2/f1)) / f1` makes `f1 L` an integer, so the n-th
+/// harmonic of the sweep is the sweep itself advanced by `L ln n` and the harmonic responses keep
+/// their phases.
+pub fn sweep(c: &Common, start_hz: f64, stop_hz: f64, seconds: f64) -> Result<Stimulus> {
+    check_common(c)?;
+    check_freq(c, "--from", start_hz)?;
+    check_freq(c, "--to", stop_hz)?;
+    if stop_hz <= start_hz * 1.5 {
+        return Err(Error::InvalidSetting(format!(
+            "--to ({stop_hz} Hz) must be well above --from ({start_hz} Hz)"
+        )));
+    }
+    let ln = (stop_hz / start_hz).ln();
+    let rate_s = (start_hz * seconds / ln).round().max(1.0) / start_hz;
+    let duration_s = rate_s * ln;
+    let fs = c.sample_rate_hz as f64;
+    let n = (duration_s * fs).floor() as usize;
+    if n < 1024 {
+        return Err(Error::InvalidSetting(format!(
+            "a {duration_s:.3} s sweep is too short; use --seconds 1 or more"
+        )));
+    }
+    let amp = amplitude_of(c.level_dbfs);
+    let mut x: Vec<f64> = (0..n)
+        .map(|i| {
+            let t = i as f64 / fs;
+            // phase 2 pi f1 L e^{t/L}; subtracting the integer 2 pi f1 L keeps it small at t = 0
+            // without changing the sine (f1 L is an integer).
+            let ph = 2.0 * PI * start_hz * rate_s * (t / rate_s).exp_m1();
+            amp * ph.sin()
+        })
+        .collect();
+    // Fade-in: `fade_s` when given, else three periods of the start frequency (at most a tenth of
+    // the sweep); fade-out: the last 2 ms. Both lie outside the band a sweep is meant to measure.
+    let fade_in_s = if c.fade_s > 0.0 {
+        c.fade_s
+    } else {
+        (3.0 / start_hz).min(duration_s / 10.0)
+    };
+    let fade_out_s = 0.002f64.min(duration_s / 10.0);
+    fade(&mut x, secs(c, fade_in_s), secs(c, fade_out_s));
+    Ok(finish(
+        c,
+        Kind::Sweep {
+            start_hz,
+            stop_hz,
+            rate_s,
+            duration_s: n as f64 / fs,
+            fade_in_s,
+            fade_out_s,
+        },
+        x,
+    ))
+}
+
+/// A two-tone pair: `ratio` is the low tone's amplitude over the high tone's (4 for the
+/// modulation method, 1 for difference-frequency). The level is the pair's RMS.
+pub fn two_tone(
+    c: &Common,
+    method: TwoToneMethod,
+    low_hz: f64,
+    high_hz: f64,
+    ratio: f64,
+    seconds: f64,
+) -> Result<Stimulus> {
+    check_common(c)?;
+    check_freq(c, "--low", low_hz)?;
+    check_freq(c, "--high", high_hz)?;
+    if high_hz <= low_hz {
+        return Err(Error::InvalidSetting(format!(
+            "--high ({high_hz} Hz) must be above --low ({low_hz} Hz)"
+        )));
+    }
+    if !(ratio.is_finite() && ratio > 0.0) {
+        return Err(Error::InvalidSetting(format!(
+            "--ratio must be above 0, got {ratio}"
+        )));
+    }
+    // RMS of the pair = sqrt((aL^2 + aH^2) / 2) = 10^(L/20) / sqrt 2
+    let total = amplitude_of(c.level_dbfs);
+    let a_high = total / (1.0 + ratio * ratio).sqrt();
+    let a_low = ratio * a_high;
+    if a_low + a_high > 1.0 {
+        return Err(Error::InvalidSetting(format!(
+            "at {} dBFS the pair's peak ({:.3}) passes full scale; lower --level to {:.1} dBFS or less",
+            c.level_dbfs,
+            a_low + a_high,
+            c.level_dbfs + 20.0 * (1.0 / (a_low + a_high)).log10()
+        )));
+    }
+    let n = secs(c, seconds);
+    if n == 0 {
+        return Err(Error::InvalidSetting("--seconds must be above 0".into()));
+    }
+    let fs = c.sample_rate_hz as f64;
+    let (wl, wh) = (2.0 * PI * low_hz / fs, 2.0 * PI * high_hz / fs);
+    let mut x: Vec<f64> = (0..n)
+        .map(|i| a_low * (wl * i as f64).sin() + a_high * (wh * i as f64).sin())
+        .collect();
+    let f = secs(c, c.fade_s);
+    fade(&mut x, f, f);
+    Ok(finish(
+        c,
+        Kind::TwoTone {
+            method,
+            low_hz,
+            high_hz,
+            ratio,
+        },
+        x,
+    ))
+}
