@@ -30,6 +30,8 @@ pub struct SweepParams {
     pub stop_hz: f64,
     /// Novak's L, seconds.
     pub rate_s: f64,
+    /// First sample of the sweep in the stimulus file (the lead silence's length).
+    pub start_sample: usize,
     /// One past the sweep's last sample in the stimulus file (lead silence included).
     pub end_sample: usize,
     /// Length of the sweep's fade-in, seconds.
@@ -170,6 +172,14 @@ impl ResponseAnalyzer {
                 what: "not a finite number",
             });
         }
+        // Shorter than the sweep itself: it cannot hold it, whatever the latency.
+        let sweep_len = sweep.end_sample.saturating_sub(sweep.start_sample);
+        if capture.len() < sweep_len {
+            return Err(Error::CaptureEndsEarly {
+                channel,
+                missing_s: (sweep_len - capture.len()) as f64 / fs,
+            });
+        }
         let advance = |n: usize| sweep.rate_s * (n as f64).ln() * fs;
         let max_order = self.config.max_harmonic;
         // Transform length: both records plus room for the harmonic responses that land before
@@ -220,43 +230,86 @@ impl ResponseAnalyzer {
 
         // --- the linear response's peak: latency and polarity --------------------------------
         let wrap_zone = advance(max_order + 1) as usize + 16;
-        let (peak, peak_val) = ir
-            .iter()
-            .enumerate()
-            .max_by(|a, b| a.1.abs().total_cmp(&b.1.abs()))
-            .map(|(i, v)| (i, *v))
-            .expect("non-empty response");
+        // The linear response is the strongest peak among the latencies the capture allows
+        // (from minus the lead silence, when the recorder started late, to what the capture's
+        // length leaves after the sweep). With heavy distortion a harmonic response can be
+        // stronger: a strong peak `L ln n` after the strongest one is then the linear response
+        // (the harmonics always arrive before it).
+        let lat_min = -(sweep.start_sample as isize);
+        let lat_max = (capture.len() as isize - sweep_len as isize).max(0);
+        let plausible = |i: usize| {
+            let l = if i > m / 2 {
+                i as isize - m as isize
+            } else {
+                i as isize
+            };
+            (lat_min..=lat_max).contains(&l)
+        };
+        let mut peak = (0..m)
+            .filter(|&i| plausible(i))
+            .max_by(|&a, &b| ir[a].abs().total_cmp(&ir[b].abs()))
+            .expect("latency zero is always plausible");
+        'later: loop {
+            for n in 2..=max_order + 1 {
+                let at = (peak as f64 + advance(n)).round() as isize;
+                let best = (at - 3..=at + 3)
+                    .map(|i| i.rem_euclid(m as isize) as usize)
+                    .max_by(|&a, &b| ir[a].abs().total_cmp(&ir[b].abs()))
+                    .expect("a window of seven samples");
+                if plausible(best) && ir[best].abs() >= 0.25 * ir[peak].abs() {
+                    peak = best;
+                    continue 'later;
+                }
+            }
+            break;
+        }
+        let peak_val = ir[peak];
+        // Latency: negative when the recorder started during the stimulus's lead silence (the
+        // response then wraps round to the end of the record). Realistic latencies are far below
+        // half the record.
+        let lat = if peak > m / 2 {
+            peak as isize - m as isize
+        } else {
+            peak as isize
+        };
+        let at_offset = |o: isize| ir[(lat + o).rem_euclid(m as isize) as usize];
         let noise_rms = {
-            // Noise: the response far from every impulse, between the linear response's tail and
-            // the wrapped harmonic responses.
-            let from = (peak + (0.6 * fs) as usize).min(m);
-            let to = m.saturating_sub(wrap_zone);
+            // Noise: the response far from every impulse, after the linear response's tail and
+            // before the wrapped harmonic responses.
+            let from = (0.6 * fs) as isize;
+            let to = m as isize - wrap_zone as isize - (0.1 * fs) as isize;
             if to > from + 1000 {
-                (ir[from..to].iter().map(|v| v * v).sum::<f64>() / (to - from) as f64).sqrt()
+                ((from..to).map(|o| at_offset(o).powi(2)).sum::<f64>() / (to - from) as f64).sqrt()
             } else {
                 (ir.iter().map(|v| v * v).sum::<f64>() / m as f64).sqrt()
             }
         };
         let impulse_snr_db = 20.0 * (peak_val.abs() / noise_rms.max(1e-300)).log10();
         if impulse_snr_db < MIN_IMPULSE_SNR_DB {
+            // Nothing where the response could be. If a strong response sits before the earliest
+            // possible latency, the recorder started after the sweep had begun.
+            let global = (0..m)
+                .max_by(|&a, &b| ir[a].abs().total_cmp(&ir[b].abs()))
+                .expect("non-empty response");
+            let g_snr = 20.0 * (ir[global].abs() / noise_rms.max(1e-300)).log10();
+            if !plausible(global) && g_snr >= MIN_IMPULSE_SNR_DB {
+                return Err(Error::CaptureStartsLate { channel });
+            }
             return Err(Error::SweepNotFound {
                 channel,
                 snr_db: impulse_snr_db,
             });
         }
-        if peak >= m - wrap_zone {
-            return Err(Error::CaptureStartsLate { channel });
-        }
         // The capture must run until the sweep's last sample has come through.
-        let needed = peak + sweep.end_sample.min(stimulus.len());
-        if capture.len() < needed {
+        let needed = lat + sweep.end_sample.min(stimulus.len()) as isize;
+        if (capture.len() as isize) < needed {
             return Err(Error::CaptureEndsEarly {
                 channel,
-                missing_s: (needed - capture.len()) as f64 / fs,
+                missing_s: (needed - capture.len() as isize) as f64 / fs,
             });
         }
         let frac = parabolic_peak(&ir, peak);
-        let latency_samples = peak as f64 + frac;
+        let latency_samples = lat as f64 + frac;
         let polarity = if peak_val < 0.0 {
             "inverting"
         } else {
@@ -266,9 +319,16 @@ impl ResponseAnalyzer {
         // --- windows and spectra of the responses ---------------------------------------------
         let gap = |n: usize| sweep.rate_s * ((n as f64 + 1.0) / n as f64).ln() * fs; // n+1 to n
         let pre1 = (0.5 * gap(1)).min(0.005 * fs);
-        let post1 = (0.5 * fs).min((m - wrap_zone - peak) as f64 * 0.9);
+        let post1 = (0.5 * fs).min((m - wrap_zone) as f64 * 0.9);
         let nf = fast_length_up(((pre1 + post1) as usize * 2).max((fs / 0.25) as usize));
-        let g1 = windowed_spectrum(&self.planner, &ir, latency_samples, pre1, post1, nf);
+        let g1 = windowed_spectrum(
+            &self.planner,
+            &ir,
+            latency_samples.rem_euclid(m as f64),
+            pre1,
+            post1,
+            nf,
+        );
         let gn: Vec<Vec<Complex64>> = (2..=max_order)
             .map(|n| {
                 let centre = latency_samples - advance(n);

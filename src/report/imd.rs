@@ -73,9 +73,6 @@ impl ImdReport {
                 let _ = writeln!(s, "  warning: {w}");
             }
         }
-        for e in &self.channel_errors {
-            let _ = writeln!(s, "\nChannel {}: not analysed: {}", e.channel, e.error);
-        }
         s
     }
 }

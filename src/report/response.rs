@@ -172,9 +172,6 @@ impl ResponseReport {
                 let _ = writeln!(s, "  warning: {w}");
             }
         }
-        for e in &self.channel_errors {
-            let _ = writeln!(s, "\nChannel {}: not analysed: {}", e.channel, e.error);
-        }
         s
     }
 }

@@ -140,9 +140,6 @@ impl AnalyzeReport {
             s.push('\n');
             channel_table(&mut s, c);
         }
-        for e in &self.channel_errors {
-            let _ = writeln!(s, "\nChannel {}: not analysed: {}", e.channel, e.error);
-        }
         s
     }
 }

@@ -64,17 +64,14 @@ pub fn run(args: &AnalyzeArgs) -> Result<ExitCode, String> {
         channels,
         channel_errors,
     };
-    let table_mode = !args.json && args.csv.is_none();
-    if !table_mode {
-        for c in &report.channels {
-            for w in &c.warnings {
-                eprintln!("warning: channel {}: {w}", c.channel);
-            }
-        }
-        for e in &report.channel_errors {
-            eprintln!("error: {}", e.error);
-        }
-    }
+    super::report_to_stderr(
+        args.json || args.csv.is_some(),
+        report
+            .channels
+            .iter()
+            .flat_map(|c| c.warnings.iter().map(move |w| (c.channel, w))),
+        report.channel_errors.iter().map(|c| &c.error),
+    );
     let text = if args.json {
         report.to_json()
     } else if let Some(path) = &args.csv {

@@ -74,18 +74,19 @@ pub fn run(args: &ImdArgs) -> Result<ExitCode, String> {
         channels,
         channel_errors,
     };
-    if args.json {
-        super::report_to_stderr(
-            report
-                .channels
-                .iter()
-                .flat_map(|c| c.warnings.iter().map(move |w| (c.channel, w))),
-            report.channel_errors.iter().map(|c| &c.error),
-        );
-        super::print_stdout(&report.to_json());
+    super::report_to_stderr(
+        args.json,
+        report
+            .channels
+            .iter()
+            .flat_map(|c| c.warnings.iter().map(move |w| (c.channel, w))),
+        report.channel_errors.iter().map(|c| &c.error),
+    );
+    super::print_stdout(&if args.json {
+        report.to_json()
     } else {
-        super::print_stdout(&report.to_table());
-    }
+        report.to_table()
+    });
     Ok(if report.channel_errors.is_empty() {
         ExitCode::SUCCESS
     } else {

@@ -14,14 +14,17 @@ pub fn print_stdout(text: &str) {
     let _ = out.write_all(text.as_bytes()).and_then(|_| out.flush());
 }
 
-/// Warnings and channel errors to stderr, for the machine-readable formats (the table carries
-/// them itself).
+/// Channels that could not be analysed go to stderr always; warnings only with the
+/// machine-readable formats (the table carries them itself).
 pub fn report_to_stderr<'a>(
+    machine_format: bool,
     warnings: impl Iterator<Item = (usize, &'a String)>,
     errors: impl Iterator<Item = &'a String>,
 ) {
-    for (ch, w) in warnings {
-        eprintln!("warning: channel {ch}: {w}");
+    if machine_format {
+        for (ch, w) in warnings {
+            eprintln!("warning: channel {ch}: {w}");
+        }
     }
     for e in errors {
         eprintln!("error: {e}");

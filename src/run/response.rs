@@ -46,6 +46,7 @@ pub fn run(args: &ResponseArgs) -> Result<ExitCode, String> {
         start_hz,
         stop_hz,
         rate_s,
+        start_sample: desc.signal_start_sample,
         end_sample: desc.signal_start_sample + desc.signal_samples,
         fade_in_s,
     };
@@ -98,18 +99,19 @@ pub fn run(args: &ResponseArgs) -> Result<ExitCode, String> {
     if let Some(path) = &args.csv {
         ampnote::files::write_whole(path, report.to_csv().as_bytes()).map_err(e)?;
     }
-    if args.json {
-        super::report_to_stderr(
-            report
-                .channels
-                .iter()
-                .flat_map(|c| c.warnings.iter().map(move |w| (c.channel, w))),
-            report.channel_errors.iter().map(|c| &c.error),
-        );
-        super::print_stdout(&report.to_json());
+    super::report_to_stderr(
+        args.json,
+        report
+            .channels
+            .iter()
+            .flat_map(|c| c.warnings.iter().map(move |w| (c.channel, w))),
+        report.channel_errors.iter().map(|c| &c.error),
+    );
+    super::print_stdout(&if args.json {
+        report.to_json()
     } else {
-        super::print_stdout(&report.to_table());
-    }
+        report.to_table()
+    });
     Ok(if report.channel_errors.is_empty() {
         ExitCode::SUCCESS
     } else {

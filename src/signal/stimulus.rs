@@ -296,6 +296,13 @@ pub fn steps(
     }
     let f = secs(c, c.fade_s);
     fade(&mut x, f, f);
+    // The fade-out must not reach into what the last step analyses.
+    if let Some(last) = table.last_mut() {
+        last.analyse_to_sample = last
+            .analyse_to_sample
+            .saturating_sub(f)
+            .max(last.analyse_from_sample + 1);
+    }
     let mut cc = c.clone();
     cc.level_dbfs = start_dbfs;
     Ok(finish(

@@ -4,9 +4,11 @@
 mod bad_input;
 mod closed_form;
 mod common;
+mod imd;
 mod numpy_fixtures;
 mod properties;
 mod quantization;
+mod stimuli;
 mod sweep_response;
 mod targets;
 mod wav_reading;

@@ -33,12 +33,14 @@ pub fn make_sweep(
         unreachable!()
     };
     let end_sample = s.description.signal_start_sample + s.description.signal_samples;
+    let s_len = s.description.signal_samples;
     (
         s.signal,
         SweepParams {
             start_hz,
             stop_hz,
             rate_s,
+            start_sample: end_sample - s_len,
             end_sample,
             fade_in_s,
         },
@@ -147,12 +149,14 @@ fn committed_sweep() -> (Vec<f64>, SweepParams) {
         panic!("not a sweep")
     };
     let end_sample = d.signal_start_sample + d.signal_samples;
+    let s_len = d.signal_samples;
     (
         cap.channels[0].clone(),
         SweepParams {
             start_hz,
             stop_hz,
             rate_s,
+            start_sample: end_sample - s_len,
             end_sample,
             fade_in_s,
         },

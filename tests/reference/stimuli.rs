@@ -1,0 +1,429 @@
+//! The stimuli as written by `ampnote generate`, checked against their closed forms, and the
+//! `response` and `imd` commands' handling of bad captures.
+
+use ampnote::capture::Capture;
+use ampnote::signal::stimulus::{Description, Kind};
+use std::path::{Path, PathBuf};
+use std::process::Command;
+
+fn tmpdir(tag: &str) -> PathBuf {
+    let d = std::env::temp_dir().join(format!("ampnote-stim-{tag}-{}", std::process::id()));
+    std::fs::create_dir_all(&d).unwrap();
+    d
+}
+
+fn run(args: &[&str]) -> (i32, String, String) {
+    let out = Command::new(env!("CARGO_BIN_EXE_ampnote"))
+        .args(args)
+        .output()
+        .unwrap();
+    (
+        out.status.code().unwrap_or(-1),
+        String::from_utf8_lossy(&out.stdout).into(),
+        String::from_utf8_lossy(&out.stderr).into(),
+    )
+}
+
+fn ok(args: &[&str]) -> String {
+    let (code, out, err) = run(args);
+    assert_eq!(code, 0, "{args:?}: {err}");
+    out
+}
+
+fn description(path: &Path) -> (Capture, Description) {
+    let cap = Capture::read_wav(path, false).unwrap();
+    let d = Description::from_json(cap.description_json.as_deref().expect("description chunk"))
+        .unwrap();
+    (cap, d)
+}
+
+fn p(d: &Path, name: &str) -> String {
+    d.join(name).to_string_lossy().into_owned()
+}
+
+#[test]
+fn sweep_is_novaks_synchronized_sweep() {
+    // Novak, Lotton, Simon (2015): L = round(f1 T / ln(f2/f1)) / f1 and
+    // x(t) = sin(2 pi f1 L exp(t/L)); f1 L is an integer, so x(t) = sin(2 pi f1 L (exp(t/L) - 1)).
+    let d = tmpdir("sweep");
+    let f = p(&d, "sweep.wav");
+    ok(&[
+        "generate",
+        "sweep",
+        "--rate",
+        "48000",
+        "--bits",
+        "32f",
+        "--level",
+        "-6",
+        "--from",
+        "20",
+        "--to",
+        "20000",
+        "--seconds",
+        "3",
+        "--lead",
+        "0.1",
+        "--tail",
+        "0.2",
+        "-o",
+        &f,
+    ]);
+    let (cap, desc) = description(Path::new(&f));
+    let Kind::Sweep {
+        start_hz,
+        stop_hz,
+        rate_s,
+        fade_in_s,
+        ..
+    } = desc.kind
+    else {
+        panic!("kind")
+    };
+    assert_eq!((start_hz, stop_hz), (20.0, 20_000.0));
+    let f1l = start_hz * rate_s;
+    assert!(
+        (f1l - f1l.round()).abs() < 1e-9,
+        "f1 L = {f1l} is not an integer"
+    );
+    assert!((rate_s - (20.0 * 3.0 / 1000f64.ln()).round() / 20.0).abs() < 1e-12);
+    let x = &cap.channels[0];
+    let lead = desc.signal_start_sample;
+    assert!(
+        x[..lead].iter().all(|&v| v == 0.0),
+        "lead is digital silence"
+    );
+    let amp = 10f64.powf(-6.0 / 20.0);
+    let fade_end = lead + (fade_in_s * 48_000.0) as usize + 1;
+    for i in (fade_end..lead + desc.signal_samples - 200).step_by(997) {
+        let t = (i - lead) as f64 / 48_000.0;
+        let want =
+            amp * (2.0 * std::f64::consts::PI * start_hz * rate_s * (t / rate_s).exp_m1()).sin();
+        // float32 storage: 6e-8 relative
+        assert!((x[i] - want).abs() < 1e-6, "sample {i}: {} vs {want}", x[i]);
+    }
+    std::fs::remove_dir_all(&d).ok();
+}
+
+#[test]
+fn tone_steps_and_twotone_levels() {
+    let d = tmpdir("levels");
+    // A -12 dBFS tone reads -12 dBFS (0 dBFS = full-scale sine RMS, AES17).
+    let tone = p(&d, "tone.wav");
+    ok(&[
+        "generate",
+        "tone",
+        "--freq",
+        "1000",
+        "--level",
+        "-12",
+        "--seconds",
+        "1",
+        "--lead",
+        "0",
+        "--tail",
+        "0",
+        "-o",
+        &tone,
+    ]);
+    let v: serde_json::Value = serde_json::from_str(&ok(&["analyze", &tone, "--json"])).unwrap();
+    let lvl = v["channels"][0]["fundamental_dbfs"].as_f64().unwrap();
+    assert!((lvl + 12.0).abs() < 0.01, "tone level {lvl}");
+
+    // The staircase: one step per dB from -30 to -20, each analysable at its level.
+    let st = p(&d, "steps.wav");
+    ok(&[
+        "generate", "steps", "--start", "-30", "--stop", "-20", "--step", "2", "--dwell", "0.5",
+        "--settle", "0.1", "--bits", "32f", "-o", &st,
+    ]);
+    let (cap, desc) = description(Path::new(&st));
+    let Kind::Steps { steps, .. } = &desc.kind else {
+        panic!("kind")
+    };
+    assert_eq!(steps.len(), 6);
+    for s in steps {
+        let seg = &cap.channels[0][s.analyse_from_sample..s.analyse_to_sample];
+        let rms = (seg.iter().map(|v| v * v).sum::<f64>() / seg.len() as f64).sqrt();
+        let dbfs = 20.0 * (rms * 2f64.sqrt()).log10();
+        assert!(
+            (dbfs - s.level_dbfs).abs() < 0.05,
+            "step {} dBFS reads {dbfs:.3}",
+            s.level_dbfs
+        );
+    }
+
+    // Two-tone at -10 dBFS: RMS of the pair equals a -10 dBFS sine's, amplitudes 4:1.
+    let tt = p(&d, "tt.wav");
+    ok(&[
+        "generate",
+        "twotone",
+        "--level",
+        "-10",
+        "--seconds",
+        "2",
+        "--bits",
+        "32f",
+        "--lead",
+        "0",
+        "--tail",
+        "0",
+        "-o",
+        &tt,
+    ]);
+    let (cap, desc) = description(Path::new(&tt));
+    let x = &cap.channels[0];
+    let rms = (x.iter().map(|v| v * v).sum::<f64>() / x.len() as f64).sqrt();
+    assert!(
+        (20.0 * (rms * 2f64.sqrt()).log10() + 10.0).abs() < 0.05,
+        "two-tone RMS {rms}"
+    );
+    assert!(matches!(desc.kind, Kind::TwoTone { ratio, .. } if ratio == 4.0));
+    let v: serde_json::Value =
+        serde_json::from_str(&ok(&["imd", &tt, "--stimulus", &tt, "--json"])).unwrap();
+    assert_eq!(v["method"], "modulation");
+    assert!(
+        v["dm2_percent"].as_f64().unwrap() < 1e-3,
+        "a clean pair has no IMD: {v}"
+    );
+    assert_eq!(v["pair_source"], "stimulus description");
+
+    // Stereo file with the signal on channel 2 only.
+    let st2 = p(&d, "right.wav");
+    ok(&[
+        "generate",
+        "tone",
+        "--channels",
+        "2",
+        "--signal-on",
+        "2",
+        "-o",
+        &st2,
+    ]);
+    let (cap, _) = description(Path::new(&st2));
+    assert!(cap.channels[0].iter().all(|&v| v == 0.0) && cap.channels[1].iter().any(|&v| v != 0.0));
+    std::fs::remove_dir_all(&d).ok();
+}
+
+#[test]
+fn response_command_and_its_bad_input() {
+    let d = tmpdir("resp");
+    let sw = p(&d, "sweep.wav");
+    ok(&[
+        "generate",
+        "sweep",
+        "--rate",
+        "48000",
+        "--seconds",
+        "2",
+        "--from",
+        "20",
+        "--to",
+        "20000",
+        "-o",
+        &sw,
+    ]);
+    // The stimulus played back as its own capture: flat, non-inverting, every required key.
+    let v: serde_json::Value = serde_json::from_str(&ok(&[
+        "response",
+        &sw,
+        "--stimulus",
+        &sw,
+        "--json",
+        "--csv",
+        &p(&d, "r.csv"),
+    ]))
+    .unwrap();
+    for key in [
+        "schema_version",
+        "reference_hz",
+        "points",
+        "low_3db_hz",
+        "high_3db_hz",
+        "latency_ms",
+        "polarity",
+        "harmonics",
+        "warnings",
+    ] {
+        assert!(v.get(key).is_some(), "response JSON lacks {key}");
+    }
+    assert_eq!(v["polarity"], "non-inverting");
+    assert!(v["latency_ms"].as_f64().unwrap().abs() < 0.02);
+    assert!(v["max_deviation_db"].as_f64().unwrap().abs() < 0.01);
+    let csv = std::fs::read_to_string(d.join("r.csv")).unwrap();
+    assert!(
+        csv.starts_with("channel,frequency_hz,magnitude_db,phase_deg,h2_dbc"),
+        "{csv:.80}"
+    );
+
+    // A tone where the sweep should be.
+    let tone = p(&d, "tone.wav");
+    ok(&[
+        "generate",
+        "tone",
+        "--rate",
+        "48000",
+        "--seconds",
+        "3",
+        "-o",
+        &tone,
+    ]);
+    let (code, _, err) = run(&["response", &tone, "--stimulus", &sw]);
+    assert_eq!(code, 2, "{err}");
+    assert!(
+        err.contains("does not contain the sweep") || err.contains("not analysed"),
+        "{err}"
+    );
+    // The tone as stimulus: not a sweep.
+    let (code, _, err) = run(&["response", &sw, "--stimulus", &tone]);
+    assert_eq!(code, 2);
+    assert!(err.contains("not one of ampnote's sweep stimuli"), "{err}");
+    // Different rates.
+    let sw96 = p(&d, "sweep96.wav");
+    ok(&[
+        "generate",
+        "sweep",
+        "--rate",
+        "96000",
+        "--seconds",
+        "2",
+        "-o",
+        &sw96,
+    ]);
+    let (code, _, err) = run(&["response", &sw96, "--stimulus", &sw]);
+    assert_eq!(code, 2);
+    assert!(
+        err.contains("stimulus is at 48000 Hz but the capture at 96000 Hz"),
+        "{err}"
+    );
+    // A capture cut short.
+    let cap = Capture::read_wav(Path::new(&sw), false).unwrap();
+    let short = p(&d, "short.wav");
+    let n = cap.channels[0].len() / 2;
+    ampnote::signal::wav::write_wav(
+        Path::new(&short),
+        48_000,
+        &[cap.channels[0][..n].to_vec()],
+        ampnote::signal::wav::WavFormat::Float32,
+        1,
+    )
+    .unwrap();
+    let (code, out, _) = run(&["response", &short, "--stimulus", &sw]);
+    assert_eq!(code, 2, "{out}");
+    let (_, _, err) = run(&["response", &short, "--stimulus", &sw]);
+    assert!(
+        err.contains("ends") && err.contains("before the sweep does"),
+        "{out}{err}"
+    );
+    // A recorder started 0.1 s into the sweep.
+    let late = p(&d, "late.wav");
+    let skip = (0.3 * 48_000.0) as usize; // 0.2 s lead + 0.1 s of sweep
+    ampnote::signal::wav::write_wav(
+        Path::new(&late),
+        48_000,
+        &[cap.channels[0][skip..].to_vec()],
+        ampnote::signal::wav::WavFormat::Float32,
+        1,
+    )
+    .unwrap();
+    let (code, _, err) = run(&["response", &late, "--stimulus", &sw]);
+    assert_eq!(code, 2);
+    assert!(err.contains("starts after the sweep began"), "{err}");
+    // A recorder started during the lead silence: fine, negative latency.
+    let early = p(&d, "early.wav");
+    ampnote::signal::wav::write_wav(
+        Path::new(&early),
+        48_000,
+        &[cap.channels[0][4800..].to_vec()],
+        ampnote::signal::wav::WavFormat::Float32,
+        1,
+    )
+    .unwrap();
+    let v: serde_json::Value =
+        serde_json::from_str(&ok(&["response", &early, "--stimulus", &sw, "--json"])).unwrap();
+    assert!(
+        (v["latency_ms"].as_f64().unwrap() + 100.0).abs() < 0.05,
+        "{}",
+        v["latency_ms"]
+    );
+    // Clipped in the capture: a warning, not an error.
+    let clipped = p(&d, "clipped.wav");
+    let c: Vec<f64> = cap.channels[0]
+        .iter()
+        .map(|v| (v * 8.0).clamp(-1.0, 1.0))
+        .collect();
+    ampnote::signal::wav::write_wav(
+        Path::new(&clipped),
+        48_000,
+        &[c],
+        ampnote::signal::wav::WavFormat::Float32,
+        1,
+    )
+    .unwrap();
+    let v: serde_json::Value =
+        serde_json::from_str(&ok(&["response", &clipped, "--stimulus", &sw, "--json"])).unwrap();
+    assert!(
+        v["warnings"]
+            .as_array()
+            .unwrap()
+            .iter()
+            .any(|w| w.as_str().unwrap().contains("input overload")),
+        "{v}"
+    );
+    std::fs::remove_dir_all(&d).ok();
+}
+
+#[test]
+fn clock_drift_is_reported() {
+    // A recorder running 100 ppm fast sees the sweep at t (1 + 1e-4): build that capture from the
+    // sweep's closed form (no fade) and check the warning.
+    use ampnote::analysis::sweep::{ResponseAnalyzer, ResponseConfig, SweepParams};
+    use ampnote::signal::stimulus::{sweep, Common};
+    let fs = 48_000.0;
+    let c = Common {
+        sample_rate_hz: 48_000,
+        level_dbfs: -6.0,
+        channels: 1,
+        signal_channels: vec![1],
+        lead_s: 0.05,
+        tail_s: 0.5,
+        fade_s: 1e-9,
+    };
+    let s = sweep(&c, 20.0, 20_000.0, 5.0).unwrap();
+    let Kind::Sweep { rate_s, .. } = s.description.kind else {
+        panic!()
+    };
+    let lead = s.description.signal_start_sample;
+    let len = s.description.signal_samples;
+    let amp = 10f64.powf(-6.0 / 20.0);
+    let drift = 1e-4;
+    let delay = 200.0; // samples of converter latency
+    let y: Vec<f64> = (0..s.signal.len() + 400)
+        .map(|i| {
+            let t = (i as f64 - lead as f64 - delay) / fs * (1.0 + drift);
+            if t < 0.0 || t >= len as f64 / fs {
+                0.0
+            } else {
+                amp * (2.0 * std::f64::consts::PI * 20.0 * rate_s * (t / rate_s).exp_m1()).sin()
+            }
+        })
+        .collect();
+    let sp = SweepParams {
+        start_hz: 20.0,
+        stop_hz: 20_000.0,
+        rate_s,
+        start_sample: lead,
+        end_sample: lead + len,
+        fade_in_s: 0.0,
+    };
+    let r = ResponseAnalyzer::new(ResponseConfig::default())
+        .unwrap()
+        .analyze(1, &s.signal, sp, &y, fs, 1.0)
+        .unwrap();
+    let ppm = r.clock_drift_ppm.expect("drift estimated");
+    assert!((ppm.abs() - 100.0).abs() < 20.0, "drift {ppm} ppm");
+    assert!(
+        r.warnings.iter().any(|w| w.contains("clocks differ")),
+        "{:?}",
+        r.warnings
+    );
+}
