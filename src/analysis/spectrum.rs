@@ -103,7 +103,12 @@ pub struct SpectrumBuffers {
 #[derive(Default)]
 pub struct SpectrumPlanner {
     fft: Mutex<RealFftPlanner<f64>>,
+    /// A second planner so two threads can plan at once (inverse transforms, and forward ones
+    /// asked for with [`SpectrumPlanner::forward_secondary`]).
+    fft_second: Mutex<RealFftPlanner<f64>>,
     plans: Mutex<HashMap<(&'static str, usize), Arc<SpectrumPlan>>>,
+    /// Forward plans made by the second planner, by length.
+    extra: Mutex<HashMap<usize, Arc<dyn RealToComplex<f64>>>>,
 }
 
 impl SpectrumPlanner {
@@ -113,12 +118,33 @@ impl SpectrumPlanner {
 
     /// A forward real FFT of length `len` (no window).
     pub fn forward(&self, len: usize) -> Arc<dyn RealToComplex<f64>> {
+        if let Some(p) = self.extra.lock().expect("planner lock").get(&len) {
+            return Arc::clone(p);
+        }
         self.fft.lock().expect("planner lock").plan_fft_forward(len)
     }
 
     /// An inverse real FFT of length `len` (unnormalised: a round trip multiplies by `len`).
     pub fn inverse(&self, len: usize) -> Arc<dyn realfft::ComplexToReal<f64>> {
-        self.fft.lock().expect("planner lock").plan_fft_inverse(len)
+        self.fft_second
+            .lock()
+            .expect("planner lock")
+            .plan_fft_inverse(len)
+    }
+
+    /// A forward real FFT planned by the second planner (to plan on another thread while the
+    /// first is busy); later calls to [`SpectrumPlanner::forward`] for the same length reuse it.
+    pub fn forward_secondary(&self, len: usize) -> Arc<dyn RealToComplex<f64>> {
+        let plan = self
+            .fft_second
+            .lock()
+            .expect("planner lock")
+            .plan_fft_forward(len);
+        self.extra
+            .lock()
+            .expect("planner lock")
+            .insert(len, Arc::clone(&plan));
+        plan
     }
 
     /// The plan for `window` at length `len` (computed on first use).

@@ -186,18 +186,37 @@ impl ResponseAnalyzer {
         // time zero and wrap to the end.
         let m =
             fast_length_up(capture.len() + stimulus.len() + advance(max_order + 1) as usize + 16);
-        let fwd = self.planner.forward(m);
-        let inv = self.planner.inverse(m);
+        let gap = |n: usize| sweep.rate_s * ((n as f64 + 1.0) / n as f64).ln() * fs; // n+1 to n
+        let pre1 = (0.5 * gap(1)).min(0.005 * fs);
+        let wrap_zone = advance(max_order + 1) as usize + 16;
+        let post1 = (0.5 * fs).min((m - wrap_zone) as f64 * 0.9);
+        let nf = fast_length_up(((pre1 + post1) as usize * 2).max((fs / 0.25) as usize));
+        // Two cores: plan the inverse and the response transforms while the forward one is
+        // planned, then transform stimulus and capture side by side.
+        let (fwd, inv) = std::thread::scope(|sc| {
+            let other = sc.spawn(|| {
+                let inv = self.planner.inverse(m);
+                let _ = self.planner.forward_secondary(nf);
+                inv
+            });
+            let fwd = self.planner.forward(m);
+            (fwd, other.join().expect("planning thread"))
+        });
+        // Buffers are filled by writing (not left to the allocator's zero pages, which the FFT
+        // would read first and then write, costing a second page fault per page).
         let spectrum = |x: &[f64]| -> Vec<Complex64> {
-            let mut buf = vec![0.0; m];
+            let mut buf = written_zeros(m, 0.0);
             buf[..x.len()].copy_from_slice(x);
-            let mut out = fwd.make_output_vec();
+            let mut out = written_zeros(m / 2 + 1, Complex64::new(0.0, 0.0));
             fwd.process(&mut buf, &mut out)
                 .expect("sizes match the plan");
             out
         };
-        let xs = spectrum(stimulus);
-        let mut h_spec = spectrum(capture);
+        let (xs, mut h_spec) = std::thread::scope(|sc| {
+            let stim = sc.spawn(|| spectrum(stimulus));
+            let cap = spectrum(capture);
+            (stim.join().expect("transform thread"), cap)
+        });
         let bin_hz = fs / m as f64;
         let max_x = xs.iter().map(|c| c.norm_sqr()).fold(0.0, f64::max);
         let floor = max_x * 1e-14;
@@ -217,7 +236,7 @@ impl ResponseAnalyzer {
                 Complex64::new(0.0, 0.0)
             };
         }
-        let mut ir = vec![0.0; m];
+        let mut ir = written_zeros(m, 0.0);
         // realfft's inverse wants purely real DC and Nyquist bins.
         h_spec[0].im = 0.0;
         if let Some(last) = h_spec.last_mut() {
@@ -229,7 +248,6 @@ impl ResponseAnalyzer {
         ir.iter_mut().for_each(|v| *v *= norm);
 
         // --- the linear response's peak: latency and polarity --------------------------------
-        let wrap_zone = advance(max_order + 1) as usize + 16;
         // The linear response is the strongest peak among the latencies the capture allows
         // (from minus the lead silence, when the recorder started late, to what the capture's
         // length leaves after the sweep). With heavy distortion a harmonic response can be
@@ -317,37 +335,36 @@ impl ResponseAnalyzer {
         };
 
         // --- windows and spectra of the responses ---------------------------------------------
-        let gap = |n: usize| sweep.rate_s * ((n as f64 + 1.0) / n as f64).ln() * fs; // n+1 to n
-        let pre1 = (0.5 * gap(1)).min(0.005 * fs);
-        let post1 = (0.5 * fs).min((m - wrap_zone) as f64 * 0.9);
-        let nf = fast_length_up(((pre1 + post1) as usize * 2).max((fs / 0.25) as usize));
-        let g1 = windowed_spectrum(
-            &self.planner,
-            &ir,
-            latency_samples.rem_euclid(m as f64),
-            pre1,
-            post1,
-            nf,
-        );
-        let gn: Vec<Vec<Complex64>> = (2..=max_order)
-            .map(|n| {
-                let centre = latency_samples - advance(n);
-                let pre = 0.5 * gap(n);
-                let post = 0.5 * gap(n - 1);
-                windowed_spectrum(
-                    &self.planner,
-                    &ir,
-                    centre.rem_euclid(m as f64),
-                    pre,
-                    post,
-                    nf,
-                )
-            })
-            .collect();
+        let harmonic = |n: usize| {
+            let centre = latency_samples - advance(n);
+            windowed_spectrum(
+                &self.planner,
+                &ir,
+                centre.rem_euclid(m as f64),
+                0.5 * gap(n),
+                0.5 * gap(n - 1),
+                nf,
+            )
+        };
+        // The higher harmonics on the second core, the linear response and H2 on this one.
+        let (g1, gn) = std::thread::scope(|sc| {
+            let upper = sc.spawn(|| (3..=max_order).map(harmonic).collect::<Vec<Shifted>>());
+            let g1 = windowed_spectrum(
+                &self.planner,
+                &ir,
+                latency_samples.rem_euclid(m as f64),
+                pre1,
+                post1,
+                nf,
+            );
+            let mut gn = vec![harmonic(2)];
+            gn.extend(upper.join().expect("transform thread"));
+            (g1, gn)
+        });
         let nf_bin = fs / nf as f64;
-        let at = |spec: &[Complex64], f: f64| -> Complex64 {
-            let k = ((f / nf_bin).round() as usize).min(spec.len() - 1);
-            spec[k] / guard.at(k as f64 * nf_bin)
+        let at = |spec: &Shifted, f: f64| -> Complex64 {
+            let k = ((f / nf_bin).round() as usize).min(spec.spectrum.len() - 1);
+            spec.bin(k) / guard.at(k as f64 * nf_bin)
         };
 
         // --- reported points ------------------------------------------------------------------
@@ -365,7 +382,7 @@ impl ResponseAnalyzer {
             .map(|&f| {
                 let g = at(&g1, f);
                 let mag = match self.config.smoothing {
-                    Some(n) => smoothed(&g1, f, n, nf_bin),
+                    Some(n) => smoothed(&g1.spectrum, f, n, nf_bin) / guard.at(f).norm(),
                     None => g.norm(),
                 };
                 ResponsePoint {
@@ -435,7 +452,7 @@ impl ResponseAnalyzer {
             .max_by(|a, b| a.0.abs().total_cmp(&b.0.abs()))
             .unwrap_or((0.0, reference_hz));
         let reference_gain_db = 20.0 * (h_ref).log10();
-        let clock_drift_ppm = drift_ppm(&g1, sweep, nf_bin);
+        let clock_drift_ppm = drift_ppm(&g1.spectrum, sweep, nf_bin);
         let overload = capture
             .iter()
             .filter(|v| v.abs() >= overload_threshold)
@@ -494,17 +511,12 @@ impl ResponseAnalyzer {
 /// At the start frequency it takes off 0.017 dB, which is divided out when the response is read.
 struct LowGuard {
     corner_hz: f64,
-    poles: [Complex64; 4],
 }
 
 impl LowGuard {
     fn new(start_hz: f64) -> Self {
-        // Butterworth poles of order 4 on the unit circle, left half-plane.
-        let poles =
-            std::array::from_fn(|k| Complex64::from_polar(1.0, PI * (2.0 * k as f64 + 5.0) / 8.0));
         LowGuard {
             corner_hz: start_hz / 2.0,
-            poles,
         }
     }
 
@@ -512,9 +524,24 @@ impl LowGuard {
         if f <= 0.0 {
             return Complex64::new(0.0, 0.0);
         }
-        let s = Complex64::new(0.0, f / self.corner_hz);
-        self.poles.iter().map(|&p| s / (s - p)).product()
+        // s^4 / B(s), B the 4th-order Butterworth polynomial s^4 + a s^3 + b s^2 + a s + 1 with
+        // a = sqrt(4 + 2 sqrt 2), b = 2 + sqrt 2; at s = jw its parts are real and imaginary.
+        const A: f64 = 2.613_125_929_752_753;
+        const B: f64 = 3.414_213_562_373_095;
+        let w = f / self.corner_hz;
+        let w2 = w * w;
+        let den = Complex64::new(w2 * w2 - B * w2 + 1.0, A * w * (1.0 - w2));
+        Complex64::new(w2 * w2, 0.0) / den
     }
+}
+
+/// A vector of `len` copies of `zero`, written element by element. `vec![0.0; n]` maps the
+/// kernel's shared zero page, so a transform that reads a page before writing it takes two
+/// faults (and, with two threads, a TLB shootdown) per page; writing first takes one.
+fn written_zeros<T: Copy>(len: usize, zero: T) -> Vec<T> {
+    let mut v = Vec::with_capacity(len);
+    v.resize(len, zero);
+    v
 }
 
 /// 1 inside [f1, f2], raised-cosine down to 0 at `lo` and `hi`.
@@ -547,7 +574,7 @@ fn parabolic_peak(x: &[f64], i: usize) -> f64 {
 /// Cuts the response around `centre` (fractional sample, taken modulo the record) from
 /// `centre - pre` to `centre + post`, with raised-cosine edges (the first `pre` samples rise,
 /// the last fifth of `post` falls), rotates `centre` to time zero, and transforms at length `nf`.
-/// The fractional part of `centre` is removed in the spectrum, so phases refer to the peak.
+/// The fractional part of `centre` is kept beside the spectrum, so phases refer to the peak.
 fn windowed_spectrum(
     planner: &SpectrumPlanner,
     ir: &[f64],
@@ -555,14 +582,14 @@ fn windowed_spectrum(
     pre: f64,
     post: f64,
     nf: usize,
-) -> Vec<Complex64> {
+) -> Shifted {
     let m = ir.len();
     let c = centre.floor() as isize;
     let frac = centre - c as f64;
     let pre_n = pre.floor() as isize;
     let post_n = post.floor() as isize;
     let fall = (post_n / 5).max(1);
-    let mut buf = vec![0.0; nf];
+    let mut buf = written_zeros(nf, 0.0);
     for off in -pre_n..=post_n {
         let src = (c + off).rem_euclid(m as isize) as usize;
         let w = if off < 0 {
@@ -576,14 +603,27 @@ fn windowed_spectrum(
         buf[dst] += ir[src] * w;
     }
     let fwd = planner.forward(nf);
-    let mut out = fwd.make_output_vec();
+    let mut out = written_zeros(nf / 2 + 1, Complex64::new(0.0, 0.0));
     fwd.process(&mut buf, &mut out)
         .expect("sizes match the plan");
-    // Undo the fractional delay: the peak sat `frac` samples after index 0.
-    for (k, v) in out.iter_mut().enumerate() {
-        *v *= Complex64::from_polar(1.0, 2.0 * PI * k as f64 * frac / nf as f64);
+    Shifted {
+        spectrum: out,
+        frac,
     }
-    out
+}
+
+/// A response's spectrum with its peak rotated to index 0, and the fractional sample by which
+/// the peak sat after that index, taken out as each bin is read ([`Shifted::bin`]).
+struct Shifted {
+    spectrum: Vec<Complex64>,
+    frac: f64,
+}
+
+impl Shifted {
+    fn bin(&self, k: usize) -> Complex64 {
+        let n = 2 * (self.spectrum.len() - 1);
+        self.spectrum[k] * Complex64::from_polar(1.0, 2.0 * PI * k as f64 * self.frac / n as f64)
+    }
 }
 
 /// Log-spaced points from `lo` to `hi`, `per_octave` to the octave, snapped to bins and
