@@ -27,7 +27,7 @@ fn main() {
     write_wav_described(
         &stim,
         96_000,
-        &[s.signal.clone()],
+        std::slice::from_ref(&s.signal),
         WavFormat::Int { bits: 24 },
         1,
         Some(&s.description.to_json()),
