@@ -23,6 +23,10 @@ pub struct Calibration {
     pub load_ohms: Option<f64>,
     /// RMS voltage of a full-scale sine at the interface output (what the amplifier is fed).
     pub output_fs_vrms: Option<f64>,
+    /// The interface's own loopback THD+N (dB) and noise (dBFS): readings within 10 dB of these
+    /// measure the interface, not the amplifier.
+    pub loopback_thdn_db: Option<f64>,
+    pub loopback_noise_dbfs: Option<f64>,
 }
 
 impl Calibration {
@@ -71,6 +75,162 @@ impl Calibration {
     pub fn watts_from_dbfs(&self, dbfs: f64) -> Option<f64> {
         let v = self.vrms_from_dbfs(dbfs)?;
         self.load_ohms.map(|r| v * v / r)
+    }
+}
+
+/// A calibration profile as stored in TOML (format: `calibration/README.md`). Every section and
+/// value is optional; unknown keys are refused, so a typo cannot pass silently.
+#[derive(Debug, Clone, Default, PartialEq, serde::Serialize, serde::Deserialize)]
+#[serde(deny_unknown_fields)]
+pub struct Profile {
+    pub name: Option<String>,
+    pub interface: Option<InterfaceSection>,
+    pub attenuator: Option<AttenuatorSection>,
+    pub load: Option<LoadSection>,
+    pub loopback: Option<LoopbackSection>,
+}
+
+#[derive(Debug, Clone, Default, PartialEq, serde::Serialize, serde::Deserialize)]
+#[serde(deny_unknown_fields)]
+pub struct InterfaceSection {
+    pub output_fs_vrms: Option<f64>,
+    pub input_fs_vrms: Option<f64>,
+}
+
+/// The attenuator: its measured ratio, or the divider's resistors and the interface's input
+/// impedance (which loads the bottom resistor).
+#[derive(Debug, Clone, Default, PartialEq, serde::Serialize, serde::Deserialize)]
+#[serde(deny_unknown_fields)]
+pub struct AttenuatorSection {
+    pub ratio: Option<f64>,
+    pub r_top_ohms: Option<f64>,
+    pub r_bottom_ohms: Option<f64>,
+    pub interface_input_ohms: Option<f64>,
+}
+
+#[derive(Debug, Clone, Default, PartialEq, serde::Serialize, serde::Deserialize)]
+#[serde(deny_unknown_fields)]
+pub struct LoadSection {
+    pub ohms: Option<f64>,
+}
+
+/// The interface measuring itself (output looped to input).
+#[derive(Debug, Clone, Default, PartialEq, serde::Serialize, serde::Deserialize)]
+#[serde(deny_unknown_fields)]
+pub struct LoopbackSection {
+    pub thdn_db: Option<f64>,
+    pub noise_dbfs: Option<f64>,
+    /// Optional loopback response for correction: `[frequency_hz, magnitude_db]` pairs.
+    pub response: Option<Vec<[f64; 2]>>,
+}
+
+/// Voltage ratio of a resistive divider loaded by the interface input:
+/// `(R_top + R_b) / R_b` with `R_b = R_bottom || Z_in` (Ohm's law).
+pub fn divider_ratio(r_top: f64, r_bottom: f64, input_ohms: Option<f64>) -> f64 {
+    let rb = match input_ohms {
+        Some(z) => r_bottom * z / (r_bottom + z),
+        None => r_bottom,
+    };
+    (r_top + rb) / rb
+}
+
+impl Profile {
+    /// Read and check a profile.
+    pub fn load(path: &std::path::Path) -> Result<Profile> {
+        let text = std::fs::read_to_string(path).map_err(|source| Error::Open {
+            path: path.to_path_buf(),
+            source,
+        })?;
+        Self::parse(&text, path)
+    }
+
+    pub fn parse(text: &str, path: &std::path::Path) -> Result<Profile> {
+        let bad = |detail: String| Error::BadProfile {
+            path: path.to_path_buf(),
+            detail,
+        };
+        let p: Profile = toml::from_str(text).map_err(|e| bad(e.to_string().trim().to_string()))?;
+        p.calibration().map_err(|e| match e {
+            Error::InvalidSetting(d) => bad(d),
+            other => other,
+        })?;
+        Ok(p)
+    }
+
+    /// The calibration this profile describes (checked).
+    pub fn calibration(&self) -> Result<Calibration> {
+        let iface = self.interface.clone().unwrap_or_default();
+        let att = self.attenuator.clone().unwrap_or_default();
+        let attenuation = match (att.ratio, att.r_top_ohms, att.r_bottom_ohms) {
+            (Some(_), Some(_), _) | (Some(_), _, Some(_)) => {
+                return Err(Error::InvalidSetting(
+                    "[attenuator] gives both a ratio and resistor values; keep one".into(),
+                ))
+            }
+            (Some(r), None, None) => Some(r),
+            (None, Some(top), Some(bottom)) => {
+                for (name, v) in [("r_top_ohms", top), ("r_bottom_ohms", bottom)] {
+                    if !(v.is_finite() && v > 0.0) {
+                        return Err(Error::InvalidSetting(format!("[attenuator] {name} must be above 0, got {v}")));
+                    }
+                }
+                Some(divider_ratio(top, bottom, att.interface_input_ohms))
+            }
+            (None, None, None) => None,
+            _ => {
+                return Err(Error::InvalidSetting(
+                    "[attenuator] needs both r_top_ohms and r_bottom_ohms".into(),
+                ))
+            }
+        };
+        if let Some(r) = attenuation {
+            if r < 1.0 {
+                return Err(Error::InvalidSetting(format!(
+                    "[attenuator] ratio {r} is below 1: a resistive attenuator cannot raise the voltage (ratio = amplifier volts / interface volts)"
+                )));
+            }
+        }
+        let loop_ = self.loopback.clone().unwrap_or_default();
+        Calibration {
+            input_fs_vrms: iface.input_fs_vrms,
+            output_fs_vrms: iface.output_fs_vrms,
+            attenuation,
+            load_ohms: self.load.as_ref().and_then(|l| l.ohms),
+            loopback_thdn_db: loop_.thdn_db,
+            loopback_noise_dbfs: loop_.noise_dbfs,
+        }
+        .validated()
+    }
+
+    /// The profile as TOML text.
+    pub fn to_toml(&self) -> String {
+        toml::to_string_pretty(self).expect("profile serializes")
+    }
+}
+
+impl Calibration {
+    /// `self` with every value `over` gives replacing the one here (flags over a profile).
+    pub fn overridden_by(self, over: Calibration) -> Calibration {
+        Calibration {
+            input_fs_vrms: over.input_fs_vrms.or(self.input_fs_vrms),
+            attenuation: over.attenuation.or(self.attenuation),
+            load_ohms: over.load_ohms.or(self.load_ohms),
+            output_fs_vrms: over.output_fs_vrms.or(self.output_fs_vrms),
+            loopback_thdn_db: over.loopback_thdn_db.or(self.loopback_thdn_db),
+            loopback_noise_dbfs: over.loopback_noise_dbfs.or(self.loopback_noise_dbfs),
+        }
+    }
+
+    /// Peak voltage at the interface input when the amplifier delivers `watts` into the load:
+    /// `sqrt(2 P R) / attenuation`. `None` without a load.
+    pub fn input_peak_at_power(&self, watts: f64) -> Option<f64> {
+        let r = self.load_ohms?;
+        Some((2.0 * watts * r).sqrt() / self.attenuation.unwrap_or(1.0))
+    }
+
+    /// Peak voltage of the interface input's full scale, `sqrt 2 * V_fs`.
+    pub fn input_full_scale_peak(&self) -> Option<f64> {
+        self.input_fs_vrms.map(|v| v * std::f64::consts::SQRT_2)
     }
 }
 

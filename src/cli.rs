@@ -3,7 +3,7 @@
 
 use ampnote::analysis::tone::{Mains, ToneConfig};
 use ampnote::analysis::weighting::Weighting;
-use ampnote::calibration::Calibration;
+use ampnote::calibration::{Calibration, Profile};
 use ampnote::signal::stimulus::Common;
 use ampnote::signal::wav::WavFormat;
 use clap::{Args, Parser, Subcommand, ValueEnum};
@@ -55,10 +55,10 @@ pub enum GenerateKind {
         #[arg(long, default_value_t = 997.0, value_name = "HZ")]
         freq: f64,
         /// First (lowest) step, dBFS.
-        #[arg(long, default_value_t = -40.0, value_name = "DBFS", allow_negative_numbers = true)]
+        #[arg(long = "from", default_value_t = -40.0, value_name = "DBFS", allow_negative_numbers = true)]
         start: f64,
         /// Last (highest) step, dBFS.
-        #[arg(long, default_value_t = -6.0, value_name = "DBFS", allow_negative_numbers = true)]
+        #[arg(long = "to", default_value_t = -6.0, value_name = "DBFS", allow_negative_numbers = true)]
         stop: f64,
         /// Step size in dB.
         #[arg(long, default_value_t = 1.0, value_name = "DB")]
@@ -247,6 +247,10 @@ pub struct AnalyzeArgs {
 /// Calibration flags shared by every analysing command.
 #[derive(Debug, Args)]
 pub struct CalibrationArgs {
+    /// Calibration profile (TOML, see calibration/README.md); the flags below override it.
+    #[arg(long, value_name = "FILE.toml")]
+    pub profile: Option<PathBuf>,
+
     /// RMS voltage at the interface input that reads as a full-scale sine (0 dBFS).
     #[arg(long, value_name = "V")]
     pub input_fs_vrms: Option<f64>,
@@ -360,12 +364,20 @@ impl AnalyzeArgs {
 }
 
 impl CalibrationArgs {
-    pub fn calibration(&self) -> Calibration {
-        Calibration {
+    /// The profile (if any) with the flags over it, checked.
+    pub fn calibration(&self) -> Result<Calibration, String> {
+        let base = match &self.profile {
+            Some(p) => Profile::load(p).and_then(|p| p.calibration()).map_err(|e| e.to_string())?,
+            None => Calibration::default(),
+        };
+        base.overridden_by(Calibration {
             input_fs_vrms: self.input_fs_vrms,
             attenuation: self.attenuation,
             load_ohms: self.load_ohms,
             output_fs_vrms: self.output_fs_vrms,
-        }
+            ..Calibration::default()
+        })
+        .validated()
+        .map_err(|e| e.to_string())
     }
 }

@@ -86,6 +86,9 @@ pub enum Error {
     #[error("channel {channel}: the capture starts after the sweep began. Start the recorder before the player.")]
     CaptureStartsLate { channel: usize },
 
+    #[error("calibration profile {path}: {detail}. See calibration/README.md for the format.")]
+    BadProfile { path: PathBuf, detail: String },
+
     #[error("invalid setting: {0}")]
     InvalidSetting(String),
 }

@@ -501,7 +501,7 @@ impl ToneAnalyzer {
             },
             warnings: Vec::new(),
         };
-        result.warnings = quality_warnings(&result, input, p_thdn, p1, drift);
+        result.warnings = quality_warnings(&result, input, cal, p_thdn, p1, drift);
         Ok(result)
     }
 }
@@ -892,6 +892,7 @@ fn polyfit(t: &[f64], y: &[f64], deg: usize) -> Option<Vec<f64>> {
 fn quality_warnings(
     r: &ToneResult,
     input: &ChannelInput,
+    cal: &Calibration,
     p_thdn: f64,
     p1: f64,
     drift: Option<Drift>,
@@ -960,6 +961,24 @@ fn quality_warnings(
             "{} at the noise floor: their levels are upper bounds.",
             floor_orders.join(", ")
         ));
+    }
+    // The interface's own floor (from the calibration profile): readings within 10 dB of it
+    // measure the interface (DESIGN: measurement quality, common practice).
+    if let Some(floor) = cal.loopback_thdn_db {
+        if r.thdn_db < floor + 10.0 {
+            w.push(format!(
+                "THD+N ({:.1} dB) is within 10 dB of the interface's own loopback floor ({floor:.1} dB): the reading says as much about the interface as the amplifier.",
+                r.thdn_db
+            ));
+        }
+    }
+    if let Some(floor) = cal.loopback_noise_dbfs {
+        if r.noise_dbfs < floor + 10.0 {
+            w.push(format!(
+                "noise ({:.1} dBFS) is within 10 dB of the interface's own noise ({floor:.1} dBFS): reduce the attenuation or treat the figure as an upper bound.",
+                r.noise_dbfs
+            ));
+        }
     }
     if r.dc_offset.abs() > 0.01 {
         w.push(format!(

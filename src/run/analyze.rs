@@ -9,11 +9,7 @@ use std::process::ExitCode;
 
 pub fn run(args: &AnalyzeArgs) -> Result<ExitCode, String> {
     let config = args.tone_config()?;
-    let cal = args
-        .calibration
-        .calibration()
-        .validated()
-        .map_err(|e| e.to_string())?;
+    let cal = args.calibration.calibration()?;
     let channel = args.channel_choice()?;
     let analyzer = ToneAnalyzer::new(config).map_err(|e| e.to_string())?;
     let info = Capture::probe_wav(&args.capture).map_err(|e| e.to_string())?;

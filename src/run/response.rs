@@ -12,7 +12,7 @@ use std::process::ExitCode;
 
 pub fn run(args: &ResponseArgs) -> Result<ExitCode, String> {
     let e = |err: Error| err.to_string();
-    let cal = args.calibration.calibration().validated().map_err(e)?;
+    let cal = args.calibration.calibration()?;
     let analyzer = ResponseAnalyzer::new(ResponseConfig {
         reference_hz: args.reference,
         points_per_octave: args.points_per_octave,

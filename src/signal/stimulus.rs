@@ -262,7 +262,7 @@ pub fn steps(
     }
     if !(stop_dbfs <= 0.0 && start_dbfs <= stop_dbfs) {
         return Err(Error::InvalidSetting(format!(
-            "the staircase runs upward to at most 0 dBFS: --start {start_dbfs} must not exceed --stop {stop_dbfs}"
+            "the staircase runs upward to at most 0 dBFS: --from {start_dbfs} must not exceed --to {stop_dbfs}"
         )));
     }
     if !(dwell_s > settle_s && settle_s >= 0.0) {

@@ -133,7 +133,7 @@ fn tone_steps_and_twotone_levels() {
     // The staircase: one step per dB from -30 to -20, each analysable at its level.
     let st = p(&d, "steps.wav");
     ok(&[
-        "generate", "steps", "--start", "-30", "--stop", "-20", "--step", "2", "--dwell", "0.5",
+        "generate", "steps", "--from", "-30", "--to", "-20", "--step", "2", "--dwell", "0.5",
         "--settle", "0.1", "--bits", "32f", "-o", &st,
     ]);
     let (cap, desc) = description(Path::new(&st));

@@ -130,7 +130,7 @@ fn calibration_volts_and_watts() {
         input_fs_vrms: Some(2.0),
         attenuation: Some(10.0),
         load_ohms: Some(8.0),
-        output_fs_vrms: None,
+        ..Calibration::default()
     };
     let r = ToneAnalyzer::new(ToneConfig::default())
         .unwrap()
