@@ -171,7 +171,9 @@ impl Profile {
             (None, Some(top), Some(bottom)) => {
                 for (name, v) in [("r_top_ohms", top), ("r_bottom_ohms", bottom)] {
                     if !(v.is_finite() && v > 0.0) {
-                        return Err(Error::InvalidSetting(format!("[attenuator] {name} must be above 0, got {v}")));
+                        return Err(Error::InvalidSetting(format!(
+                            "[attenuator] {name} must be above 0, got {v}"
+                        )));
                     }
                 }
                 Some(divider_ratio(top, bottom, att.interface_input_ohms))

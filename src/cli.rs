@@ -35,6 +35,128 @@ pub enum Command {
     Response(ResponseArgs),
     /// Intermodulation distortion from a recorded two-tone pair (IEC 60268-3).
     Imd(ImdArgs),
+    /// Output power at 1 %, 3 % and 10 % THD from a staircase of levels (a capture, or a rig).
+    Power(PowerArgs),
+    /// Output impedance and damping factor by the two-load method.
+    Zout(ZoutArgs),
+    /// Build a calibration profile: interface full scales, attenuator, load, loopback floor.
+    Calibrate(CalibrateArgs),
+}
+
+#[derive(Debug, Args)]
+pub struct PowerArgs {
+    /// A recording of the `generate steps` stimulus (or use --rig).
+    pub capture: Option<PathBuf>,
+    /// The staircase file `ampnote generate steps` wrote.
+    #[arg(long, value_name = "STEPS.wav")]
+    pub stimulus: Option<PathBuf>,
+    /// Run the staircase on a rig instead: sim[:MODEL] (the simulated bench; models: stock,
+    /// reworked, or a model file).
+    #[arg(long, value_name = "sim[:MODEL]")]
+    pub rig: Option<String>,
+    /// Amplifier channel(s): a number from 1, or `all`.
+    #[arg(long, default_value = "all", value_name = "N|all")]
+    pub channel: String,
+    /// Frequencies for a rig run, e.g. 1000 or 40,1000,10000 (power bandwidth).
+    #[arg(long, default_value = "1000", value_name = "HZ[,HZ...]")]
+    pub freq: String,
+    /// First drive level of a rig run, dBFS.
+    #[arg(long = "from", default_value_t = -30.0, value_name = "DBFS", allow_negative_numbers = true)]
+    pub from_dbfs: f64,
+    /// Step size of a rig run, dB (refined to a fifth across each THD target).
+    #[arg(long, default_value_t = 1.0, value_name = "DB")]
+    pub step: f64,
+    /// Stop a rig run once THD passes this, percent.
+    #[arg(long, default_value_t = 10.0, value_name = "PCT")]
+    pub stop_thd: f64,
+    /// Never drive into a step whose predicted output passes this, watts.
+    #[arg(long, default_value_t = 25.0, value_name = "W")]
+    pub max_w: f64,
+    /// Sample rate of a rig run.
+    #[arg(long, default_value_t = 48_000, value_name = "HZ")]
+    pub rate: u32,
+    /// Time analysed per step, and time left before it to settle.
+    #[arg(long, default_value_t = 0.5, value_name = "S")]
+    pub dwell: f64,
+    #[arg(long, default_value_t = 0.25, value_name = "S")]
+    pub settle: f64,
+    #[command(flatten)]
+    pub calibration: CalibrationArgs,
+    /// Print JSON instead of the table.
+    #[arg(long)]
+    pub json: bool,
+    #[arg(long)]
+    pub accept_truncated: bool,
+}
+
+#[derive(Debug, Args)]
+pub struct ZoutArgs {
+    /// Capture into the first load, then into the second (or use --rig).
+    pub captures: Vec<PathBuf>,
+    /// The two loads in ohms, in the captures' order (e.g. 8,16: the rated load and twice it).
+    #[arg(long, default_value = "8,16", value_name = "R1,R2")]
+    pub loads: String,
+    /// The sweep the captures recorded (gives the impedance across the band); without it the
+    /// captures are steady tones.
+    #[arg(long, value_name = "SWEEP.wav")]
+    pub stimulus: Option<PathBuf>,
+    /// Measure on a rig: sim[:MODEL].
+    #[arg(long, value_name = "sim[:MODEL]")]
+    pub rig: Option<String>,
+    /// With --rig: measure across the band with a sweep instead of one tone.
+    #[arg(long)]
+    pub sweep: bool,
+    /// With --rig: tone frequency and level.
+    #[arg(long, default_value_t = 1000.0, value_name = "HZ")]
+    pub freq: f64,
+    #[arg(long, default_value_t = -20.0, value_name = "DBFS", allow_negative_numbers = true)]
+    pub level: f64,
+    #[arg(long, default_value = "all", value_name = "N|all")]
+    pub channel: String,
+    #[arg(long)]
+    pub json: bool,
+}
+
+#[derive(Debug, Args)]
+pub struct CalibrateArgs {
+    /// Where to write the profile.
+    #[arg(short = 'o', long = "out", value_name = "FILE.toml")]
+    pub out: PathBuf,
+    /// A name for the profile.
+    #[arg(long)]
+    pub name: Option<String>,
+    /// RMS volts your meter read at the interface output while the calibration tone played
+    /// (the tone is -20 dBFS; `--tone FILE.wav` writes it).
+    #[arg(long, value_name = "V")]
+    pub meter_vrms: Option<f64>,
+    /// Write the calibration tone (997 Hz, -20 dBFS, 30 s) to this file first.
+    #[arg(long, value_name = "FILE.wav")]
+    pub tone: Option<PathBuf>,
+    /// A recording of the calibration tone looped from the interface output straight to its
+    /// input: gives the input full scale and the interface's own floor.
+    #[arg(long, value_name = "FILE.wav")]
+    pub loopback: Option<PathBuf>,
+    /// Attenuator: the measured ratio (amplifier V / interface V) ...
+    #[arg(long, value_name = "X")]
+    pub attenuation: Option<f64>,
+    /// ... or the divider's resistors and the interface's input impedance.
+    #[arg(long, value_name = "OHMS")]
+    pub r_top: Option<f64>,
+    #[arg(long, value_name = "OHMS")]
+    pub r_bottom: Option<f64>,
+    #[arg(long, value_name = "OHMS")]
+    pub input_impedance: Option<f64>,
+    /// Dummy-load resistance.
+    #[arg(long, value_name = "OHMS")]
+    pub load_ohms: Option<f64>,
+    /// Output and input full scales when already known (instead of the meter and the loopback).
+    #[arg(long, value_name = "V")]
+    pub output_fs_vrms: Option<f64>,
+    #[arg(long, value_name = "V")]
+    pub input_fs_vrms: Option<f64>,
+    /// Never ask: fail when a value is missing (for scripts).
+    #[arg(long)]
+    pub no_prompt: bool,
 }
 
 #[derive(Debug, Subcommand)]
@@ -367,7 +489,9 @@ impl CalibrationArgs {
     /// The profile (if any) with the flags over it, checked.
     pub fn calibration(&self) -> Result<Calibration, String> {
         let base = match &self.profile {
-            Some(p) => Profile::load(p).and_then(|p| p.calibration()).map_err(|e| e.to_string())?,
+            Some(p) => Profile::load(p)
+                .and_then(|p| p.calibration())
+                .map_err(|e| e.to_string())?,
             None => Calibration::default(),
         };
         base.overridden_by(Calibration {

@@ -18,7 +18,9 @@ pub mod calibration;
 pub mod capture;
 pub mod error;
 pub mod files;
+pub mod procedure;
 pub mod report;
+pub mod rig;
 pub mod signal;
 
 pub use error::{Error, Result};

@@ -2,9 +2,12 @@
 //! Errors come back as the message to print (exit code 2).
 
 pub mod analyze;
+pub mod calibrate;
 pub mod generate;
 pub mod imd;
+pub mod power;
 pub mod response;
+pub mod zout;
 
 use std::io::Write;
 

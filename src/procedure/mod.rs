@@ -1,0 +1,5 @@
+//! Procedures: several stimuli, runs and analyses put together into one bench figure.
+
+pub mod align;
+pub mod power;
+pub mod zout;

@@ -1,0 +1,381 @@
+//! Output power against distortion: a staircase of tone levels, each step analysed as a steady
+//! tone, and the power where THD reaches 1 %, 3 % and 10 % (interpolated log-log between the two
+//! steps that bracket it).
+//!
+//! Two ways in: a capture of the `steps` stimulus made with any player and recorder
+//! ([`power_from_capture`]), or a rig that plays each step itself ([`run_staircase`]), which also
+//! refines the step size around each crossing and stops at a distortion or power limit.
+
+use crate::analysis::tone::{ChannelInput, Mains, ToneAnalyzer, ToneConfig, ToneResult};
+use crate::calibration::Calibration;
+use crate::error::{Error, Result};
+use crate::rig::Rig;
+use crate::signal::stimulus::Step;
+use serde::Serialize;
+
+/// THD levels at which power is reported (common practice: 1 % is "clipping", 10 % the
+/// practical maximum; REFERENCES.md, Output power).
+pub const THD_TARGETS: [f64; 3] = [1.0, 3.0, 10.0];
+
+/// Clipping is taken to begin at the first step where THD grows by more than this many dB per dB
+/// of drive. A triode's second harmonic grows 1 dB per dB, its third 2 dB per dB; only clipping
+/// makes THD climb faster.
+pub const CLIPPING_SLOPE_DB_PER_DB: f64 = 3.0;
+
+/// One step of the staircase.
+#[derive(Debug, Clone, Serialize)]
+pub struct PowerStep {
+    /// Stimulus level at the interface output, dBFS.
+    pub drive_dbfs: f64,
+    /// Fundamental at the interface input, dBFS.
+    pub output_dbfs: f64,
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub output_vrms: Option<f64>,
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub output_dbv: Option<f64>,
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub output_w: Option<f64>,
+    pub thd_percent: f64,
+    pub thdn_percent: f64,
+    pub h2_dbc: f64,
+    pub h3_dbc: f64,
+    /// Samples at or beyond the interface's full scale: such a step is left out of every figure.
+    pub overload_samples: usize,
+    pub excluded: bool,
+}
+
+/// Power at one THD level.
+#[derive(Debug, Clone, Serialize)]
+pub struct PowerAtThd {
+    pub thd_percent: f64,
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub output_w: Option<f64>,
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub output_vrms: Option<f64>,
+    pub output_dbfs: f64,
+    /// The drives of the two steps it lies between.
+    pub between_drive_dbfs: [f64; 2],
+}
+
+/// The staircase of one channel at one frequency.
+#[derive(Debug, Clone, Serialize)]
+pub struct PowerResult {
+    pub channel: usize,
+    pub frequency_hz: f64,
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub load_ohms: Option<f64>,
+    pub steps: Vec<PowerStep>,
+    /// The THD levels reached, in order; a level the staircase never reached is absent.
+    pub power_at_thd: Vec<PowerAtThd>,
+    /// Drive of the step where clipping begins (THD rising faster than
+    /// [`CLIPPING_SLOPE_DB_PER_DB`]).
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub clipping_drive_dbfs: Option<f64>,
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub stopped_because: Option<String>,
+    pub warnings: Vec<String>,
+}
+
+/// How each step is analysed: a steady tone with harmonics up to 20 kHz (at most H40).
+pub fn step_analyzer(frequency_hz: f64) -> Result<ToneAnalyzer> {
+    ToneAnalyzer::new(ToneConfig {
+        max_harmonic: ((20_000.0 / frequency_hz).floor() as usize).clamp(2, 40),
+        fundamental_hint_hz: Some(frequency_hz),
+        mains: Mains::Auto,
+        ..ToneConfig::default()
+    })
+}
+
+/// Turn one step's tone analysis into a staircase row.
+pub fn step_from(drive_dbfs: f64, r: &ToneResult) -> PowerStep {
+    let h = |o: usize| {
+        r.harmonics
+            .iter()
+            .find(|h| h.order == o)
+            .map_or(-300.0, |h| h.level_dbc)
+    };
+    PowerStep {
+        drive_dbfs,
+        output_dbfs: r.fundamental_dbfs,
+        output_vrms: r.fundamental_vrms,
+        output_dbv: r.fundamental_dbv,
+        output_w: r.output_w,
+        thd_percent: r.thd_percent,
+        thdn_percent: r.thdn_percent,
+        h2_dbc: h(2),
+        h3_dbc: h(3),
+        overload_samples: r.overload_samples,
+        excluded: r.overload_samples > 0,
+    }
+}
+
+/// Power at each THD target, interpolated log-log (log power against log THD) between the first
+/// pair of steps that brackets it.
+pub fn power_at_targets(steps: &[PowerStep], load_ohms: Option<f64>) -> Vec<PowerAtThd> {
+    let used: Vec<&PowerStep> = steps.iter().filter(|s| !s.excluded).collect();
+    THD_TARGETS
+        .iter()
+        .filter_map(|&t| {
+            let w = used
+                .windows(2)
+                .find(|w| w[0].thd_percent < t && w[1].thd_percent >= t)?;
+            let (a, b) = (w[0], w[1]);
+            let f = (t.ln() - a.thd_percent.ln()) / (b.thd_percent.ln() - a.thd_percent.ln());
+            // Power goes as the fundamental's square: interpolate its dB level linearly in
+            // log THD, which is log power against log THD.
+            let dbfs = a.output_dbfs + f * (b.output_dbfs - a.output_dbfs);
+            let vrms = match (a.output_vrms, b.output_vrms) {
+                (Some(va), Some(vb)) => Some((va.ln() + f * (vb.ln() - va.ln())).exp()),
+                _ => None,
+            };
+            Some(PowerAtThd {
+                thd_percent: t,
+                output_w: vrms.zip(load_ohms).map(|(v, r)| v * v / r),
+                output_vrms: vrms,
+                output_dbfs: dbfs,
+                between_drive_dbfs: [a.drive_dbfs, b.drive_dbfs],
+            })
+        })
+        .collect()
+}
+
+/// The first step where THD climbs faster than [`CLIPPING_SLOPE_DB_PER_DB`] (only among steps
+/// whose THD is at least 0.3 %, so noise at low drive cannot trip it).
+pub fn clipping_onset(steps: &[PowerStep]) -> Option<f64> {
+    let used: Vec<&PowerStep> = steps.iter().filter(|s| !s.excluded).collect();
+    used.windows(2)
+        .find(|w| {
+            let dd = w[1].drive_dbfs - w[0].drive_dbfs;
+            let dt = 20.0 * (w[1].thd_percent / w[0].thd_percent).log10();
+            dd > 0.0 && w[1].thd_percent >= 0.3 && dt / dd > CLIPPING_SLOPE_DB_PER_DB
+        })
+        .map(|w| w[1].drive_dbfs)
+}
+
+/// Builds the result from the steps and says what the figures lack.
+pub fn finish(
+    channel: usize,
+    frequency_hz: f64,
+    cal: &Calibration,
+    mut steps: Vec<PowerStep>,
+    stopped_because: Option<String>,
+) -> PowerResult {
+    steps.sort_by(|a, b| a.drive_dbfs.total_cmp(&b.drive_dbfs));
+    let load_ohms = cal.load_ohms.filter(|_| cal.has_volts());
+    let mut warnings = Vec::new();
+    let excluded: Vec<String> = steps
+        .iter()
+        .filter(|s| s.excluded)
+        .map(|s| format!("{:.1}", s.drive_dbfs))
+        .collect();
+    if !excluded.is_empty() {
+        warnings.push(format!(
+            "the interface input overloaded at drive {} dBFS: those steps are left out (their distortion is the interface's, not the amplifier's); add attenuation",
+            excluded.join(", ")
+        ));
+    }
+    if !cal.has_volts() {
+        warnings.push("no calibration: levels are in dBFS; --input-fs-vrms and --attenuation add volts, --load-ohms watts (or --profile)".into());
+    } else if cal.load_ohms.is_none() {
+        warnings.push("no load given: volts but no watts; add --load-ohms".into());
+    }
+    let power_at_thd = power_at_targets(&steps, load_ohms);
+    if power_at_thd.iter().all(|p| p.thd_percent != 1.0) {
+        warnings.push("THD never crossed 1 % within the staircase; extend it upward (--to) to find the 1 % point".into());
+    }
+    PowerResult {
+        channel,
+        frequency_hz,
+        load_ohms,
+        clipping_drive_dbfs: clipping_onset(&steps),
+        power_at_thd,
+        steps,
+        stopped_because,
+        warnings,
+    }
+}
+
+/// Analyse a capture of the `steps` stimulus. `latency` (samples) shifts every step's window;
+/// find it with [`crate::procedure::align::find_latency`].
+#[allow(clippy::too_many_arguments)]
+pub fn power_from_capture(
+    channel: usize,
+    capture: &[f64],
+    sample_rate_hz: f64,
+    overload_threshold: f64,
+    resolution_bits: u32,
+    frequency_hz: f64,
+    table: &[Step],
+    latency: isize,
+    cal: &Calibration,
+) -> Result<PowerResult> {
+    let analyzer = step_analyzer(frequency_hz)?;
+    let mut steps = Vec::with_capacity(table.len());
+    let mut missing = Vec::new();
+    for s in table {
+        let from = s.analyse_from_sample as isize + latency;
+        let to = s.analyse_to_sample as isize + latency;
+        if from < 0 || to as usize > capture.len() {
+            missing.push(s.level_dbfs);
+            continue;
+        }
+        let input = ChannelInput {
+            channel,
+            samples: &capture[from as usize..to as usize],
+            sample_rate_hz,
+            overload_threshold,
+            resolution_bits,
+        };
+        match analyzer.analyze(&input, cal) {
+            Ok(r) => steps.push(step_from(s.level_dbfs, &r)),
+            Err(Error::NoTone { .. }) | Err(Error::Silent { .. }) | Err(Error::DcOnly { .. }) => {
+                missing.push(s.level_dbfs)
+            }
+            Err(e) => return Err(e),
+        }
+    }
+    if steps.is_empty() {
+        return Err(Error::InvalidSetting(format!(
+            "channel {channel}: no step of the staircase was found in the capture; check that it is the recording of this stimulus and channel"
+        )));
+    }
+    let mut r = finish(channel, frequency_hz, cal, steps, None);
+    if !missing.is_empty() {
+        r.warnings.insert(
+            0,
+            format!(
+                "{} step(s) missing from the capture (drive {} dBFS): a dropout, or the recording stopped early",
+                missing.len(),
+                missing.iter().map(|d| format!("{d:.1}")).collect::<Vec<_>>().join(", ")
+            ),
+        );
+    }
+    Ok(r)
+}
+
+/// Settings of a staircase run on a rig.
+#[derive(Debug, Clone)]
+pub struct StaircaseSettings {
+    pub frequency_hz: f64,
+    pub sample_rate_hz: u32,
+    pub from_dbfs: f64,
+    pub step_db: f64,
+    /// Stop once THD passes this (percent).
+    pub stop_thd_percent: f64,
+    /// Never drive into a step whose predicted power passes this (watts).
+    pub max_w: f64,
+    pub settle_s: f64,
+    pub dwell_s: f64,
+}
+
+/// Checks, before anything is played, that the interface input survives the power limit: the
+/// peak voltage it would see, `sqrt(2 P R) / attenuation`, must stay below its full-scale peak.
+pub fn check_input_headroom(cal: &Calibration, max_w: f64) -> Result<()> {
+    let (Some(peak), Some(fs_peak)) = (cal.input_peak_at_power(max_w), cal.input_full_scale_peak())
+    else {
+        return Err(Error::InvalidSetting(
+            "a run on a rig needs the calibration (interface input full scale, attenuation, load) to keep the interface safe; give --profile or the flags".into(),
+        ));
+    };
+    if peak > fs_peak {
+        let att = cal.attenuation.unwrap_or(1.0);
+        let needed = att * peak / fs_peak * 1.12; // 1 dB of margin
+        return Err(Error::InvalidSetting(format!(
+            "at the power limit of {max_w} W into {} ohm the interface input would see {peak:.2} V peak, above its full scale of {fs_peak:.2} V peak: raise the attenuation from {att:.2} to at least {needed:.1} ({:.1} dB), or lower --max-w",
+            cal.load_ohms.unwrap_or(0.0),
+            20.0 * needed.log10()
+        )));
+    }
+    Ok(())
+}
+
+/// Run the staircase on `rig` for one channel: coarse steps, finer steps (a fifth) across each THD
+/// target the coarse ones jump over, until THD passes the stop limit, the next step's predicted
+/// power passes the power limit, or the drive reaches 0 dBFS.
+pub fn run_staircase(
+    rig: &mut dyn Rig,
+    channel: usize,
+    s: &StaircaseSettings,
+) -> Result<PowerResult> {
+    let cal = rig.calibration();
+    check_input_headroom(&cal, s.max_w)?;
+    if !(s.step_db > 0.0 && s.step_db <= 6.0) {
+        return Err(Error::InvalidSetting(format!(
+            "--step must lie in (0, 6] dB, got {}",
+            s.step_db
+        )));
+    }
+    let analyzer = step_analyzer(s.frequency_hz)?;
+    let fs = s.sample_rate_hz as f64;
+    let settle = (s.settle_s * fs) as usize;
+    let dwell = (s.dwell_s * fs) as usize;
+    let measure = |rig: &mut dyn Rig, drive: f64| -> Result<PowerStep> {
+        let a = 10f64.powf(drive / 20.0);
+        let w = 2.0 * std::f64::consts::PI * s.frequency_hz / fs;
+        let tone: Vec<f64> = (0..settle + dwell)
+            .map(|i| a * (w * i as f64).sin())
+            .collect();
+        let cap = rig.play_and_record(channel, &tone, s.sample_rate_hz)?;
+        let input = ChannelInput {
+            channel,
+            samples: &cap[settle..],
+            sample_rate_hz: fs,
+            overload_threshold: rig.overload_threshold(),
+            resolution_bits: rig.resolution_bits(),
+        };
+        Ok(step_from(drive, &analyzer.analyze(&input, &cal)?))
+    };
+    let mut steps: Vec<PowerStep> = Vec::new();
+    let mut drive = s.from_dbfs;
+    let stopped;
+    loop {
+        let cur = measure(rig, drive)?;
+        let prev_thd = steps.last().map(|p: &PowerStep| p.thd_percent);
+        let prev_drive = steps.last().map(|p| p.drive_dbfs);
+        let (cur_thd, cur_w, overloaded) = (cur.thd_percent, cur.output_w, cur.excluded);
+        steps.push(cur);
+        if overloaded {
+            stopped = Some("the interface input overloaded; add attenuation".to_string());
+            break;
+        }
+        // Refine across any target this coarse step jumped over.
+        if let (Some(pt), Some(pd)) = (prev_thd, prev_drive) {
+            if THD_TARGETS.iter().any(|&t| pt < t && cur_thd >= t) {
+                let fine = s.step_db / 5.0;
+                let mut d = pd + fine;
+                while d < drive - fine / 2.0 {
+                    let st = measure(rig, d)?;
+                    let o = st.excluded;
+                    steps.push(st);
+                    if o {
+                        break;
+                    }
+                    d += fine;
+                }
+            }
+        }
+        if cur_thd >= s.stop_thd_percent {
+            stopped = Some(format!(
+                "THD passed the stop limit of {} %",
+                s.stop_thd_percent
+            ));
+            break;
+        }
+        let next = drive + s.step_db;
+        if next > 0.0 {
+            stopped = Some("the drive reached full scale".to_string());
+            break;
+        }
+        if let Some(w) = cur_w {
+            if w * 10f64.powf(s.step_db / 10.0) > s.max_w {
+                stopped = Some(format!(
+                    "the next step would pass the power limit of {} W",
+                    s.max_w
+                ));
+                break;
+            }
+        }
+        drive = next;
+    }
+    Ok(finish(channel, s.frequency_hz, &cal, steps, stopped))
+}

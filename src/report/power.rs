@@ -1,0 +1,131 @@
+//! The `power` and `zout` reports.
+
+use super::tone::{fmt_pct, fmt_volts, fmt_watts, ChannelError};
+use crate::procedure::power::PowerResult;
+use crate::procedure::zout::ZoutResult;
+use serde::Serialize;
+use std::fmt::Write as _;
+
+/// What `ampnote power` prints: one result per channel and frequency. The first result's fields
+/// are repeated at the top level so a single staircase reads flat.
+#[derive(Debug, Clone, Serialize)]
+pub struct PowerReport {
+    pub schema_version: u32,
+    /// The capture file, or the rig's description.
+    pub source: String,
+    #[serde(flatten, skip_serializing_if = "Option::is_none")]
+    pub first: Option<PowerResult>,
+    pub results: Vec<PowerResult>,
+    #[serde(skip_serializing_if = "Vec::is_empty")]
+    pub channel_errors: Vec<ChannelError>,
+}
+
+impl PowerReport {
+    pub fn to_json(&self) -> String {
+        serde_json::to_string_pretty(self).expect("report serializes") + "\n"
+    }
+
+    pub fn to_table(&self) -> String {
+        let mut s = String::new();
+        let _ = writeln!(s, "{}", self.source);
+        for r in &self.results {
+            let load = r
+                .load_ohms
+                .map_or(String::new(), |l| format!(" into {l} ohm"));
+            let _ = writeln!(s, "\nChannel {}, {:.0} Hz{load}", r.channel, r.frequency_hz);
+            for p in &r.power_at_thd {
+                let level = match (p.output_w, p.output_vrms) {
+                    (Some(w), Some(v)) => format!("{} ({} rms)", fmt_watts(w), fmt_volts(v)),
+                    (None, Some(v)) => format!("{} rms", fmt_volts(v)),
+                    _ => format!("{:.2} dBFS", p.output_dbfs),
+                };
+                let _ = writeln!(
+                    s,
+                    "  Power at {:>4} % THD: {level}   (between steps at {:.1} and {:.1} dBFS drive)",
+                    p.thd_percent, p.between_drive_dbfs[0], p.between_drive_dbfs[1]
+                );
+            }
+            if let Some(c) = r.clipping_drive_dbfs {
+                let _ = writeln!(s, "  Clipping begins at the step driven at {c:.1} dBFS");
+            }
+            if let Some(why) = &r.stopped_because {
+                let _ = writeln!(s, "  Stopped: {why}");
+            }
+            let _ = writeln!(
+                s,
+                "\n  Drive dBFS   Out dBFS     Out V      Out W        THD %      THD+N %   H2 dBc   H3 dBc"
+            );
+            for st in &r.steps {
+                let _ = writeln!(
+                    s,
+                    "  {:>10.2} {:>10.2} {:>9} {:>10} {:>12} {:>12} {:>8.1} {:>8.1}{}",
+                    st.drive_dbfs,
+                    st.output_dbfs,
+                    st.output_vrms.map_or("-".into(), |v| format!("{v:.3}")),
+                    st.output_w.map_or("-".into(), |w| format!("{w:.3}")),
+                    fmt_pct(st.thd_percent),
+                    fmt_pct(st.thdn_percent),
+                    st.h2_dbc,
+                    st.h3_dbc,
+                    if st.excluded {
+                        "  (interface overload: left out)"
+                    } else {
+                        ""
+                    }
+                );
+            }
+            for w in &r.warnings {
+                let _ = writeln!(s, "  warning: {w}");
+            }
+        }
+        s
+    }
+}
+
+/// What `ampnote zout` prints.
+#[derive(Debug, Clone, Serialize)]
+pub struct ZoutReport {
+    pub schema_version: u32,
+    pub source: String,
+    #[serde(flatten, skip_serializing_if = "Option::is_none")]
+    pub first: Option<ZoutResult>,
+    pub results: Vec<ZoutResult>,
+}
+
+impl ZoutReport {
+    pub fn to_json(&self) -> String {
+        serde_json::to_string_pretty(self).expect("report serializes") + "\n"
+    }
+
+    pub fn to_table(&self) -> String {
+        let mut s = String::new();
+        let _ = writeln!(s, "{}", self.source);
+        for r in &self.results {
+            let _ = writeln!(
+                s,
+                "\nChannel {}: output impedance {:.3} ohm at {:.0} Hz, damping factor {:.2} (re {} ohm; loads {} and {} ohm)",
+                r.channel, r.zout_ohms, r.frequency_hz, r.damping_factor, r.nominal_load_ohms, r.load_a_ohms, r.load_b_ohms
+            );
+            if !r.points.is_empty() {
+                let _ = writeln!(s, "  Frequency     Z out   Damping");
+                for p in r.points.iter().filter(|p| {
+                    [
+                        20.0, 50.0, 100.0, 200.0, 500.0, 1000.0, 2000.0, 5000.0, 10000.0, 20000.0,
+                    ]
+                    .iter()
+                    .any(|f| (p.frequency_hz / f).ln().abs() < 0.02)
+                }) {
+                    let _ = writeln!(
+                        s,
+                        "  {:>7.0} Hz {:>7.3} {:>9.2}",
+                        p.frequency_hz, p.zout_ohms, p.damping_factor
+                    );
+                }
+            }
+            for w in &r.warnings {
+                let _ = writeln!(s, "  warning: {w}");
+            }
+        }
+        s
+    }
+}

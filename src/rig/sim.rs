@@ -1,0 +1,241 @@
+//! The simulated bench: converter, amplifier model, output transformer, dummy load, attenuator and
+//! converter again (see [`super::model`]). Deterministic: the same model, stimulus and run number
+//! give the same capture.
+
+use super::model::{Bench, Channel, Model};
+use super::Rig;
+use crate::calibration::Calibration;
+use crate::error::{Error, Result};
+use crate::signal::dither::Rng;
+use std::f64::consts::{PI, SQRT_2};
+
+/// The amplifier's static transfer from grid volts to primary volts, tabulated on the load line
+/// and read with cubic Hermite interpolation (solving the load line per sample would cost a
+/// bisection of the Koren equation every sample).
+struct Transfer {
+    lo: f64,
+    step: f64,
+    v: Vec<f64>,
+    slope: Vec<f64>,
+}
+
+impl Transfer {
+    fn new(ch: &Channel, load_ohms: f64) -> Self {
+        let line = ch.load_line(load_ohms);
+        let lo = 3.0 * ch.bias_v;
+        let hi = -ch.bias_v;
+        let n: usize = 8193;
+        let step = (hi - lo) / (n - 1) as f64;
+        let v: Vec<f64> = (0..n)
+            .map(|i| line.primary_voltage(lo + i as f64 * step))
+            .collect();
+        let slope: Vec<f64> = (0..n)
+            .map(|i| {
+                let a = v[i.saturating_sub(1)];
+                let b = v[(i + 1).min(n - 1)];
+                let span = ((i + 1).min(n - 1) - i.saturating_sub(1)) as f64 * step;
+                (b - a) / span
+            })
+            .collect();
+        Transfer { lo, step, v, slope }
+    }
+
+    fn at(&self, vg: f64) -> f64 {
+        let x = ((vg - self.lo) / self.step).clamp(0.0, (self.v.len() - 1) as f64 - 1e-9);
+        let i = x.floor() as usize;
+        let t = x - i as f64;
+        let (p0, p1) = (self.v[i], self.v[i + 1]);
+        let (m0, m1) = (self.slope[i] * self.step, self.slope[i + 1] * self.step);
+        let t2 = t * t;
+        let t3 = t2 * t;
+        (2.0 * t3 - 3.0 * t2 + 1.0) * p0
+            + (t3 - 2.0 * t2 + t) * m0
+            + (-2.0 * t3 + 3.0 * t2) * p1
+            + (t3 - t2) * m1
+    }
+}
+
+/// Second-order low-pass, bilinear transform of an analog prototype (RBJ cookbook form).
+struct Biquad {
+    b: [f64; 3],
+    a: [f64; 3],
+    x: [f64; 2],
+    y: [f64; 2],
+}
+
+impl Biquad {
+    fn lowpass(f0: f64, q: f64, fs: f64) -> Self {
+        let w0 = 2.0 * PI * (f0.min(0.45 * fs)) / fs;
+        let alpha = w0.sin() / (2.0 * q);
+        let c = w0.cos();
+        let a0 = 1.0 + alpha;
+        Biquad {
+            b: [(1.0 - c) / 2.0 / a0, (1.0 - c) / a0, (1.0 - c) / 2.0 / a0],
+            a: [1.0, -2.0 * c / a0, (1.0 - alpha) / a0],
+            x: [0.0; 2],
+            y: [0.0; 2],
+        }
+    }
+
+    fn run(&mut self, v: f64) -> f64 {
+        let y = self.b[0] * v + self.b[1] * self.x[0] + self.b[2] * self.x[1]
+            - self.a[1] * self.y[0]
+            - self.a[2] * self.y[1];
+        self.x = [v, self.x[0]];
+        self.y = [y, self.y[0]];
+        y
+    }
+}
+
+/// The simulated bench as a [`Rig`].
+pub struct SimRig {
+    pub model: Model,
+    load_ohms: f64,
+    runs: u64,
+}
+
+impl SimRig {
+    pub fn new(model: Model) -> Self {
+        let load_ohms = model.bench.load_ohms;
+        SimRig {
+            model,
+            load_ohms,
+            runs: 0,
+        }
+    }
+
+    fn channel(&self, ch: usize) -> Result<&Channel> {
+        match ch {
+            1 => Ok(&self.model.left),
+            2 => Ok(&self.model.right),
+            _ => Err(Error::NoSuchChannel {
+                requested: ch,
+                available: 2,
+            }),
+        }
+    }
+}
+
+impl Rig for SimRig {
+    fn describe(&self) -> String {
+        format!(
+            "simulated bench: {} into {} ohm",
+            self.model.name, self.load_ohms
+        )
+    }
+
+    fn calibration(&self) -> Calibration {
+        Calibration {
+            load_ohms: Some(self.load_ohms),
+            ..self.model.calibration()
+        }
+    }
+
+    fn channels(&self) -> usize {
+        2
+    }
+
+    fn overload_threshold(&self) -> f64 {
+        let half = (1u64 << (self.model.bench.bits - 1)) as f64;
+        (half - 1.0) / half
+    }
+
+    fn resolution_bits(&self) -> u32 {
+        self.model.bench.bits as u32
+    }
+
+    fn set_load(&mut self, ohms: f64) -> Result<()> {
+        if !(ohms.is_finite() && ohms > 0.0) {
+            return Err(Error::InvalidSetting(format!(
+                "the dummy load must be above 0 ohm, got {ohms}"
+            )));
+        }
+        self.load_ohms = ohms;
+        Ok(())
+    }
+
+    fn play_and_record(
+        &mut self,
+        channel: usize,
+        stimulus: &[f64],
+        sample_rate_hz: u32,
+    ) -> Result<Vec<f64>> {
+        let ch = *self.channel(channel)?;
+        self.runs += 1;
+        let seed = self.model.bench.seed ^ (self.runs << 8) ^ channel as u64;
+        Ok(simulate(
+            &self.model.bench,
+            &ch,
+            self.load_ohms,
+            stimulus,
+            sample_rate_hz as f64,
+            seed,
+        ))
+    }
+}
+
+/// Run `stimulus` (interface output samples, full scale 1.0) through the bench and one channel.
+pub fn simulate(
+    bench: &Bench,
+    ch: &Channel,
+    load_ohms: f64,
+    stimulus: &[f64],
+    fs: f64,
+    seed: u64,
+) -> Vec<f64> {
+    let mut rng = Rng::new(seed);
+    let transfer = Transfer::new(ch, load_ohms);
+    let line = ch.load_line(load_ohms);
+    let q = |x: f64, bits: u16| {
+        let half = (1u64 << (bits - 1)) as f64;
+        (x * half).round().clamp(-half, half - 1.0) / half
+    };
+    let dac_sigma = 10f64.powf(bench.dac_noise_dbfs / 20.0) / SQRT_2;
+    let adc_sigma = 10f64.powf(bench.adc_noise_dbfs / 20.0) / SQRT_2;
+    let k_grid = ch.grid_ohms / (ch.grid_ohms + ch.driver_ohms);
+    let n = ch.turns_ratio();
+    let divider = load_ohms / (load_ohms + ch.winding_ohms);
+    // Bass corner: the primary inductance against the source (rp) in parallel with the load.
+    let rp = ch.triode.rp(ch.bias_v, ch.b_plus_v);
+    let r_src = rp * line.reflected_ohms / (rp + line.reflected_ohms);
+    let f_bass = r_src / (2.0 * PI * ch.primary_inductance_h);
+    let hp_a = 1.0 / (1.0 + 2.0 * PI * f_bass / fs); // one-pole high-pass coefficient
+    let mut hp_prev_in = 0.0;
+    let mut hp_prev_out = 0.0;
+    let mut flux = 0.0;
+    let leak = 1.0 - 2.0 * PI * 1.0 / fs;
+    let core_peak = ch.core_reference_vrms * SQRT_2;
+    let flux_ref = core_peak / (2.0 * PI * 20.0);
+    let mut lp = Biquad::lowpass(ch.treble_corner_hz, ch.treble_q, fs);
+    let noise_sigma = ch.noise_vrms * ((fs / 2.0) / 20_000.0).sqrt();
+    let (wh, wr) = (2.0 * PI * ch.mains_hz / fs, 4.0 * PI * ch.mains_hz / fs);
+    let full_in = bench.input_fs_vrms * SQRT_2;
+    stimulus
+        .iter()
+        .enumerate()
+        .map(|(i, &s)| {
+            let dac = q(s, bench.bits) + dac_sigma * rng.gaussian();
+            let v_in = dac * bench.output_fs_vrms * SQRT_2;
+            let g = ch.driver_gain * v_in;
+            let vg = ch.bias_v + g + ch.driver_h2_per_v * g * g;
+            // Above 0 V the grid conducts: a smooth knee (0.5 V wide) into the divided slope.
+            let over = 0.5 * (vg / 0.5).exp().ln_1p();
+            let vg = vg - (1.0 - k_grid) * if vg > 20.0 { vg } else { over };
+            let v_sec = transfer.at(vg) / n * divider;
+            // Output transformer: bass roll-off, core distortion growing as flux (V / f) grows,
+            // treble roll-off.
+            let hp = hp_a * (hp_prev_out + v_sec - hp_prev_in);
+            hp_prev_in = v_sec;
+            hp_prev_out = hp;
+            flux = flux * leak + hp / fs;
+            let phi = flux / flux_ref;
+            let cored = hp - 4.0 * ch.core_h3_at_20hz * core_peak * phi * phi * phi;
+            let mut v = lp.run(cored);
+            v += ch.hum_vrms * SQRT_2 * (wh * i as f64 + 0.4).sin()
+                + ch.ripple_vrms * SQRT_2 * (wr * i as f64 + 1.3).sin()
+                + noise_sigma * rng.gaussian();
+            let x = v / bench.attenuation / full_in + adc_sigma * rng.gaussian();
+            q(x, bench.bits)
+        })
+        .collect()
+}

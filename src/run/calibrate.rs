@@ -1,0 +1,189 @@
+//! `ampnote calibrate`: walk the user through building a calibration profile, or take every
+//! value as a flag.
+
+use crate::cli::CalibrateArgs;
+use ampnote::analysis::tone::{ChannelInput, ToneAnalyzer, ToneConfig};
+use ampnote::calibration::{
+    AttenuatorSection, Calibration, InterfaceSection, LoadSection, LoopbackSection, Profile,
+};
+use ampnote::capture::Capture;
+use ampnote::signal::stimulus::{self, Common};
+use ampnote::signal::wav::{write_wav_described, WavFormat};
+use std::io::{BufRead, IsTerminal, Write};
+use std::process::ExitCode;
+
+/// The calibration tone's level: low enough for any interface and amplifier input.
+const TONE_DBFS: f64 = -20.0;
+
+/// The usual cautions (REFERENCES.md, Safety; common practice). Local codes and licensed
+/// practice come first.
+pub const SAFETY: &str = "\
+Before you connect anything (common practice; local electrical codes and licensed practice come first):
+  - Tube amplifiers hold 250-500 V DC and more; filter capacitors stay charged after switch-off.
+  - Never run a tube amplifier with its output unloaded: connect a non-inductive dummy load rated
+    well above the power under test (twice is common practice).
+  - Put a resistive attenuator (typically 20-30 dB) between the load and the interface input
+    before connecting: amplifier outputs reach tens of volts, line inputs clip at 1-12 V rms.
+  - Bridged (BTL) and many class-D outputs have no grounded terminal: never tie the interface
+    ground to either terminal; use a differential input (and a 20 kHz low-pass for class D).
+  - Above about 30 V rms / 60 V DC an output is hazardous to touch.
+";
+
+fn ask(prompt: &str, allowed: bool) -> Result<Option<f64>, String> {
+    if !allowed {
+        return Ok(None);
+    }
+    let stdin = std::io::stdin();
+    loop {
+        eprint!("{prompt}");
+        let _ = std::io::stderr().flush();
+        let mut line = String::new();
+        if stdin
+            .lock()
+            .read_line(&mut line)
+            .map_err(|e| e.to_string())?
+            == 0
+        {
+            return Ok(None);
+        }
+        let t = line.trim();
+        if t.is_empty() {
+            return Ok(None);
+        }
+        match t.parse::<f64>() {
+            Ok(v) if v.is_finite() && v > 0.0 => return Ok(Some(v)),
+            _ => eprintln!("  please type a positive number (or press Enter to skip)"),
+        }
+    }
+}
+
+pub fn run(args: &CalibrateArgs) -> Result<ExitCode, String> {
+    eprintln!("{SAFETY}");
+    let interactive = !args.no_prompt && std::io::stdin().is_terminal();
+    if let Some(path) = &args.tone {
+        let c = Common {
+            sample_rate_hz: 48_000,
+            level_dbfs: TONE_DBFS,
+            channels: 2,
+            signal_channels: vec![1, 2],
+            lead_s: 0.0,
+            tail_s: 0.0,
+            fade_s: 0.05,
+        };
+        let s = stimulus::tone(&c, 997.0, 30.0).map_err(|e| e.to_string())?;
+        write_wav_described(
+            path,
+            48_000,
+            &s.channel_data(),
+            WavFormat::Int { bits: 24 },
+            1,
+            Some(&s.description.to_json()),
+        )
+        .map_err(|e| e.to_string())?;
+        eprintln!(
+            "wrote {}: 997 Hz at {TONE_DBFS} dBFS. Play it with the interface output unconnected to the amplifier, read the output with a true-RMS meter, and record it looped straight back into the input.",
+            path.display()
+        );
+    }
+    // Interface output full scale: given, or from the meter reading of the -20 dBFS tone.
+    let meter = match args.meter_vrms {
+        Some(v) => Some(v),
+        None if args.output_fs_vrms.is_none() => ask(
+            "Meter reading at the interface output while the tone plays (V rms, Enter to skip): ",
+            interactive,
+        )?,
+        None => None,
+    };
+    let output_fs = args
+        .output_fs_vrms
+        .or(meter.map(|v| v * 10f64.powf(-TONE_DBFS / 20.0)));
+    let tone_vrms = meter.or(output_fs.map(|v| v * 10f64.powf(TONE_DBFS / 20.0)));
+    // Input full scale and the loopback floor from the looped-back recording.
+    let mut input_fs = args.input_fs_vrms;
+    let mut floor = LoopbackSection::default();
+    if let Some(path) = &args.loopback {
+        let cap = Capture::read_wav_channels(path, false, Some(&[1])).map_err(|e| e.to_string())?;
+        let r = ToneAnalyzer::new(ToneConfig {
+            fundamental_hint_hz: Some(997.0),
+            ..ToneConfig::default()
+        })
+        .map_err(|e| e.to_string())?
+        .analyze(
+            &ChannelInput {
+                channel: 1,
+                samples: &cap.channels[0],
+                sample_rate_hz: cap.sample_rate_hz as f64,
+                overload_threshold: cap.encoding.overload_threshold(),
+                resolution_bits: cap.encoding.resolution_bits(),
+            },
+            &Calibration::default(),
+        )
+        .map_err(|e| e.to_string())?;
+        if input_fs.is_none() {
+            let v = tone_vrms.ok_or("the loopback gives the input full scale only with the tone's voltage: give --meter-vrms or --output-fs-vrms")?;
+            input_fs = Some(v / 10f64.powf(r.fundamental_dbfs / 20.0));
+        }
+        floor.thdn_db = Some((r.thdn_db * 10.0).round() / 10.0);
+        floor.noise_dbfs = Some((r.noise_dbfs * 10.0).round() / 10.0);
+        eprintln!(
+            "loopback: {:.2} dBFS, THD+N {:.1} dB, noise {:.1} dBFS (the interface's own floor)",
+            r.fundamental_dbfs, r.thdn_db, r.noise_dbfs
+        );
+    }
+    if input_fs.is_none() {
+        input_fs = ask(
+            "Interface input full scale (V rms that reads 0 dBFS, Enter to skip): ",
+            interactive,
+        )?;
+    }
+    let mut att = AttenuatorSection {
+        ratio: args.attenuation,
+        r_top_ohms: args.r_top,
+        r_bottom_ohms: args.r_bottom,
+        interface_input_ohms: args.input_impedance,
+    };
+    if att.ratio.is_none() && att.r_top_ohms.is_none() {
+        att.ratio = ask(
+            "Attenuator ratio, amplifier V / interface V (10 for 20 dB; Enter if none): ",
+            interactive,
+        )?;
+    }
+    let load = match args.load_ohms {
+        Some(l) => Some(l),
+        None => ask(
+            "Dummy-load resistance in ohms (Enter to skip): ",
+            interactive,
+        )?,
+    };
+    let profile = Profile {
+        name: args.name.clone(),
+        interface: Some(InterfaceSection {
+            output_fs_vrms: output_fs,
+            input_fs_vrms: input_fs,
+        }),
+        attenuator: (att != AttenuatorSection::default()).then_some(att),
+        load: load.map(|ohms| LoadSection { ohms: Some(ohms) }),
+        loopback: (floor != LoopbackSection::default()).then_some(floor),
+    };
+    let cal = profile.calibration().map_err(|e| e.to_string())?;
+    let mut missing = Vec::new();
+    if cal.input_fs_vrms.is_none() {
+        missing.push("--input-fs-vrms or --loopback");
+    }
+    if cal.load_ohms.is_none() {
+        missing.push("--load-ohms");
+    }
+    let text = format!(
+        "# ampnote calibration profile (format: calibration/README.md)\n{}",
+        profile.to_toml()
+    );
+    ampnote::files::write_whole(&args.out, text.as_bytes()).map_err(|e| e.to_string())?;
+    eprintln!("wrote {}", args.out.display());
+    if !missing.is_empty() {
+        eprintln!(
+            "the profile still lacks {}: add them to the file or give them as flags",
+            missing.join(", ")
+        );
+    }
+    Ok(ExitCode::SUCCESS)
+}

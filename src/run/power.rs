@@ -1,0 +1,158 @@
+//! `ampnote power`: a staircase from a capture, or run on a rig.
+
+use crate::cli::{channel_choice, PowerArgs};
+use ampnote::capture::{select_channels, Capture};
+use ampnote::error::Error;
+use ampnote::procedure::align::find_latency;
+use ampnote::procedure::power::{power_from_capture, run_staircase, StaircaseSettings};
+use ampnote::report::power::PowerReport;
+use ampnote::report::tone::ChannelError;
+use ampnote::report::SCHEMA_VERSION;
+use ampnote::rig::parse_rig;
+use ampnote::signal::stimulus::{Description, Kind};
+use std::process::ExitCode;
+
+pub fn run(args: &PowerArgs) -> Result<ExitCode, String> {
+    let e = |err: Error| err.to_string();
+    let flags = args.calibration.calibration()?;
+    let mut results = Vec::new();
+    let mut channel_errors = Vec::new();
+    let source;
+    match (&args.capture, &args.rig) {
+        (Some(_), Some(_)) => return Err("give a capture file or --rig, not both".into()),
+        (None, None) => {
+            return Err("give the capture of a `generate steps` stimulus (with --stimulus), or --rig sim to run on the simulated bench".into())
+        }
+        (None, Some(spec)) => {
+            let mut rig = parse_rig(spec).map_err(e)?;
+            if let Some(l) = flags.load_ohms {
+                rig.set_load(l).map_err(e)?;
+            }
+            source = rig.describe();
+            let freqs: Vec<f64> = args
+                .freq
+                .split(',')
+                .map(|t| t.trim().parse::<f64>())
+                .collect::<Result<_, _>>()
+                .map_err(|_| format!("--freq takes frequencies in Hz like 1000 or 40,1000,10000; got `{}`", args.freq))?;
+            let chosen = select_channels(rig.channels(), channel_choice(&args.channel)?).map_err(e)?;
+            for &f in &freqs {
+                for &ch in &chosen {
+                    let settings = StaircaseSettings {
+                        frequency_hz: f,
+                        sample_rate_hz: args.rate,
+                        from_dbfs: args.from_dbfs,
+                        step_db: args.step,
+                        stop_thd_percent: args.stop_thd,
+                        max_w: args.max_w,
+                        settle_s: args.settle,
+                        dwell_s: args.dwell,
+                    };
+                    match run_staircase(rig.as_mut(), ch, &settings) {
+                        Ok(r) => results.push(r),
+                        Err(err @ Error::InvalidSetting(_)) => return Err(err.to_string()),
+                        Err(err) => channel_errors.push(ChannelError {
+                            channel: ch,
+                            error: err.to_string(),
+                        }),
+                    }
+                }
+            }
+        }
+        (Some(path), None) => {
+            let stim_path = args
+                .stimulus
+                .as_ref()
+                .ok_or("give the staircase file with --stimulus STEPS.wav (it tells the step levels and timing)")?;
+            let stim = Capture::read_wav(stim_path, false).map_err(e)?;
+            let not_steps = || Error::NotAStimulus {
+                path: stim_path.clone(),
+                wanted: "steps",
+            };
+            let desc = stim
+                .description_json
+                .as_deref()
+                .and_then(Description::from_json)
+                .ok_or_else(|| e(not_steps()))?;
+            let Kind::Steps {
+                frequency_hz,
+                ref steps,
+                dwell_s,
+                ..
+            } = desc.kind
+            else {
+                return Err(e(not_steps()));
+            };
+            let info = Capture::probe_wav(path).map_err(e)?;
+            if info.sample_rate_hz != desc.sample_rate_hz {
+                return Err(e(Error::SampleRateMismatch {
+                    stimulus_hz: desc.sample_rate_hz,
+                    capture_hz: info.sample_rate_hz,
+                }));
+            }
+            source = path.display().to_string();
+            let x = stim.channel(desc.signal_channels[0]).ok_or_else(|| e(not_steps()))?;
+            let chosen = select_channels(info.channel_count, channel_choice(&args.channel)?).map_err(e)?;
+            for &ch in &chosen {
+                let cap = Capture::read_wav_channels(path, args.accept_truncated, Some(&[ch])).map_err(e)?;
+                let fs = cap.sample_rate_hz as f64;
+                // Latency from the first step (at most 2 s of it) against the capture's start.
+                let first = &steps[0];
+                let len = ((first.analyse_to_sample - first.start_sample) as f64).min(2.0 * fs) as usize;
+                let latency = find_latency(&cap.channels[0], x, first.start_sample, len, (2.0 * fs + dwell_s * fs) as usize);
+                let lat = match latency {
+                    Some((lag, rho)) if rho > 0.3 => lag,
+                    _ => {
+                        channel_errors.push(ChannelError {
+                            channel: ch,
+                            error: format!("channel {ch}: the staircase's first step was not found in the capture; check that this is the recording of {} and of the right channel", stim_path.display()),
+                        });
+                        continue;
+                    }
+                };
+                match power_from_capture(
+                    ch,
+                    &cap.channels[0],
+                    fs,
+                    cap.encoding.overload_threshold(),
+                    cap.encoding.resolution_bits(),
+                    frequency_hz,
+                    steps,
+                    lat,
+                    &flags,
+                ) {
+                    Ok(r) => results.push(r),
+                    Err(err) => channel_errors.push(ChannelError {
+                        channel: ch,
+                        error: err.to_string(),
+                    }),
+                }
+            }
+        }
+    }
+    let report = PowerReport {
+        schema_version: SCHEMA_VERSION,
+        source,
+        first: results.first().cloned(),
+        results,
+        channel_errors,
+    };
+    super::report_to_stderr(
+        args.json,
+        report
+            .results
+            .iter()
+            .flat_map(|c| c.warnings.iter().map(move |w| (c.channel, w))),
+        report.channel_errors.iter().map(|c| &c.error),
+    );
+    super::print_stdout(&if args.json {
+        report.to_json()
+    } else {
+        report.to_table()
+    });
+    Ok(if report.channel_errors.is_empty() {
+        ExitCode::SUCCESS
+    } else {
+        ExitCode::from(2)
+    })
+}

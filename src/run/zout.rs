@@ -1,0 +1,291 @@
+//! `ampnote zout`: the two-load method on two captures, or on a rig.
+
+use crate::cli::{channel_choice, ZoutArgs};
+use ampnote::analysis::sweep::{ResponseAnalyzer, ResponseConfig, ResponseResult, SweepParams};
+use ampnote::analysis::tone::{ChannelInput, ToneAnalyzer, ToneConfig};
+use ampnote::calibration::Calibration;
+use ampnote::capture::{select_channels, Capture};
+use ampnote::error::Error;
+use ampnote::procedure::zout::{from_levels, two_load, ZoutPoint, ZoutResult};
+use ampnote::report::power::ZoutReport;
+use ampnote::report::SCHEMA_VERSION;
+use ampnote::rig::parse_rig;
+use ampnote::signal::stimulus::{self, Common, Description, Kind};
+use std::process::ExitCode;
+
+fn e(err: Error) -> String {
+    err.to_string()
+}
+
+/// Level of a steady tone in dBFS.
+fn tone_level(
+    samples: &[f64],
+    fs: f64,
+    overload: f64,
+    bits: u32,
+    hint: Option<f64>,
+) -> Result<(f64, f64), String> {
+    let a = ToneAnalyzer::new(ToneConfig {
+        fundamental_hint_hz: hint,
+        ..ToneConfig::default()
+    })
+    .map_err(e)?;
+    let r = a
+        .analyze(
+            &ChannelInput {
+                channel: 1,
+                samples,
+                sample_rate_hz: fs,
+                overload_threshold: overload,
+                resolution_bits: bits,
+            },
+            &Calibration::default(),
+        )
+        .map_err(e)?;
+    Ok((r.fundamental_dbfs, r.fundamental_hz))
+}
+
+/// Z across the band from two responses to the same sweep.
+fn from_responses(
+    channel: usize,
+    a: &ResponseResult,
+    ra: f64,
+    b: &ResponseResult,
+    rb: f64,
+) -> Result<ZoutResult, String> {
+    let lin = |r: &ResponseResult, db: f64| 10f64.powf((r.reference_gain_db + db) / 20.0);
+    let mut res =
+        from_levels(channel, a.reference_hz, lin(a, 0.0), ra, lin(b, 0.0), rb).map_err(e)?;
+    let nominal = res.nominal_load_ohms;
+    res.points = a
+        .points
+        .iter()
+        .zip(&b.points)
+        .filter_map(|(pa, pb)| {
+            let z = two_load(lin(a, pa.magnitude_db), ra, lin(b, pb.magnitude_db), rb).ok()?;
+            Some(ZoutPoint {
+                frequency_hz: pa.frequency_hz,
+                zout_ohms: z,
+                damping_factor: nominal / z,
+            })
+        })
+        .collect();
+    Ok(res)
+}
+
+fn sweep_params(desc: &Description) -> Option<SweepParams> {
+    let Kind::Sweep {
+        start_hz,
+        stop_hz,
+        rate_s,
+        fade_in_s,
+        ..
+    } = desc.kind
+    else {
+        return None;
+    };
+    Some(SweepParams {
+        start_hz,
+        stop_hz,
+        rate_s,
+        start_sample: desc.signal_start_sample,
+        end_sample: desc.signal_start_sample + desc.signal_samples,
+        fade_in_s,
+    })
+}
+
+pub fn run(args: &ZoutArgs) -> Result<ExitCode, String> {
+    let loads: Vec<f64> = args
+        .loads
+        .split(',')
+        .map(|t| t.trim().parse::<f64>())
+        .collect::<Result<_, _>>()
+        .map_err(|_| {
+            format!(
+                "--loads takes two resistances like 8,16; got `{}`",
+                args.loads
+            )
+        })?;
+    let [ra, rb] = loads[..] else {
+        return Err(format!(
+            "--loads takes exactly two resistances (the rated load and about twice it), got {}",
+            loads.len()
+        ));
+    };
+    let mut results = Vec::new();
+    let source;
+    if let Some(spec) = &args.rig {
+        let mut rig = parse_rig(spec).map_err(e)?;
+        source = rig.describe();
+        let chosen = select_channels(rig.channels(), channel_choice(&args.channel)?).map_err(e)?;
+        let c = Common {
+            sample_rate_hz: 48_000,
+            level_dbfs: args.level,
+            channels: 1,
+            signal_channels: vec![1],
+            lead_s: 0.1,
+            tail_s: 0.5,
+            fade_s: if args.sweep { 0.0 } else { 0.01 },
+        };
+        let stim = if args.sweep {
+            stimulus::sweep(&c, 10.0, 21_600.0, 3.0).map_err(e)?
+        } else {
+            stimulus::tone(&c, args.freq, 1.5).map_err(e)?
+        };
+        for &ch in &chosen {
+            let mut caps = Vec::new();
+            for r in [ra, rb] {
+                rig.set_load(r).map_err(e)?;
+                caps.push(rig.play_and_record(ch, &stim.signal, 48_000).map_err(e)?);
+            }
+            let res = if args.sweep {
+                let sp = sweep_params(&stim.description).expect("a sweep");
+                let an = ResponseAnalyzer::new(ResponseConfig::default()).map_err(e)?;
+                let thr = rig.overload_threshold();
+                let a = an
+                    .analyze(ch, &stim.signal, sp, &caps[0], 48_000.0, thr)
+                    .map_err(e)?;
+                let b = an
+                    .analyze(ch, &stim.signal, sp, &caps[1], 48_000.0, thr)
+                    .map_err(e)?;
+                from_responses(ch, &a, ra, &b, rb)?
+            } else {
+                let skip = 4800 + 9600; // lead and 0.2 s of settling
+                let (la, f) = tone_level(
+                    &caps[0][skip..],
+                    48_000.0,
+                    rig.overload_threshold(),
+                    rig.resolution_bits(),
+                    Some(args.freq),
+                )?;
+                let (lb, _) = tone_level(
+                    &caps[1][skip..],
+                    48_000.0,
+                    rig.overload_threshold(),
+                    rig.resolution_bits(),
+                    Some(args.freq),
+                )?;
+                from_levels(ch, f, 10f64.powf(la / 20.0), ra, 10f64.powf(lb / 20.0), rb)
+                    .map_err(e)?
+            };
+            results.push(res);
+        }
+        rig.set_load(ra).map_err(e)?;
+    } else {
+        let [a_path, b_path] = &args.captures[..] else {
+            return Err(
+                "give two captures (into the first load, then the second) or --rig sim".into(),
+            );
+        };
+        source = format!(
+            "{} ({ra} ohm) and {} ({rb} ohm)",
+            a_path.display(),
+            b_path.display()
+        );
+        let info = Capture::probe_wav(a_path).map_err(e)?;
+        let chosen =
+            select_channels(info.channel_count, channel_choice(&args.channel)?).map_err(e)?;
+        let sweep = match &args.stimulus {
+            Some(p) => {
+                let stim = Capture::read_wav(p, false).map_err(e)?;
+                let desc = stim
+                    .description_json
+                    .as_deref()
+                    .and_then(Description::from_json)
+                    .ok_or_else(|| {
+                        e(Error::NotAStimulus {
+                            path: p.clone(),
+                            wanted: "sweep",
+                        })
+                    })?;
+                let sp = sweep_params(&desc).ok_or_else(|| {
+                    e(Error::NotAStimulus {
+                        path: p.clone(),
+                        wanted: "sweep",
+                    })
+                })?;
+                let x = stim
+                    .channel(desc.signal_channels[0])
+                    .map(|x| x.to_vec())
+                    .unwrap_or_default();
+                Some((x, sp))
+            }
+            None => None,
+        };
+        for &ch in &chosen {
+            let ca = Capture::read_wav_channels(a_path, false, Some(&[ch])).map_err(e)?;
+            let cb = Capture::read_wav_channels(b_path, false, Some(&[ch])).map_err(e)?;
+            if ca.sample_rate_hz != cb.sample_rate_hz {
+                return Err(
+                    "the two captures have different sample rates; record both the same way".into(),
+                );
+            }
+            let fs = ca.sample_rate_hz as f64;
+            let res = match &sweep {
+                Some((x, sp)) => {
+                    let an = ResponseAnalyzer::new(ResponseConfig::default()).map_err(e)?;
+                    let a = an
+                        .analyze(
+                            ch,
+                            x,
+                            *sp,
+                            &ca.channels[0],
+                            fs,
+                            ca.encoding.overload_threshold(),
+                        )
+                        .map_err(e)?;
+                    let b = an
+                        .analyze(
+                            ch,
+                            x,
+                            *sp,
+                            &cb.channels[0],
+                            fs,
+                            cb.encoding.overload_threshold(),
+                        )
+                        .map_err(e)?;
+                    from_responses(ch, &a, ra, &b, rb)?
+                }
+                None => {
+                    let (la, f) = tone_level(
+                        &ca.channels[0],
+                        fs,
+                        ca.encoding.overload_threshold(),
+                        ca.encoding.resolution_bits(),
+                        None,
+                    )?;
+                    let (lb, _) = tone_level(
+                        &cb.channels[0],
+                        fs,
+                        cb.encoding.overload_threshold(),
+                        cb.encoding.resolution_bits(),
+                        Some(f),
+                    )?;
+                    from_levels(ch, f, 10f64.powf(la / 20.0), ra, 10f64.powf(lb / 20.0), rb)
+                        .map_err(e)?
+                }
+            };
+            results.push(res);
+        }
+    }
+    let report = ZoutReport {
+        schema_version: SCHEMA_VERSION,
+        source,
+        first: results.first().cloned(),
+        results,
+    };
+    super::report_to_stderr(
+        args.json,
+        report
+            .results
+            .iter()
+            .flat_map(|c| c.warnings.iter().map(move |w| (c.channel, w))),
+        std::iter::empty(),
+    );
+    super::print_stdout(&if args.json {
+        report.to_json()
+    } else {
+        report.to_table()
+    });
+    Ok(ExitCode::SUCCESS)
+}
