@@ -1,53 +1,59 @@
 //! Finding where a stimulus sits in a capture.
 
-use crate::analysis::spectrum::{fast_length_up, SpectrumPlanner};
-use realfft::num_complex::Complex64;
+/// Level envelope in dB: RMS of consecutive blocks of `block` samples, floored at -150 dB.
+fn envelope_db(x: &[f64], block: usize) -> Vec<f64> {
+    x.chunks(block)
+        .map(|c| {
+            let ms = c.iter().map(|v| v * v).sum::<f64>() / c.len() as f64;
+            10.0 * ms.max(1e-15).log10()
+        })
+        .collect()
+}
 
-/// The lag (samples, negative when the capture started after the stimulus file did) that best
-/// aligns `reference[start..start + len]` with `capture`, searched over `-start..=max_lag`, by FFT
-/// cross-correlation; with the normalised correlation at that lag (1 for a perfect copy).
-pub fn find_latency(
+/// The lag in samples (negative when the recorder started after the stimulus file did) that best
+/// lines up the capture's level envelope with the stimulus's, searched over
+/// `-max_lead..=max_lag` samples, to within half a `block`; with the correlation there (Pearson's r
+/// of the dB envelopes, 1 for a perfect match).
+///
+/// Envelopes rather than waveforms: a staircase of one steady frequency correlates with itself at
+/// every period and every step, so a waveform match is ambiguous; its level pattern is not. The
+/// dB scale makes the amplifier's gain an offset, which the correlation ignores.
+pub fn find_envelope_lag(
     capture: &[f64],
     reference: &[f64],
-    start: usize,
-    len: usize,
+    block: usize,
+    max_lead: usize,
     max_lag: usize,
 ) -> Option<(isize, f64)> {
-    let len = len.min(reference.len().saturating_sub(start));
-    if len == 0 {
-        return None;
+    let block = block.max(1);
+    let (es, ec) = (envelope_db(reference, block), envelope_db(capture, block));
+    let (lo, hi) = (-((max_lead / block) as isize), (max_lag / block) as isize);
+    let mut best: Option<(isize, f64)> = None;
+    for lag in lo..=hi {
+        // pairs (es[i], ec[i + lag]) over the overlap
+        let i0 = (-lag).max(0) as usize;
+        let i1 = es.len().min((ec.len() as isize - lag).max(0) as usize);
+        if i1 <= i0 + 8 {
+            continue;
+        }
+        let n = (i1 - i0) as f64;
+        let (mut sa, mut sb, mut saa, mut sbb, mut sab) = (0.0, 0.0, 0.0, 0.0, 0.0);
+        for i in i0..i1 {
+            let a = es[i];
+            let b = ec[(i as isize + lag) as usize];
+            sa += a;
+            sb += b;
+            saa += a * a;
+            sbb += b * b;
+            sab += a * b;
+        }
+        let cov = sab / n - sa * sb / (n * n);
+        let va = saa / n - sa * sa / (n * n);
+        let vb = sbb / n - sb * sb / (n * n);
+        let r = cov / (va * vb).sqrt().max(1e-300);
+        if best.is_none_or(|(_, br)| r > br) {
+            best = Some((lag, r));
+        }
     }
-    let r = &reference[start..start + len];
-    let c_len = (start + len + max_lag).min(capture.len());
-    let c = &capture[..c_len];
-    let n = fast_length_up(c_len + len);
-    let planner = SpectrumPlanner::new();
-    let (fwd, inv) = (planner.forward(n), planner.inverse(n));
-    let spec = |x: &[f64]| -> Vec<Complex64> {
-        let mut buf = vec![0.0; n];
-        buf[..x.len()].copy_from_slice(x);
-        let mut out = fwd.make_output_vec();
-        fwd.process(&mut buf, &mut out)
-            .expect("sizes match the plan");
-        out
-    };
-    let (rs, cs) = (spec(r), spec(c));
-    let mut prod: Vec<Complex64> = cs.iter().zip(&rs).map(|(a, b)| a * b.conj()).collect();
-    prod[0].im = 0.0;
-    if let Some(l) = prod.last_mut() {
-        l.im = 0.0;
-    }
-    let mut corr = vec![0.0; n];
-    inv.process(&mut prod, &mut corr)
-        .expect("sizes match the plan");
-    // corr[k] = sum_i r[i] c[i + k]; lag = k - start.
-    let k_max = c_len.saturating_sub(len);
-    let (k, v) = corr[..=k_max.min(n - 1)]
-        .iter()
-        .enumerate()
-        .max_by(|a, b| a.1.total_cmp(b.1))?;
-    let e_r: f64 = r.iter().map(|v| v * v).sum();
-    let e_c: f64 = c[k..(k + len).min(c_len)].iter().map(|v| v * v).sum();
-    let rho = v / n as f64 / (e_r * e_c).sqrt().max(1e-300);
-    Some((k as isize - start as isize, rho))
+    best.map(|(lag, r)| (lag * block as isize, r))
 }

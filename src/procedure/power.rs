@@ -196,7 +196,7 @@ pub fn finish(
 }
 
 /// Analyse a capture of the `steps` stimulus. `latency` (samples) shifts every step's window;
-/// find it with [`crate::procedure::align::find_latency`].
+/// find it with [`crate::procedure::align::find_envelope_lag`].
 #[allow(clippy::too_many_arguments)]
 pub fn power_from_capture(
     channel: usize,

@@ -3,7 +3,7 @@
 use crate::cli::{channel_choice, PowerArgs};
 use ampnote::capture::{select_channels, Capture};
 use ampnote::error::Error;
-use ampnote::procedure::align::find_latency;
+use ampnote::procedure::align::find_envelope_lag;
 use ampnote::procedure::power::{power_from_capture, run_staircase, StaircaseSettings};
 use ampnote::report::power::PowerReport;
 use ampnote::report::tone::ChannelError;
@@ -11,6 +11,11 @@ use ampnote::report::SCHEMA_VERSION;
 use ampnote::rig::parse_rig;
 use ampnote::signal::stimulus::{Description, Kind};
 use std::process::ExitCode;
+
+/// First sample of the staircase in the stimulus file (the lead silence's length).
+fn first_start(steps: &[ampnote::signal::stimulus::Step]) -> usize {
+    steps.first().map_or(0, |s| s.start_sample)
+}
 
 pub fn run(args: &PowerArgs) -> Result<ExitCode, String> {
     let e = |err: Error| err.to_string();
@@ -77,7 +82,6 @@ pub fn run(args: &PowerArgs) -> Result<ExitCode, String> {
             let Kind::Steps {
                 frequency_hz,
                 ref steps,
-                dwell_s,
                 ..
             } = desc.kind
             else {
@@ -96,12 +100,13 @@ pub fn run(args: &PowerArgs) -> Result<ExitCode, String> {
             for &ch in &chosen {
                 let cap = Capture::read_wav_channels(path, args.accept_truncated, Some(&[ch])).map_err(e)?;
                 let fs = cap.sample_rate_hz as f64;
-                // Latency from the first step (at most 2 s of it) against the capture's start.
-                let first = &steps[0];
-                let len = ((first.analyse_to_sample - first.start_sample) as f64).min(2.0 * fs) as usize;
-                let latency = find_latency(&cap.channels[0], x, first.start_sample, len, (2.0 * fs + dwell_s * fs) as usize);
+                // Where the staircase starts in the capture: its level envelope (10 ms blocks)
+                // against the stimulus's, searched up to 2 s either way. Each step's window has
+                // its settle time to spare, so 10 ms is precise enough.
+                let block = (fs / 100.0) as usize;
+                let latency = find_envelope_lag(&cap.channels[0], x, block, first_start(steps), (2.0 * fs) as usize);
                 let lat = match latency {
-                    Some((lag, rho)) if rho > 0.3 => lag,
+                    Some((lag, r)) if r > 0.5 => lag,
                     _ => {
                         channel_errors.push(ChannelError {
                             channel: ch,

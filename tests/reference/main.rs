@@ -6,6 +6,7 @@ mod closed_form;
 mod common;
 mod imd;
 mod numpy_fixtures;
+mod power;
 mod properties;
 mod quantization;
 mod stimuli;

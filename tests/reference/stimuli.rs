@@ -427,3 +427,189 @@ fn clock_drift_is_reported() {
         r.warnings
     );
 }
+
+#[test]
+fn power_from_a_recorded_staircase() {
+    // The staircase played through the simulated bench, recorded with 1234 samples of latency;
+    // the offline analysis must find the latency, read volts and watts from the profile, and
+    // say what is missing when the recording stops early.
+    use ampnote::rig::model::Model;
+    use ampnote::rig::sim::simulate;
+    let d = tmpdir("power");
+    let st = p(&d, "steps.wav");
+    ok(&[
+        "generate", "steps", "--rate", "48000", "--from", "-24", "--to", "-4", "--step", "2",
+        "--dwell", "0.4", "--settle", "0.1", "-o", &st,
+    ]);
+    let (cap, _) = description(Path::new(&st));
+    let model = Model::load("stock").unwrap();
+    let mut y = vec![0.0; 1234];
+    y.extend(simulate(
+        &model.bench,
+        &model.left,
+        8.0,
+        &cap.channels[0],
+        48_000.0,
+        7,
+    ));
+    let rec = p(&d, "rec.wav");
+    ampnote::signal::wav::write_wav(
+        Path::new(&rec),
+        48_000,
+        &[y.clone()],
+        ampnote::signal::wav::WavFormat::Int { bits: 24 },
+        3,
+    )
+    .unwrap();
+    let prof = p(&d, "bench.toml");
+    std::fs::write(&prof, "[interface]\ninput_fs_vrms = 2.0\noutput_fs_vrms = 2.0\n[attenuator]\nratio = 10.0\n[load]\nohms = 8.0\n").unwrap();
+    let v: serde_json::Value = serde_json::from_str(&ok(&[
+        "power",
+        &rec,
+        "--stimulus",
+        &st,
+        "--profile",
+        &prof,
+        "--json",
+    ]))
+    .unwrap();
+    for key in [
+        "schema_version",
+        "load_ohms",
+        "steps",
+        "power_at_thd",
+        "warnings",
+    ] {
+        assert!(v.get(key).is_some(), "power JSON lacks {key}");
+    }
+    let steps = v["steps"].as_array().unwrap();
+    assert_eq!(steps.len(), 11);
+    for key in [
+        "drive_dbfs",
+        "output_vrms",
+        "output_w",
+        "thd_percent",
+        "thdn_percent",
+    ] {
+        assert!(steps[0].get(key).is_some(), "step lacks {key}");
+    }
+    // The same staircase on the rig directly gives the same 1 % point (within the 2 dB steps'
+    // interpolation; the rig refines, the file does not).
+    let p1_file = v["power_at_thd"][0]["output_w"].as_f64().unwrap();
+    let rig: serde_json::Value = serde_json::from_str(&ok(&[
+        "power",
+        "--rig",
+        "sim:stock",
+        "--channel",
+        "1",
+        "--json",
+        "--from",
+        "-24",
+    ]))
+    .unwrap();
+    let p1_rig = rig["power_at_thd"][0]["output_w"].as_f64().unwrap();
+    assert!(
+        (p1_file / p1_rig - 1.0).abs() < 0.1,
+        "1 % point: file {p1_file} W, rig {p1_rig} W"
+    );
+    // Without calibration: dBFS only, and a warning naming the flags.
+    let (_, _, err) = run(&["power", &rec, "--stimulus", &st, "--json"]);
+    assert!(err.contains("--input-fs-vrms"), "{err}");
+    // A recording that stops early: the missing steps are named.
+    let short = p(&d, "short.wav");
+    ampnote::signal::wav::write_wav(
+        Path::new(&short),
+        48_000,
+        &[y[..y.len() / 2].to_vec()],
+        ampnote::signal::wav::WavFormat::Float32,
+        3,
+    )
+    .unwrap();
+    let (code, out, err) = run(&["power", &short, "--stimulus", &st, "--json"]);
+    assert_eq!(code, 0, "{err}");
+    assert!(out.contains("missing from the capture"), "{out}");
+    // Bad load and a run past the interface's input.
+    let (code, _, err) = run(&["power", "--rig", "sim", "--load-ohms", "0"]);
+    assert_eq!(code, 2);
+    assert!(err.contains("positive") || err.contains("above 0"), "{err}");
+    let (code, _, err) = run(&["power", "--rig", "sim", "--max-w", "200"]);
+    assert_eq!(code, 2);
+    assert!(err.contains("raise the attenuation"), "{err}");
+    std::fs::remove_dir_all(&d).ok();
+}
+
+#[test]
+fn zout_on_the_simulated_bench_matches_its_model() {
+    // The stage's output impedance is its plate resistance reflected through the transformer plus
+    // the winding: rp / N^2 + R_w (transformer theory), measured by the two-load method.
+    use ampnote::rig::model::Model;
+    let m = Model::load("stock").unwrap();
+    let ch = m.left;
+    let rp = ch.triode.rp(ch.bias_v, ch.b_plus_v);
+    let want = rp / (ch.primary_ohms / ch.nominal_load_ohms) + ch.winding_ohms;
+    let v: serde_json::Value = serde_json::from_str(&ok(&[
+        "zout",
+        "--rig",
+        "sim:stock",
+        "--channel",
+        "1",
+        "--json",
+    ]))
+    .unwrap();
+    let z = v["zout_ohms"].as_f64().unwrap();
+    assert!(
+        (z / want - 1.0).abs() < 0.05,
+        "Z {z} vs rp/N^2 + Rw = {want}"
+    );
+    assert!((v["damping_factor"].as_f64().unwrap() - 8.0 / z).abs() < 1e-9);
+    let (code, _, err) = run(&["zout", "--rig", "sim", "--loads", "8,8"]);
+    assert_eq!(code, 2);
+    assert!(err.contains("must differ"), "{err}");
+}
+
+#[test]
+fn calibrate_builds_a_profile_from_flags() {
+    // A loopback recording of the -20 dBFS tone read by a meter as 0.2 V: output full scale
+    // 0.2 x 10 = 2 V; the loopback reads -20 dBFS, so the input full scale is 2 V too.
+    let d = tmpdir("cal");
+    let tone = p(&d, "cal-tone.wav");
+    let prof = p(&d, "bench.toml");
+    let (code, _, err) = run(&[
+        "calibrate",
+        "--tone",
+        &tone,
+        "--meter-vrms",
+        "0.2",
+        "--loopback",
+        &tone,
+        "--r-top",
+        "9000",
+        "--r-bottom",
+        "1000",
+        "--input-impedance",
+        "10000",
+        "--load-ohms",
+        "8",
+        "--no-prompt",
+        "-o",
+        &prof,
+    ]);
+    assert_eq!(code, 0, "{err}");
+    assert!(
+        err.contains("Never run a tube amplifier with its output unloaded"),
+        "cautions shown: {err}"
+    );
+    let cal = ampnote::calibration::Profile::load(Path::new(&prof))
+        .unwrap()
+        .calibration()
+        .unwrap();
+    assert!((cal.output_fs_vrms.unwrap() - 2.0).abs() < 1e-9);
+    assert!(
+        (cal.input_fs_vrms.unwrap() - 2.0).abs() < 0.002,
+        "{:?}",
+        cal.input_fs_vrms
+    );
+    assert!((cal.attenuation.unwrap() - 10.9).abs() < 1e-9);
+    assert!(cal.loopback_thdn_db.unwrap() < -100.0);
+    std::fs::remove_dir_all(&d).ok();
+}

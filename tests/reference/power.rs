@@ -1,0 +1,261 @@
+//! Output power at a THD limit, the two-load method, calibration arithmetic and the simulated
+//! triode, each against an outside reference named beside it.
+
+use ampnote::calibration::{divider_ratio, Calibration, Profile};
+use ampnote::procedure::power::{check_input_headroom, power_from_capture, PowerResult};
+use ampnote::procedure::zout::two_load;
+use ampnote::rig::model::Model;
+use ampnote::rig::triode::{LoadLine, Triode};
+use ampnote::signal::stimulus::{steps, Common, Kind};
+use std::f64::consts::PI;
+
+/// A staircase at 96 kHz from `from` to `to` dBFS in `step` dB, through `f`, analysed.
+fn staircase_through(f: impl Fn(f64) -> f64, from: f64, to: f64, step: f64) -> PowerResult {
+    let c = Common {
+        sample_rate_hz: 96_000,
+        level_dbfs: from,
+        channels: 1,
+        signal_channels: vec![1],
+        lead_s: 0.0,
+        tail_s: 0.0,
+        fade_s: 0.0,
+    };
+    let s = steps(&c, 997.0, from, to, step, 0.3, 0.05).unwrap();
+    let Kind::Steps { steps: table, .. } = &s.description.kind else {
+        unreachable!()
+    };
+    let y: Vec<f64> = s.signal.iter().map(|&v| f(v)).collect();
+    power_from_capture(
+        1,
+        &y,
+        96_000.0,
+        2.0,
+        53,
+        997.0,
+        table,
+        0,
+        &Calibration::default(),
+    )
+    .unwrap()
+}
+
+fn level_at(r: &PowerResult, thd: f64) -> f64 {
+    r.power_at_thd
+        .iter()
+        .find(|p| p.thd_percent == thd)
+        .expect("target reached")
+        .output_dbfs
+}
+
+#[test]
+fn ideal_hard_clipper_matches_the_closed_form() {
+    // REFERENCES.md, ideal hard clipper: THD_F = 1 % at a fundamental 1.0234 x the clip level
+    // (+0.20 dB of power over a clean sine at the clip level); P(10 %) / P(1 %) about 1.22.
+    // Target: within 3 % with 0.1 dB steps.
+    let clip = 0.5;
+    let r = staircase_through(|v| v.clamp(-clip, clip), -7.5, -3.0, 0.1);
+    let clean_dbfs = 20.0 * clip.log10();
+    let p1 = level_at(&r, 1.0);
+    let over = 10f64.powf((p1 - clean_dbfs) / 10.0);
+    assert!(
+        (over / 10f64.powf(0.020) - 1.0).abs() < 0.03,
+        "P(1 %) is {:+.3} dB over the clip-level sine",
+        p1 - clean_dbfs
+    );
+    let ratio = 10f64.powf((level_at(&r, 10.0) - p1) / 10.0);
+    assert!(
+        (ratio / 1.22 - 1.0).abs() < 0.03,
+        "P(10 %)/P(1 %) = {ratio:.3}"
+    );
+    assert!(r.clipping_drive_dbfs.is_some());
+}
+
+/// THD_F (H2..H20) and fundamental amplitude of tanh(a sin t), by direct Fourier integration
+/// over one period (4096 points: exact to rounding for these smooth functions).
+fn tanh_series(a: f64) -> (f64, f64) {
+    let n = 4096;
+    let coef = |k: usize| -> f64 {
+        let (mut s, mut c) = (0.0, 0.0);
+        for i in 0..n {
+            let t = 2.0 * PI * i as f64 / n as f64;
+            let y = (a * t.sin()).tanh();
+            s += y * (k as f64 * t).sin();
+            c += y * (k as f64 * t).cos();
+        }
+        2.0 * (s * s + c * c).sqrt() / n as f64
+    };
+    let b1 = coef(1);
+    let h: f64 = (2..=20).map(|k| coef(k).powi(2)).sum();
+    (h.sqrt() / b1, b1)
+}
+
+#[test]
+fn smooth_tanh_clipper_within_1_percent() {
+    // Truth: bisection on the drive for THD_F = 1 % of tanh(a sin t), then the fundamental's
+    // power there. Target: the staircase (0.5 dB steps) within 1 % of it.
+    let (mut lo, mut hi) = (0.01, 2.0);
+    for _ in 0..60 {
+        let mid = 0.5 * (lo + hi);
+        if tanh_series(mid).0 < 0.01 {
+            lo = mid;
+        } else {
+            hi = mid;
+        }
+    }
+    let (_, b1) = tanh_series(0.5 * (lo + hi));
+    let truth_dbfs = 20.0 * b1.log10();
+    let r = staircase_through(|v| v.tanh(), -20.0, -3.0, 0.5);
+    let got = level_at(&r, 1.0);
+    let err = 10f64.powf((got - truth_dbfs) / 10.0) - 1.0;
+    assert!(
+        err.abs() < 0.01,
+        "tanh: P(1 %) off by {:.3} % ({got:.3} vs {truth_dbfs:.3} dBFS)",
+        100.0 * err
+    );
+}
+
+#[test]
+fn power_from_volts_and_load() {
+    // P = V^2 / R (REFERENCES.md): 1 W into 8 ohm is 2.828 V rms; 100 W is 28.28 V rms.
+    let cal = Calibration {
+        input_fs_vrms: Some(2.0),
+        attenuation: Some(10.0),
+        load_ohms: Some(8.0),
+        ..Calibration::default()
+    };
+    let dbfs_1w = 20.0 * (2.828_427 / 20.0f64).log10();
+    assert!((cal.watts_from_dbfs(dbfs_1w).unwrap() - 1.0).abs() < 1e-5);
+    let dbfs_100w = 20.0 * (28.284_27 / 20.0f64).log10();
+    assert!((cal.watts_from_dbfs(dbfs_100w).unwrap() - 100.0).abs() < 1e-3);
+}
+
+#[test]
+fn two_load_worked_example() {
+    // EMF 10 V behind 2 ohm: 8 V into 8 ohm, 8.889 V into 16 ohm (voltage divider);
+    // Z = (V2 - V1) / (V1/R1 - V2/R2) = 2 ohm; damping factor re 8 ohm = 4 (REFERENCES.md).
+    let v1 = 10.0 * 8.0 / 10.0;
+    let v2 = 10.0 * 16.0 / 18.0;
+    let z = two_load(v1, 8.0, v2, 16.0).unwrap();
+    assert!((z - 2.0).abs() < 1e-12, "Z {z}");
+    assert!(
+        two_load(v1, 8.0, v2, 8.0).is_err(),
+        "equal loads must be refused"
+    );
+    assert!(
+        two_load(v1, 0.0, v2, 8.0).is_err(),
+        "a zero load must be refused"
+    );
+}
+
+#[test]
+fn divider_ratio_and_profiles() {
+    // Ohm's law: 9k over 1k || 10k: R_b = 909.09, ratio = (9000 + 909.09) / 909.09 = 10.9.
+    assert!((divider_ratio(9000.0, 1000.0, Some(10_000.0)) - 10.9).abs() < 1e-9);
+    assert!((divider_ratio(9000.0, 1000.0, None) - 10.0).abs() < 1e-12);
+    let root = std::path::Path::new(env!("CARGO_MANIFEST_DIR")).join("calibration");
+    for f in ["example-bench.toml", "example-measured.toml"] {
+        let p = Profile::load(&root.join(f)).unwrap_or_else(|e| panic!("{f}: {e}"));
+        assert!(p.calibration().unwrap().has_volts(), "{f}");
+    }
+    let bench = Profile::load(&root.join("example-bench.toml"))
+        .unwrap()
+        .calibration()
+        .unwrap();
+    assert!((bench.attenuation.unwrap() - 10.9).abs() < 1e-9);
+    let path = std::path::Path::new("t.toml");
+    for bad in [
+        "[interface]\ninput_fs = 2.0\n",                     // unknown key
+        "[attenuator]\nratio = 0.5\n",                       // below 1
+        "[attenuator]\nratio = 10.0\nr_top_ohms = 9000.0\n", // both forms
+        "[load]\nohms = -8.0\n",                             // not positive
+        "[interface]\ninput_fs_vrms = \"two\"\n",            // not a number
+    ] {
+        assert!(Profile::parse(bad, path).is_err(), "accepted: {bad}");
+    }
+    let over = bench.overridden_by(Calibration {
+        load_ohms: Some(4.0),
+        ..Calibration::default()
+    });
+    assert_eq!(over.load_ohms, Some(4.0));
+    assert_eq!(over.input_fs_vrms, bench.input_fs_vrms);
+}
+
+#[test]
+fn input_headroom_is_checked_before_a_run() {
+    // 25 W into 8 ohm is 20 V peak; through a 10:1 attenuator 2 V peak, inside a 2 V rms
+    // (2.83 V peak) input. 100 W is 40 V peak, 4 V at the input: refused, with the attenuation
+    // that would do (>= 10 x 4 / 2.83 x 1.12 = 15.8).
+    let cal = Calibration {
+        input_fs_vrms: Some(2.0),
+        attenuation: Some(10.0),
+        load_ohms: Some(8.0),
+        ..Calibration::default()
+    };
+    assert!(check_input_headroom(&cal, 25.0).is_ok());
+    let e = check_input_headroom(&cal, 100.0).unwrap_err().to_string();
+    assert!(e.contains("4.00 V peak") && e.contains("15.8"), "{e}");
+    assert!(check_input_headroom(&Calibration::default(), 1.0).is_err());
+}
+
+#[test]
+fn koren_triode_is_self_consistent() {
+    // Koren 1996 (REFERENCES.md): for the published high-mu set, about 1 mA at 250 V, -2 V
+    // (the valve's data sheet order of magnitude; from memory); mu = gm * rp at the operating
+    // point within a few percent; plate current rising with grid and plate voltage.
+    let t = Triode {
+        mu: 100.0,
+        ex: 1.4,
+        kg1: 1060.0,
+        kp: 600.0,
+        kvb: 300.0,
+    };
+    let ip = t.plate_current(-2.0, 250.0);
+    assert!(
+        ip > 0.5e-3 && ip < 1.5e-3,
+        "12AX7-like at 250 V, -2 V: {ip} A"
+    );
+    for (tri, vg, vp) in [
+        (t, -1.5, 250.0),
+        (Model::load("stock").unwrap().left.triode, -72.0, 360.0),
+    ] {
+        let mu_eff = tri.gm(vg, vp) * tri.rp(vg, vp);
+        assert!(
+            (mu_eff / tri.mu - 1.0).abs() < 0.05,
+            "mu {} vs gm*rp {mu_eff}",
+            tri.mu
+        );
+        let mut last = -1.0;
+        for i in 0..200 {
+            let c = tri.plate_current(vg - 10.0 + i as f64 * 0.1, vp);
+            assert!(c >= last, "plate current must not fall as the grid rises");
+            last = c;
+        }
+        assert!(tri.plate_current(vg, vp + 10.0) > tri.plate_current(vg, vp));
+    }
+}
+
+#[test]
+fn triode_stage_h2_matches_its_series_expansion() {
+    // Small-signal second harmonic of a memoryless stage f(vg0 + a sin): H2/H1 = (f''/2) a / (2 f')
+    // (Taylor series and sin^2 = (1 - cos 2t)/2), against the analysis of the sampled output.
+    let ch = Model::load("stock").unwrap().left;
+    let line: LoadLine = ch.load_line(8.0);
+    let vg0 = ch.bias_v;
+    let h = 0.01;
+    let d1 = (line.primary_voltage(vg0 + h) - line.primary_voltage(vg0 - h)) / (2.0 * h);
+    let d2 = (line.primary_voltage(vg0 + h) - 2.0 * line.primary_voltage(vg0)
+        + line.primary_voltage(vg0 - h))
+        / (h * h);
+    let a = 1.0;
+    let want_dbc = 20.0 * ((d2 / 2.0) * a / (2.0 * d1)).abs().log10();
+    let fs = 48_000.0;
+    let y: Vec<f64> = (0..48_000)
+        .map(|i| line.primary_voltage(vg0 + a * (2.0 * PI * 1000.3 * i as f64 / fs).sin()) / 400.0)
+        .collect();
+    let r = super::common::analyze(&y, fs);
+    assert!(
+        (r.harmonics[0].level_dbc - want_dbc).abs() < 0.1,
+        "H2 {:.3} dBc vs series {want_dbc:.3} dBc",
+        r.harmonics[0].level_dbc
+    );
+}
