@@ -22,14 +22,21 @@ fn bench(c: &mut Criterion) {
     };
     // 40 steps of 0.5 s: -40 to -1 dBFS in 1 dB.
     let s = steps(&common, 997.0, -40.0, -1.0, 1.0, 0.5, 0.1).unwrap();
-    let Kind::Steps { steps: table, .. } = &s.description.kind else { unreachable!() };
+    let Kind::Steps { steps: table, .. } = &s.description.kind else {
+        unreachable!()
+    };
     assert_eq!(table.len(), 40);
     let y: Vec<f64> = s.signal.iter().map(|&v| (1.5 * v).tanh() / 1.5).collect();
     let cal = Calibration::default();
     let mut g = c.benchmark_group("staircase-40x0.5s-96k");
     g.sample_size(10);
     g.bench_function("power analysis", |b| {
-        b.iter(|| black_box(power_from_capture(1, black_box(&y), 96_000.0, 2.0, 24, 997.0, table, 0, &cal).unwrap()))
+        b.iter(|| {
+            black_box(
+                power_from_capture(1, black_box(&y), 96_000.0, 2.0, 24, 997.0, table, 0, &cal)
+                    .unwrap(),
+            )
+        })
     });
     g.finish();
 }

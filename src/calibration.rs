@@ -185,6 +185,16 @@ impl Profile {
                 ))
             }
         };
+        if let Some(resp) = self.loopback.as_ref().and_then(|l| l.response.as_ref()) {
+            if resp
+                .iter()
+                .any(|[f, db]| !(f.is_finite() && *f > 0.0 && db.is_finite()))
+            {
+                return Err(Error::InvalidSetting(
+                    "[loopback] response takes [frequency_hz, magnitude_db] pairs with frequencies above 0".into(),
+                ));
+            }
+        }
         if let Some(r) = attenuation {
             if r < 1.0 {
                 return Err(Error::InvalidSetting(format!(

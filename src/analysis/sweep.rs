@@ -51,6 +51,9 @@ pub struct ResponseConfig {
     pub max_harmonic: usize,
     /// Band over which the largest deviation is reported.
     pub deviation_band_hz: (f64, f64),
+    /// The interface's own loopback response, `(frequency_hz, magnitude_db)` pairs, taken out of
+    /// the magnitude (interpolated in log frequency, held flat beyond its ends); empty for none.
+    pub correction_db: Vec<(f64, f64)>,
 }
 
 impl Default for ResponseConfig {
@@ -61,6 +64,7 @@ impl Default for ResponseConfig {
             smoothing: None,
             max_harmonic: 5,
             deviation_band_hz: (20.0, 20_000.0),
+            correction_db: Vec::new(),
         }
     }
 }
@@ -113,6 +117,8 @@ pub struct ResponseResult {
     pub polarity: &'static str,
     #[serde(skip_serializing_if = "Option::is_none")]
     pub smoothing_octave_fraction: Option<u32>,
+    /// The interface's loopback response was taken out of the magnitude.
+    pub loopback_corrected: bool,
     pub harmonics: Vec<HarmonicCurve>,
     /// THD against excitation frequency: the harmonics H2..Hmax that stay inside the sweep.
     pub thd: Vec<HarmonicPoint>,
@@ -377,6 +383,8 @@ impl ResponseAnalyzer {
         };
         let h_ref = at(&g1, reference_hz).norm();
         let freqs = log_points(f_lo, f_hi, self.config.points_per_octave, nf_bin);
+        let correction = |f: f64| interpolate_log(&self.config.correction_db, f);
+        let corr_ref = correction(reference_hz);
         let points: Vec<ResponsePoint> = freqs
             .iter()
             .map(|&f| {
@@ -387,7 +395,8 @@ impl ResponseAnalyzer {
                 };
                 ResponsePoint {
                     frequency_hz: (f / nf_bin).round() * nf_bin,
-                    magnitude_db: 20.0 * (mag / h_ref).max(1e-300).log10(),
+                    magnitude_db: 20.0 * (mag / h_ref).max(1e-300).log10()
+                        - (correction(f) - corr_ref),
                     phase_deg: g.arg().to_degrees(),
                 }
             })
@@ -497,6 +506,7 @@ impl ResponseAnalyzer {
             latency_samples,
             polarity,
             smoothing_octave_fraction: self.config.smoothing,
+            loopback_corrected: !self.config.correction_db.is_empty(),
             harmonics,
             thd,
             impulse_snr_db,
@@ -542,6 +552,27 @@ fn written_zeros<T: Copy>(len: usize, zero: T) -> Vec<T> {
     let mut v = Vec::with_capacity(len);
     v.resize(len, zero);
     v
+}
+
+/// Linear interpolation in log frequency through `(Hz, dB)` pairs sorted by frequency, held flat
+/// beyond the ends; 0 for no pairs.
+pub fn interpolate_log(pairs: &[(f64, f64)], f: f64) -> f64 {
+    match pairs {
+        [] => 0.0,
+        [only] => only.1,
+        _ => {
+            if f <= pairs[0].0 {
+                return pairs[0].1;
+            }
+            for w in pairs.windows(2) {
+                if f <= w[1].0 {
+                    let t = (f / w[0].0).ln() / (w[1].0 / w[0].0).ln();
+                    return w[0].1 + t * (w[1].1 - w[0].1);
+                }
+            }
+            pairs[pairs.len() - 1].1
+        }
+    }
 }
 
 /// 1 inside [f1, f2], raised-cosine down to 0 at `lo` and `hi`.

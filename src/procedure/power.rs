@@ -34,6 +34,8 @@ pub struct PowerStep {
     #[serde(skip_serializing_if = "Option::is_none")]
     pub output_dbv: Option<f64>,
     #[serde(skip_serializing_if = "Option::is_none")]
+    pub output_dbu: Option<f64>,
+    #[serde(skip_serializing_if = "Option::is_none")]
     pub output_w: Option<f64>,
     pub thd_percent: f64,
     pub thdn_percent: f64,
@@ -99,6 +101,7 @@ pub fn step_from(drive_dbfs: f64, r: &ToneResult) -> PowerStep {
         output_dbfs: r.fundamental_dbfs,
         output_vrms: r.fundamental_vrms,
         output_dbv: r.fundamental_dbv,
+        output_dbu: r.fundamental_dbu,
         output_w: r.output_w,
         thd_percent: r.thd_percent,
         thdn_percent: r.thdn_percent,

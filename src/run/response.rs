@@ -10,6 +10,23 @@ use ampnote::report::SCHEMA_VERSION;
 use ampnote::signal::stimulus::{Description, Kind};
 use std::process::ExitCode;
 
+/// The interface's loopback response from the profile, if it gives one.
+fn loopback_response(args: &ResponseArgs) -> Result<Vec<(f64, f64)>, String> {
+    let Some(path) = &args.calibration.profile else {
+        return Ok(Vec::new());
+    };
+    let profile = ampnote::calibration::Profile::load(path).map_err(|e| e.to_string())?;
+    let mut pairs: Vec<(f64, f64)> = profile
+        .loopback
+        .and_then(|l| l.response)
+        .unwrap_or_default()
+        .into_iter()
+        .map(|[f, db]| (f, db))
+        .collect();
+    pairs.sort_by(|a, b| a.0.total_cmp(&b.0));
+    Ok(pairs)
+}
+
 pub fn run(args: &ResponseArgs) -> Result<ExitCode, String> {
     let e = |err: Error| err.to_string();
     let cal = args.calibration.calibration()?;
@@ -18,6 +35,7 @@ pub fn run(args: &ResponseArgs) -> Result<ExitCode, String> {
         points_per_octave: args.points_per_octave,
         smoothing: args.smooth,
         max_harmonic: args.harmonics,
+        correction_db: loopback_response(args)?,
         ..ResponseConfig::default()
     })
     .map_err(e)?;

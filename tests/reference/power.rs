@@ -259,3 +259,55 @@ fn triode_stage_h2_matches_its_series_expansion() {
         r.harmonics[0].level_dbc
     );
 }
+
+#[test]
+fn steps_that_overload_the_interface_are_left_out() {
+    // The interface clips at full scale: such steps measure the interface, so they are excluded
+    // and named (DESIGN: measurement quality), and the 1 % point comes from the steps below.
+    let c = Common {
+        sample_rate_hz: 48_000,
+        level_dbfs: -30.0,
+        channels: 1,
+        signal_channels: vec![1],
+        lead_s: 0.0,
+        tail_s: 0.0,
+        fade_s: 0.0,
+    };
+    let s = steps(&c, 997.0, -30.0, 0.0, 2.0, 0.3, 0.05).unwrap();
+    let Kind::Steps { steps: table, .. } = &s.description.kind else {
+        unreachable!()
+    };
+    // A mild curvature, then the interface's own clipping at full scale.
+    let y: Vec<f64> = s
+        .signal
+        .iter()
+        .map(|&v| (2.0 * (v + 0.3 * v * v)).clamp(-1.0, 1.0))
+        .collect();
+    let r = power_from_capture(
+        1,
+        &y,
+        48_000.0,
+        1.0,
+        24,
+        997.0,
+        table,
+        0,
+        &Calibration::default(),
+    )
+    .unwrap();
+    let excluded: Vec<f64> = r
+        .steps
+        .iter()
+        .filter(|s| s.excluded)
+        .map(|s| s.drive_dbfs)
+        .collect();
+    assert!(
+        !excluded.is_empty() && excluded.iter().all(|&d| d >= -8.0),
+        "excluded {excluded:?}"
+    );
+    assert!(
+        r.warnings.iter().any(|w| w.contains("overloaded")),
+        "{:?}",
+        r.warnings
+    );
+}

@@ -613,3 +613,71 @@ fn calibrate_builds_a_profile_from_flags() {
     assert!(cal.loopback_thdn_db.unwrap() < -100.0);
     std::fs::remove_dir_all(&d).ok();
 }
+
+#[test]
+fn loopback_response_is_taken_out() {
+    // The stimulus as its own (flat) capture: a flat loopback response leaves it flat; a loopback
+    // that falls to -1 dB at 20 kHz is taken out, so the capture reads +1 dB there.
+    let d = tmpdir("loopcorr");
+    let sw = p(&d, "sweep.wav");
+    ok(&[
+        "generate",
+        "sweep",
+        "--rate",
+        "48000",
+        "--seconds",
+        "2",
+        "--from",
+        "20",
+        "--to",
+        "20000",
+        "-o",
+        &sw,
+    ]);
+    let prof = p(&d, "p.toml");
+    std::fs::write(
+        &prof,
+        "[loopback]\nresponse = [[20.0, 0.0], [1000.0, 0.0], [20000.0, 0.0]]\n",
+    )
+    .unwrap();
+    let v: serde_json::Value = serde_json::from_str(&ok(&[
+        "response",
+        &sw,
+        "--stimulus",
+        &sw,
+        "--profile",
+        &prof,
+        "--json",
+    ]))
+    .unwrap();
+    assert_eq!(v["loopback_corrected"], true);
+    assert!(v["max_deviation_db"].as_f64().unwrap().abs() < 0.01);
+    std::fs::write(
+        &prof,
+        "[loopback]\nresponse = [[20.0, 0.0], [1000.0, 0.0], [20000.0, -1.0]]\n",
+    )
+    .unwrap();
+    let v: serde_json::Value = serde_json::from_str(&ok(&[
+        "response",
+        &sw,
+        "--stimulus",
+        &sw,
+        "--profile",
+        &prof,
+        "--json",
+    ]))
+    .unwrap();
+    // The flat capture, corrected for a loopback that falls 1 dB at 20 kHz, rises by that much.
+    let top = v["points"]
+        .as_array()
+        .unwrap()
+        .iter()
+        .rev()
+        .find(|p| p["frequency_hz"].as_f64().unwrap() <= 20_000.0)
+        .unwrap();
+    assert!(
+        (top["magnitude_db"].as_f64().unwrap() - 1.0).abs() < 0.02,
+        "{top}"
+    );
+    std::fs::remove_dir_all(&d).ok();
+}
