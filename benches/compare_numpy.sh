@@ -10,17 +10,7 @@ CAP=bench-data/tone-10s-96k-24bit-stereo.wav
 cargo build --release -q
 [ -f "$CAP" ] || cargo run --release -q --example make_bench_capture -- "$CAP"
 
-median_ms() { # command...
-  local times=()
-  for _ in $(seq "$RUNS"); do
-    local t0 t1
-    t0=$(date +%s%N)
-    "$@" > /dev/null 2>&1
-    t1=$(date +%s%N)
-    times+=($(( (t1 - t0) / 1000 )))
-  done
-  printf '%s\n' "${times[@]}" | sort -n | awk '{a[NR]=$1} END {printf "%.1f", a[int((NR+1)/2)]/1000}'
-}
+source benches/timing.sh
 
 a=$(median_ms ./target/release/ampnote analyze "$CAP" --json)
 p=$(median_ms python3 benches/analyze_numpy.py "$CAP")

@@ -20,17 +20,7 @@ print(d["start_hz"], d["stop_hz"], d["rate_s"])
 PY
 )
 
-median_ms() {
-  local times=()
-  for _ in $(seq "$RUNS"); do
-    local t0 t1
-    t0=$(date +%s%N)
-    "$@" > /dev/null 2>&1
-    t1=$(date +%s%N)
-    times+=($(( (t1 - t0) / 1000 )))
-  done
-  printf '%s\n' "${times[@]}" | sort -n | awk '{a[NR]=$1} END {printf "%.1f", a[int((NR+1)/2)]/1000}'
-}
+source benches/timing.sh
 
 a=$(median_ms ./target/release/ampnote response "$CAP" --stimulus "$STIM" --json)
 p=$(median_ms python3 benches/response_numpy.py "$CAP" "$STIM" "$F1" "$F2" "$L")

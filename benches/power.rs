@@ -11,15 +11,7 @@ use criterion::{criterion_group, criterion_main, Criterion};
 use std::hint::black_box;
 
 fn bench(c: &mut Criterion) {
-    let common = Common {
-        sample_rate_hz: 96_000,
-        level_dbfs: -40.0,
-        channels: 1,
-        signal_channels: vec![1],
-        lead_s: 0.0,
-        tail_s: 0.0,
-        fade_s: 0.0,
-    };
+    let common = Common::mono(96_000, -40.0);
     // 40 steps of 0.5 s: -40 to -1 dBFS in 1 dB.
     let s = steps(&common, 997.0, -40.0, -1.0, 1.0, 0.5, 0.1).unwrap();
     let Kind::Steps { steps: table, .. } = &s.description.kind else {

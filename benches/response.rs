@@ -5,40 +5,19 @@
 //! Run: `cargo bench --bench response`
 
 use ampnote::analysis::sweep::{ResponseAnalyzer, ResponseConfig, SweepParams};
-use ampnote::signal::stimulus::{sweep, Common, Kind};
+use ampnote::signal::stimulus::{sweep, Common};
 use criterion::{criterion_group, criterion_main, Criterion};
 use std::hint::black_box;
 
 fn bench(c: &mut Criterion) {
     let fs = 96_000.0;
     let common = Common {
-        sample_rate_hz: 96_000,
-        level_dbfs: -12.0,
-        channels: 1,
-        signal_channels: vec![1],
         lead_s: 0.2,
         tail_s: 0.5,
-        fade_s: 0.0,
+        ..Common::mono(96_000, -12.0)
     };
     let s = sweep(&common, 10.0, 40_000.0, 10.0).unwrap();
-    let Kind::Sweep {
-        start_hz,
-        stop_hz,
-        rate_s,
-        fade_in_s,
-        ..
-    } = s.description.kind
-    else {
-        unreachable!()
-    };
-    let sp = SweepParams {
-        start_hz,
-        stop_hz,
-        rate_s,
-        start_sample: s.description.signal_start_sample,
-        end_sample: s.description.signal_start_sample + s.description.signal_samples,
-        fade_in_s,
-    };
+    let sp = SweepParams::from_description(&s.description).unwrap();
     // One-pole high-pass and low-pass plus a little second harmonic.
     let (mut hp_x, mut hp_y, mut lp) = (0.0, 0.0, 0.0);
     let mut y = vec![0.0; 192];

@@ -14,13 +14,9 @@ fn main() {
         .unwrap_or_else(|| "bench-data".to_string());
     std::fs::create_dir_all(&dir).expect("create folder");
     let common = Common {
-        sample_rate_hz: 96_000,
-        level_dbfs: -12.0,
-        channels: 1,
-        signal_channels: vec![1],
         lead_s: 0.2,
         tail_s: 0.5,
-        fade_s: 0.0,
+        ..Common::mono(96_000, -12.0)
     };
     let s = sweep(&common, 10.0, 40_000.0, 10.0).expect("sweep");
     let stim = Path::new(&dir).join("sweep-10s-96k.wav");

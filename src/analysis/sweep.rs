@@ -38,6 +38,30 @@ pub struct SweepParams {
     pub fade_in_s: f64,
 }
 
+impl SweepParams {
+    /// The parameters of a sweep stimulus from its description; `None` for other kinds.
+    pub fn from_description(d: &crate::signal::stimulus::Description) -> Option<SweepParams> {
+        let crate::signal::stimulus::Kind::Sweep {
+            start_hz,
+            stop_hz,
+            rate_s,
+            fade_in_s,
+            ..
+        } = d.kind
+        else {
+            return None;
+        };
+        Some(SweepParams {
+            start_hz,
+            stop_hz,
+            rate_s,
+            start_sample: d.signal_start_sample,
+            end_sample: d.signal_start_sample + d.signal_samples,
+            fade_in_s,
+        })
+    }
+}
+
 /// Settings of the response analysis.
 #[derive(Debug, Clone)]
 pub struct ResponseConfig {

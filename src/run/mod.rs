@@ -10,6 +10,7 @@ pub mod response;
 pub mod zout;
 
 use std::io::Write;
+use std::process::ExitCode;
 
 /// Print to stdout; a closed pipe (`| head`) is not an error.
 pub fn print_stdout(text: &str) {
@@ -31,5 +32,23 @@ pub fn report_to_stderr<'a>(
     }
     for e in errors {
         eprintln!("error: {e}");
+    }
+}
+
+/// The end of every analysing command: diagnostics to stderr, the report (JSON or table) to
+/// stdout, and exit code 2 when a channel could not be analysed.
+pub fn finish<'a>(
+    json: bool,
+    warnings: impl Iterator<Item = (usize, &'a String)>,
+    errors: &[&'a String],
+    render_json: impl FnOnce() -> String,
+    render_table: impl FnOnce() -> String,
+) -> ExitCode {
+    report_to_stderr(json, warnings, errors.iter().copied());
+    print_stdout(&if json { render_json() } else { render_table() });
+    if errors.is_empty() {
+        ExitCode::SUCCESS
+    } else {
+        ExitCode::from(2)
     }
 }

@@ -142,22 +142,15 @@ pub fn run(args: &PowerArgs) -> Result<ExitCode, String> {
         results,
         channel_errors,
     };
-    super::report_to_stderr(
+    let errors: Vec<&String> = report.channel_errors.iter().map(|c| &c.error).collect();
+    Ok(super::finish(
         args.json,
         report
             .results
             .iter()
             .flat_map(|c| c.warnings.iter().map(move |w| (c.channel, w))),
-        report.channel_errors.iter().map(|c| &c.error),
-    );
-    super::print_stdout(&if args.json {
-        report.to_json()
-    } else {
-        report.to_table()
-    });
-    Ok(if report.channel_errors.is_empty() {
-        ExitCode::SUCCESS
-    } else {
-        ExitCode::from(2)
-    })
+        &errors,
+        || report.to_json(),
+        || report.to_table(),
+    ))
 }

@@ -52,22 +52,13 @@ pub fn run(args: &ResponseArgs) -> Result<ExitCode, String> {
     let Kind::Sweep {
         start_hz,
         stop_hz,
-        rate_s,
         duration_s,
-        fade_in_s,
         ..
     } = desc.kind
     else {
         return Err(e(not_sweep()));
     };
-    let sweep = SweepParams {
-        start_hz,
-        stop_hz,
-        rate_s,
-        start_sample: desc.signal_start_sample,
-        end_sample: desc.signal_start_sample + desc.signal_samples,
-        fade_in_s,
-    };
+    let sweep = SweepParams::from_description(&desc).ok_or_else(|| e(not_sweep()))?;
     let signal_ch = desc.signal_channels.first().copied().unwrap_or(1);
     let x = stim.channel(signal_ch).ok_or_else(|| e(not_sweep()))?;
 
@@ -117,22 +108,15 @@ pub fn run(args: &ResponseArgs) -> Result<ExitCode, String> {
     if let Some(path) = &args.csv {
         ampnote::files::write_whole(path, report.to_csv().as_bytes()).map_err(e)?;
     }
-    super::report_to_stderr(
+    let errors: Vec<&String> = report.channel_errors.iter().map(|c| &c.error).collect();
+    Ok(super::finish(
         args.json,
         report
             .channels
             .iter()
             .flat_map(|c| c.warnings.iter().map(move |w| (c.channel, w))),
-        report.channel_errors.iter().map(|c| &c.error),
-    );
-    super::print_stdout(&if args.json {
-        report.to_json()
-    } else {
-        report.to_table()
-    });
-    Ok(if report.channel_errors.is_empty() {
-        ExitCode::SUCCESS
-    } else {
-        ExitCode::from(2)
-    })
+        &errors,
+        || report.to_json(),
+        || report.to_table(),
+    ))
 }

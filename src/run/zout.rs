@@ -10,7 +10,7 @@ use ampnote::procedure::zout::{from_levels, two_load, ZoutPoint, ZoutResult};
 use ampnote::report::power::ZoutReport;
 use ampnote::report::SCHEMA_VERSION;
 use ampnote::rig::parse_rig;
-use ampnote::signal::stimulus::{self, Common, Description, Kind};
+use ampnote::signal::stimulus::{self, Common, Description};
 use std::process::ExitCode;
 
 fn e(err: Error) -> String {
@@ -73,27 +73,6 @@ fn from_responses(
     Ok(res)
 }
 
-fn sweep_params(desc: &Description) -> Option<SweepParams> {
-    let Kind::Sweep {
-        start_hz,
-        stop_hz,
-        rate_s,
-        fade_in_s,
-        ..
-    } = desc.kind
-    else {
-        return None;
-    };
-    Some(SweepParams {
-        start_hz,
-        stop_hz,
-        rate_s,
-        start_sample: desc.signal_start_sample,
-        end_sample: desc.signal_start_sample + desc.signal_samples,
-        fade_in_s,
-    })
-}
-
 pub fn run(args: &ZoutArgs) -> Result<ExitCode, String> {
     let loads: Vec<f64> = args
         .loads
@@ -139,7 +118,7 @@ pub fn run(args: &ZoutArgs) -> Result<ExitCode, String> {
                 caps.push(rig.play_and_record(ch, &stim.signal, 48_000).map_err(e)?);
             }
             let res = if args.sweep {
-                let sp = sweep_params(&stim.description).expect("a sweep");
+                let sp = SweepParams::from_description(&stim.description).expect("a sweep");
                 let an = ResponseAnalyzer::new(ResponseConfig::default()).map_err(e)?;
                 let thr = rig.overload_threshold();
                 let a = an
@@ -198,7 +177,7 @@ pub fn run(args: &ZoutArgs) -> Result<ExitCode, String> {
                             wanted: "sweep",
                         })
                     })?;
-                let sp = sweep_params(&desc).ok_or_else(|| {
+                let sp = SweepParams::from_description(&desc).ok_or_else(|| {
                     e(Error::NotAStimulus {
                         path: p.clone(),
                         wanted: "sweep",
@@ -274,18 +253,14 @@ pub fn run(args: &ZoutArgs) -> Result<ExitCode, String> {
         first: results.first().cloned(),
         results,
     };
-    super::report_to_stderr(
+    Ok(super::finish(
         args.json,
         report
             .results
             .iter()
             .flat_map(|c| c.warnings.iter().map(move |w| (c.channel, w))),
-        std::iter::empty(),
-    );
-    super::print_stdout(&if args.json {
-        report.to_json()
-    } else {
-        report.to_table()
-    });
-    Ok(ExitCode::SUCCESS)
+        &[],
+        || report.to_json(),
+        || report.to_table(),
+    ))
 }

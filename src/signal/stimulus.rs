@@ -115,6 +115,22 @@ pub struct Common {
     pub fade_s: f64,
 }
 
+impl Common {
+    /// One channel carrying the signal, no lead, tail or fade: the plainest stimulus, for tests,
+    /// benchmarks and procedures that place it themselves.
+    pub fn mono(sample_rate_hz: u32, level_dbfs: f64) -> Common {
+        Common {
+            sample_rate_hz,
+            level_dbfs,
+            channels: 1,
+            signal_channels: vec![1],
+            lead_s: 0.0,
+            tail_s: 0.0,
+            fade_s: 0.0,
+        }
+    }
+}
+
 /// A generated stimulus: one signal (placed on the signal channels) and its description.
 #[derive(Debug, Clone)]
 pub struct Stimulus {

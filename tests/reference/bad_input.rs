@@ -1,27 +1,9 @@
 //! Bad input through the real binary: each case exits with code 2 (usage or input error, per the
 //! design's exit codes) and a message that names the problem and the next step.
 
+use super::common::{run, tmpdir};
 use ampnote::signal::wav::{write_wav, WavFormat};
-use std::path::{Path, PathBuf};
-use std::process::Command;
-
-fn tmpdir(tag: &str) -> PathBuf {
-    let d = std::env::temp_dir().join(format!("ampnote-bad-{tag}-{}", std::process::id()));
-    std::fs::create_dir_all(&d).unwrap();
-    d
-}
-
-fn run(args: &[&str]) -> (i32, String, String) {
-    let out = Command::new(env!("CARGO_BIN_EXE_ampnote"))
-        .args(args)
-        .output()
-        .unwrap();
-    (
-        out.status.code().unwrap_or(-1),
-        String::from_utf8_lossy(&out.stdout).into(),
-        String::from_utf8_lossy(&out.stderr).into(),
-    )
-}
+use std::path::Path;
 
 fn expect_error(args: &[&str], needles: &[&str]) {
     let (code, out, err) = run(args);

@@ -43,3 +43,23 @@ pub fn analyze(x: &[f64], fs: f64) -> ToneResult {
 pub fn db(ratio: f64) -> f64 {
     20.0 * ratio.log10()
 }
+
+/// A fresh folder for one test's files.
+pub fn tmpdir(tag: &str) -> std::path::PathBuf {
+    let d = std::env::temp_dir().join(format!("ampnote-test-{tag}-{}", std::process::id()));
+    std::fs::create_dir_all(&d).unwrap();
+    d
+}
+
+/// Run the `ampnote` binary: exit code, stdout, stderr.
+pub fn run(args: &[&str]) -> (i32, String, String) {
+    let out = std::process::Command::new(env!("CARGO_BIN_EXE_ampnote"))
+        .args(args)
+        .output()
+        .unwrap();
+    (
+        out.status.code().unwrap_or(-1),
+        String::from_utf8_lossy(&out.stdout).into(),
+        String::from_utf8_lossy(&out.stderr).into(),
+    )
+}

@@ -11,15 +11,7 @@ use std::f64::consts::PI;
 
 /// A staircase at 96 kHz from `from` to `to` dBFS in `step` dB, through `f`, analysed.
 fn staircase_through(f: impl Fn(f64) -> f64, from: f64, to: f64, step: f64) -> PowerResult {
-    let c = Common {
-        sample_rate_hz: 96_000,
-        level_dbfs: from,
-        channels: 1,
-        signal_channels: vec![1],
-        lead_s: 0.0,
-        tail_s: 0.0,
-        fade_s: 0.0,
-    };
+    let c = Common::mono(96_000, from);
     let s = steps(&c, 997.0, from, to, step, 0.3, 0.05).unwrap();
     let Kind::Steps { steps: table, .. } = &s.description.kind else {
         unreachable!()
@@ -264,15 +256,7 @@ fn triode_stage_h2_matches_its_series_expansion() {
 fn steps_that_overload_the_interface_are_left_out() {
     // The interface clips at full scale: such steps measure the interface, so they are excluded
     // and named (DESIGN: measurement quality), and the 1 % point comes from the steps below.
-    let c = Common {
-        sample_rate_hz: 48_000,
-        level_dbfs: -30.0,
-        channels: 1,
-        signal_channels: vec![1],
-        lead_s: 0.0,
-        tail_s: 0.0,
-        fade_s: 0.0,
-    };
+    let c = Common::mono(48_000, -30.0);
     let s = steps(&c, 997.0, -30.0, 0.0, 2.0, 0.3, 0.05).unwrap();
     let Kind::Steps { steps: table, .. } = &s.description.kind else {
         unreachable!()

@@ -1,28 +1,10 @@
 //! The stimuli as written by `ampnote generate`, checked against their closed forms, and the
 //! `response` and `imd` commands' handling of bad captures.
 
+use super::common::{run, tmpdir};
 use ampnote::capture::Capture;
 use ampnote::signal::stimulus::{Description, Kind};
-use std::path::{Path, PathBuf};
-use std::process::Command;
-
-fn tmpdir(tag: &str) -> PathBuf {
-    let d = std::env::temp_dir().join(format!("ampnote-stim-{tag}-{}", std::process::id()));
-    std::fs::create_dir_all(&d).unwrap();
-    d
-}
-
-fn run(args: &[&str]) -> (i32, String, String) {
-    let out = Command::new(env!("CARGO_BIN_EXE_ampnote"))
-        .args(args)
-        .output()
-        .unwrap();
-    (
-        out.status.code().unwrap_or(-1),
-        String::from_utf8_lossy(&out.stdout).into(),
-        String::from_utf8_lossy(&out.stderr).into(),
-    )
-}
+use std::path::Path;
 
 fn ok(args: &[&str]) -> String {
     let (code, out, err) = run(args);

@@ -1,7 +1,7 @@
 //! Swept-sine response against exact digital filters, closed forms and known delays.
 
 use ampnote::analysis::sweep::{ResponseAnalyzer, ResponseConfig, SweepParams};
-use ampnote::signal::stimulus::{self, Common, Kind};
+use ampnote::signal::stimulus::{self, Common};
 use realfft::num_complex::Complex64;
 use std::f64::consts::PI;
 
@@ -22,29 +22,8 @@ pub fn make_sweep(
         fade_s: 0.0,
     };
     let s = stimulus::sweep(&c, from, to, seconds).unwrap();
-    let Kind::Sweep {
-        start_hz,
-        stop_hz,
-        rate_s,
-        fade_in_s,
-        ..
-    } = s.description.kind
-    else {
-        unreachable!()
-    };
-    let end_sample = s.description.signal_start_sample + s.description.signal_samples;
-    let s_len = s.description.signal_samples;
-    (
-        s.signal,
-        SweepParams {
-            start_hz,
-            stop_hz,
-            rate_s,
-            start_sample: end_sample - s_len,
-            end_sample,
-            fade_in_s,
-        },
-    )
+    let sp = SweepParams::from_description(&s.description).unwrap();
+    (s.signal, sp)
 }
 
 /// Direct-form biquad (RBJ cookbook normalisation: a0 = 1).
@@ -138,28 +117,9 @@ fn committed_sweep() -> (Vec<f64>, SweepParams) {
     let d =
         ampnote::signal::stimulus::Description::from_json(cap.description_json.as_deref().unwrap())
             .unwrap();
-    let Kind::Sweep {
-        start_hz,
-        stop_hz,
-        rate_s,
-        fade_in_s,
-        ..
-    } = d.kind
-    else {
-        panic!("not a sweep")
-    };
-    let end_sample = d.signal_start_sample + d.signal_samples;
-    let s_len = d.signal_samples;
     (
         cap.channels[0].clone(),
-        SweepParams {
-            start_hz,
-            stop_hz,
-            rate_s,
-            start_sample: end_sample - s_len,
-            end_sample,
-            fade_in_s,
-        },
+        SweepParams::from_description(&d).expect("a sweep"),
     )
 }
 
