@@ -172,39 +172,27 @@ impl SpectrumPlanner {
     }
 }
 
+/// Even, and no prime factor above 7: a length RustFFT transforms on its fast radix paths.
+fn is_fast(m: usize) -> bool {
+    let mut r = m;
+    for p in [2, 3, 5, 7] {
+        while r % p == 0 {
+            r /= p;
+        }
+    }
+    r == 1 && m % 2 == 0
+}
+
 /// The smallest even length `>= n` whose only prime factors are 2, 3, 5 and 7.
 pub fn fast_length_up(n: usize) -> usize {
-    let mut m = n.max(2);
-    loop {
-        let mut r = m;
-        for p in [2, 3, 5, 7] {
-            while r % p == 0 {
-                r /= p;
-            }
-        }
-        if r == 1 && m % 2 == 0 {
-            return m;
-        }
-        m += 1;
-    }
+    (n.max(2)..)
+        .find(|&m| is_fast(m))
+        .expect("powers of two are fast")
 }
 
 /// The largest even length `<= n` whose only prime factors are 2, 3, 5 and 7, so the FFT runs on
 /// RustFFT's fast radix paths. Such lengths are dense (within about 1 % of any `n` above a few
 /// thousand), so trimming costs at most a sliver of the capture.
 pub fn fast_length(n: usize) -> usize {
-    let mut m = n;
-    while m > 1 {
-        let mut r = m;
-        for p in [2, 3, 5, 7] {
-            while r % p == 0 {
-                r /= p;
-            }
-        }
-        if r == 1 && m % 2 == 0 {
-            return m;
-        }
-        m -= 1;
-    }
-    m
+    (2..=n).rev().find(|&m| is_fast(m)).unwrap_or(n.min(1))
 }

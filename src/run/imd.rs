@@ -8,23 +8,14 @@ use ampnote::error::Error;
 use ampnote::report::imd::ImdReport;
 use ampnote::report::tone::ChannelError;
 use ampnote::report::SCHEMA_VERSION;
-use ampnote::signal::stimulus::{Description, Kind};
+use ampnote::signal::stimulus::Kind;
 use std::process::ExitCode;
 
 pub fn run(args: &ImdArgs) -> Result<ExitCode, String> {
     let e = |err: Error| err.to_string();
     let hint = match &args.stimulus {
         Some(path) => {
-            let info = Capture::probe_wav(path).map_err(e)?;
-            let not_pair = || Error::NotAStimulus {
-                path: path.clone(),
-                wanted: "twotone",
-            };
-            let desc = info
-                .description_json
-                .as_deref()
-                .and_then(Description::from_json)
-                .ok_or_else(|| e(not_pair()))?;
+            let (_, desc) = super::read_stimulus(path, "twotone")?;
             let Kind::TwoTone {
                 method,
                 low_hz,
@@ -32,7 +23,7 @@ pub fn run(args: &ImdArgs) -> Result<ExitCode, String> {
                 ..
             } = desc.kind
             else {
-                return Err(e(not_pair()));
+                unreachable!("read_stimulus checked the kind");
             };
             Some(PairHint {
                 method,

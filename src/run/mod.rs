@@ -9,7 +9,11 @@ pub mod power;
 pub mod response;
 pub mod zout;
 
+use ampnote::capture::Capture;
+use ampnote::error::Error;
+use ampnote::signal::stimulus::Description;
 use std::io::Write;
+use std::path::Path;
 use std::process::ExitCode;
 
 /// Print to stdout; a closed pipe (`| head`) is not an error.
@@ -51,4 +55,23 @@ pub fn finish<'a>(
     } else {
         ExitCode::from(2)
     }
+}
+
+/// A stimulus file `ampnote generate` wrote: its samples and its description, which must be of
+/// the `wanted` kind (`tone`, `steps`, `sweep`, `twotone`).
+pub fn read_stimulus(path: &Path, wanted: &'static str) -> Result<(Capture, Description), String> {
+    let cap = Capture::read_wav(path, false).map_err(|e| e.to_string())?;
+    let desc = cap
+        .description_json
+        .as_deref()
+        .and_then(Description::from_json)
+        .filter(|d| d.kind.name() == wanted)
+        .ok_or_else(|| {
+            Error::NotAStimulus {
+                path: path.to_path_buf(),
+                wanted,
+            }
+            .to_string()
+        })?;
+    Ok((cap, desc))
 }

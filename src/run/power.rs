@@ -9,7 +9,7 @@ use ampnote::report::power::PowerReport;
 use ampnote::report::tone::ChannelError;
 use ampnote::report::SCHEMA_VERSION;
 use ampnote::rig::parse_rig;
-use ampnote::signal::stimulus::{Description, Kind};
+use ampnote::signal::stimulus::Kind;
 use std::process::ExitCode;
 
 /// First sample of the staircase in the stimulus file (the lead silence's length).
@@ -69,23 +69,14 @@ pub fn run(args: &PowerArgs) -> Result<ExitCode, String> {
                 .stimulus
                 .as_ref()
                 .ok_or("give the staircase file with --stimulus STEPS.wav (it tells the step levels and timing)")?;
-            let stim = Capture::read_wav(stim_path, false).map_err(e)?;
-            let not_steps = || Error::NotAStimulus {
-                path: stim_path.clone(),
-                wanted: "steps",
-            };
-            let desc = stim
-                .description_json
-                .as_deref()
-                .and_then(Description::from_json)
-                .ok_or_else(|| e(not_steps()))?;
+            let (stim, desc) = super::read_stimulus(stim_path, "steps")?;
             let Kind::Steps {
                 frequency_hz,
                 ref steps,
                 ..
             } = desc.kind
             else {
-                return Err(e(not_steps()));
+                unreachable!("read_stimulus checked the kind");
             };
             let info = Capture::probe_wav(path).map_err(e)?;
             if info.sample_rate_hz != desc.sample_rate_hz {
@@ -95,7 +86,7 @@ pub fn run(args: &PowerArgs) -> Result<ExitCode, String> {
                 }));
             }
             source = path.display().to_string();
-            let x = stim.channel(desc.signal_channels[0]).ok_or_else(|| e(not_steps()))?;
+            let x = stim.channel(desc.signal_channels[0]).ok_or("the stimulus's signal channel is missing from it")?;
             let chosen = select_channels(info.channel_count, channel_choice(&args.channel)?).map_err(e)?;
             for &ch in &chosen {
                 let cap = Capture::read_wav_channels(path, args.accept_truncated, Some(&[ch])).map_err(e)?;

@@ -7,7 +7,7 @@ use ampnote::error::Error;
 use ampnote::report::response::ResponseReport;
 use ampnote::report::tone::ChannelError;
 use ampnote::report::SCHEMA_VERSION;
-use ampnote::signal::stimulus::{Description, Kind};
+use ampnote::signal::stimulus::Kind;
 use std::process::ExitCode;
 
 /// The interface's loopback response from the profile, if it gives one.
@@ -39,16 +39,7 @@ pub fn run(args: &ResponseArgs) -> Result<ExitCode, String> {
         ..ResponseConfig::default()
     })
     .map_err(e)?;
-    let stim = Capture::read_wav(&args.stimulus, false).map_err(e)?;
-    let not_sweep = || Error::NotAStimulus {
-        path: args.stimulus.clone(),
-        wanted: "sweep",
-    };
-    let desc = stim
-        .description_json
-        .as_deref()
-        .and_then(Description::from_json)
-        .ok_or_else(|| e(not_sweep()))?;
+    let (stim, desc) = super::read_stimulus(&args.stimulus, "sweep")?;
     let Kind::Sweep {
         start_hz,
         stop_hz,
@@ -56,11 +47,13 @@ pub fn run(args: &ResponseArgs) -> Result<ExitCode, String> {
         ..
     } = desc.kind
     else {
-        return Err(e(not_sweep()));
+        unreachable!("read_stimulus checked the kind");
     };
-    let sweep = SweepParams::from_description(&desc).ok_or_else(|| e(not_sweep()))?;
+    let sweep = SweepParams::from_description(&desc).expect("a sweep");
     let signal_ch = desc.signal_channels.first().copied().unwrap_or(1);
-    let x = stim.channel(signal_ch).ok_or_else(|| e(not_sweep()))?;
+    let x = stim
+        .channel(signal_ch)
+        .ok_or("the stimulus's signal channel is missing from it")?;
 
     let info = Capture::probe_wav(&args.capture).map_err(e)?;
     if info.sample_rate_hz != desc.sample_rate_hz {

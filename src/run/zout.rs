@@ -10,7 +10,7 @@ use ampnote::procedure::zout::{from_levels, two_load, ZoutPoint, ZoutResult};
 use ampnote::report::power::ZoutReport;
 use ampnote::report::SCHEMA_VERSION;
 use ampnote::rig::parse_rig;
-use ampnote::signal::stimulus::{self, Common, Description};
+use ampnote::signal::stimulus::{self, Common};
 use std::process::ExitCode;
 
 fn e(err: Error) -> String {
@@ -166,23 +166,8 @@ pub fn run(args: &ZoutArgs) -> Result<ExitCode, String> {
             select_channels(info.channel_count, channel_choice(&args.channel)?).map_err(e)?;
         let sweep = match &args.stimulus {
             Some(p) => {
-                let stim = Capture::read_wav(p, false).map_err(e)?;
-                let desc = stim
-                    .description_json
-                    .as_deref()
-                    .and_then(Description::from_json)
-                    .ok_or_else(|| {
-                        e(Error::NotAStimulus {
-                            path: p.clone(),
-                            wanted: "sweep",
-                        })
-                    })?;
-                let sp = SweepParams::from_description(&desc).ok_or_else(|| {
-                    e(Error::NotAStimulus {
-                        path: p.clone(),
-                        wanted: "sweep",
-                    })
-                })?;
+                let (stim, desc) = super::read_stimulus(p, "sweep")?;
+                let sp = SweepParams::from_description(&desc).expect("a sweep");
                 let x = stim
                     .channel(desc.signal_channels[0])
                     .map(|x| x.to_vec())

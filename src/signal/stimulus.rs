@@ -70,6 +70,18 @@ pub enum Kind {
     },
 }
 
+impl Kind {
+    /// The `generate` subcommand that makes this kind.
+    pub fn name(&self) -> &'static str {
+        match self {
+            Kind::Tone { .. } => "tone",
+            Kind::Steps { .. } => "steps",
+            Kind::Sweep { .. } => "sweep",
+            Kind::TwoTone { .. } => "twotone",
+        }
+    }
+}
+
 /// Everything a later analysis needs to know about a stimulus file.
 #[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
 pub struct Description {
