@@ -41,6 +41,82 @@ pub enum Command {
     Zout(ZoutArgs),
     /// Build a calibration profile: interface full scales, attenuator, load, loopback floor.
     Calibrate(CalibrateArgs),
+    /// The whole bench on the simulated bench: an invented amplifier measured stock and reworked,
+    /// kept in a notebook, compared and channel-matched.
+    Demo {
+        /// Folder for the demo's notebook.
+        #[arg(long, default_value = "ampnote-demo", value_name = "DIR")]
+        out: PathBuf,
+    },
+    /// Keep runs in a folder per amplifier.
+    Notebook {
+        #[command(subcommand)]
+        action: NotebookAction,
+    },
+    /// Set two labels (or runs) side by side: before and after.
+    Compare(CompareArgs),
+    /// Check that two channels match within tolerances (exit code 1 when not).
+    Match(MatchArgs),
+}
+
+#[derive(Debug, Subcommand)]
+pub enum NotebookAction {
+    /// Create a notebook folder.
+    Init {
+        dir: PathBuf,
+        /// What the amplifier is.
+        #[arg(long, value_name = "NAME")]
+        amplifier: String,
+        #[arg(long, default_value_t = 2, value_name = "N")]
+        channels: usize,
+        #[arg(long, value_name = "OHMS")]
+        load_ohms: Option<f64>,
+        /// Calibration profile to keep with the notebook.
+        #[arg(long, value_name = "FILE.toml")]
+        profile: Option<PathBuf>,
+    },
+    /// List the runs.
+    Log {
+        dir: PathBuf,
+        #[arg(long)]
+        json: bool,
+    },
+}
+
+#[derive(Debug, Args)]
+pub struct CompareArgs {
+    /// Before: a label (or run id) in the notebook.
+    pub a: String,
+    /// After.
+    pub b: String,
+    #[arg(long, value_name = "DIR")]
+    pub notebook: PathBuf,
+    #[arg(long)]
+    pub json: bool,
+}
+
+#[derive(Debug, Args)]
+pub struct MatchArgs {
+    /// A label (its channels 1 and 2 are matched), or LABEL:CH / a run id, with B.
+    pub a: String,
+    pub b: Option<String>,
+    #[arg(long, value_name = "DIR")]
+    pub notebook: PathBuf,
+    /// Tolerances.
+    #[arg(long, default_value_t = 0.5, value_name = "DB")]
+    pub gain_tolerance: f64,
+    #[arg(long, default_value_t = 0.5, value_name = "DB")]
+    pub response_tolerance: f64,
+    #[arg(long, default_value_t = 10.0, value_name = "DEG")]
+    pub phase_tolerance: f64,
+    #[arg(long, default_value_t = 3.0, value_name = "DB")]
+    pub thd_tolerance: f64,
+    #[arg(long, default_value_t = 1.0, value_name = "DB")]
+    pub power_tolerance: f64,
+    #[arg(long, default_value_t = 3.0, value_name = "DB")]
+    pub noise_tolerance: f64,
+    #[arg(long)]
+    pub json: bool,
 }
 
 #[derive(Debug, Args)]

@@ -16,8 +16,10 @@
 pub mod analysis;
 pub mod calibration;
 pub mod capture;
+pub mod demo;
 pub mod error;
 pub mod files;
+pub mod notebook;
 pub mod procedure;
 pub mod report;
 pub mod rig;

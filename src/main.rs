@@ -18,6 +18,10 @@ fn main() -> ExitCode {
         Command::Power(args) => run::power::run(args),
         Command::Zout(args) => run::zout::run(args),
         Command::Calibrate(args) => run::calibrate::run(args),
+        Command::Demo { out } => run::notebook::demo(out),
+        Command::Notebook { action } => run::notebook::notebook(action),
+        Command::Compare(args) => run::notebook::compare(args),
+        Command::Match(args) => run::notebook::match_(args),
     };
     match outcome {
         Ok(code) => code,

@@ -1,5 +1,6 @@
 //! Rendering results: terminal tables, JSON, CSV. Every renderer draws the same typed result.
 
+pub mod compare;
 pub mod imd;
 pub mod power;
 pub mod response;

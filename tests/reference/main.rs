@@ -5,6 +5,7 @@ mod bad_input;
 mod closed_form;
 mod common;
 mod imd;
+mod notebook;
 mod numpy_fixtures;
 mod power;
 mod properties;

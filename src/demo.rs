@@ -1,0 +1,297 @@
+//! The demo: the whole bench on the simulated bench, as a user would run it. An invented stereo
+//! single-ended amplifier is measured stock (both channels: a tone at 1 W, the power staircase,
+//! a sweep, output impedance), reworked, measured again; every run goes into a notebook, then the
+//! before/after comparison and the channel match.
+//!
+//! Each measurement goes the way it would at a bench without the live rig: ampnote writes the
+//! stimulus file, the simulated bench "plays and records" it, and the capture file is analysed.
+
+use crate::analysis::sweep::{ResponseAnalyzer, ResponseConfig, SweepParams};
+use crate::analysis::tone::{ChannelInput, ToneAnalyzer, ToneConfig};
+use crate::calibration::{AttenuatorSection, Calibration, InterfaceSection, LoadSection, Profile};
+use crate::error::Result;
+use crate::notebook::{NewRun, Notebook};
+use crate::procedure::power::power_from_capture;
+use crate::procedure::zout::from_levels;
+use crate::report::compare::{compare, match_channels, Comparison, MatchResult, MatchTolerances};
+use crate::rig::model::Model;
+use crate::rig::sim::SimRig;
+use crate::rig::Rig;
+use crate::signal::stimulus::{self, Common, Kind, Stimulus};
+use crate::signal::wav::{write_wav, write_wav_described, WavFormat};
+use std::collections::BTreeMap;
+use std::path::{Path, PathBuf};
+
+/// Sample rate of the demo's stimuli.
+const RATE: u32 = 48_000;
+
+/// What the demo produced.
+pub struct DemoOutcome {
+    pub notebook: PathBuf,
+    pub comparison: Comparison,
+    pub matches: Vec<MatchResult>,
+    pub runs: usize,
+}
+
+fn write_stimulus(dir: &Path, name: &str, s: &Stimulus) -> Result<PathBuf> {
+    let path = dir.join(name);
+    write_wav_described(
+        &path,
+        RATE,
+        &s.channel_data(),
+        WavFormat::Int { bits: 24 },
+        1,
+        Some(&s.description.to_json()),
+    )?;
+    Ok(path)
+}
+
+fn record(rig: &mut SimRig, ch: usize, s: &Stimulus, path: &Path) -> Result<Vec<f64>> {
+    let y = rig.play_and_record(ch, &s.signal, RATE)?;
+    write_wav(
+        path,
+        RATE,
+        std::slice::from_ref(&y),
+        WavFormat::Int { bits: 24 },
+        2,
+    )?;
+    Ok(y)
+}
+
+/// The steady part of a tone's capture: from 0.1 s into the tone to 20 ms before it ends.
+fn steady<'a>(y: &'a [f64], s: &Stimulus) -> &'a [f64] {
+    let d = &s.description;
+    let from = d.signal_start_sample + RATE as usize / 10;
+    let to = (d.signal_start_sample + d.signal_samples).saturating_sub(RATE as usize / 50);
+    &y[from..to.min(y.len())]
+}
+
+fn input<'a>(ch: usize, y: &'a [f64], rig: &SimRig) -> ChannelInput<'a> {
+    ChannelInput {
+        channel: ch,
+        samples: y,
+        sample_rate_hz: RATE as f64,
+        overload_threshold: rig.overload_threshold(),
+        resolution_bits: rig.resolution_bits(),
+    }
+}
+
+/// Run the demo into `out` (created if needed; a notebook already there is refused).
+pub fn run(out: &Path, mut progress: impl FnMut(&str)) -> Result<DemoOutcome> {
+    let stock = Model::load("stock")?;
+    let bench = stock.bench;
+    let profile = Profile {
+        name: Some("simulated bench".into()),
+        interface: Some(InterfaceSection {
+            output_fs_vrms: Some(bench.output_fs_vrms),
+            input_fs_vrms: Some(bench.input_fs_vrms),
+        }),
+        attenuator: Some(AttenuatorSection {
+            ratio: Some(bench.attenuation),
+            ..AttenuatorSection::default()
+        }),
+        load: Some(LoadSection {
+            ohms: Some(bench.load_ohms),
+        }),
+        loopback: None,
+    };
+    let nb = Notebook::init(
+        &out.join("notebook"),
+        "invented stereo SE triode amplifier",
+        2,
+        Some(bench.load_ohms),
+        Some(profile),
+    )?;
+    let work = out.join("work");
+    std::fs::create_dir_all(&work).map_err(|source| crate::error::Error::Write {
+        path: work.clone(),
+        source,
+    })?;
+    let cal: Calibration = nb.calibration();
+
+    // Stimuli, written once, as a user would.
+    let base = Common {
+        lead_s: 0.1,
+        tail_s: 0.3,
+        fade_s: 0.01,
+        ..Common::mono(RATE, -20.0)
+    };
+    let probe = stimulus::tone(&base, 997.0, 0.6)?;
+    let steps = stimulus::steps(&base, 997.0, -30.0, -1.0, 1.0, 0.3, 0.08)?;
+    let sweep = stimulus::sweep(
+        &Common {
+            fade_s: 0.0,
+            tail_s: 0.5,
+            ..base.clone()
+        },
+        10.0,
+        21_600.0,
+        3.0,
+    )?;
+    let steps_path = write_stimulus(&work, "steps.wav", &steps)?;
+    let sweep_path = write_stimulus(&work, "sweep.wav", &sweep)?;
+    let tone_cfg = ToneAnalyzer::new(ToneConfig {
+        fundamental_hint_hz: Some(997.0),
+        ..ToneConfig::default()
+    })?;
+    let resp = ResponseAnalyzer::new(ResponseConfig::default())?;
+    let sp = SweepParams::from_description(&sweep.description).expect("a sweep");
+    let Kind::Steps { steps: table, .. } = &steps.description.kind else {
+        unreachable!("steps() makes a staircase")
+    };
+    let mut runs = 0;
+    for (label, model_name) in [("stock", "stock"), ("driver reworked", "reworked")] {
+        let model = Model::load(model_name)?;
+        let mut rig = SimRig::new(model);
+        for ch in 1..=2usize {
+            progress(&format!("{label}, channel {ch}"));
+            let mut settings = BTreeMap::new();
+            settings.insert("rig".to_string(), rig.describe());
+            settings.insert("mains".to_string(), "230 V 50 Hz (simulated)".to_string());
+            let save = |procedure: &str,
+                        files: Vec<(&str, &Path)>,
+                        result: serde_json::Value,
+                        notes: &str| {
+                nb.save(NewRun {
+                    label,
+                    channel: ch,
+                    procedure,
+                    notes,
+                    settings: settings.clone(),
+                    calibration: cal,
+                    files,
+                    blobs: Vec::new(),
+                    result,
+                })
+            };
+            // A tone at 1 W: a first tone finds the gain, the second sits at 1 W.
+            rig.set_load(bench.load_ohms)?;
+            let y = rig.play_and_record(ch, &probe.signal, RATE)?;
+            let first = tone_cfg.analyze(&input(ch, steady(&y, &probe), &rig), &cal)?;
+            let mut drive = -20.0 + 10.0 * (1.0 / first.output_w.unwrap_or(1.0)).log10();
+            // The amplifier is not linear: correct the drive once more at the level found.
+            let again = stimulus::tone(
+                &Common {
+                    level_dbfs: drive.min(-1.0),
+                    ..base.clone()
+                },
+                997.0,
+                0.6,
+            )?;
+            let y = rig.play_and_record(ch, &again.signal, RATE)?;
+            let second = tone_cfg.analyze(&input(ch, steady(&y, &again), &rig), &cal)?;
+            drive += 10.0 * (1.0 / second.output_w.unwrap_or(1.0)).log10();
+            let tone = stimulus::tone(
+                &Common {
+                    level_dbfs: drive.min(-1.0),
+                    ..base.clone()
+                },
+                997.0,
+                2.0,
+            )?;
+            let tone_path = write_stimulus(&work, "tone-1w.wav", &tone)?;
+            let cap_path = work.join("capture.wav");
+            let y = record(&mut rig, ch, &tone, &cap_path)?;
+            let r = tone_cfg.analyze(&input(ch, steady(&y, &tone), &rig), &cal)?;
+            save(
+                "tone",
+                vec![("stimulus.wav", &tone_path), ("capture.wav", &cap_path)],
+                serde_json::to_value(&r).expect("serializes"),
+                "997 Hz at 1 W",
+            )?;
+            // The staircase.
+            let y = record(&mut rig, ch, &steps, &cap_path)?;
+            let p = power_from_capture(
+                ch,
+                &y,
+                RATE as f64,
+                rig.overload_threshold(),
+                rig.resolution_bits(),
+                997.0,
+                table,
+                0,
+                &cal,
+            )?;
+            save(
+                "power",
+                vec![("stimulus.wav", &steps_path), ("capture.wav", &cap_path)],
+                serde_json::to_value(&p).expect("serializes"),
+                "staircase -30..-1 dBFS",
+            )?;
+            // The sweep.
+            let y = record(&mut rig, ch, &sweep, &cap_path)?;
+            let r = resp.analyze(
+                ch,
+                &sweep.signal,
+                sp,
+                &y,
+                RATE as f64,
+                rig.overload_threshold(),
+            )?;
+            save(
+                "response",
+                vec![("stimulus.wav", &sweep_path), ("capture.wav", &cap_path)],
+                serde_json::to_value(&r).expect("serializes"),
+                "10 Hz - 21.6 kHz sweep",
+            )?;
+            // Output impedance: the 1 W tone into 8 and 16 ohm.
+            let b_path = work.join("capture-16.wav");
+            let ya = record(&mut rig, ch, &tone, &cap_path)?;
+            rig.set_load(2.0 * bench.load_ohms)?;
+            let yb = record(&mut rig, ch, &tone, &b_path)?;
+            rig.set_load(bench.load_ohms)?;
+            let la = tone_cfg.analyze(
+                &input(ch, steady(&ya, &tone), &rig),
+                &Calibration::default(),
+            )?;
+            let lb = tone_cfg.analyze(
+                &input(ch, steady(&yb, &tone), &rig),
+                &Calibration::default(),
+            )?;
+            let z = from_levels(
+                ch,
+                la.fundamental_hz,
+                10f64.powf(la.fundamental_dbfs / 20.0),
+                bench.load_ohms,
+                10f64.powf(lb.fundamental_dbfs / 20.0),
+                2.0 * bench.load_ohms,
+            )?;
+            save(
+                "zout",
+                vec![
+                    ("stimulus.wav", &tone_path),
+                    ("capture.wav", &cap_path),
+                    ("capture-load-b.wav", &b_path),
+                ],
+                serde_json::to_value(&z).expect("serializes"),
+                "two loads: 8 and 16 ohm",
+            )?;
+            runs += 4;
+        }
+    }
+    let a = nb.select("stock", None)?;
+    let b = nb.select("driver reworked", None)?;
+    let comparison = compare("stock", &a, "driver reworked", &b);
+    let tol = MatchTolerances::default();
+    let matches = ["stock", "driver reworked"]
+        .iter()
+        .map(|label| -> Result<MatchResult> {
+            let l = nb.select(label, Some(1))?;
+            let r = nb.select(label, Some(2))?;
+            Ok(match_channels(
+                &format!("{label}, left"),
+                &l,
+                &format!("{label}, right"),
+                &r,
+                &tol,
+            ))
+        })
+        .collect::<Result<Vec<_>>>()?;
+    let _ = std::fs::remove_dir_all(&work);
+    Ok(DemoOutcome {
+        notebook: nb.dir.clone(),
+        comparison,
+        matches,
+        runs,
+    })
+}

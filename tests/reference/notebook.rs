@@ -1,0 +1,178 @@
+//! The notebook keeps runs whole, compare and match give the deltas arithmetic says, and the demo
+//! runs end to end.
+
+use super::common::{run, tmpdir};
+use ampnote::notebook::{NewRun, Notebook};
+use std::collections::BTreeMap;
+use std::path::Path;
+
+fn fixture() -> String {
+    Path::new(env!("CARGO_MANIFEST_DIR"))
+        .join("fixtures/notebook")
+        .to_string_lossy()
+        .into_owned()
+}
+
+#[test]
+fn compare_gives_the_known_deltas() {
+    // power at 1 %: 3.1 W -> 6.4 W is 10 lg(6.4/3.1) = +3.15 dB; THD at 1 W from the staircase
+    // (log-log between the steps at 0.5 and 1.5 W): 0.3 x (0.8/0.3)^(ln 2 / ln 3) = 0.5229 %
+    // before, 0.1 x 3^(ln 2 / ln 3) = 0.2 % after.
+    let (code, out, err) = run(&[
+        "compare",
+        "before",
+        "after",
+        "--notebook",
+        &fixture(),
+        "--json",
+    ]);
+    assert_eq!(code, 0, "{err}");
+    let v: serde_json::Value = serde_json::from_str(&out).unwrap();
+    let line = |ch: u64, fig: &str| {
+        v["lines"]
+            .as_array()
+            .unwrap()
+            .iter()
+            .find(|l| l["channel"] == ch && l["figure"] == fig)
+            .unwrap_or_else(|| panic!("no {fig} on ch{ch}: {v}"))
+            .clone()
+    };
+    let p = line(1, "power at 1 % THD");
+    assert!((p["delta"].as_f64().unwrap() - 10.0 * (6.4f64 / 3.1).log10()).abs() < 1e-9);
+    assert_eq!(
+        p["sentence"],
+        "power at 1 % THD: 3.10 W -> 6.40 W, +3.15 dB"
+    );
+    let t = line(1, "THD at 1 W (staircase)");
+    let before = 0.3 * (0.8f64 / 0.3).powf(2f64.ln() / 3f64.ln());
+    assert!((t["a"].as_f64().unwrap() - before).abs() < 1e-9, "{t}");
+    assert!(
+        (t["b"].as_f64().unwrap() - 0.1 * 3f64.powf(2f64.ln() / 3f64.ln())).abs() < 1e-9,
+        "{t}"
+    );
+}
+
+#[test]
+fn match_passes_and_fails_with_exit_codes() {
+    // before: power at 1 % 3.1 W vs 3.0 W = 0.14 dB (within 1 dB) and THD at 1 W within 3 dB: pass.
+    let (code, out, _) = run(&["match", "before", "--notebook", &fixture(), "--json"]);
+    assert_eq!(code, 0, "{out}");
+    let v: serde_json::Value = serde_json::from_str(&out).unwrap();
+    assert_eq!(v["pass"], true);
+    // after: gain 19.2 - 20.0 = -0.8 dB (outside 0.5) and treble -0.7 dB (outside 0.5): fail, exit 1.
+    let (code, out, _) = run(&["match", "after", "--notebook", &fixture(), "--json"]);
+    assert_eq!(code, 1, "{out}");
+    let v: serde_json::Value = serde_json::from_str(&out).unwrap();
+    assert_eq!(v["pass"], false);
+    assert!((v["gain_difference_db"].as_f64().unwrap() + 0.8).abs() < 1e-9);
+    assert!((v["response_max_deviation_db"].as_f64().unwrap() - 0.7).abs() < 1e-9);
+    for key in ["schema_version", "checks", "warnings"] {
+        assert!(v.get(key).is_some(), "match JSON lacks {key}");
+    }
+    // Looser tolerances pass it.
+    let (code, _, _) = run(&[
+        "match",
+        "after",
+        "--notebook",
+        &fixture(),
+        "--gain-tolerance",
+        "1",
+        "--response-tolerance",
+        "1",
+    ]);
+    assert_eq!(code, 0);
+    // A label that does not exist: the error lists what does.
+    let (code, _, err) = run(&["match", "later", "--notebook", &fixture()]);
+    assert_eq!(code, 2);
+    assert!(
+        err.contains("no run labelled `later`") && err.contains("after (ch1)"),
+        "{err}"
+    );
+}
+
+#[test]
+fn runs_are_whole_and_never_overwritten() {
+    let d = tmpdir("nb");
+    let nb = Notebook::init(&d.join("amp"), "test amp", 2, Some(8.0), None).unwrap();
+    assert!(
+        Notebook::init(&d.join("amp"), "again", 2, None, None).is_err(),
+        "init twice must be refused"
+    );
+    let save = |label: &str| {
+        nb.save(NewRun {
+            label,
+            channel: 1,
+            procedure: "tone",
+            notes: "",
+            settings: BTreeMap::new(),
+            calibration: Default::default(),
+            files: vec![],
+            blobs: vec![("capture.wav", vec![1, 2, 3])],
+            result: serde_json::json!({"thd_percent": 1.0}),
+        })
+        .unwrap()
+    };
+    let a = save("first");
+    let b = save("first");
+    assert_ne!(
+        a.meta.id, b.meta.id,
+        "a second run under the same label gets its own number"
+    );
+    // A write killed half way leaves a partial folder (and maybe a folder without run.json):
+    // neither is listed.
+    std::fs::create_dir_all(d.join("amp/runs/.partial-999-1")).unwrap();
+    std::fs::write(d.join("amp/runs/.partial-999-1/result.json"), "{}").unwrap();
+    std::fs::create_dir_all(d.join("amp/runs/0099-half-ch1-tone")).unwrap();
+    let runs = nb.runs().unwrap();
+    assert_eq!(
+        runs.len(),
+        2,
+        "{:?}",
+        runs.iter().map(|r| &r.meta.id).collect::<Vec<_>>()
+    );
+    // Re-analysis keeps the old result beside the new.
+    let newer = nb
+        .add_result(&runs[0], &serde_json::json!({"thd_percent": 0.5}))
+        .unwrap();
+    assert!(newer.exists() && runs[0].dir.join("result.json").exists());
+    assert_eq!(nb.runs().unwrap()[0].result["thd_percent"], 0.5);
+    // Not a notebook; a channel outside it.
+    assert!(Notebook::open(&d)
+        .unwrap_err()
+        .to_string()
+        .contains("is not a notebook"));
+    let (code, out, _) = run(&["notebook", "log", &d.join("amp").to_string_lossy()]);
+    assert_eq!(code, 0);
+    assert!(out.contains("0001-first-ch1-tone"), "{out}");
+    std::fs::remove_dir_all(&d).ok();
+}
+
+#[test]
+fn demo_runs_end_to_end() {
+    let d = tmpdir("demo");
+    let out = d.join("demo");
+    let (code, stdout, err) = run(&["demo", "--out", &out.to_string_lossy()]);
+    assert_eq!(code, 0, "{err}");
+    assert!(stdout.contains("16 runs kept"), "{stdout}");
+    assert!(stdout.contains("power at 1 % THD"), "{stdout}");
+    let nb = Notebook::open(&out.join("notebook")).unwrap();
+    assert_eq!(nb.runs().unwrap().len(), 16);
+    // The rework lowers the second harmonic (its driver cancels part of it): power at 1 % rises.
+    let (_, cmp, _) = run(&[
+        "compare",
+        "stock",
+        "driver reworked",
+        "--notebook",
+        &out.join("notebook").to_string_lossy(),
+        "--json",
+    ]);
+    let v: serde_json::Value = serde_json::from_str(&cmp).unwrap();
+    let p = v["lines"]
+        .as_array()
+        .unwrap()
+        .iter()
+        .find(|l| l["figure"] == "power at 1 % THD")
+        .unwrap();
+    assert!(p["delta"].as_f64().unwrap() > 3.0, "{p}");
+    std::fs::remove_dir_all(&d).ok();
+}
