@@ -163,6 +163,9 @@ pub struct PowerArgs {
     pub json: bool,
     #[arg(long)]
     pub accept_truncated: bool,
+
+    #[command(flatten)]
+    pub save: SaveArgs,
 }
 
 #[derive(Debug, Args)]
@@ -191,6 +194,9 @@ pub struct ZoutArgs {
     pub channel: String,
     #[arg(long)]
     pub json: bool,
+
+    #[command(flatten)]
+    pub save: SaveArgs,
 }
 
 #[derive(Debug, Args)]
@@ -378,6 +384,9 @@ pub struct ResponseArgs {
     pub csv: Option<PathBuf>,
     #[arg(long)]
     pub accept_truncated: bool,
+
+    #[command(flatten)]
+    pub save: SaveArgs,
 }
 
 #[derive(Debug, Args)]
@@ -440,6 +449,40 @@ pub struct AnalyzeArgs {
     /// Analyse what a truncated file holds instead of refusing it.
     #[arg(long)]
     pub accept_truncated: bool,
+
+    #[command(flatten)]
+    pub save: SaveArgs,
+}
+
+/// Keeping a run in a notebook, shared by every measuring command.
+#[derive(Debug, Args)]
+pub struct SaveArgs {
+    /// Keep the run (stimulus, capture, result) in this notebook folder.
+    #[arg(long, value_name = "DIR", requires = "label")]
+    pub notebook: Option<PathBuf>,
+    /// The run's label, e.g. stock or "after driver rework".
+    #[arg(long, value_name = "LABEL", requires = "notebook")]
+    pub label: Option<String>,
+    /// A note kept with the run.
+    #[arg(long, value_name = "TEXT", default_value = "")]
+    pub note: String,
+    /// A free-form setting kept with the run, e.g. --set mains=229V --set valves="set B".
+    #[arg(long = "set", value_name = "KEY=VALUE")]
+    pub settings: Vec<String>,
+}
+
+impl SaveArgs {
+    /// The settings as a map; a setting without `=` is refused.
+    pub fn settings_map(&self) -> Result<std::collections::BTreeMap<String, String>, String> {
+        self.settings
+            .iter()
+            .map(|kv| {
+                kv.split_once('=')
+                    .map(|(k, v)| (k.trim().to_string(), v.trim().to_string()))
+                    .ok_or_else(|| format!("--set takes KEY=VALUE, got `{kv}`"))
+            })
+            .collect()
+    }
 }
 
 /// Calibration flags shared by every analysing command.

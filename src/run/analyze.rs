@@ -49,6 +49,16 @@ pub fn run(args: &AnalyzeArgs) -> Result<ExitCode, String> {
             }),
         }
     }
+    for r in &channels {
+        super::keep(
+            &args.save,
+            "tone",
+            r.channel,
+            cal,
+            vec![("capture.wav", args.capture.as_path())],
+            r,
+        )?;
+    }
     let report = AnalyzeReport {
         schema_version: SCHEMA_VERSION,
         file: args.capture.display().to_string(),

@@ -76,3 +76,33 @@ pub fn read_stimulus(path: &Path, wanted: &'static str) -> Result<(Capture, Desc
         })?;
     Ok((cap, desc))
 }
+
+/// Keep one channel's result in the notebook the user named (if any), with the files that made it.
+pub fn keep(
+    save: &crate::cli::SaveArgs,
+    procedure: &str,
+    channel: usize,
+    calibration: ampnote::calibration::Calibration,
+    files: Vec<(&str, &Path)>,
+    result: &impl serde::Serialize,
+) -> Result<(), String> {
+    let (Some(dir), Some(label)) = (&save.notebook, &save.label) else {
+        return Ok(());
+    };
+    let nb = ampnote::notebook::Notebook::open(dir).map_err(|e| e.to_string())?;
+    let run = nb
+        .save(ampnote::notebook::NewRun {
+            label,
+            channel,
+            procedure,
+            notes: &save.note,
+            settings: save.settings_map()?,
+            calibration,
+            files,
+            blobs: Vec::new(),
+            result: serde_json::to_value(result).expect("results serialize"),
+        })
+        .map_err(|e| e.to_string())?;
+    eprintln!("kept as {} in {}", run.meta.id, dir.display());
+    Ok(())
+}

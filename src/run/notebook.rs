@@ -107,10 +107,13 @@ fn headline(r: &Run) -> String {
     let f = |k: &str| v.get(k).and_then(|x| x.as_f64());
     match r.meta.procedure.as_str() {
         "tone" => format!(
-            "THD {:.3} %, THD+N {:.3} % at {:.2} W",
+            "THD {:.3} %, THD+N {:.3} % at {}",
             f("thd_percent").unwrap_or(f64::NAN),
             f("thdn_percent").unwrap_or(f64::NAN),
-            f("output_w").unwrap_or(f64::NAN)
+            f("output_w").map_or_else(
+                || format!("{:.1} dBFS", f("fundamental_dbfs").unwrap_or(f64::NAN)),
+                |w| format!("{w:.2} W")
+            )
         ),
         "power" => v
             .get("power_at_thd")

@@ -126,6 +126,13 @@ pub fn run(args: &PowerArgs) -> Result<ExitCode, String> {
             }
         }
     }
+    for r in &results {
+        let mut files = Vec::new();
+        if let (Some(c), Some(st)) = (&args.capture, &args.stimulus) {
+            files = vec![("stimulus.wav", st.as_path()), ("capture.wav", c.as_path())];
+        }
+        super::keep(&args.save, "power", r.channel, flags, files, r)?;
+    }
     let report = PowerReport {
         schema_version: SCHEMA_VERSION,
         source,

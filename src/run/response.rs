@@ -83,6 +83,19 @@ pub fn run(args: &ResponseArgs) -> Result<ExitCode, String> {
             }),
         }
     }
+    for r in &channels {
+        super::keep(
+            &args.save,
+            "response",
+            r.channel,
+            cal,
+            vec![
+                ("stimulus.wav", args.stimulus.as_path()),
+                ("capture.wav", args.capture.as_path()),
+            ],
+            r,
+        )?;
+    }
     let report = ResponseReport {
         schema_version: SCHEMA_VERSION,
         file: args.capture.display().to_string(),

@@ -232,6 +232,16 @@ pub fn run(args: &ZoutArgs) -> Result<ExitCode, String> {
             results.push(res);
         }
     }
+    for r in &results {
+        let files: Vec<(&str, &std::path::Path)> = match &args.captures[..] {
+            [a, b] => vec![
+                ("capture.wav", a.as_path()),
+                ("capture-load-b.wav", b.as_path()),
+            ],
+            _ => Vec::new(),
+        };
+        super::keep(&args.save, "zout", r.channel, Default::default(), files, r)?;
+    }
     let report = ZoutReport {
         schema_version: SCHEMA_VERSION,
         source,
