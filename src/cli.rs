@@ -57,6 +57,13 @@ pub enum Command {
     Compare(CompareArgs),
     /// Check that two channels match within tolerances (exit code 1 when not).
     Match(MatchArgs),
+    /// Write the notebook's report: one HTML page with its charts, and each chart as SVG.
+    Report {
+        notebook: PathBuf,
+        /// Folder for the report (default: NOTEBOOK/report).
+        #[arg(long, value_name = "DIR")]
+        out: Option<PathBuf>,
+    },
 }
 
 #[derive(Debug, Subcommand)]

@@ -22,6 +22,7 @@ fn main() -> ExitCode {
         Command::Notebook { action } => run::notebook::notebook(action),
         Command::Compare(args) => run::notebook::compare(args),
         Command::Match(args) => run::notebook::match_(args),
+        Command::Report { notebook, out } => run::notebook::report(notebook, out.as_deref()),
     };
     match outcome {
         Ok(code) => code,

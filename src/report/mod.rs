@@ -1,6 +1,7 @@
 //! Rendering results: terminal tables, JSON, CSV. Every renderer draws the same typed result.
 
 pub mod compare;
+pub mod html;
 pub mod imd;
 pub mod power;
 pub mod response;

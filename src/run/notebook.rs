@@ -27,8 +27,11 @@ pub fn demo(out: &Path) -> Result<ExitCode, String> {
         s += "\n";
         s += &m.to_table();
     }
+    let nb = Notebook::open(&outcome.notebook).map_err(e)?;
+    let files = ampnote::report::html::write_report(&nb, &out.join("report")).map_err(e)?;
     s += &format!(
-        "\nNext: `ampnote notebook log {}`, `ampnote compare stock \"driver reworked\" --notebook {}`\n",
+        "\nReport: {}\nNext: `ampnote notebook log {}`, `ampnote compare stock \"driver reworked\" --notebook {}`\n",
+        files.html.display(),
         outcome.notebook.display(),
         outcome.notebook.display()
     );
@@ -183,4 +186,17 @@ pub fn match_(args: &MatchArgs) -> Result<ExitCode, String> {
     } else {
         ExitCode::from(1)
     })
+}
+
+pub fn report(dir: &Path, out: Option<&Path>) -> Result<ExitCode, String> {
+    let nb = Notebook::open(dir).map_err(e)?;
+    let out = out.map_or_else(|| dir.join("report"), Path::to_path_buf);
+    let files = ampnote::report::html::write_report(&nb, &out).map_err(e)?;
+    eprintln!(
+        "wrote {} and {} chart(s) beside it",
+        files.html.display(),
+        files.charts.len()
+    );
+    super::print_stdout(&format!("{}\n", files.html.display()));
+    Ok(ExitCode::SUCCESS)
 }

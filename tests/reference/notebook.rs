@@ -176,3 +176,50 @@ fn demo_runs_end_to_end() {
     assert!(p["delta"].as_f64().unwrap() > 3.0, "{p}");
     std::fs::remove_dir_all(&d).ok();
 }
+
+#[test]
+fn report_of_a_notebook_and_of_an_empty_one() {
+    let d = tmpdir("report");
+    // The fixture notebook: charts with their titles and axes, and the tables.
+    let out = d.join("r");
+    let (code, _, err) = run(&["report", &fixture(), "--out", &out.to_string_lossy()]);
+    assert_eq!(code, 0, "{err}");
+    let html = std::fs::read_to_string(out.join("report.html")).unwrap();
+    assert!(
+        html.contains("<svg")
+            && html.contains("THD against output power")
+            && html.contains("Output power (W)"),
+        "charts"
+    );
+    assert!(html.contains("Frequency response") && html.contains("Magnitude (dB)"));
+    assert!(
+        html.contains("before → after") && html.contains("channels differ"),
+        "tables"
+    );
+    assert!(
+        !html.contains("src=") && !html.contains("href="),
+        "no external assets"
+    );
+    let svg = std::fs::read_to_string(out.join("charts/thd-vs-power.svg")).unwrap();
+    assert!(
+        svg.contains("<line") || svg.contains("<polyline") || svg.contains("<path"),
+        "the chart draws something"
+    );
+    // An empty notebook: a page that says what to run first.
+    let nb = d.join("empty");
+    run(&[
+        "notebook",
+        "init",
+        &nb.to_string_lossy(),
+        "--amplifier",
+        "nothing yet",
+    ]);
+    let (code, _, _) = run(&["report", &nb.to_string_lossy()]);
+    assert_eq!(code, 0);
+    let html = std::fs::read_to_string(nb.join("report/report.html")).unwrap();
+    assert!(
+        html.contains("no runs yet") && html.contains("ampnote demo"),
+        "{html}"
+    );
+    std::fs::remove_dir_all(&d).ok();
+}

@@ -1,0 +1,539 @@
+//! The notebook report: one self-contained HTML page (inline SVG charts, no external assets) plus
+//! each chart as its own SVG file.
+//!
+//! Visual language (our own): each label has a colour (first label copper, second teal, then
+//! olive, plum, slate); the left channel is drawn solid, the right dashed; reference lines (1 %
+//! THD, 0 dB) are thin grey. Charts are plain white panels that print well.
+
+use crate::error::{Error, Result};
+use crate::notebook::{Notebook, Run};
+use crate::report::compare::{compare, match_channels, MatchTolerances};
+use plotters::prelude::*;
+use serde_json::Value;
+use std::fmt::Write as _;
+use std::path::{Path, PathBuf};
+
+const PALETTE: [RGBColor; 5] = [
+    RGBColor(176, 98, 38),  // copper
+    RGBColor(31, 111, 139), // teal
+    RGBColor(110, 122, 40), // olive
+    RGBColor(122, 63, 110), // plum
+    RGBColor(80, 90, 100),  // slate
+];
+const GREY: RGBColor = RGBColor(150, 150, 150);
+const SIZE: (u32, u32) = (760, 420);
+
+/// One curve: a name for the legend, its label's colour, dashed for the right channel.
+struct Curve {
+    name: String,
+    color: RGBColor,
+    dashed: bool,
+    points: Vec<(f64, f64)>,
+}
+
+fn draw_err<E: std::fmt::Debug>(e: E) -> Error {
+    Error::InvalidSetting(format!("drawing a chart failed: {e:?}"))
+}
+
+/// A line chart; `log_x`/`log_y` pick logarithmic axes. `hline` draws a reference level.
+fn line_chart(
+    title: &str,
+    x_desc: &str,
+    y_desc: &str,
+    curves: &[Curve],
+    log_x: bool,
+    log_y: bool,
+    hline: Option<f64>,
+) -> Result<String> {
+    let pts = curves.iter().flat_map(|c| c.points.iter()).filter(|p| {
+        p.0.is_finite() && p.1.is_finite() && (!log_x || p.0 > 0.0) && (!log_y || p.1 > 0.0)
+    });
+    let (mut x0, mut x1, mut y0, mut y1) = (
+        f64::INFINITY,
+        f64::NEG_INFINITY,
+        f64::INFINITY,
+        f64::NEG_INFINITY,
+    );
+    for &(x, y) in pts {
+        x0 = x0.min(x);
+        x1 = x1.max(x);
+        y0 = y0.min(y);
+        y1 = y1.max(y);
+    }
+    if !x0.is_finite() {
+        return Ok(String::new());
+    }
+    if let Some(h) = hline {
+        y0 = y0.min(h);
+        y1 = y1.max(h);
+    }
+    let (y0, y1) = if log_y {
+        (y0 / 1.5, y1 * 1.5)
+    } else {
+        let m = ((y1 - y0) * 0.08).max(0.5);
+        (y0 - m, y1 + m)
+    };
+    let mut svg = String::new();
+    {
+        let root = SVGBackend::with_string(&mut svg, SIZE).into_drawing_area();
+        root.fill(&WHITE).map_err(draw_err)?;
+        let mut b = ChartBuilder::on(&root);
+        b.caption(title, ("sans-serif", 18))
+            .margin(12)
+            .x_label_area_size(42)
+            .y_label_area_size(60);
+        macro_rules! body {
+            ($chart:expr) => {{
+                let mut chart = $chart;
+                chart
+                    .configure_mesh()
+                    .x_desc(x_desc)
+                    .y_desc(y_desc)
+                    .light_line_style(RGBColor(235, 235, 235))
+                    .draw()
+                    .map_err(draw_err)?;
+                if let Some(h) = hline {
+                    chart
+                        .draw_series(LineSeries::new(
+                            vec![(x0, h), (x1, h)],
+                            GREY.stroke_width(1),
+                        ))
+                        .map_err(draw_err)?;
+                }
+                for c in curves {
+                    let style = c.color.stroke_width(2);
+                    let pts: Vec<(f64, f64)> = c
+                        .points
+                        .iter()
+                        .copied()
+                        .filter(|p| p.0.is_finite() && p.1.is_finite())
+                        .collect();
+                    if c.dashed {
+                        chart
+                            .draw_series(DashedLineSeries::new(pts, 7, 5, style))
+                            .map_err(draw_err)?
+                            .label(c.name.clone())
+                            .legend(move |(x, y)| {
+                                PathElement::new(vec![(x, y), (x + 22, y)], style)
+                            });
+                    } else {
+                        chart
+                            .draw_series(LineSeries::new(pts, style))
+                            .map_err(draw_err)?
+                            .label(c.name.clone())
+                            .legend(move |(x, y)| {
+                                PathElement::new(vec![(x, y), (x + 22, y)], style)
+                            });
+                    }
+                }
+                chart
+                    .configure_series_labels()
+                    .background_style(WHITE.mix(0.85))
+                    .border_style(GREY)
+                    .position(SeriesLabelPosition::UpperLeft)
+                    .draw()
+                    .map_err(draw_err)?;
+            }};
+        }
+        match (log_x, log_y) {
+            (true, true) => body!(b
+                .build_cartesian_2d((x0..x1).log_scale(), (y0..y1).log_scale())
+                .map_err(draw_err)?),
+            (true, false) => body!(b
+                .build_cartesian_2d((x0..x1).log_scale(), y0..y1)
+                .map_err(draw_err)?),
+            (false, true) => body!(b
+                .build_cartesian_2d(x0..x1, (y0..y1).log_scale())
+                .map_err(draw_err)?),
+            (false, false) => body!(b.build_cartesian_2d(x0..x1, y0..y1).map_err(draw_err)?),
+        }
+        root.present().map_err(draw_err)?;
+    }
+    Ok(svg)
+}
+
+fn num(v: &Value, k: &str) -> Option<f64> {
+    v.get(k).and_then(Value::as_f64)
+}
+
+fn arr<'a>(v: &'a Value, k: &str) -> &'a [Value] {
+    v.get(k)
+        .and_then(Value::as_array)
+        .map_or(&[], |a| a.as_slice())
+}
+
+/// Labels in the order their first run was made.
+fn labels(runs: &[Run]) -> Vec<String> {
+    let mut out: Vec<String> = Vec::new();
+    for r in runs {
+        if !out.contains(&r.meta.label) {
+            out.push(r.meta.label.clone());
+        }
+    }
+    out
+}
+
+fn curves_for(runs: &[Run], procedure: &str, f: impl Fn(&Value) -> Vec<(f64, f64)>) -> Vec<Curve> {
+    let labels = labels(runs);
+    runs.iter()
+        .filter(|r| r.meta.procedure == procedure)
+        .map(|r| {
+            let li = labels.iter().position(|l| *l == r.meta.label).unwrap_or(0);
+            Curve {
+                name: format!(
+                    "{}, {}",
+                    r.meta.label,
+                    if r.meta.channel == 1 {
+                        "left".to_string()
+                    } else if r.meta.channel == 2 {
+                        "right".to_string()
+                    } else {
+                        format!("ch{}", r.meta.channel)
+                    }
+                ),
+                color: PALETTE[li % PALETTE.len()],
+                dashed: r.meta.channel % 2 == 0,
+                points: f(&r.result),
+            }
+        })
+        .filter(|c| !c.points.is_empty())
+        .collect()
+}
+
+/// Bars of the harmonic profile (H2..H7 in dBc) of every tone run, grouped by order.
+fn profile_chart(runs: &[Run]) -> Result<String> {
+    let tones: Vec<&Run> = runs.iter().filter(|r| r.meta.procedure == "tone").collect();
+    if tones.is_empty() {
+        return Ok(String::new());
+    }
+    let labels = labels(runs);
+    let orders: Vec<u64> = (2..=7).collect();
+    let mut svg = String::new();
+    {
+        let root = SVGBackend::with_string(&mut svg, SIZE).into_drawing_area();
+        root.fill(&WHITE).map_err(draw_err)?;
+        let mut chart = ChartBuilder::on(&root)
+            .caption("Harmonic profile of the tone runs", ("sans-serif", 18))
+            .margin(12)
+            .x_label_area_size(42)
+            .y_label_area_size(60)
+            .build_cartesian_2d(1.5f64..7.5f64, -140f64..0f64)
+            .map_err(draw_err)?;
+        chart
+            .configure_mesh()
+            .x_desc("Harmonic order")
+            .y_desc("Level (dBc)")
+            .x_labels(6)
+            .x_label_formatter(&|x| format!("H{}", x.round()))
+            .light_line_style(RGBColor(235, 235, 235))
+            .draw()
+            .map_err(draw_err)?;
+        let w = 0.8 / tones.len() as f64;
+        for (i, r) in tones.iter().enumerate() {
+            let li = labels.iter().position(|l| *l == r.meta.label).unwrap_or(0);
+            let color = PALETTE[li % PALETTE.len()];
+            let fill = if r.meta.channel % 2 == 0 {
+                color.mix(0.45).filled()
+            } else {
+                color.filled()
+            };
+            let bars: Vec<Rectangle<(f64, f64)>> = orders
+                .iter()
+                .filter_map(|&o| {
+                    let h = arr(&r.result, "harmonics")
+                        .iter()
+                        .find(|h| h.get("order").and_then(Value::as_u64) == Some(o))?;
+                    let level = num(h, "level_dbc")?.max(-140.0);
+                    let x = o as f64 - 0.4 + i as f64 * w;
+                    Some(Rectangle::new([(x, -140.0), (x + w * 0.9, level)], fill))
+                })
+                .collect();
+            chart
+                .draw_series(bars)
+                .map_err(draw_err)?
+                .label(format!("{}, ch{}", r.meta.label, r.meta.channel))
+                .legend(move |(x, y)| Rectangle::new([(x, y - 5), (x + 14, y + 5)], fill));
+        }
+        chart
+            .configure_series_labels()
+            .background_style(WHITE.mix(0.85))
+            .border_style(GREY)
+            .position(SeriesLabelPosition::UpperRight)
+            .draw()
+            .map_err(draw_err)?;
+        root.present().map_err(draw_err)?;
+    }
+    Ok(svg)
+}
+
+fn escape(s: &str) -> String {
+    s.replace('&', "&amp;")
+        .replace('<', "&lt;")
+        .replace('>', "&gt;")
+        .replace('"', "&quot;")
+}
+
+/// What the report wrote.
+pub struct ReportFiles {
+    pub html: PathBuf,
+    pub charts: Vec<PathBuf>,
+}
+
+/// Write the report of `nb` into `out`.
+pub fn write_report(nb: &Notebook, out: &Path) -> Result<ReportFiles> {
+    let runs = nb.runs()?;
+    std::fs::create_dir_all(out.join("charts")).map_err(|source| Error::Write {
+        path: out.to_path_buf(),
+        source,
+    })?;
+    let mut html = String::new();
+    let title = format!("ampnote report: {}", escape(&nb.info.amplifier));
+    let _ = write!(
+        html,
+        "<!DOCTYPE html>\n<html lang=\"en\"><head><meta charset=\"utf-8\"><title>{title}</title>\n<style>\n\
+         body{{font-family:sans-serif;max-width:820px;margin:2em auto;color:#222;line-height:1.4}}\n\
+         h1{{font-size:1.5em;border-bottom:3px solid #b06226;padding-bottom:.2em}} h2{{font-size:1.15em;margin-top:1.8em}}\n\
+         table{{border-collapse:collapse;font-size:.9em}} td,th{{border:1px solid #ccc;padding:.25em .6em;text-align:left}}\n\
+         .pass{{color:#1f6f8b}} .fail{{color:#b00020;font-weight:bold}} figure{{margin:1em 0;page-break-inside:avoid}}\n\
+         .note{{color:#555;font-size:.9em}}\n</style></head><body>\n<h1>{title}</h1>\n\
+         <p class=\"note\">Notebook {}: {} run(s), {} channel(s). Written by ampnote {} on {}.</p>\n",
+        escape(&nb.dir.display().to_string()),
+        runs.len(),
+        nb.info.channels,
+        env!("CARGO_PKG_VERSION"),
+        crate::notebook::now_utc()
+    );
+    if runs.is_empty() {
+        html += "<p>This notebook has no runs yet. Measure something first, for example \
+                 <code>ampnote analyze CAPTURE.wav --notebook DIR --label stock</code>, or run \
+                 <code>ampnote demo</code> to see a filled notebook.</p>\n</body></html>\n";
+        let path = out.join("report.html");
+        crate::files::write_whole(&path, html.as_bytes())?;
+        return Ok(ReportFiles {
+            html: path,
+            charts: Vec::new(),
+        });
+    }
+    let labels = labels(&runs);
+    if labels.len() >= 2 {
+        let a: Vec<Run> = runs
+            .iter()
+            .filter(|r| r.meta.label == labels[0])
+            .cloned()
+            .collect();
+        let b: Vec<Run> = runs
+            .iter()
+            .filter(|r| r.meta.label == labels[1])
+            .cloned()
+            .collect();
+        let c = compare(&labels[0], &a, &labels[1], &b);
+        let _ = write!(html, "<h2>{} → {}</h2>\n<table><tr><th>Channel</th><th>Figure</th><th>Before</th><th>After</th><th>Change</th></tr>\n", escape(&labels[0]), escape(&labels[1]));
+        for l in &c.lines {
+            let (before, rest) = l
+                .sentence
+                .split_once(": ")
+                .map_or(("", l.sentence.as_str()), |(_, r)| ("", r));
+            let _ = before;
+            let parts: Vec<&str> = rest.splitn(2, " -> ").collect();
+            let (x, y_delta) = (
+                parts.first().copied().unwrap_or(""),
+                parts.get(1).copied().unwrap_or(""),
+            );
+            let (y, delta) = y_delta.rsplit_once(", ").unwrap_or((y_delta, ""));
+            let _ = writeln!(
+                html,
+                "<tr><td>{}</td><td>{}</td><td>{}</td><td>{}</td><td>{}</td></tr>",
+                l.channel,
+                escape(&l.figure),
+                escape(x),
+                escape(y),
+                escape(delta)
+            );
+        }
+        html += "</table>\n";
+        for w in &c.warnings {
+            let _ = writeln!(html, "<p class=\"note\">{}</p>", escape(w));
+        }
+    }
+    if nb.info.channels >= 2 {
+        html += "<h2>Channel match</h2>\n";
+        for label in &labels {
+            let l = nb.select(label, Some(1));
+            let r = nb.select(label, Some(2));
+            if let (Ok(l), Ok(r)) = (l, r) {
+                let m = match_channels(
+                    &format!("{label}, left"),
+                    &l,
+                    &format!("{label}, right"),
+                    &r,
+                    &MatchTolerances::default(),
+                );
+                let _ = writeln!(
+                    html,
+                    "<p><b>{}</b>: <span class=\"{}\">{}</span></p>\n<table><tr><th>Check</th><th>Value</th><th>Tolerance</th><th></th></tr>",
+                    escape(label),
+                    if m.pass { "pass" } else { "fail" },
+                    if m.pass { "channels match" } else { "channels differ" }
+                );
+                for c in &m.checks {
+                    let _ = writeln!(
+                        html,
+                        "<tr><td>{}</td><td>{:.2} {}</td><td>±{} {}</td><td class=\"{}\">{}</td></tr>",
+                        escape(&c.name),
+                        c.value,
+                        c.unit,
+                        c.tolerance,
+                        c.unit,
+                        if c.pass { "pass" } else { "fail" },
+                        if c.pass { "pass" } else { "FAIL" }
+                    );
+                }
+                html += "</table>\n";
+            }
+        }
+    }
+    // Charts.
+    let power = curves_for(&runs, "power", |v| {
+        arr(v, "steps")
+            .iter()
+            .filter(|s| s.get("excluded").and_then(Value::as_bool) != Some(true))
+            .filter_map(|s| Some((num(s, "output_w")?, num(s, "thd_percent")?)))
+            .collect()
+    });
+    let response = curves_for(&runs, "response", |v| {
+        arr(v, "points")
+            .iter()
+            .filter_map(|p| Some((num(p, "frequency_hz")?, num(p, "magnitude_db")?)))
+            .collect()
+    });
+    let phase = curves_for(&runs, "response", |v| {
+        arr(v, "points")
+            .iter()
+            .filter_map(|p| Some((num(p, "frequency_hz")?, num(p, "phase_deg")?)))
+            .collect()
+    });
+    let h2 = curves_for(&runs, "response", |v| {
+        arr(v, "harmonics")
+            .iter()
+            .find(|h| h.get("order").and_then(Value::as_u64) == Some(2))
+            .map_or(Vec::new(), |h| {
+                arr(h, "points")
+                    .iter()
+                    .filter_map(|p| Some((num(p, "frequency_hz")?, num(p, "level_dbc")?)))
+                    .collect()
+            })
+    });
+    let thd_f = curves_for(&runs, "response", |v| {
+        arr(v, "thd")
+            .iter()
+            .filter_map(|p| Some((num(p, "frequency_hz")?, num(p, "level_dbc")?)))
+            .collect()
+    });
+    let charts = [
+        (
+            "thd-vs-power",
+            "THD against output power",
+            line_chart(
+                "THD against output power",
+                "Output power (W)",
+                "THD (%)",
+                &power,
+                true,
+                true,
+                Some(1.0),
+            )?,
+        ),
+        (
+            "response-magnitude",
+            "Frequency response",
+            line_chart(
+                "Frequency response (re 1 kHz)",
+                "Frequency (Hz)",
+                "Magnitude (dB)",
+                &response,
+                true,
+                false,
+                Some(0.0),
+            )?,
+        ),
+        (
+            "response-phase",
+            "Phase",
+            line_chart(
+                "Phase (latency removed)",
+                "Frequency (Hz)",
+                "Phase (degrees)",
+                &phase,
+                true,
+                false,
+                None,
+            )?,
+        ),
+        (
+            "h2-vs-frequency",
+            "Second harmonic against frequency",
+            line_chart(
+                "Second harmonic against frequency (sweep)",
+                "Frequency (Hz)",
+                "H2 (dBc)",
+                &h2,
+                true,
+                false,
+                None,
+            )?,
+        ),
+        (
+            "thd-vs-frequency",
+            "THD against frequency",
+            line_chart(
+                "THD against frequency (sweep, H2-H5)",
+                "Frequency (Hz)",
+                "THD (dBc)",
+                &thd_f,
+                true,
+                false,
+                None,
+            )?,
+        ),
+        (
+            "harmonic-profile",
+            "Harmonic profile",
+            profile_chart(&runs)?,
+        ),
+    ];
+    let mut written = Vec::new();
+    html += "<h2>Charts</h2>\n<p class=\"note\">Colour: label; solid: left channel, dashed (or paler): right channel.</p>\n";
+    for (file, caption, svg) in &charts {
+        if svg.is_empty() {
+            continue;
+        }
+        let path = out.join("charts").join(format!("{file}.svg"));
+        crate::files::write_whole(&path, svg.as_bytes())?;
+        written.push(path);
+        let _ = writeln!(
+            html,
+            "<figure id=\"{file}\">{svg}<figcaption>{caption}</figcaption></figure>"
+        );
+    }
+    html += "<h2>Runs</h2>\n<table><tr><th>Run</th><th>Time</th><th>Label</th><th>Channel</th><th>Procedure</th><th>Notes</th></tr>\n";
+    for r in &runs {
+        let _ = writeln!(
+            html,
+            "<tr><td>{}</td><td>{}</td><td>{}</td><td>{}</td><td>{}</td><td>{}</td></tr>",
+            escape(&r.meta.id),
+            escape(&r.meta.time),
+            escape(&r.meta.label),
+            r.meta.channel,
+            escape(&r.meta.procedure),
+            escape(&r.meta.notes)
+        );
+    }
+    html += "</table>\n<p class=\"note\">Measurements of amplifiers involve lethal voltages inside tube equipment; \
+             see the README's safety section and follow local codes and licensed practice.</p>\n</body></html>\n";
+    let path = out.join("report.html");
+    crate::files::write_whole(&path, html.as_bytes())?;
+    Ok(ReportFiles {
+        html: path,
+        charts: written,
+    })
+}
