@@ -1,0 +1,30 @@
+#!/usr/bin/env bash
+# Opens the demo's report in headless Chromium (Debian's package): the page must load with no
+# console errors and its charts must be in the DOM; a screenshot is kept in ci-artifacts/.
+set -euo pipefail
+cd "$(dirname "$0")/.."
+if ! command -v chromium > /dev/null; then
+  echo "== installing Debian's chromium for the report check"
+  apt-get update -qq
+  DEBIAN_FRONTEND=noninteractive apt-get install -y -qq chromium > /dev/null
+fi
+work=$(mktemp -d)
+trap 'rm -rf "$work"' EXIT
+./target/release/ampnote demo --out "$work/demo" > /dev/null
+page="file://$work/demo/report/report.html"
+flags=(--headless --no-sandbox --disable-gpu --disable-quic --no-first-run --disable-background-networking
+       --disable-component-update --disable-sync --user-data-dir="$work/profile")
+mkdir -p ci-artifacts
+timeout 120 chromium "${flags[@]}" --enable-logging=stderr --v=0 --window-size=900,3200 \
+  --screenshot=ci-artifacts/report.png "$page" 2> "$work/chromium.log" > /dev/null || true
+timeout 120 chromium "${flags[@]}" --dump-dom "$page" > "$work/dom.html" 2> /dev/null || true
+if grep -i "CONSOLE" "$work/chromium.log" | grep -qi "error"; then
+  echo "the report logged console errors:"; grep -i "CONSOLE" "$work/chromium.log"; exit 1
+fi
+svgs=$(grep -o "<svg" "$work/dom.html" | wc -l)
+[ "$svgs" -ge 5 ] || { echo "the report shows $svgs charts, expected at least 5"; exit 1; }
+for title in "THD against output power" "Frequency response" "Harmonic profile"; do
+  grep -q "$title" "$work/dom.html" || { echo "the report lacks the chart \"$title\""; exit 1; }
+done
+[ -s ci-artifacts/report.png ] || { echo "no screenshot was written"; exit 1; }
+echo "report check: $svgs charts, no console errors, screenshot in ci-artifacts/report.png"
