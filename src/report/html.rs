@@ -45,6 +45,21 @@ fn line_chart(
     log_y: bool,
     hline: Option<f64>,
 ) -> Result<String> {
+    annotated_chart(title, x_desc, y_desc, curves, log_x, log_y, hline, &[])
+}
+
+/// [`line_chart`] with text notes at data coordinates (harmonic labels on a spectrum).
+#[allow(clippy::too_many_arguments)]
+fn annotated_chart(
+    title: &str,
+    x_desc: &str,
+    y_desc: &str,
+    curves: &[Curve],
+    log_x: bool,
+    log_y: bool,
+    hline: Option<f64>,
+    notes: &[(f64, f64, String)],
+) -> Result<String> {
     let pts = curves.iter().flat_map(|c| c.points.iter()).filter(|p| {
         p.0.is_finite() && p.1.is_finite() && (!log_x || p.0 > 0.0) && (!log_y || p.1 > 0.0)
     });
@@ -127,10 +142,19 @@ fn line_chart(
                     }
                 }
                 chart
+                    .draw_series(notes.iter().map(|(x, y, t)| {
+                        Text::new(
+                            t.clone(),
+                            (*x, *y),
+                            ("sans-serif", 13).into_font().color(&BLACK),
+                        )
+                    }))
+                    .map_err(draw_err)?;
+                chart
                     .configure_series_labels()
                     .background_style(WHITE.mix(0.85))
                     .border_style(GREY)
-                    .position(SeriesLabelPosition::UpperLeft)
+                    .position(SeriesLabelPosition::UpperRight)
                     .draw()
                     .map_err(draw_err)?;
             }};
@@ -264,6 +288,86 @@ fn profile_chart(runs: &[Run]) -> Result<String> {
         root.present().map_err(draw_err)?;
     }
     Ok(svg)
+}
+
+/// From a tone run's stored capture: its spectrum (dBFS per bin under the 7-term window, reduced
+/// to the peak of each of 600 log-spaced slices from 10 Hz to 20 kHz) and its distortion residual
+/// over one period (the capture minus its fitted fundamental, averaged cycle by cycle at each
+/// phase, in percent of the fundamental's peak).
+fn tone_views(run: &Run) -> Option<(Vec<(f64, f64)>, Vec<(f64, f64)>)> {
+    use crate::analysis::spectrum::{fast_length, SpectrumPlanner};
+    use crate::analysis::tone::TONE_WINDOW;
+    let info = crate::capture::Capture::probe_wav(&run.dir.join("capture.wav")).ok()?;
+    let ch = if run.meta.channel <= info.channel_count {
+        run.meta.channel
+    } else {
+        1
+    };
+    let cap =
+        crate::capture::Capture::read_wav_channels(&run.dir.join("capture.wav"), true, Some(&[ch]))
+            .ok()?;
+    let x = &cap.channels[0];
+    let fs = cap.sample_rate_hz as f64;
+    let seg = &x[x.len() / 4..x.len() * 3 / 4];
+    let n = fast_length(seg.len());
+    if n < 1024 {
+        return None;
+    }
+    let planner = SpectrumPlanner::new();
+    let plan = planner.plan(TONE_WINDOW, n);
+    let mut buf = plan.make_buffers();
+    let mean = seg[..n].iter().sum::<f64>() / n as f64;
+    plan.transform(seg, mean, &mut buf);
+    let scale = 2.0 / (n as f64 * TONE_WINDOW.coherent_gain());
+    let bin = fs / n as f64;
+    let slices = 600;
+    let (lo, hi) = (10f64, 20_000f64.min(fs / 2.0));
+    let mut spectrum = Vec::with_capacity(slices);
+    for i in 0..slices {
+        let f_a = lo * (hi / lo).powf(i as f64 / slices as f64);
+        let f_b = lo * (hi / lo).powf((i + 1) as f64 / slices as f64);
+        let (ka, kb) = (
+            (f_a / bin).ceil() as usize,
+            ((f_b / bin).floor() as usize).min(buf.output.len() - 1),
+        );
+        if kb < ka {
+            continue;
+        }
+        let peak = buf.output[ka..=kb]
+            .iter()
+            .map(|c| c.norm())
+            .fold(0.0, f64::max)
+            * scale;
+        spectrum.push(((f_a * f_b).sqrt(), 20.0 * peak.max(1e-9).log10()));
+    }
+    // Residual over one period.
+    let f0 = run.result.get("fundamental_hz")?.as_f64()?;
+    let (lines, dc) = crate::analysis::fit::sine_fit_time_domain(seg, &[f0 / fs])?;
+    let (a, b) = lines[0];
+    let peak = (a * a + b * b).sqrt();
+    let phi = a.atan2(b); // x = peak sin(w n + phi)
+    let bins = 180;
+    let mut acc = vec![(0.0, 0usize); bins];
+    for (i, &v) in seg.iter().enumerate() {
+        let wn = 2.0 * std::f64::consts::PI * f0 / fs * i as f64;
+        let r = v - dc - a * wn.cos() - b * wn.sin();
+        let theta = (wn + phi).rem_euclid(2.0 * std::f64::consts::PI);
+        let k = ((theta / (2.0 * std::f64::consts::PI)) * bins as f64) as usize % bins;
+        acc[k].0 += r;
+        acc[k].1 += 1;
+    }
+    let residual = acc
+        .iter()
+        .enumerate()
+        .filter(|(_, (_, c))| *c > 0)
+        .map(|(k, (sum, c))| {
+            (
+                (k as f64 + 0.5) * 360.0 / bins as f64,
+                100.0 * sum / *c as f64 / peak,
+            )
+        })
+        .collect();
+    Some((spectrum, residual))
 }
 
 fn escape(s: &str) -> String {
@@ -429,6 +533,47 @@ pub fn write_report(nb: &Notebook, out: &Path) -> Result<ReportFiles> {
             .filter_map(|p| Some((num(p, "frequency_hz")?, num(p, "level_dbc")?)))
             .collect()
     });
+    // Spectrum and residual of each label's left-channel tone run (the latest).
+    let mut spectra = Vec::new();
+    let mut residuals = Vec::new();
+    let mut notes = Vec::new();
+    for (li, label) in labels.iter().enumerate() {
+        let Some(run) = runs
+            .iter()
+            .rev()
+            .find(|r| r.meta.procedure == "tone" && &r.meta.label == label && r.meta.channel == 1)
+        else {
+            continue;
+        };
+        let Some((spec, res)) = tone_views(run) else {
+            continue;
+        };
+        let color = PALETTE[li % PALETTE.len()];
+        if li == 0 {
+            let f0 = num(&run.result, "fundamental_hz").unwrap_or(1000.0);
+            let level = num(&run.result, "fundamental_dbfs").unwrap_or(0.0);
+            for h in arr(&run.result, "harmonics").iter().take(4) {
+                if let (Some(o), Some(dbc)) =
+                    (h.get("order").and_then(Value::as_u64), num(h, "level_dbc"))
+                {
+                    notes.push((o as f64 * f0 * 1.03, level + dbc + 4.0, format!("H{o}")));
+                }
+            }
+            notes.push((f0 * 1.03, level + 4.0, "fundamental".to_string()));
+        }
+        spectra.push(Curve {
+            name: format!("{label}, left"),
+            color,
+            dashed: false,
+            points: spec,
+        });
+        residuals.push(Curve {
+            name: format!("{label}, left"),
+            color,
+            dashed: false,
+            points: res,
+        });
+    }
     let charts = [
         (
             "thd-vs-power",
@@ -499,6 +644,33 @@ pub fn write_report(nb: &Notebook, out: &Path) -> Result<ReportFiles> {
             "harmonic-profile",
             "Harmonic profile",
             profile_chart(&runs)?,
+        ),
+        (
+            "spectrum",
+            "Spectrum of the tone (left channel)",
+            annotated_chart(
+                "Spectrum of the tone, left channel (peak per slice)",
+                "Frequency (Hz)",
+                "Level (dBFS)",
+                &spectra,
+                true,
+                false,
+                None,
+                &notes,
+            )?,
+        ),
+        (
+            "residual",
+            "Distortion residual over one period",
+            line_chart(
+                "Distortion residual over one period of the fundamental",
+                "Phase of the fundamental (degrees)",
+                "Residual (% of the fundamental's peak)",
+                &residuals,
+                false,
+                false,
+                Some(0.0),
+            )?,
         ),
     ];
     let mut written = Vec::new();
