@@ -23,12 +23,15 @@ const PALETTE: [RGBColor; 5] = [
 const GREY: RGBColor = RGBColor(150, 150, 150);
 const SIZE: (u32, u32) = (760, 420);
 
+/// (x, y) pairs of a curve.
+type Points = Vec<(f64, f64)>;
+
 /// One curve: a name for the legend, its label's colour, dashed for the right channel.
 struct Curve {
     name: String,
     color: RGBColor,
     dashed: bool,
-    points: Vec<(f64, f64)>,
+    points: Points,
 }
 
 fn draw_err<E: std::fmt::Debug>(e: E) -> Error {
@@ -294,7 +297,7 @@ fn profile_chart(runs: &[Run]) -> Result<String> {
 /// to the peak of each of 600 log-spaced slices from 10 Hz to 20 kHz) and its distortion residual
 /// over one period (the capture minus its fitted fundamental, averaged cycle by cycle at each
 /// phase, in percent of the fundamental's peak).
-fn tone_views(run: &Run) -> Option<(Vec<(f64, f64)>, Vec<(f64, f64)>)> {
+fn tone_views(run: &Run) -> Option<(Points, Points)> {
     use crate::analysis::spectrum::{fast_length, SpectrumPlanner};
     use crate::analysis::tone::TONE_WINDOW;
     let info = crate::capture::Capture::probe_wav(&run.dir.join("capture.wav")).ok()?;
