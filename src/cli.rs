@@ -88,6 +88,13 @@ pub enum NotebookAction {
         #[arg(long)]
         json: bool,
     },
+    /// Analyse stored captures again with this version's engine; the new result is kept beside
+    /// the old one.
+    Reanalyze {
+        dir: PathBuf,
+        /// Only these runs (ids); default every run with a stored capture.
+        runs: Vec<String>,
+    },
 }
 
 #[derive(Debug, Args)]

@@ -121,6 +121,36 @@ fn line(channel: usize, figure: &str, a: f64, b: f64, unit: &str) -> CompareLine
 pub fn compare(name_a: &str, a: &[Run], name_b: &str, b: &[Run]) -> Comparison {
     let mut lines = Vec::new();
     let mut warnings = Vec::new();
+    // Runs made with different loads or calibrations: watts and volts are still comparable
+    // (each side was converted with its own calibration), dBFS figures are not.
+    let loads = |runs: &[Run]| -> Vec<f64> {
+        let mut l: Vec<f64> = runs
+            .iter()
+            .filter_map(|r| r.meta.calibration.load_ohms)
+            .collect();
+        l.sort_by(f64::total_cmp);
+        l.dedup();
+        l
+    };
+    let (la, lb) = (loads(a), loads(b));
+    if !la.is_empty() && !lb.is_empty() && la != lb {
+        warnings.push(format!(
+            "the two sides were measured into different loads ({la:?} and {lb:?} ohm): power and distortion at a given power are comparable, the amplifier's behaviour into each load may differ"
+        ));
+    }
+    let calibrated = |runs: &[Run]| runs.iter().any(|r| r.meta.calibration.has_volts());
+    if calibrated(a) != calibrated(b) {
+        warnings.push("one side is calibrated and the other is not: volts and watts cannot be set against dBFS; figures in dBFS are compared only where both sides have them".into());
+    }
+    let same_cal = |x: &Run, y: &Run| {
+        let (p, q) = (x.meta.calibration, y.meta.calibration);
+        p.input_fs_vrms == q.input_fs_vrms && p.attenuation == q.attenuation
+    };
+    if let (Some(x), Some(y)) = (a.first(), b.first()) {
+        if calibrated(a) && calibrated(b) && !same_cal(x, y) {
+            warnings.push("the two sides used different calibrations: dBFS figures (noise in dBFS, drive) are not like for like; volts and watts are".into());
+        }
+    }
     let mut channels: Vec<usize> = a.iter().map(|r| r.meta.channel).collect();
     channels.sort();
     channels.dedup();

@@ -60,6 +60,7 @@ pub fn notebook(action: &NotebookAction) -> Result<ExitCode, String> {
             );
             Ok(ExitCode::SUCCESS)
         }
+        NotebookAction::Reanalyze { dir, runs } => reanalyze(dir, runs),
         NotebookAction::Log { dir, json } => {
             let nb = Notebook::open(dir).map_err(e)?;
             let runs = nb.runs().map_err(e)?;
@@ -198,5 +199,145 @@ pub fn report(dir: &Path, out: Option<&Path>) -> Result<ExitCode, String> {
         files.charts.len()
     );
     super::print_stdout(&format!("{}\n", files.html.display()));
+    Ok(ExitCode::SUCCESS)
+}
+
+/// Analyse stored captures again (tone, response and power runs); results go beside the old.
+fn reanalyze(dir: &Path, only: &[String]) -> Result<ExitCode, String> {
+    use ampnote::analysis::sweep::{ResponseAnalyzer, ResponseConfig, SweepParams};
+    use ampnote::analysis::tone::{ChannelInput, ToneAnalyzer, ToneConfig};
+    use ampnote::capture::Capture;
+    use ampnote::signal::stimulus::{Description, Kind};
+    let nb = Notebook::open(dir).map_err(e)?;
+    let mut done = 0;
+    let mut skipped = Vec::new();
+    for run in nb.runs().map_err(e)? {
+        if !only.is_empty() && !only.contains(&run.meta.id) {
+            continue;
+        }
+        let cap_path = run.dir.join("capture.wav");
+        if !cap_path.exists() {
+            skipped.push(format!("{} (no stored capture)", run.meta.id));
+            continue;
+        }
+        let info = Capture::probe_wav(&cap_path).map_err(e)?;
+        let ch = if run.meta.channel <= info.channel_count {
+            run.meta.channel
+        } else {
+            1
+        };
+        let cap = Capture::read_wav_channels(&cap_path, true, Some(&[ch])).map_err(e)?;
+        let fs = cap.sample_rate_hz as f64;
+        let stim = Capture::read_wav(&run.dir.join("stimulus.wav"), false).ok();
+        let desc = stim
+            .as_ref()
+            .and_then(|s| s.description_json.as_deref())
+            .and_then(Description::from_json);
+        let cal = run.meta.calibration;
+        let input = ChannelInput {
+            channel: run.meta.channel,
+            samples: &cap.channels[0],
+            sample_rate_hz: fs,
+            overload_threshold: cap.encoding.overload_threshold(),
+            resolution_bits: cap.encoding.resolution_bits(),
+        };
+        let result: Option<serde_json::Value> = match run.meta.procedure.as_str() {
+            "tone" => {
+                // The steady part of a stored tone: its description says where it is.
+                let samples = match &desc {
+                    Some(d) if matches!(d.kind, Kind::Tone { .. }) => {
+                        let from = d.signal_start_sample + cap.sample_rate_hz as usize / 10;
+                        let to = (d.signal_start_sample + d.signal_samples)
+                            .saturating_sub(cap.sample_rate_hz as usize / 50);
+                        &cap.channels[0][from.min(to)..to.min(cap.channels[0].len())]
+                    }
+                    _ => &cap.channels[0][..],
+                };
+                let a = ToneAnalyzer::new(ToneConfig::default()).map_err(e)?;
+                let r = a
+                    .analyze(&ChannelInput { samples, ..input }, &cal)
+                    .map_err(e)?;
+                Some(serde_json::to_value(r).expect("serializes"))
+            }
+            "response" => match (&stim, &desc) {
+                (Some(s), Some(d)) => {
+                    let sp = SweepParams::from_description(d)
+                        .ok_or("the stored stimulus is not a sweep")?;
+                    let x = s
+                        .channel(d.signal_channels[0])
+                        .ok_or("the stored stimulus lacks its signal channel")?;
+                    let an = ResponseAnalyzer::new(ResponseConfig::default()).map_err(e)?;
+                    let r = an
+                        .analyze(
+                            run.meta.channel,
+                            x,
+                            sp,
+                            &cap.channels[0],
+                            fs,
+                            input.overload_threshold,
+                        )
+                        .map_err(e)?;
+                    Some(serde_json::to_value(r).expect("serializes"))
+                }
+                _ => None,
+            },
+            "power" => match (&stim, &desc) {
+                (Some(s), Some(d)) => {
+                    let Kind::Steps {
+                        frequency_hz,
+                        steps,
+                        ..
+                    } = &d.kind
+                    else {
+                        return Err(format!(
+                            "{}: the stored stimulus is not a staircase",
+                            run.meta.id
+                        ));
+                    };
+                    let x = s
+                        .channel(d.signal_channels[0])
+                        .ok_or("the stored stimulus lacks its signal channel")?;
+                    let lag = ampnote::procedure::align::find_envelope_lag(
+                        &cap.channels[0],
+                        x,
+                        (fs / 100.0) as usize,
+                        steps[0].start_sample,
+                        (2.0 * fs) as usize,
+                    )
+                    .map_or(0, |l| l.0);
+                    let r = ampnote::procedure::power::power_from_capture(
+                        run.meta.channel,
+                        &cap.channels[0],
+                        fs,
+                        input.overload_threshold,
+                        input.resolution_bits,
+                        *frequency_hz,
+                        steps,
+                        lag,
+                        &cal,
+                    )
+                    .map_err(e)?;
+                    Some(serde_json::to_value(r).expect("serializes"))
+                }
+                _ => None,
+            },
+            _ => None,
+        };
+        match result {
+            Some(v) => {
+                let path = nb.add_result(&run, &v).map_err(e)?;
+                eprintln!("{}: new result {}", run.meta.id, path.display());
+                done += 1;
+            }
+            None => skipped.push(format!(
+                "{} ({} runs are not re-analysed from files)",
+                run.meta.id, run.meta.procedure
+            )),
+        }
+    }
+    for s in &skipped {
+        eprintln!("skipped {s}");
+    }
+    super::print_stdout(&format!("{done} run(s) re-analysed\n"));
     Ok(ExitCode::SUCCESS)
 }

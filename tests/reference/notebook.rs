@@ -174,6 +174,35 @@ fn demo_runs_end_to_end() {
         .find(|l| l["figure"] == "power at 1 % THD")
         .unwrap();
     assert!(p["delta"].as_f64().unwrap() > 3.0, "{p}");
+    // The report of a full notebook; then re-analysis from the stored captures (24-bit files)
+    // gives the same figures, kept beside the old ones.
+    assert!(
+        out.join("report/report.html").exists() && out.join("report/charts/spectrum.svg").exists()
+    );
+    let before: Vec<f64> = nb
+        .runs()
+        .unwrap()
+        .iter()
+        .filter(|r| r.meta.procedure == "power")
+        .map(|r| r.result["power_at_thd"][0]["output_w"].as_f64().unwrap())
+        .collect();
+    let (code, o, err) = run(&[
+        "notebook",
+        "reanalyze",
+        &out.join("notebook").to_string_lossy(),
+    ]);
+    assert_eq!(code, 0, "{err}");
+    assert!(o.contains("12 run(s) re-analysed"), "{o}{err}");
+    let after: Vec<f64> = nb
+        .runs()
+        .unwrap()
+        .iter()
+        .filter(|r| r.meta.procedure == "power")
+        .map(|r| r.result["power_at_thd"][0]["output_w"].as_f64().unwrap())
+        .collect();
+    for (x, y) in before.iter().zip(&after) {
+        assert!((x / y - 1.0).abs() < 1e-3, "re-analysed power {y} vs {x}");
+    }
     std::fs::remove_dir_all(&d).ok();
 }
 
