@@ -8,6 +8,7 @@
 use crate::error::{Error, Result};
 use crate::notebook::{Notebook, Run};
 use crate::report::compare::{compare, match_channels, MatchTolerances};
+use plotters::coord::Shift;
 use plotters::prelude::*;
 use serde_json::Value;
 use std::fmt::Write as _;
@@ -34,6 +35,54 @@ struct Curve {
     points: Points,
 }
 
+/// DejaVu Sans (Bitstream Vera licence, `assets/fonts/`), for text in PNG charts: the bitmap
+/// backend cannot rely on system fonts.
+static FONT: &[u8] = include_bytes!("../../assets/fonts/DejaVuSans.ttf");
+
+fn ensure_font() -> Result<()> {
+    static ONCE: std::sync::OnceLock<bool> = std::sync::OnceLock::new();
+    let ok = *ONCE.get_or_init(|| {
+        ["sans-serif", "serif", "monospace"].iter().all(|family| {
+            [
+                FontStyle::Normal,
+                FontStyle::Bold,
+                FontStyle::Italic,
+                FontStyle::Oblique,
+            ]
+            .into_iter()
+            .all(|style| plotters::style::register_font(family, style, FONT).is_ok())
+        })
+    });
+    if ok {
+        Ok(())
+    } else {
+        Err(Error::InvalidSetting(
+            "the bundled chart font could not be loaded".into(),
+        ))
+    }
+}
+
+/// Draw a chart as SVG (the value) and, when `png` names a file, as PNG too: the body is expanded
+/// once per plotters backend.
+macro_rules! render {
+    ($png:expr, |$root:ident| $body:expr) => {{
+        // Text is measured with the bundled font for both backends.
+        ensure_font()?;
+        let mut svg = String::new();
+        {
+            let area = SVGBackend::with_string(&mut svg, SIZE).into_drawing_area();
+            let $root = &area;
+            $body?;
+        }
+        if let Some(path) = $png {
+            let area = BitMapBackend::new(path, SIZE).into_drawing_area();
+            let $root = &area;
+            $body?;
+        }
+        Ok::<String, Error>(svg)
+    }};
+}
+
 fn draw_err<E: std::fmt::Debug>(e: E) -> Error {
     Error::InvalidSetting(format!("drawing a chart failed: {e:?}"))
 }
@@ -47,8 +96,9 @@ fn line_chart(
     log_x: bool,
     log_y: bool,
     hline: Option<f64>,
+    png: Option<&Path>,
 ) -> Result<String> {
-    annotated_chart(title, x_desc, y_desc, curves, log_x, log_y, hline, &[])
+    annotated_chart(title, x_desc, y_desc, curves, log_x, log_y, hline, &[], png)
 }
 
 /// [`line_chart`] with text notes at data coordinates (harmonic labels on a spectrum).
@@ -62,6 +112,7 @@ fn annotated_chart(
     log_y: bool,
     hline: Option<f64>,
     notes: &[(f64, f64, String)],
+    png: Option<&Path>,
 ) -> Result<String> {
     let pts = curves.iter().flat_map(|c| c.points.iter()).filter(|p| {
         p.0.is_finite() && p.1.is_finite() && (!log_x || p.0 > 0.0) && (!log_y || p.1 > 0.0)
@@ -91,92 +142,104 @@ fn annotated_chart(
         let m = ((y1 - y0) * 0.08).max(0.5);
         (y0 - m, y1 + m)
     };
-    let mut svg = String::new();
-    {
-        let root = SVGBackend::with_string(&mut svg, SIZE).into_drawing_area();
-        root.fill(&WHITE).map_err(draw_err)?;
-        let mut b = ChartBuilder::on(&root);
-        b.caption(title, ("sans-serif", 18))
-            .margin(12)
-            .x_label_area_size(42)
-            .y_label_area_size(60);
-        macro_rules! body {
-            ($chart:expr) => {{
-                let mut chart = $chart;
+    let ranges = (x0, x1, y0, y1);
+    render!(png, |root| draw_lines(
+        root, title, x_desc, y_desc, curves, log_x, log_y, hline, notes, ranges
+    ))
+}
+
+/// The body of every line chart, on any plotters backend.
+#[allow(clippy::too_many_arguments)]
+fn draw_lines<DB: DrawingBackend>(
+    root: &DrawingArea<DB, Shift>,
+    title: &str,
+    x_desc: &str,
+    y_desc: &str,
+    curves: &[Curve],
+    log_x: bool,
+    log_y: bool,
+    hline: Option<f64>,
+    notes: &[(f64, f64, String)],
+    (x0, x1, y0, y1): (f64, f64, f64, f64),
+) -> Result<()> {
+    root.fill(&WHITE).map_err(draw_err)?;
+    let mut b = ChartBuilder::on(&root);
+    b.caption(title, ("sans-serif", 18))
+        .margin(12)
+        .x_label_area_size(42)
+        .y_label_area_size(60);
+    macro_rules! body {
+        ($chart:expr) => {{
+            let mut chart = $chart;
+            chart
+                .configure_mesh()
+                .x_desc(x_desc)
+                .y_desc(y_desc)
+                .light_line_style(RGBColor(235, 235, 235))
+                .draw()
+                .map_err(draw_err)?;
+            if let Some(h) = hline {
                 chart
-                    .configure_mesh()
-                    .x_desc(x_desc)
-                    .y_desc(y_desc)
-                    .light_line_style(RGBColor(235, 235, 235))
-                    .draw()
+                    .draw_series(LineSeries::new(
+                        vec![(x0, h), (x1, h)],
+                        GREY.stroke_width(1),
+                    ))
                     .map_err(draw_err)?;
-                if let Some(h) = hline {
+            }
+            for c in curves {
+                let style = c.color.stroke_width(2);
+                let pts: Vec<(f64, f64)> = c
+                    .points
+                    .iter()
+                    .copied()
+                    .filter(|p| p.0.is_finite() && p.1.is_finite())
+                    .collect();
+                if c.dashed {
                     chart
-                        .draw_series(LineSeries::new(
-                            vec![(x0, h), (x1, h)],
-                            GREY.stroke_width(1),
-                        ))
-                        .map_err(draw_err)?;
+                        .draw_series(DashedLineSeries::new(pts, 7, 5, style))
+                        .map_err(draw_err)?
+                        .label(c.name.clone())
+                        .legend(move |(x, y)| PathElement::new(vec![(x, y), (x + 22, y)], style));
+                } else {
+                    chart
+                        .draw_series(LineSeries::new(pts, style))
+                        .map_err(draw_err)?
+                        .label(c.name.clone())
+                        .legend(move |(x, y)| PathElement::new(vec![(x, y), (x + 22, y)], style));
                 }
-                for c in curves {
-                    let style = c.color.stroke_width(2);
-                    let pts: Vec<(f64, f64)> = c
-                        .points
-                        .iter()
-                        .copied()
-                        .filter(|p| p.0.is_finite() && p.1.is_finite())
-                        .collect();
-                    if c.dashed {
-                        chart
-                            .draw_series(DashedLineSeries::new(pts, 7, 5, style))
-                            .map_err(draw_err)?
-                            .label(c.name.clone())
-                            .legend(move |(x, y)| {
-                                PathElement::new(vec![(x, y), (x + 22, y)], style)
-                            });
-                    } else {
-                        chart
-                            .draw_series(LineSeries::new(pts, style))
-                            .map_err(draw_err)?
-                            .label(c.name.clone())
-                            .legend(move |(x, y)| {
-                                PathElement::new(vec![(x, y), (x + 22, y)], style)
-                            });
-                    }
-                }
-                chart
-                    .draw_series(notes.iter().map(|(x, y, t)| {
-                        Text::new(
-                            t.clone(),
-                            (*x, *y),
-                            ("sans-serif", 13).into_font().color(&BLACK),
-                        )
-                    }))
-                    .map_err(draw_err)?;
-                chart
-                    .configure_series_labels()
-                    .background_style(WHITE.mix(0.85))
-                    .border_style(GREY)
-                    .position(SeriesLabelPosition::UpperRight)
-                    .draw()
-                    .map_err(draw_err)?;
-            }};
-        }
-        match (log_x, log_y) {
-            (true, true) => body!(b
-                .build_cartesian_2d((x0..x1).log_scale(), (y0..y1).log_scale())
-                .map_err(draw_err)?),
-            (true, false) => body!(b
-                .build_cartesian_2d((x0..x1).log_scale(), y0..y1)
-                .map_err(draw_err)?),
-            (false, true) => body!(b
-                .build_cartesian_2d(x0..x1, (y0..y1).log_scale())
-                .map_err(draw_err)?),
-            (false, false) => body!(b.build_cartesian_2d(x0..x1, y0..y1).map_err(draw_err)?),
-        }
-        root.present().map_err(draw_err)?;
+            }
+            chart
+                .draw_series(notes.iter().map(|(x, y, t)| {
+                    Text::new(
+                        t.clone(),
+                        (*x, *y),
+                        ("sans-serif", 13).into_font().color(&BLACK),
+                    )
+                }))
+                .map_err(draw_err)?;
+            chart
+                .configure_series_labels()
+                .background_style(WHITE.mix(0.85))
+                .border_style(GREY)
+                .position(SeriesLabelPosition::UpperRight)
+                .draw()
+                .map_err(draw_err)?;
+        }};
     }
-    Ok(svg)
+    match (log_x, log_y) {
+        (true, true) => body!(b
+            .build_cartesian_2d((x0..x1).log_scale(), (y0..y1).log_scale())
+            .map_err(draw_err)?),
+        (true, false) => body!(b
+            .build_cartesian_2d((x0..x1).log_scale(), y0..y1)
+            .map_err(draw_err)?),
+        (false, true) => body!(b
+            .build_cartesian_2d(x0..x1, (y0..y1).log_scale())
+            .map_err(draw_err)?),
+        (false, false) => body!(b.build_cartesian_2d(x0..x1, y0..y1).map_err(draw_err)?),
+    }
+    root.present().map_err(draw_err)?;
+    Ok(())
 }
 
 fn num(v: &Value, k: &str) -> Option<f64> {
@@ -228,69 +291,74 @@ fn curves_for(runs: &[Run], procedure: &str, f: impl Fn(&Value) -> Vec<(f64, f64
 }
 
 /// Bars of the harmonic profile (H2..H7 in dBc) of every tone run, grouped by order.
-fn profile_chart(runs: &[Run]) -> Result<String> {
+fn profile_chart(runs: &[Run], png: Option<&Path>) -> Result<String> {
     let tones: Vec<&Run> = runs.iter().filter(|r| r.meta.procedure == "tone").collect();
     if tones.is_empty() {
         return Ok(String::new());
     }
     let labels = labels(runs);
     let orders: Vec<u64> = (2..=7).collect();
-    let mut svg = String::new();
-    {
-        let root = SVGBackend::with_string(&mut svg, SIZE).into_drawing_area();
-        root.fill(&WHITE).map_err(draw_err)?;
-        let mut chart = ChartBuilder::on(&root)
-            .caption("Harmonic profile of the tone runs", ("sans-serif", 18))
-            .margin(12)
-            .x_label_area_size(42)
-            .y_label_area_size(60)
-            .build_cartesian_2d(1.5f64..7.5f64, -140f64..0f64)
-            .map_err(draw_err)?;
+    render!(png, |root| draw_profile(root, &tones, &labels, &orders))
+}
+
+fn draw_profile<DB: DrawingBackend>(
+    root: &DrawingArea<DB, Shift>,
+    tones: &[&Run],
+    labels: &[String],
+    orders: &[u64],
+) -> Result<()> {
+    root.fill(&WHITE).map_err(draw_err)?;
+    let mut chart = ChartBuilder::on(&root)
+        .caption("Harmonic profile of the tone runs", ("sans-serif", 18))
+        .margin(12)
+        .x_label_area_size(42)
+        .y_label_area_size(60)
+        .build_cartesian_2d(1.5f64..7.5f64, -140f64..0f64)
+        .map_err(draw_err)?;
+    chart
+        .configure_mesh()
+        .x_desc("Harmonic order")
+        .y_desc("Level (dBc)")
+        .x_labels(6)
+        .x_label_formatter(&|x| format!("H{}", x.round()))
+        .light_line_style(RGBColor(235, 235, 235))
+        .draw()
+        .map_err(draw_err)?;
+    let w = 0.8 / tones.len() as f64;
+    for (i, r) in tones.iter().enumerate() {
+        let li = labels.iter().position(|l| *l == r.meta.label).unwrap_or(0);
+        let color = PALETTE[li % PALETTE.len()];
+        let fill = if r.meta.channel % 2 == 0 {
+            color.mix(0.45).filled()
+        } else {
+            color.filled()
+        };
+        let bars: Vec<Rectangle<(f64, f64)>> = orders
+            .iter()
+            .filter_map(|&o| {
+                let h = arr(&r.result, "harmonics")
+                    .iter()
+                    .find(|h| h.get("order").and_then(Value::as_u64) == Some(o))?;
+                let level = num(h, "level_dbc")?.max(-140.0);
+                let x = o as f64 - 0.4 + i as f64 * w;
+                Some(Rectangle::new([(x, -140.0), (x + w * 0.9, level)], fill))
+            })
+            .collect();
         chart
-            .configure_mesh()
-            .x_desc("Harmonic order")
-            .y_desc("Level (dBc)")
-            .x_labels(6)
-            .x_label_formatter(&|x| format!("H{}", x.round()))
-            .light_line_style(RGBColor(235, 235, 235))
-            .draw()
-            .map_err(draw_err)?;
-        let w = 0.8 / tones.len() as f64;
-        for (i, r) in tones.iter().enumerate() {
-            let li = labels.iter().position(|l| *l == r.meta.label).unwrap_or(0);
-            let color = PALETTE[li % PALETTE.len()];
-            let fill = if r.meta.channel % 2 == 0 {
-                color.mix(0.45).filled()
-            } else {
-                color.filled()
-            };
-            let bars: Vec<Rectangle<(f64, f64)>> = orders
-                .iter()
-                .filter_map(|&o| {
-                    let h = arr(&r.result, "harmonics")
-                        .iter()
-                        .find(|h| h.get("order").and_then(Value::as_u64) == Some(o))?;
-                    let level = num(h, "level_dbc")?.max(-140.0);
-                    let x = o as f64 - 0.4 + i as f64 * w;
-                    Some(Rectangle::new([(x, -140.0), (x + w * 0.9, level)], fill))
-                })
-                .collect();
-            chart
-                .draw_series(bars)
-                .map_err(draw_err)?
-                .label(format!("{}, ch{}", r.meta.label, r.meta.channel))
-                .legend(move |(x, y)| Rectangle::new([(x, y - 5), (x + 14, y + 5)], fill));
-        }
-        chart
-            .configure_series_labels()
-            .background_style(WHITE.mix(0.85))
-            .border_style(GREY)
-            .position(SeriesLabelPosition::UpperRight)
-            .draw()
-            .map_err(draw_err)?;
-        root.present().map_err(draw_err)?;
+            .draw_series(bars)
+            .map_err(draw_err)?
+            .label(format!("{}, ch{}", r.meta.label, r.meta.channel))
+            .legend(move |(x, y)| Rectangle::new([(x, y - 5), (x + 14, y + 5)], fill));
     }
-    Ok(svg)
+    chart
+        .configure_series_labels()
+        .background_style(WHITE.mix(0.85))
+        .border_style(GREY)
+        .position(SeriesLabelPosition::UpperRight)
+        .draw()
+        .map_err(draw_err)?;
+    root.present().map_err(draw_err)?;
+    Ok(())
 }
 
 /// From a tone run's stored capture: its spectrum (dBFS per bin under the 7-term window, reduced
@@ -577,11 +645,22 @@ pub fn write_report(nb: &Notebook, out: &Path) -> Result<ReportFiles> {
             points: res,
         });
     }
+    let png = |file: &str| out.join("charts").join(format!("{file}.png"));
+    let lin =
+        |file: &str,
+         title: &str,
+         xd: &str,
+         yd: &str,
+         c: &[Curve],
+         lx: bool,
+         ly: bool,
+         h: Option<f64>| { line_chart(title, xd, yd, c, lx, ly, h, Some(&png(file))) };
     let charts = [
         (
             "thd-vs-power",
             "THD against output power",
-            line_chart(
+            lin(
+                "thd-vs-power",
                 "THD against output power",
                 "Output power (W)",
                 "THD (%)",
@@ -594,7 +673,8 @@ pub fn write_report(nb: &Notebook, out: &Path) -> Result<ReportFiles> {
         (
             "response-magnitude",
             "Frequency response",
-            line_chart(
+            lin(
+                "response-magnitude",
                 "Frequency response (re 1 kHz)",
                 "Frequency (Hz)",
                 "Magnitude (dB)",
@@ -607,7 +687,8 @@ pub fn write_report(nb: &Notebook, out: &Path) -> Result<ReportFiles> {
         (
             "response-phase",
             "Phase",
-            line_chart(
+            lin(
+                "response-phase",
                 "Phase (latency removed)",
                 "Frequency (Hz)",
                 "Phase (degrees)",
@@ -620,7 +701,8 @@ pub fn write_report(nb: &Notebook, out: &Path) -> Result<ReportFiles> {
         (
             "h2-vs-frequency",
             "Second harmonic against frequency",
-            line_chart(
+            lin(
+                "h2-vs-frequency",
                 "Second harmonic against frequency (sweep)",
                 "Frequency (Hz)",
                 "H2 (dBc)",
@@ -633,7 +715,8 @@ pub fn write_report(nb: &Notebook, out: &Path) -> Result<ReportFiles> {
         (
             "thd-vs-frequency",
             "THD against frequency",
-            line_chart(
+            lin(
+                "thd-vs-frequency",
                 "THD against frequency (sweep, H2-H5)",
                 "Frequency (Hz)",
                 "THD (dBc)",
@@ -646,7 +729,7 @@ pub fn write_report(nb: &Notebook, out: &Path) -> Result<ReportFiles> {
         (
             "harmonic-profile",
             "Harmonic profile",
-            profile_chart(&runs)?,
+            profile_chart(&runs, Some(&png("harmonic-profile")))?,
         ),
         (
             "spectrum",
@@ -660,12 +743,14 @@ pub fn write_report(nb: &Notebook, out: &Path) -> Result<ReportFiles> {
                 false,
                 None,
                 &notes,
+                Some(&png("spectrum")),
             )?,
         ),
         (
             "residual",
             "Distortion residual over one period",
-            line_chart(
+            lin(
+                "residual",
                 "Distortion residual over one period of the fundamental",
                 "Phase of the fundamental (degrees)",
                 "Residual (% of the fundamental's peak)",

@@ -229,6 +229,11 @@ fn report_of_a_notebook_and_of_an_empty_one() {
         !html.contains("src=") && !html.contains("href="),
         "no external assets"
     );
+    let png = std::fs::read(out.join("charts/thd-vs-power.png")).unwrap();
+    assert!(
+        png.starts_with(b"\x89PNG") && png.len() > 5000,
+        "a PNG beside each SVG"
+    );
     let svg = std::fs::read_to_string(out.join("charts/thd-vs-power.svg")).unwrap();
     assert!(
         svg.contains("<line") || svg.contains("<polyline") || svg.contains("<path"),
