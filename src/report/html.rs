@@ -88,6 +88,7 @@ fn draw_err<E: std::fmt::Debug>(e: E) -> Error {
 }
 
 /// A line chart; `log_x`/`log_y` pick logarithmic axes. `hline` draws a reference level.
+#[allow(clippy::too_many_arguments)]
 fn line_chart(
     title: &str,
     x_desc: &str,
@@ -163,7 +164,7 @@ fn draw_lines<DB: DrawingBackend>(
     (x0, x1, y0, y1): (f64, f64, f64, f64),
 ) -> Result<()> {
     root.fill(&WHITE).map_err(draw_err)?;
-    let mut b = ChartBuilder::on(&root);
+    let mut b = ChartBuilder::on(root);
     b.caption(title, ("sans-serif", 18))
         .margin(12)
         .x_label_area_size(42)
@@ -308,7 +309,7 @@ fn draw_profile<DB: DrawingBackend>(
     orders: &[u64],
 ) -> Result<()> {
     root.fill(&WHITE).map_err(draw_err)?;
-    let mut chart = ChartBuilder::on(&root)
+    let mut chart = ChartBuilder::on(root)
         .caption("Harmonic profile of the tone runs", ("sans-serif", 18))
         .margin(12)
         .x_label_area_size(42)
