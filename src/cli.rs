@@ -99,23 +99,34 @@ pub enum NotebookAction {
 
 #[derive(Debug, Args)]
 pub struct CompareArgs {
-    /// Before: a label (or run id) in the notebook.
+    /// Before: a label (or LABEL:CH, or a run id) in the notebook, or a capture file.
     pub a: String,
     /// After.
     pub b: String,
+    /// The notebook the labels live in; without it A and B are capture files.
     #[arg(long, value_name = "DIR")]
-    pub notebook: PathBuf,
+    pub notebook: Option<PathBuf>,
+    /// With capture files: the stimulus they recorded (a tone, staircase or sweep).
+    #[arg(long, value_name = "FILE.wav")]
+    pub stimulus: Option<PathBuf>,
+    #[command(flatten)]
+    pub calibration: CalibrationArgs,
     #[arg(long)]
     pub json: bool,
 }
 
 #[derive(Debug, Args)]
 pub struct MatchArgs {
-    /// A label (its channels 1 and 2 are matched), or LABEL:CH / a run id, with B.
+    /// A label (its channels 1 and 2 are matched), or LABEL:CH / a run id, with B; or capture
+    /// files (one stereo file, or two files).
     pub a: String,
     pub b: Option<String>,
+    /// The notebook the labels live in; without it A (and B) are capture files.
     #[arg(long, value_name = "DIR")]
-    pub notebook: PathBuf,
+    pub notebook: Option<PathBuf>,
+    /// With capture files: the stimulus they recorded.
+    #[arg(long, value_name = "FILE.wav")]
+    pub stimulus: Option<PathBuf>,
     /// Tolerances.
     #[arg(long, default_value_t = 0.5, value_name = "DB")]
     pub gain_tolerance: f64,

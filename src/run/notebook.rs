@@ -141,6 +141,53 @@ fn headline(r: &Run) -> String {
     }
 }
 
+/// Runs made on the spot from a capture file (every channel, analysed as its stimulus says).
+fn runs_from_file(
+    path: &Path,
+    stimulus: Option<&Path>,
+    label: &str,
+    cal: &ampnote::calibration::Calibration,
+) -> Result<Vec<Run>, String> {
+    use ampnote::capture::Capture;
+    use ampnote::signal::stimulus::Description;
+    let stim = match stimulus {
+        Some(p) => Some(Capture::read_wav(p, false).map_err(e)?),
+        None => None,
+    };
+    let desc = stim
+        .as_ref()
+        .and_then(|s| s.description_json.as_deref())
+        .and_then(Description::from_json);
+    if stim.is_some() && desc.is_none() {
+        return Err(format!(
+            "{} carries no stimulus description; give the file `ampnote generate` wrote",
+            stimulus.map_or(String::new(), |p| p.display().to_string())
+        ));
+    }
+    let info = Capture::probe_wav(path).map_err(e)?;
+    let mut out = Vec::new();
+    for ch in 1..=info.channel_count {
+        let cap = Capture::read_wav_channels(path, false, Some(&[ch])).map_err(e)?;
+        let (procedure, result) = analyze_capture(&cap, ch, stim.as_ref().zip(desc.as_ref()), cal)?;
+        out.push(Run {
+            dir: path.to_path_buf(),
+            meta: ampnote::notebook::RunMeta {
+                id: format!("{}:{ch}", path.display()),
+                label: label.to_string(),
+                channel: ch,
+                procedure: procedure.to_string(),
+                time: ampnote::notebook::now_utc(),
+                notes: String::new(),
+                settings: Default::default(),
+                calibration: *cal,
+                files: vec![],
+            },
+            result,
+        });
+    }
+    Ok(out)
+}
+
 /// Runs named by a label, `LABEL:CH`, or a run id.
 fn pick(nb: &Notebook, name: &str) -> Result<Vec<Run>, String> {
     let runs = nb.runs().map_err(e)?;
@@ -155,8 +202,20 @@ fn pick(nb: &Notebook, name: &str) -> Result<Vec<Run>, String> {
 }
 
 pub fn compare(args: &CompareArgs) -> Result<ExitCode, String> {
-    let nb = Notebook::open(&args.notebook).map_err(e)?;
-    let (a, b) = (pick(&nb, &args.a)?, pick(&nb, &args.b)?);
+    let (a, b) = match &args.notebook {
+        Some(dir) => {
+            let nb = Notebook::open(dir).map_err(e)?;
+            (pick(&nb, &args.a)?, pick(&nb, &args.b)?)
+        }
+        None => {
+            let cal = args.calibration.calibration()?;
+            let st = args.stimulus.as_deref();
+            (
+                runs_from_file(Path::new(&args.a), st, &args.a, &cal)?,
+                runs_from_file(Path::new(&args.b), st, &args.b, &cal)?,
+            )
+        }
+    };
     let c = compare_runs(&args.a, &a, &args.b, &b);
     for w in c.warnings.iter().filter(|_| args.json) {
         eprintln!("warning: {w}");
@@ -166,12 +225,44 @@ pub fn compare(args: &CompareArgs) -> Result<ExitCode, String> {
 }
 
 pub fn match_(args: &MatchArgs) -> Result<ExitCode, String> {
-    let nb = Notebook::open(&args.notebook).map_err(e)?;
-    let (na, nb_name) = match &args.b {
-        Some(b) => (args.a.clone(), b.clone()),
-        None => (format!("{}:1", args.a), format!("{}:2", args.a)),
+    let (na, nb_name, a, b) = match &args.notebook {
+        Some(dir) => {
+            let nb = Notebook::open(dir).map_err(e)?;
+            let (na, nb_name) = match &args.b {
+                Some(b) => (args.a.clone(), b.clone()),
+                None => (format!("{}:1", args.a), format!("{}:2", args.a)),
+            };
+            let (a, b) = (pick(&nb, &na)?, pick(&nb, &nb_name)?);
+            (na, nb_name, a, b)
+        }
+        None => {
+            // Capture files: two files (channel 1 of each), or one stereo file (its channels).
+            let cal = ampnote::calibration::Calibration::default();
+            let st = args.stimulus.as_deref();
+            let all_a = runs_from_file(Path::new(&args.a), st, &args.a, &cal)?;
+            match &args.b {
+                Some(bp) => {
+                    let b = runs_from_file(Path::new(bp), st, bp, &cal)?;
+                    let first = |v: Vec<Run>| {
+                        v.into_iter()
+                            .filter(|r| r.meta.channel == 1)
+                            .collect::<Vec<_>>()
+                    };
+                    (args.a.clone(), bp.clone(), first(all_a), first(b))
+                }
+                None => {
+                    let (l, r): (Vec<Run>, Vec<Run>) =
+                        all_a.into_iter().partition(|r| r.meta.channel == 1);
+                    (
+                        format!("{}:1", args.a),
+                        format!("{}:2", args.a),
+                        l,
+                        r.into_iter().filter(|r| r.meta.channel == 2).collect(),
+                    )
+                }
+            }
+        }
     };
-    let (a, b) = (pick(&nb, &na)?, pick(&nb, &nb_name)?);
     let tol = MatchTolerances {
         gain_db: args.gain_tolerance,
         response_db: args.response_tolerance,
@@ -202,12 +293,100 @@ pub fn report(dir: &Path, out: Option<&Path>) -> Result<ExitCode, String> {
     Ok(ExitCode::SUCCESS)
 }
 
-/// Analyse stored captures again (tone, response and power runs); results go beside the old.
-fn reanalyze(dir: &Path, only: &[String]) -> Result<ExitCode, String> {
+/// Analyse one channel of a capture the way its stimulus says: a staircase gives a power run, a
+/// sweep a response run, a tone (or no stimulus) a tone run. Returns the procedure and result.
+pub fn analyze_capture(
+    capture: &ampnote::capture::Capture,
+    channel: usize,
+    stimulus: Option<(
+        &ampnote::capture::Capture,
+        &ampnote::signal::stimulus::Description,
+    )>,
+    cal: &ampnote::calibration::Calibration,
+) -> Result<(&'static str, serde_json::Value), String> {
     use ampnote::analysis::sweep::{ResponseAnalyzer, ResponseConfig, SweepParams};
     use ampnote::analysis::tone::{ChannelInput, ToneAnalyzer, ToneConfig};
+    use ampnote::signal::stimulus::Kind;
+    let y = &capture.channels[0];
+    let fs = capture.sample_rate_hz as f64;
+    let rate = capture.sample_rate_hz as usize;
+    let input = ChannelInput {
+        channel,
+        samples: y,
+        sample_rate_hz: fs,
+        overload_threshold: capture.encoding.overload_threshold(),
+        resolution_bits: capture.encoding.resolution_bits(),
+    };
+    let value = |v: serde_json::Result<serde_json::Value>| v.expect("results serialize");
+    match stimulus {
+        Some((s, d)) if matches!(d.kind, Kind::Sweep { .. }) => {
+            let sp = SweepParams::from_description(d).ok_or("the stimulus is not a sweep")?;
+            let x = s
+                .channel(d.signal_channels[0])
+                .ok_or("the stimulus lacks its signal channel")?;
+            let r = ResponseAnalyzer::new(ResponseConfig::default())
+                .map_err(e)?
+                .analyze(channel, x, sp, y, fs, input.overload_threshold)
+                .map_err(e)?;
+            Ok(("response", value(serde_json::to_value(&r))))
+        }
+        Some((s, d)) if matches!(d.kind, Kind::Steps { .. }) => {
+            let Kind::Steps {
+                frequency_hz,
+                steps,
+                ..
+            } = &d.kind
+            else {
+                unreachable!()
+            };
+            let x = s
+                .channel(d.signal_channels[0])
+                .ok_or("the stimulus lacks its signal channel")?;
+            let lag = ampnote::procedure::align::find_envelope_lag(
+                y,
+                x,
+                rate / 100,
+                steps[0].start_sample,
+                2 * rate,
+            )
+            .map_or(0, |l| l.0);
+            let r = ampnote::procedure::power::power_from_capture(
+                channel,
+                y,
+                fs,
+                input.overload_threshold,
+                input.resolution_bits,
+                *frequency_hz,
+                steps,
+                lag,
+                cal,
+            )
+            .map_err(e)?;
+            Ok(("power", value(serde_json::to_value(&r))))
+        }
+        other => {
+            // A tone: its steady part when the stimulus says where it is.
+            let samples = match other {
+                Some((_, d)) if matches!(d.kind, Kind::Tone { .. }) => {
+                    let from = d.signal_start_sample + rate / 10;
+                    let to = (d.signal_start_sample + d.signal_samples).saturating_sub(rate / 50);
+                    &y[from.min(to)..to.min(y.len())]
+                }
+                _ => &y[..],
+            };
+            let r = ToneAnalyzer::new(ToneConfig::default())
+                .map_err(e)?
+                .analyze(&ChannelInput { samples, ..input }, cal)
+                .map_err(e)?;
+            Ok(("tone", value(serde_json::to_value(&r))))
+        }
+    }
+}
+
+/// Analyse stored captures again (tone, response and power runs); results go beside the old.
+fn reanalyze(dir: &Path, only: &[String]) -> Result<ExitCode, String> {
     use ampnote::capture::Capture;
-    use ampnote::signal::stimulus::{Description, Kind};
+    use ampnote::signal::stimulus::Description;
     let nb = Notebook::open(dir).map_err(e)?;
     let mut done = 0;
     let mut skipped = Vec::new();
@@ -216,8 +395,13 @@ fn reanalyze(dir: &Path, only: &[String]) -> Result<ExitCode, String> {
             continue;
         }
         let cap_path = run.dir.join("capture.wav");
-        if !cap_path.exists() {
-            skipped.push(format!("{} (no stored capture)", run.meta.id));
+        if !cap_path.exists()
+            || !matches!(run.meta.procedure.as_str(), "tone" | "response" | "power")
+        {
+            skipped.push(format!(
+                "{} ({} runs with a stored capture are re-analysed; this one is {})",
+                run.meta.id, "tone, power and response", run.meta.procedure
+            ));
             continue;
         }
         let info = Capture::probe_wav(&cap_path).map_err(e)?;
@@ -227,113 +411,23 @@ fn reanalyze(dir: &Path, only: &[String]) -> Result<ExitCode, String> {
             1
         };
         let cap = Capture::read_wav_channels(&cap_path, true, Some(&[ch])).map_err(e)?;
-        let fs = cap.sample_rate_hz as f64;
         let stim = Capture::read_wav(&run.dir.join("stimulus.wav"), false).ok();
         let desc = stim
             .as_ref()
             .and_then(|s| s.description_json.as_deref())
             .and_then(Description::from_json);
-        let cal = run.meta.calibration;
-        let input = ChannelInput {
-            channel: run.meta.channel,
-            samples: &cap.channels[0],
-            sample_rate_hz: fs,
-            overload_threshold: cap.encoding.overload_threshold(),
-            resolution_bits: cap.encoding.resolution_bits(),
-        };
-        let result: Option<serde_json::Value> = match run.meta.procedure.as_str() {
-            "tone" => {
-                // The steady part of a stored tone: its description says where it is.
-                let samples = match &desc {
-                    Some(d) if matches!(d.kind, Kind::Tone { .. }) => {
-                        let from = d.signal_start_sample + cap.sample_rate_hz as usize / 10;
-                        let to = (d.signal_start_sample + d.signal_samples)
-                            .saturating_sub(cap.sample_rate_hz as usize / 50);
-                        &cap.channels[0][from.min(to)..to.min(cap.channels[0].len())]
-                    }
-                    _ => &cap.channels[0][..],
-                };
-                let a = ToneAnalyzer::new(ToneConfig::default()).map_err(e)?;
-                let r = a
-                    .analyze(&ChannelInput { samples, ..input }, &cal)
-                    .map_err(e)?;
-                Some(serde_json::to_value(r).expect("serializes"))
-            }
-            "response" => match (&stim, &desc) {
-                (Some(s), Some(d)) => {
-                    let sp = SweepParams::from_description(d)
-                        .ok_or("the stored stimulus is not a sweep")?;
-                    let x = s
-                        .channel(d.signal_channels[0])
-                        .ok_or("the stored stimulus lacks its signal channel")?;
-                    let an = ResponseAnalyzer::new(ResponseConfig::default()).map_err(e)?;
-                    let r = an
-                        .analyze(
-                            run.meta.channel,
-                            x,
-                            sp,
-                            &cap.channels[0],
-                            fs,
-                            input.overload_threshold,
-                        )
-                        .map_err(e)?;
-                    Some(serde_json::to_value(r).expect("serializes"))
-                }
-                _ => None,
-            },
-            "power" => match (&stim, &desc) {
-                (Some(s), Some(d)) => {
-                    let Kind::Steps {
-                        frequency_hz,
-                        steps,
-                        ..
-                    } = &d.kind
-                    else {
-                        return Err(format!(
-                            "{}: the stored stimulus is not a staircase",
-                            run.meta.id
-                        ));
-                    };
-                    let x = s
-                        .channel(d.signal_channels[0])
-                        .ok_or("the stored stimulus lacks its signal channel")?;
-                    let lag = ampnote::procedure::align::find_envelope_lag(
-                        &cap.channels[0],
-                        x,
-                        (fs / 100.0) as usize,
-                        steps[0].start_sample,
-                        (2.0 * fs) as usize,
-                    )
-                    .map_or(0, |l| l.0);
-                    let r = ampnote::procedure::power::power_from_capture(
-                        run.meta.channel,
-                        &cap.channels[0],
-                        fs,
-                        input.overload_threshold,
-                        input.resolution_bits,
-                        *frequency_hz,
-                        steps,
-                        lag,
-                        &cal,
-                    )
-                    .map_err(e)?;
-                    Some(serde_json::to_value(r).expect("serializes"))
-                }
-                _ => None,
-            },
-            _ => None,
-        };
-        match result {
-            Some(v) => {
-                let path = nb.add_result(&run, &v).map_err(e)?;
-                eprintln!("{}: new result {}", run.meta.id, path.display());
-                done += 1;
-            }
-            None => skipped.push(format!(
-                "{} ({} runs are not re-analysed from files)",
+        let pair = stim.as_ref().zip(desc.as_ref());
+        let (procedure, v) = analyze_capture(&cap, run.meta.channel, pair, &run.meta.calibration)?;
+        if procedure != run.meta.procedure {
+            skipped.push(format!(
+                "{} (its stored stimulus no longer matches a {} run)",
                 run.meta.id, run.meta.procedure
-            )),
+            ));
+            continue;
         }
+        let path = nb.add_result(&run, &v).map_err(e)?;
+        eprintln!("{}: new result {}", run.meta.id, path.display());
+        done += 1;
     }
     for s in &skipped {
         eprintln!("skipped {s}");

@@ -257,3 +257,40 @@ fn report_of_a_notebook_and_of_an_empty_one() {
     );
     std::fs::remove_dir_all(&d).ok();
 }
+
+#[test]
+fn compare_and_match_capture_files() {
+    // Two committed sox captures of one sweep (fixtures/response): a 40 Hz high-pass and a 15 kHz
+    // low-pass. Their largest deviations over 20 Hz - 20 kHz come from the RBJ cookbook responses
+    // (-12.3 dB at 20 Hz for the high-pass, -7.1 dB near 20 kHz for the low-pass), and the two
+    // differ by far more than 0.5 dB, so matching them fails (exit code 1).
+    let f = |n: &str| {
+        Path::new(env!("CARGO_MANIFEST_DIR"))
+            .join("fixtures/response")
+            .join(n)
+            .to_string_lossy()
+            .into_owned()
+    };
+    let (hp, lp, sw) = (
+        f("highpass-40hz-q0707-96k-float.wav"),
+        f("lowpass-15khz-q0707-96k-float.wav"),
+        f("sweep-10hz-40khz-96k-24bit.wav"),
+    );
+    let (code, out, err) = run(&["compare", &hp, &lp, "--stimulus", &sw, "--json"]);
+    assert_eq!(code, 0, "{err}");
+    let v: serde_json::Value = serde_json::from_str(&out).unwrap();
+    let dev = v["lines"]
+        .as_array()
+        .unwrap()
+        .iter()
+        .find(|l| l["figure"] == "largest deviation 20 Hz-20 kHz")
+        .unwrap()
+        .clone();
+    assert!(
+        (dev["a"].as_f64().unwrap() + 12.3).abs() < 0.05
+            && (dev["b"].as_f64().unwrap() + 7.1).abs() < 0.05,
+        "{dev}"
+    );
+    let (code, out, _) = run(&["match", &hp, &lp, "--stimulus", &sw, "--json"]);
+    assert_eq!(code, 1, "{out}");
+}
