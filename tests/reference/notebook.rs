@@ -294,3 +294,44 @@ fn compare_and_match_capture_files() {
     let (code, out, _) = run(&["match", &hp, &lp, "--stimulus", &sw, "--json"]);
     assert_eq!(code, 1, "{out}");
 }
+
+#[test]
+fn a_write_that_fails_half_way_leaves_the_notebook_intact() {
+    // A write failing after part of the run is on disk (as a full disk would): the save reports
+    // it, the half-written folder is removed, and the notebook lists what it listed before.
+    let d = tmpdir("nbfail");
+    let nb = Notebook::init(&d.join("amp"), "test amp", 1, None, None).unwrap();
+    let good = |blobs: Vec<(&'static str, Vec<u8>)>| NewRun {
+        label: "x",
+        channel: 1,
+        procedure: "tone",
+        notes: "",
+        settings: BTreeMap::new(),
+        calibration: Default::default(),
+        files: vec![],
+        blobs,
+        result: serde_json::json!({}),
+    };
+    nb.save(good(vec![("capture.wav", vec![0; 10])])).unwrap();
+    let err = nb.save(good(vec![
+        ("capture.wav", vec![0; 10]),
+        ("no-such-folder/more.wav", vec![0; 10]),
+    ]));
+    assert!(err.is_err(), "the failing write must be reported");
+    assert_eq!(nb.runs().unwrap().len(), 1);
+    let leftovers: Vec<_> = std::fs::read_dir(d.join("amp/runs"))
+        .unwrap()
+        .flatten()
+        .filter(|e| e.file_name().to_string_lossy().starts_with('.'))
+        .collect();
+    assert!(leftovers.is_empty(), "partial folders left behind");
+    // A channel the notebook does not have.
+    let mut bad = good(vec![]);
+    bad.channel = 2;
+    assert!(nb
+        .save(bad)
+        .unwrap_err()
+        .to_string()
+        .contains("channel 2 is not in this notebook"));
+    std::fs::remove_dir_all(&d).ok();
+}
