@@ -154,6 +154,7 @@ pub fn compare(name_a: &str, a: &[Run], name_b: &str, b: &[Run]) -> Comparison {
     let mut channels: Vec<usize> = a.iter().map(|r| r.meta.channel).collect();
     channels.sort();
     channels.dedup();
+    let mut skipped: Vec<String> = Vec::new();
     for ch in channels {
         let mut add = |fig: &str, x: Option<f64>, y: Option<f64>, unit: &str| {
             if let (Some(x), Some(y)) = (x, y) {
@@ -167,8 +168,12 @@ pub fn compare(name_a: &str, a: &[Run], name_b: &str, b: &[Run]) -> Comparison {
         };
         if let (Some(pa), Some(pb)) = (latest(a, "power", ch), latest(b, "power", ch)) {
             for t in [1.0, 3.0, 10.0] {
-                if let (Some((x, u)), Some((y, _))) = (power_at(pa, t), power_at(pb, t)) {
-                    add(&format!("power at {t} % THD"), Some(x), Some(y), u);
+                match (power_at(pa, t), power_at(pb, t)) {
+                    (Some((x, u)), Some((y, v))) if u == v => add(&format!("power at {t} % THD"), Some(x), Some(y), u),
+                    (Some((_, u)), Some((_, v))) => skipped.push(format!(
+                        "channel {ch}: power at {t} % is in {u} on one side and {v} on the other: not compared (give both sides a calibration)"
+                    )),
+                    _ => {}
                 }
             }
             add(
@@ -266,6 +271,7 @@ pub fn compare(name_a: &str, a: &[Run], name_b: &str, b: &[Run]) -> Comparison {
             );
         }
     }
+    warnings.extend(skipped);
     if lines.is_empty() {
         warnings.push(format!("`{name_a}` and `{name_b}` share no measurement on a common channel; nothing to compare"));
     }
