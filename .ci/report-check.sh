@@ -10,7 +10,7 @@ if ! command -v chromium > /dev/null; then
 fi
 work=$(mktemp -d)
 trap 'rm -rf "$work"' EXIT
-./target/release/ampnote demo --out "$work/demo" > /dev/null
+cargo run --release -q -- demo --out "$work/demo" > /dev/null
 page="file://$work/demo/report/report.html"
 flags=(--headless --no-sandbox --disable-gpu --disable-quic --no-first-run --disable-background-networking
        --disable-component-update --disable-sync --user-data-dir="$work/profile")
