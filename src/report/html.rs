@@ -253,6 +253,14 @@ fn arr<'a>(v: &'a Value, k: &str) -> &'a [Value] {
         .map_or(&[], |a| a.as_slice())
 }
 
+/// The (x, y) pairs of a list of JSON points, by key; points lacking either are skipped.
+fn xy(points: &[Value], x: &str, y: &str) -> Points {
+    points
+        .iter()
+        .filter_map(|p| Some((num(p, x)?, num(p, y)?)))
+        .collect()
+}
+
 /// Labels in the order their first run was made.
 fn labels(runs: &[Run]) -> Vec<String> {
     let mut out: Vec<String> = Vec::new();
@@ -577,33 +585,21 @@ pub fn write_report(nb: &Notebook, out: &Path) -> Result<ReportFiles> {
             .collect()
     });
     let response = curves_for(&runs, "response", |v| {
-        arr(v, "points")
-            .iter()
-            .filter_map(|p| Some((num(p, "frequency_hz")?, num(p, "magnitude_db")?)))
-            .collect()
+        xy(arr(v, "points"), "frequency_hz", "magnitude_db")
     });
     let phase = curves_for(&runs, "response", |v| {
-        arr(v, "points")
-            .iter()
-            .filter_map(|p| Some((num(p, "frequency_hz")?, num(p, "phase_deg")?)))
-            .collect()
+        xy(arr(v, "points"), "frequency_hz", "phase_deg")
     });
     let h2 = curves_for(&runs, "response", |v| {
         arr(v, "harmonics")
             .iter()
             .find(|h| h.get("order").and_then(Value::as_u64) == Some(2))
             .map_or(Vec::new(), |h| {
-                arr(h, "points")
-                    .iter()
-                    .filter_map(|p| Some((num(p, "frequency_hz")?, num(p, "level_dbc")?)))
-                    .collect()
+                xy(arr(h, "points"), "frequency_hz", "level_dbc")
             })
     });
     let thd_f = curves_for(&runs, "response", |v| {
-        arr(v, "thd")
-            .iter()
-            .filter_map(|p| Some((num(p, "frequency_hz")?, num(p, "level_dbc")?)))
-            .collect()
+        xy(arr(v, "thd"), "frequency_hz", "level_dbc")
     });
     // Spectrum and residual of each label's left-channel tone run (the latest).
     let mut spectra = Vec::new();
