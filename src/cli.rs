@@ -35,6 +35,9 @@ pub enum Command {
     Response(ResponseArgs),
     /// Intermodulation distortion from a recorded two-tone pair (IEC 60268-3).
     Imd(ImdArgs),
+    /// Noise and hum with no signal (input shorted or silent): flat and A-weighted, mains lines,
+    /// and S/N re 1 W when calibrated.
+    Noise(NoiseArgs),
     /// Output power at 1 %, 3 % and 10 % THD from a staircase of levels (a capture, or a rig).
     Power(PowerArgs),
     /// Output impedance and damping factor by the two-load method.
@@ -409,6 +412,26 @@ pub struct ResponseArgs {
     pub csv: Option<PathBuf>,
     #[arg(long)]
     pub accept_truncated: bool,
+
+    #[command(flatten)]
+    pub save: SaveArgs,
+}
+
+#[derive(Debug, Args)]
+pub struct NoiseArgs {
+    /// The recording of the amplifier's output with no signal.
+    pub capture: PathBuf,
+    #[arg(long, default_value = "all", value_name = "N|all")]
+    pub channel: String,
+    /// Measurement band in Hz.
+    #[arg(long, default_value = "20:20000", value_name = "LO:HI")]
+    pub band: String,
+    #[arg(long, default_value = "auto", value_name = "auto|50|60|HZ")]
+    pub mains: String,
+    #[command(flatten)]
+    pub calibration: CalibrationArgs,
+    #[arg(long)]
+    pub json: bool,
 
     #[command(flatten)]
     pub save: SaveArgs,

@@ -1,13 +1,14 @@
 //! The demo: the whole bench on the simulated bench, as a user would run it. An invented stereo
 //! single-ended amplifier is measured stock (both channels: a tone at 1 W, the power staircase,
-//! a sweep, output impedance), reworked, measured again; every run goes into a notebook, then the
+//! a sweep, output impedance, noise and hum with no signal), reworked, measured again; every run goes into a notebook, then the
 //! before/after comparison and the channel match.
 //!
 //! Each measurement goes the way it would at a bench without the live rig: ampnote writes the
 //! stimulus file, the simulated bench "plays and records" it, and the capture file is analysed.
 
+use crate::analysis::noise::NoiseAnalyzer;
 use crate::analysis::sweep::{ResponseAnalyzer, ResponseConfig, SweepParams};
-use crate::analysis::tone::{ChannelInput, ToneAnalyzer, ToneConfig};
+use crate::analysis::tone::{ChannelInput, Mains, ToneAnalyzer, ToneConfig};
 use crate::calibration::{AttenuatorSection, Calibration, InterfaceSection, LoadSection, Profile};
 use crate::error::Result;
 use crate::notebook::{NewRun, Notebook};
@@ -266,7 +267,29 @@ pub fn run(out: &Path, mut progress: impl FnMut(&str)) -> Result<DemoOutcome> {
                 serde_json::to_value(&z).expect("serializes"),
                 "two loads: 8 and 16 ohm",
             )?;
-            runs += 4;
+            // Noise and hum with the input silent.
+            let silence = vec![0.0; 2 * RATE as usize];
+            let y = rig.play_and_record(ch, &silence, RATE)?;
+            write_wav(
+                &cap_path,
+                RATE,
+                std::slice::from_ref(&y),
+                WavFormat::Int { bits: 24 },
+                2,
+            )?;
+            let nr = NoiseAnalyzer::new().analyze(
+                &input(ch, &y[RATE as usize / 4..], &rig),
+                (20.0, 20_000.0),
+                Mains::Auto,
+                &cal,
+            )?;
+            save(
+                "noise",
+                vec![("capture.wav", &cap_path)],
+                serde_json::to_value(&nr).expect("serializes"),
+                "input silent",
+            )?;
+            runs += 5;
         }
     }
     let a = nb.select("stock", None)?;

@@ -15,6 +15,7 @@ fn main() -> ExitCode {
         Command::Generate { kind } => run::generate::run(kind),
         Command::Response(args) => run::response::run(args),
         Command::Imd(args) => run::imd::run(args),
+        Command::Noise(args) => run::noise::run(args),
         Command::Power(args) => run::power::run(args),
         Command::Zout(args) => run::zout::run(args),
         Command::Calibrate(args) => run::calibrate::run(args),

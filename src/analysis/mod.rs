@@ -2,6 +2,7 @@
 
 pub mod fit;
 pub mod imd;
+pub mod noise;
 pub mod spectrum;
 pub mod sweep;
 pub mod tone;

@@ -256,6 +256,32 @@ pub fn compare(name_a: &str, a: &[Run], name_b: &str, b: &[Run]) -> Comparison {
                 "dBc",
             );
         }
+        if let (Some(na), Some(nb)) = (latest(a, "noise", ch), latest(b, "noise", ch)) {
+            add(
+                "noise with no signal (flat)",
+                num(na, "noise_dbfs"),
+                num(nb, "noise_dbfs"),
+                "dBFS",
+            );
+            add(
+                "noise with no signal (A-weighted)",
+                num(na, "noise_a_dbfs"),
+                num(nb, "noise_a_dbfs"),
+                "dBFS",
+            );
+            add(
+                "hum and noise with no signal",
+                num(na, "hum_and_noise_dbfs"),
+                num(nb, "hum_and_noise_dbfs"),
+                "dBFS",
+            );
+            add(
+                "S/N re 1 W (A-weighted)",
+                num(na, "snr_a_re_1w_db"),
+                num(nb, "snr_a_re_1w_db"),
+                "dB",
+            );
+        }
         if let (Some(za), Some(zb)) = (latest(a, "zout", ch), latest(b, "zout", ch)) {
             add(
                 "output impedance",

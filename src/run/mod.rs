@@ -5,6 +5,7 @@ pub mod analyze;
 pub mod calibrate;
 pub mod generate;
 pub mod imd;
+pub mod noise;
 pub mod notebook;
 pub mod power;
 pub mod response;

@@ -132,6 +132,12 @@ fn headline(r: &Run) -> String {
                 |k: &str| f(k).map_or("beyond the sweep".to_string(), |v| format!("{v:.1} Hz"));
             format!("-3 dB at {} and {}", hz("low_3db_hz"), hz("high_3db_hz"))
         }
+        "noise" => format!(
+            "noise {:.1} dBFS ({:.1} A-weighted){}",
+            f("noise_dbfs").unwrap_or(f64::NAN),
+            f("noise_a_dbfs").unwrap_or(f64::NAN),
+            f("snr_a_re_1w_db").map_or(String::new(), |s| format!(", S/N {s:.1} dB(A) re 1 W"))
+        ),
         "zout" => format!(
             "{:.2} ohm, damping factor {:.1}",
             f("zout_ohms").unwrap_or(f64::NAN),

@@ -153,10 +153,10 @@ fn demo_runs_end_to_end() {
     let out = d.join("demo");
     let (code, stdout, err) = run(&["demo", "--out", &out.to_string_lossy()]);
     assert_eq!(code, 0, "{err}");
-    assert!(stdout.contains("16 runs kept"), "{stdout}");
+    assert!(stdout.contains("20 runs kept"), "{stdout}");
     assert!(stdout.contains("power at 1 % THD"), "{stdout}");
     let nb = Notebook::open(&out.join("notebook")).unwrap();
-    assert_eq!(nb.runs().unwrap().len(), 16);
+    assert_eq!(nb.runs().unwrap().len(), 20);
     // The rework lowers the second harmonic (its driver cancels part of it): power at 1 % rises.
     let (_, cmp, _) = run(&[
         "compare",

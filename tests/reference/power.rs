@@ -295,3 +295,66 @@ fn steps_that_overload_the_interface_are_left_out() {
         r.warnings
     );
 }
+
+#[test]
+fn noise_and_hum_with_no_signal() {
+    // White noise of standard deviation s read over 20 Hz - 20 kHz keeps (20000 - 20) / (fs/2) of
+    // its power (REFERENCES.md, Quantization); in dBFS (re a full-scale sine's 1/2 mean square):
+    // 10 lg(s^2 f / 0.5). A 100 Hz ripple line of amplitude a reads 20 lg(a) dBFS. A-weighting
+    // of white noise over 20 Hz - 20 kHz: the band's mean of the IEC 61672 power gain.
+    use ampnote::analysis::noise::NoiseAnalyzer;
+    use ampnote::analysis::tone::{ChannelInput, Mains};
+    use ampnote::analysis::weighting::a_weighting_power;
+    let fs = 48_000.0;
+    let mut rng = ampnote::signal::dither::Rng::new(9);
+    let s = 1e-4;
+    let a = 3e-4;
+    let x: Vec<f64> = (0..96_000)
+        .map(|i| s * rng.gaussian() + a * (2.0 * PI * 100.0 * i as f64 / fs + 0.3).sin())
+        .collect();
+    let r = NoiseAnalyzer::new()
+        .analyze(
+            &ChannelInput {
+                channel: 1,
+                samples: &x,
+                sample_rate_hz: fs,
+                overload_threshold: 1.0,
+                resolution_bits: 53,
+            },
+            (20.0, 20_000.0),
+            Mains::Auto,
+            &Calibration::default(),
+        )
+        .unwrap();
+    let frac = (20_000.0 - 20.0) / (fs / 2.0);
+    let want = 10.0 * (s * s * frac / 0.5).log10();
+    assert!(
+        (r.noise_dbfs - want).abs() < 0.1,
+        "noise {:.3} vs {want:.3} dBFS",
+        r.noise_dbfs
+    );
+    let mean_a: f64 = (0..2000)
+        .map(|i| a_weighting_power(20.0 + (20_000.0 - 20.0) * (i as f64 + 0.5) / 2000.0))
+        .sum::<f64>()
+        / 2000.0;
+    let want_a = want + 10.0 * mean_a.log10();
+    assert!(
+        (r.noise_a_dbfs - want_a).abs() < 0.15,
+        "A-weighted {:.3} vs {want_a:.3} dBFS",
+        r.noise_a_dbfs
+    );
+    assert_eq!(r.mains_hz, 50.0);
+    let h = r.hum.iter().find(|h| h.order == 2).unwrap();
+    assert!(
+        (h.level_dbfs - 20.0 * a.log10()).abs() < 0.05,
+        "ripple {:.3} dBFS",
+        h.level_dbfs
+    );
+    let total = 10.0 * ((s * s * frac + a * a / 2.0) / 0.5).log10();
+    assert!(
+        (r.hum_and_noise_dbfs - total).abs() < 0.1,
+        "hum and noise {:.3} vs {total:.3}",
+        r.hum_and_noise_dbfs
+    );
+    assert!(r.warnings.is_empty(), "{:?}", r.warnings);
+}

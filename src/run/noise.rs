@@ -1,0 +1,153 @@
+//! `ampnote noise`: noise and hum with no signal.
+
+use crate::cli::{channel_choice, NoiseArgs};
+use ampnote::analysis::noise::{NoiseAnalyzer, NoiseResult};
+use ampnote::analysis::tone::{ChannelInput, Mains};
+use ampnote::capture::{select_channels, Capture};
+use ampnote::report::tone::{fmt_volts, ChannelError};
+use serde::Serialize;
+use std::fmt::Write as _;
+use std::process::ExitCode;
+
+/// What `ampnote noise` prints; the first channel's fields repeated at the top level.
+#[derive(Serialize)]
+struct NoiseReport {
+    schema_version: u32,
+    file: String,
+    #[serde(flatten, skip_serializing_if = "Option::is_none")]
+    first: Option<NoiseResult>,
+    channels: Vec<NoiseResult>,
+    #[serde(skip_serializing_if = "Vec::is_empty")]
+    channel_errors: Vec<ChannelError>,
+}
+
+fn table(r: &NoiseReport) -> String {
+    let mut s = format!("{}\n", r.file);
+    for c in &r.channels {
+        let v = |x: Option<f64>| x.map_or(String::new(), |v| format!("   {} rms", fmt_volts(v)));
+        let _ = writeln!(
+            s,
+            "\nChannel {} ({:.2} s, band {:.0}-{:.0} Hz)",
+            c.channel, c.duration_s, c.band_hz[0], c.band_hz[1]
+        );
+        let _ = writeln!(
+            s,
+            "  Noise, flat        {:>8.2} dBFS{}",
+            c.noise_dbfs,
+            v(c.noise_vrms)
+        );
+        let _ = writeln!(
+            s,
+            "  Noise, A-weighted  {:>8.2} dBFS{}",
+            c.noise_a_dbfs,
+            v(c.noise_a_vrms)
+        );
+        let _ = writeln!(
+            s,
+            "  Hum and noise      {:>8.2} dBFS{}",
+            c.hum_and_noise_dbfs,
+            v(c.hum_and_noise_vrms)
+        );
+        if let (Some(f), Some(a)) = (c.snr_re_1w_db, c.snr_a_re_1w_db) {
+            let _ = writeln!(
+                s,
+                "  S/N re 1 W         {f:>8.2} dB flat, {a:.2} dB A-weighted"
+            );
+        }
+        let _ = writeln!(s, "  Mains {} Hz ({})", c.mains_hz, c.mains_source);
+        for h in &c.hum {
+            let _ = writeln!(
+                s,
+                "  {:>6.0} Hz {:>9.2} dBFS{}{}",
+                h.frequency_hz,
+                h.level_dbfs,
+                v(h.level_vrms),
+                if h.at_noise_floor {
+                    "  (noise floor)"
+                } else {
+                    ""
+                }
+            );
+        }
+        for w in &c.warnings {
+            let _ = writeln!(s, "  warning: {w}");
+        }
+    }
+    s
+}
+
+pub fn run(args: &NoiseArgs) -> Result<ExitCode, String> {
+    let e = |err: ampnote::Error| err.to_string();
+    let cal = args.calibration.calibration()?;
+    let (lo, hi) = args
+        .band
+        .split_once(':')
+        .and_then(|(a, b)| Some((a.trim().parse::<f64>().ok()?, b.trim().parse::<f64>().ok()?)))
+        .filter(|(a, b)| *a >= 0.0 && b > a)
+        .ok_or_else(|| {
+            format!(
+                "--band takes LO:HI in Hz, for example 20:20000; got `{}`",
+                args.band
+            )
+        })?;
+    let mains = if args.mains.eq_ignore_ascii_case("auto") {
+        Mains::Auto
+    } else {
+        Mains::Hz(args.mains.parse::<f64>().map_err(|_| {
+            format!(
+                "--mains takes auto, 50, 60 or a frequency; got `{}`",
+                args.mains
+            )
+        })?)
+    };
+    let info = Capture::probe_wav(&args.capture).map_err(e)?;
+    let chosen = select_channels(info.channel_count, channel_choice(&args.channel)?).map_err(e)?;
+    let analyzer = NoiseAnalyzer::new();
+    let mut channels = Vec::new();
+    let mut channel_errors = Vec::new();
+    for &ch in &chosen {
+        let cap = Capture::read_wav_channels(&args.capture, false, Some(&[ch])).map_err(e)?;
+        let input = ChannelInput {
+            channel: ch,
+            samples: &cap.channels[0],
+            sample_rate_hz: cap.sample_rate_hz as f64,
+            overload_threshold: cap.encoding.overload_threshold(),
+            resolution_bits: cap.encoding.resolution_bits(),
+        };
+        match analyzer.analyze(&input, (lo, hi), mains, &cal) {
+            Ok(r) => {
+                super::keep(
+                    &args.save,
+                    "noise",
+                    ch,
+                    cal,
+                    vec![("capture.wav", args.capture.as_path())],
+                    &r,
+                )?;
+                channels.push(r)
+            }
+            Err(err) => channel_errors.push(ChannelError {
+                channel: ch,
+                error: err.to_string(),
+            }),
+        }
+    }
+    let report = NoiseReport {
+        schema_version: ampnote::report::SCHEMA_VERSION,
+        file: args.capture.display().to_string(),
+        first: channels.first().cloned(),
+        channels,
+        channel_errors,
+    };
+    let errors: Vec<&String> = report.channel_errors.iter().map(|c| &c.error).collect();
+    Ok(super::finish(
+        args.json,
+        report
+            .channels
+            .iter()
+            .flat_map(|c| c.warnings.iter().map(move |w| (c.channel, w))),
+        &errors,
+        || serde_json::to_string_pretty(&report).expect("serializes") + "\n",
+        || table(&report),
+    ))
+}
