@@ -108,9 +108,43 @@ impl Description {
         serde_json::to_string(self).expect("description serializes")
     }
 
-    /// Parse a description found in a WAV; `None` when absent or not ampnote's.
+    /// Parse a description found in a WAV; `None` when absent, not ampnote's, or inconsistent
+    /// (a hand-edited chunk must not lead an analysis astray).
     pub fn from_json(text: &str) -> Option<Description> {
-        serde_json::from_str(text).ok()
+        let d: Description = serde_json::from_str(text).ok()?;
+        d.is_consistent().then_some(d)
+    }
+
+    /// Signal channels inside the file, the signal inside the samples, a staircase with steps in
+    /// order, a sweep with sane parameters.
+    pub fn is_consistent(&self) -> bool {
+        let channels_ok = !self.signal_channels.is_empty()
+            && self
+                .signal_channels
+                .iter()
+                .all(|&c| c >= 1 && c <= self.channels);
+        let span_ok = self.signal_start_sample + self.signal_samples <= self.total_samples;
+        let kind_ok = match &self.kind {
+            Kind::Steps { steps, .. } => {
+                !steps.is_empty()
+                    && steps.iter().all(|s| {
+                        s.start_sample <= s.analyse_from_sample
+                            && s.analyse_from_sample < s.analyse_to_sample
+                            && s.analyse_to_sample <= self.total_samples
+                    })
+            }
+            Kind::Sweep {
+                start_hz,
+                stop_hz,
+                rate_s,
+                ..
+            } => *start_hz > 0.0 && stop_hz > start_hz && *rate_s > 0.0,
+            Kind::Tone { frequency_hz } => *frequency_hz > 0.0,
+            Kind::TwoTone {
+                low_hz, high_hz, ..
+            } => *low_hz > 0.0 && high_hz > low_hz,
+        };
+        channels_ok && span_ok && kind_ok
     }
 }
 

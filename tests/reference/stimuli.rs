@@ -663,3 +663,60 @@ fn loopback_response_is_taken_out() {
     );
     std::fs::remove_dir_all(&d).ok();
 }
+
+#[test]
+fn inconsistent_descriptions_are_refused_not_followed() {
+    // A hand-edited description chunk (an empty staircase, a signal channel outside the file)
+    // must read as "not a stimulus", never crash an analysis.
+    use ampnote::signal::stimulus::Description;
+    let d = tmpdir("desc");
+    let st = p(&d, "steps.wav");
+    ok(&[
+        "generate", "steps", "--from", "-20", "--to", "-10", "--step", "5", "--dwell", "0.3",
+        "--settle", "0.1", "-o", &st,
+    ]);
+    let bytes = std::fs::read(&st).unwrap();
+    let (cap, desc) = description(Path::new(&st));
+    let mut bad = desc.clone();
+    if let Kind::Steps { steps, .. } = &mut bad.kind {
+        steps.clear();
+    }
+    assert!(!bad.is_consistent());
+    let mut bad2 = desc.clone();
+    bad2.signal_channels = vec![3];
+    assert!(Description::from_json(&bad2.to_json()).is_none());
+    // Put the emptied staircase into the file itself (same length, so the chunk size holds).
+    let old = desc.to_json();
+    let mut new = bad.to_json();
+    while new.len() < old.len() {
+        new.push(' ');
+    }
+    assert_eq!(
+        new.len(),
+        old.len(),
+        "an emptied staircase is shorter, so padding fits it"
+    );
+    {
+        let at = bytes
+            .windows(old.len())
+            .position(|w| w == old.as_bytes())
+            .unwrap();
+        let mut edited = bytes.clone();
+        edited[at..at + new.len()].copy_from_slice(new.as_bytes());
+        let edited_path = p(&d, "edited.wav");
+        std::fs::write(&edited_path, &edited).unwrap();
+        let rec = p(&d, "rec.wav");
+        ampnote::signal::wav::write_wav(
+            Path::new(&rec),
+            48_000,
+            &[cap.channels[0].clone()],
+            ampnote::signal::wav::WavFormat::Float32,
+            1,
+        )
+        .unwrap();
+        let (code, _, err) = run(&["power", &rec, "--stimulus", &edited_path]);
+        assert_eq!(code, 2, "{err}");
+        assert!(err.contains("not one of ampnote's steps stimuli"), "{err}");
+    }
+    std::fs::remove_dir_all(&d).ok();
+}
