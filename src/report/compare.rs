@@ -22,6 +22,14 @@ pub struct CompareLine {
     pub sentence: String,
 }
 
+/// B's frequency response minus A's, per channel (the deviation curve).
+#[derive(Debug, Clone, Serialize)]
+pub struct DeviationCurve {
+    pub channel: usize,
+    /// `[frequency_hz, delta_db]` at the frequencies both responses share.
+    pub points: Vec<[f64; 2]>,
+}
+
 /// `ampnote compare`'s result.
 #[derive(Debug, Clone, Serialize)]
 pub struct Comparison {
@@ -29,7 +37,30 @@ pub struct Comparison {
     pub a: String,
     pub b: String,
     pub lines: Vec<CompareLine>,
+    pub deviation_curves: Vec<DeviationCurve>,
     pub warnings: Vec<String>,
+}
+
+/// B minus A at the frequencies both responses share (same stimulus, so the same points).
+fn deviation_curve(a: &Value, b: &Value) -> Vec<[f64; 2]> {
+    let pts = |v: &Value| -> Vec<(f64, f64)> {
+        v.get("points")
+            .and_then(Value::as_array)
+            .map(|p| {
+                p.iter()
+                    .filter_map(|q| Some((num(q, "frequency_hz")?, num(q, "magnitude_db")?)))
+                    .collect()
+            })
+            .unwrap_or_default()
+    };
+    let (pa, pb) = (pts(a), pts(b));
+    pa.iter()
+        .filter_map(|&(f, x)| {
+            pb.iter()
+                .find(|(g, _)| (g / f - 1.0).abs() < 1e-6)
+                .map(|&(_, y)| [f, y - x])
+        })
+        .collect()
 }
 
 /// The latest run of `procedure` on `channel` among `runs`.
@@ -155,7 +186,17 @@ pub fn compare(name_a: &str, a: &[Run], name_b: &str, b: &[Run]) -> Comparison {
     channels.sort();
     channels.dedup();
     let mut skipped: Vec<String> = Vec::new();
+    let mut deviation_curves = Vec::new();
     for ch in channels {
+        if let (Some(ra), Some(rb)) = (latest(a, "response", ch), latest(b, "response", ch)) {
+            let points = deviation_curve(ra, rb);
+            if !points.is_empty() {
+                deviation_curves.push(DeviationCurve {
+                    channel: ch,
+                    points,
+                });
+            }
+        }
         let mut add = |fig: &str, x: Option<f64>, y: Option<f64>, unit: &str| {
             if let (Some(x), Some(y)) = (x, y) {
                 if x.is_finite()
@@ -306,6 +347,7 @@ pub fn compare(name_a: &str, a: &[Run], name_b: &str, b: &[Run]) -> Comparison {
         a: name_a.to_string(),
         b: name_b.to_string(),
         lines,
+        deviation_curves,
         warnings,
     }
 }

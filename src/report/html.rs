@@ -499,6 +499,7 @@ pub fn write_report(nb: &Notebook, out: &Path) -> Result<ReportFiles> {
         });
     }
     let labels = labels(&runs);
+    let mut deviation = Vec::new();
     if labels.len() >= 2 {
         let a: Vec<Run> = runs
             .iter()
@@ -511,6 +512,21 @@ pub fn write_report(nb: &Notebook, out: &Path) -> Result<ReportFiles> {
             .cloned()
             .collect();
         let c = compare(&labels[0], &a, &labels[1], &b);
+        deviation = c
+            .deviation_curves
+            .iter()
+            .map(|d| Curve {
+                name: format!(
+                    "{} minus {}, {}",
+                    labels[1],
+                    labels[0],
+                    if d.channel == 1 { "left" } else { "right" }
+                ),
+                color: PALETTE[1],
+                dashed: d.channel % 2 == 0,
+                points: d.points.iter().map(|p| (p[0], p[1])).collect(),
+            })
+            .collect::<Vec<_>>();
         let _ = write!(html, "<h2>{} → {}</h2>\n<table><tr><th>Channel</th><th>Figure</th><th>Before</th><th>After</th><th>Change</th></tr>\n", escape(&labels[0]), escape(&labels[1]));
         for l in &c.lines {
             let (before, rest) = l
@@ -727,6 +743,20 @@ pub fn write_report(nb: &Notebook, out: &Path) -> Result<ReportFiles> {
             "harmonic-profile",
             "Harmonic profile",
             profile_chart(&runs, Some(&png("harmonic-profile")))?,
+        ),
+        (
+            "response-change",
+            "Response change (after minus before)",
+            lin(
+                "response-change",
+                "Response change, after minus before",
+                "Frequency (Hz)",
+                "Change (dB)",
+                &deviation,
+                true,
+                false,
+                Some(0.0),
+            )?,
         ),
         (
             "spectrum",

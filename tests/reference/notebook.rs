@@ -174,6 +174,15 @@ fn demo_runs_end_to_end() {
         .find(|l| l["figure"] == "power at 1 % THD")
         .unwrap();
     assert!(p["delta"].as_f64().unwrap() > 3.0, "{p}");
+    // The deviation curve: both sweeps went through the same stimulus, so every point pairs up;
+    // the rework leaves the mid band unchanged (the simulated transformer is the same).
+    let curve = v["deviation_curves"][0]["points"].as_array().unwrap();
+    assert!(curve.len() > 200, "{} points", curve.len());
+    let mid = curve
+        .iter()
+        .find(|p| p[0].as_f64().unwrap() >= 1000.0)
+        .unwrap();
+    assert!(mid[1].as_f64().unwrap().abs() < 0.05, "{mid}");
     // The report of a full notebook; then re-analysis from the stored captures (24-bit files)
     // gives the same figures, kept beside the old ones.
     assert!(
