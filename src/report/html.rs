@@ -87,34 +87,30 @@ fn draw_err<E: std::fmt::Debug>(e: E) -> Error {
     Error::InvalidSetting(format!("drawing a chart failed: {e:?}"))
 }
 
-/// A line chart; `log_x`/`log_y` pick logarithmic axes. `hline` draws a reference level.
-#[allow(clippy::too_many_arguments)]
-fn line_chart(
-    title: &str,
-    x_desc: &str,
-    y_desc: &str,
-    curves: &[Curve],
+/// What a line chart shows.
+#[derive(Clone, Copy)]
+struct LineSpec<'a> {
+    title: &'a str,
+    x_desc: &'a str,
+    y_desc: &'a str,
+    curves: &'a [Curve],
     log_x: bool,
     log_y: bool,
+    /// A reference level, drawn as a thin grey line.
     hline: Option<f64>,
-    png: Option<&Path>,
-) -> Result<String> {
-    annotated_chart(title, x_desc, y_desc, curves, log_x, log_y, hline, &[], png)
+    /// Text at data coordinates (harmonic labels on a spectrum).
+    notes: &'a [(f64, f64, String)],
 }
 
-/// [`line_chart`] with text notes at data coordinates (harmonic labels on a spectrum).
-#[allow(clippy::too_many_arguments)]
-fn annotated_chart(
-    title: &str,
-    x_desc: &str,
-    y_desc: &str,
-    curves: &[Curve],
-    log_x: bool,
-    log_y: bool,
-    hline: Option<f64>,
-    notes: &[(f64, f64, String)],
-    png: Option<&Path>,
-) -> Result<String> {
+/// A line chart as SVG (and PNG when `png` names a file); empty when no curve has a point.
+fn line_chart(spec: &LineSpec, png: Option<&Path>) -> Result<String> {
+    let LineSpec {
+        curves,
+        log_x,
+        log_y,
+        hline,
+        ..
+    } = *spec;
     let pts = curves.iter().flat_map(|c| c.points.iter()).filter(|p| {
         p.0.is_finite() && p.1.is_finite() && (!log_x || p.0 > 0.0) && (!log_y || p.1 > 0.0)
     });
@@ -144,25 +140,25 @@ fn annotated_chart(
         (y0 - m, y1 + m)
     };
     let ranges = (x0, x1, y0, y1);
-    render!(png, |root| draw_lines(
-        root, title, x_desc, y_desc, curves, log_x, log_y, hline, notes, ranges
-    ))
+    render!(png, |root| draw_lines(root, spec, ranges))
 }
 
 /// The body of every line chart, on any plotters backend.
-#[allow(clippy::too_many_arguments)]
 fn draw_lines<DB: DrawingBackend>(
     root: &DrawingArea<DB, Shift>,
-    title: &str,
-    x_desc: &str,
-    y_desc: &str,
-    curves: &[Curve],
-    log_x: bool,
-    log_y: bool,
-    hline: Option<f64>,
-    notes: &[(f64, f64, String)],
+    spec: &LineSpec,
     (x0, x1, y0, y1): (f64, f64, f64, f64),
 ) -> Result<()> {
+    let LineSpec {
+        title,
+        x_desc,
+        y_desc,
+        curves,
+        log_x,
+        log_y,
+        hline,
+        notes,
+    } = *spec;
     root.fill(&WHITE).map_err(draw_err)?;
     let mut b = ChartBuilder::on(root);
     b.caption(title, ("sans-serif", 18))
@@ -659,84 +655,97 @@ pub fn write_report(nb: &Notebook, out: &Path) -> Result<ReportFiles> {
         });
     }
     let png = |file: &str| out.join("charts").join(format!("{file}.png"));
-    let lin =
-        |file: &str,
-         title: &str,
-         xd: &str,
-         yd: &str,
-         c: &[Curve],
-         lx: bool,
-         ly: bool,
-         h: Option<f64>| { line_chart(title, xd, yd, c, lx, ly, h, Some(&png(file))) };
+    // A chart's SVG (and its PNG beside it); the spec's notes default to none.
+    let chart = |file: &str, spec: LineSpec| line_chart(&spec, Some(&png(file)));
+    let spec = |title, x_desc, y_desc, curves, log_x, log_y, hline| LineSpec {
+        title,
+        x_desc,
+        y_desc,
+        curves,
+        log_x,
+        log_y,
+        hline,
+        notes: &[],
+    };
     let charts = [
         (
             "thd-vs-power",
             "THD against output power",
-            lin(
+            chart(
                 "thd-vs-power",
-                "THD against output power",
-                "Output power (W)",
-                "THD (%)",
-                &power,
-                true,
-                true,
-                Some(1.0),
+                spec(
+                    "THD against output power",
+                    "Output power (W)",
+                    "THD (%)",
+                    &power,
+                    true,
+                    true,
+                    Some(1.0),
+                ),
             )?,
         ),
         (
             "response-magnitude",
             "Frequency response",
-            lin(
+            chart(
                 "response-magnitude",
-                "Frequency response (re 1 kHz)",
-                "Frequency (Hz)",
-                "Magnitude (dB)",
-                &response,
-                true,
-                false,
-                Some(0.0),
+                spec(
+                    "Frequency response (re 1 kHz)",
+                    "Frequency (Hz)",
+                    "Magnitude (dB)",
+                    &response,
+                    true,
+                    false,
+                    Some(0.0),
+                ),
             )?,
         ),
         (
             "response-phase",
             "Phase",
-            lin(
+            chart(
                 "response-phase",
-                "Phase (latency removed)",
-                "Frequency (Hz)",
-                "Phase (degrees)",
-                &phase,
-                true,
-                false,
-                None,
+                spec(
+                    "Phase (latency removed)",
+                    "Frequency (Hz)",
+                    "Phase (degrees)",
+                    &phase,
+                    true,
+                    false,
+                    None,
+                ),
             )?,
         ),
         (
             "h2-vs-frequency",
             "Second harmonic against frequency",
-            lin(
+            chart(
                 "h2-vs-frequency",
-                "Second harmonic against frequency (sweep)",
-                "Frequency (Hz)",
-                "H2 (dBc)",
-                &h2,
-                true,
-                false,
-                None,
+                spec(
+                    "Second harmonic against frequency (sweep)",
+                    "Frequency (Hz)",
+                    "H2 (dBc)",
+                    &h2,
+                    true,
+                    false,
+                    None,
+                ),
             )?,
         ),
         (
             "thd-vs-frequency",
             "THD against frequency",
-            lin(
+            chart(
                 "thd-vs-frequency",
-                "THD against frequency (sweep, H2-H5)",
-                "Frequency (Hz)",
-                "THD (dBc)",
-                &thd_f,
-                true,
-                false,
-                None,
+                spec(
+                    "THD against frequency (sweep, H2-H5)",
+                    "Frequency (Hz)",
+                    "THD (dBc)",
+                    &thd_f,
+                    true,
+                    false,
+                    None,
+                ),
             )?,
         ),
         (
@@ -747,44 +756,52 @@ pub fn write_report(nb: &Notebook, out: &Path) -> Result<ReportFiles> {
         (
             "response-change",
             "Response change (after minus before)",
-            lin(
+            chart(
                 "response-change",
-                "Response change, after minus before",
-                "Frequency (Hz)",
-                "Change (dB)",
-                &deviation,
-                true,
-                false,
-                Some(0.0),
+                spec(
+                    "Response change, after minus before",
+                    "Frequency (Hz)",
+                    "Change (dB)",
+                    &deviation,
+                    true,
+                    false,
+                    Some(0.0),
+                ),
             )?,
         ),
         (
             "spectrum",
             "Spectrum of the tone (left channel)",
-            annotated_chart(
-                "Spectrum of the tone, left channel (peak per slice)",
-                "Frequency (Hz)",
-                "Level (dBFS)",
-                &spectra,
-                true,
-                false,
-                None,
-                &notes,
-                Some(&png("spectrum")),
+            chart(
+                "spectrum",
+                LineSpec {
+                    notes: &notes,
+                    ..spec(
+                        "Spectrum of the tone, left channel (peak per slice)",
+                        "Frequency (Hz)",
+                        "Level (dBFS)",
+                        &spectra,
+                        true,
+                        false,
+                        None,
+                    )
+                },
             )?,
         ),
         (
             "residual",
             "Distortion residual over one period",
-            lin(
+            chart(
                 "residual",
-                "Distortion residual over one period of the fundamental",
-                "Phase of the fundamental (degrees)",
-                "Residual (% of the fundamental's peak)",
-                &residuals,
-                false,
-                false,
-                Some(0.0),
+                spec(
+                    "Distortion residual over one period of the fundamental",
+                    "Phase of the fundamental (degrees)",
+                    "Residual (% of the fundamental's peak)",
+                    &residuals,
+                    false,
+                    false,
+                    Some(0.0),
+                ),
             )?,
         ),
     ];
