@@ -196,7 +196,11 @@ fn draw_lines<DB: DrawingBackend>(
                         .draw_series(DashedLineSeries::new(pts, 7, 5, style))
                         .map_err(draw_err)?
                         .label(c.name.clone())
-                        .legend(move |(x, y)| PathElement::new(vec![(x, y), (x + 22, y)], style));
+                        .legend(move |(x, y)| {
+                            EmptyElement::at((x, y))
+                                + PathElement::new(vec![(0, 0), (8, 0)], style)
+                                + PathElement::new(vec![(13, 0), (22, 0)], style)
+                        });
                 } else {
                     chart
                         .draw_series(LineSeries::new(pts, style))
