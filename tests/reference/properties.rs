@@ -69,3 +69,18 @@ proptest! {
         );
     }
 }
+
+proptest! {
+    #![proptest_config(ProptestConfig { cases: 200, ..ProptestConfig::default() })]
+
+    /// Arbitrary text as a calibration profile, a model or a stimulus description: an error or a
+    /// value, never a panic.
+    #[test]
+    fn text_inputs_never_panic(text in ".{0,400}", toml_like in "(\\[[a-z]{1,10}\\]\n)?([a-z_]{1,15} = (-?[0-9.]{1,8}|\"[a-z ]{0,8}\")\n){0,8}") {
+        let p = std::path::Path::new("fuzz.toml");
+        let _ = ampnote::calibration::Profile::parse(&text, p);
+        let _ = ampnote::calibration::Profile::parse(&toml_like, p);
+        let _ = ampnote::rig::model::Model::parse(&toml_like, "fuzz");
+        let _ = ampnote::signal::stimulus::Description::from_json(&text);
+    }
+}
