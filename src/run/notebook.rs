@@ -13,6 +13,21 @@ fn e(err: ampnote::Error) -> String {
 
 pub fn demo(out: &Path) -> Result<ExitCode, String> {
     let t0 = std::time::Instant::now();
+    // A folder that already holds a demo is kept; the next free name is used instead.
+    let mut folder = out.to_path_buf();
+    let mut n = 2;
+    while folder.join("notebook").exists() {
+        folder = std::path::PathBuf::from(format!("{}-{n}", out.display()));
+        n += 1;
+    }
+    if folder != out {
+        eprintln!(
+            "{} already holds a demo; writing this one to {}",
+            out.display(),
+            folder.display()
+        );
+    }
+    let out = folder.as_path();
     eprintln!("ampnote demo: an invented stereo single-ended amplifier on the simulated bench");
     let outcome = ampnote::demo::run(out, |what| eprintln!("  measuring {what} ...")).map_err(e)?;
     let mut s = String::new();
