@@ -946,20 +946,28 @@ fn quality_warnings(
     let floor_db = -full_band_snr - level_ref;
     if r.thdn_db < floor_db + 3.0 {
         w.push(format!(
-            "THD+N ({:.1} dB) is at the resolution floor of the file's {}-bit samples ({:.1} dB at this level): the amplifier may be better than this reading.",
+            "THD+N ({:.1} dB) is at the resolution floor of the file's samples ({}-bit resolution: {:.1} dB at this level): the amplifier may be better than this reading.",
             r.thdn_db, input.resolution_bits, floor_db
         ));
     }
+    // Higher harmonics under the noise are the normal case (each carries its own flag); it is
+    // worth a warning when the dominant low orders are, because THD is then an upper bound.
     let floor_orders: Vec<String> = r
         .harmonics
         .iter()
-        .filter(|h| h.at_noise_floor && h.in_band)
+        .filter(|h| h.at_noise_floor && h.in_band && h.order <= 3)
         .map(|h| format!("H{}", h.order))
         .collect();
-    if !floor_orders.is_empty() {
+    if floor_orders.len()
+        == r.harmonics
+            .iter()
+            .filter(|h| h.in_band && h.order <= 3)
+            .count()
+        && !floor_orders.is_empty()
+    {
         w.push(format!(
-            "{} at the noise floor: their levels are upper bounds.",
-            floor_orders.join(", ")
+            "{} at the noise floor: the distortion is below the noise, so THD is an upper bound; THD+N is the figure to quote.",
+            floor_orders.join(" and ")
         ));
     }
     // The interface's own floor (from the calibration profile): readings within 10 dB of it
