@@ -213,7 +213,8 @@ fn read_header<R: Read>(reader: &mut R, path: &Path) -> Result<WavInfo> {
     };
     let unsupported = |detail: String| Error::UnsupportedFormat { path: p(), detail };
     let mut head = [0u8; 12];
-    read_exact_or(reader, &mut head)
+    reader
+        .read_exact(&mut head)
         .map_err(|_| not_wav("the file is shorter than a WAV header"))?;
     if &head[0..4] == b"RF64" {
         return Err(unsupported(
@@ -227,7 +228,8 @@ fn read_header<R: Read>(reader: &mut R, path: &Path) -> Result<WavInfo> {
     let mut description_json = None;
     let data_len = loop {
         let mut ch = [0u8; 8];
-        read_exact_or(reader, &mut ch)
+        reader
+            .read_exact(&mut ch)
             .map_err(|_| not_wav("the file ends before its data chunk"))?;
         let len = u32::from_le_bytes([ch[4], ch[5], ch[6], ch[7]]) as u64;
         match &ch[0..4] {
@@ -236,7 +238,8 @@ fn read_header<R: Read>(reader: &mut R, path: &Path) -> Result<WavInfo> {
                     return Err(not_wav("its format chunk is too short"));
                 }
                 let mut f = vec![0u8; len.min(4096) as usize];
-                read_exact_or(reader, &mut f)
+                reader
+                    .read_exact(&mut f)
                     .map_err(|_| not_wav("the file ends inside its format chunk"))?;
                 skip(reader, len - f.len() as u64 + (len & 1))
                     .map_err(|_| not_wav("the file ends inside its format chunk"))?;
@@ -260,7 +263,8 @@ fn read_header<R: Read>(reader: &mut R, path: &Path) -> Result<WavInfo> {
             b"data" => break len,
             id if id == DESCRIPTION_CHUNK && len <= 1 << 20 => {
                 let mut body = vec![0u8; len as usize];
-                read_exact_or(reader, &mut body)
+                reader
+                    .read_exact(&mut body)
                     .map_err(|_| not_wav("the file ends inside its description chunk"))?;
                 skip(reader, len & 1)
                     .map_err(|_| not_wav("the file ends before its data chunk"))?;
@@ -321,11 +325,6 @@ fn read_header<R: Read>(reader: &mut R, path: &Path) -> Result<WavInfo> {
         frames_declared,
         bytes_per_sample: bps,
     })
-}
-
-/// `read_exact` that reports a short read as an error without distinguishing its cause.
-fn read_exact_or<R: Read>(r: &mut R, buf: &mut [u8]) -> std::io::Result<()> {
-    r.read_exact(buf)
 }
 
 /// Skip `n` bytes.

@@ -92,6 +92,9 @@ pub struct SimRig {
     pub model: Model,
     load_ohms: f64,
     runs: u64,
+    /// Load-line tables already built, by channel and load: a staircase plays dozens of steps
+    /// into the same load, and each table costs thousands of load-line solutions.
+    transfers: Vec<((usize, u64), std::sync::Arc<Transfer>)>,
 }
 
 impl SimRig {
@@ -101,6 +104,7 @@ impl SimRig {
             model,
             load_ohms,
             runs: 0,
+            transfers: Vec::new(),
         }
     }
 
@@ -163,7 +167,17 @@ impl Rig for SimRig {
         let ch = *self.channel(channel)?;
         self.runs += 1;
         let seed = self.model.bench.seed ^ (self.runs << 8) ^ channel as u64;
-        Ok(simulate(
+        let key = (channel, self.load_ohms.to_bits());
+        let transfer = match self.transfers.iter().find(|(k, _)| *k == key) {
+            Some((_, t)) => std::sync::Arc::clone(t),
+            None => {
+                let t = std::sync::Arc::new(Transfer::new(&ch, self.load_ohms));
+                self.transfers.push((key, std::sync::Arc::clone(&t)));
+                t
+            }
+        };
+        Ok(simulate_with(
+            &transfer,
             &self.model.bench,
             &ch,
             self.load_ohms,
@@ -183,8 +197,28 @@ pub fn simulate(
     fs: f64,
     seed: u64,
 ) -> Vec<f64> {
+    simulate_with(
+        &Transfer::new(ch, load_ohms),
+        bench,
+        ch,
+        load_ohms,
+        stimulus,
+        fs,
+        seed,
+    )
+}
+
+/// [`simulate`] with the channel's load-line table already built for `load_ohms`.
+fn simulate_with(
+    transfer: &Transfer,
+    bench: &Bench,
+    ch: &Channel,
+    load_ohms: f64,
+    stimulus: &[f64],
+    fs: f64,
+    seed: u64,
+) -> Vec<f64> {
     let mut rng = Rng::new(seed);
-    let transfer = Transfer::new(ch, load_ohms);
     let line = ch.load_line(load_ohms);
     let q = |x: f64, bits: u16| {
         let half = (1u64 << (bits - 1)) as f64;
