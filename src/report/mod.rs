@@ -9,3 +9,31 @@ pub mod tone;
 
 /// Version of the JSON layout; bumped when a field changes meaning or disappears.
 pub const SCHEMA_VERSION: u32 = 1;
+
+/// A per-channel result: which channel, and its measurement-quality warnings.
+pub trait ChannelResult {
+    fn channel(&self) -> usize;
+    fn warnings(&self) -> &[String];
+}
+
+macro_rules! channel_result {
+    ($($t:ty),*) => {$(
+        impl ChannelResult for $t {
+            fn channel(&self) -> usize {
+                self.channel
+            }
+            fn warnings(&self) -> &[String] {
+                &self.warnings
+            }
+        }
+    )*};
+}
+
+channel_result!(
+    crate::analysis::tone::ToneResult,
+    crate::analysis::sweep::ResponseResult,
+    crate::analysis::imd::ImdResult,
+    crate::analysis::noise::NoiseResult,
+    crate::procedure::power::PowerResult,
+    crate::procedure::zout::ZoutResult
+);

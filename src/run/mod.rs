@@ -43,14 +43,20 @@ pub fn report_to_stderr<'a>(
 
 /// The end of every analysing command: diagnostics to stderr, the report (JSON or table) to
 /// stdout, and exit code 2 when a channel could not be analysed.
-pub fn finish<'a>(
+pub fn finish<T: ampnote::report::ChannelResult>(
     json: bool,
-    warnings: impl Iterator<Item = (usize, &'a String)>,
-    errors: &[&'a String],
+    results: &[T],
+    errors: &[ampnote::report::tone::ChannelError],
     render_json: impl FnOnce() -> String,
     render_table: impl FnOnce() -> String,
 ) -> ExitCode {
-    report_to_stderr(json, warnings, errors.iter().copied());
+    report_to_stderr(
+        json,
+        results
+            .iter()
+            .flat_map(|r| r.warnings().iter().map(move |w| (r.channel(), w))),
+        errors.iter().map(|e| &e.error),
+    );
     print_stdout(&if json { render_json() } else { render_table() });
     if errors.is_empty() {
         ExitCode::SUCCESS

@@ -139,14 +139,10 @@ pub fn run(args: &NoiseArgs) -> Result<ExitCode, String> {
         channels,
         channel_errors,
     };
-    let errors: Vec<&String> = report.channel_errors.iter().map(|c| &c.error).collect();
     Ok(super::finish(
         args.json,
-        report
-            .channels
-            .iter()
-            .flat_map(|c| c.warnings.iter().map(move |w| (c.channel, w))),
-        &errors,
+        &report.channels,
+        &report.channel_errors,
         || serde_json::to_string_pretty(&report).expect("serializes") + "\n",
         || table(&report),
     ))

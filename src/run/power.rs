@@ -140,14 +140,10 @@ pub fn run(args: &PowerArgs) -> Result<ExitCode, String> {
         results,
         channel_errors,
     };
-    let errors: Vec<&String> = report.channel_errors.iter().map(|c| &c.error).collect();
     Ok(super::finish(
         args.json,
-        report
-            .results
-            .iter()
-            .flat_map(|c| c.warnings.iter().map(move |w| (c.channel, w))),
-        &errors,
+        &report.results,
+        &report.channel_errors,
         || report.to_json(),
         || report.to_table(),
     ))

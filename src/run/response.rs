@@ -114,14 +114,10 @@ pub fn run(args: &ResponseArgs) -> Result<ExitCode, String> {
     if let Some(path) = &args.csv {
         ampnote::files::write_whole(path, report.to_csv().as_bytes()).map_err(e)?;
     }
-    let errors: Vec<&String> = report.channel_errors.iter().map(|c| &c.error).collect();
     Ok(super::finish(
         args.json,
-        report
-            .channels
-            .iter()
-            .flat_map(|c| c.warnings.iter().map(move |w| (c.channel, w))),
-        &errors,
+        &report.channels,
+        &report.channel_errors,
         || report.to_json(),
         || report.to_table(),
     ))

@@ -250,10 +250,7 @@ pub fn run(args: &ZoutArgs) -> Result<ExitCode, String> {
     };
     Ok(super::finish(
         args.json,
-        report
-            .results
-            .iter()
-            .flat_map(|c| c.warnings.iter().map(move |w| (c.channel, w))),
+        &report.results,
         &[],
         || report.to_json(),
         || report.to_table(),
