@@ -64,7 +64,8 @@ fn steady<'a>(y: &'a [f64], s: &Stimulus) -> &'a [f64] {
     let d = &s.description;
     let from = d.signal_start_sample + RATE as usize / 10;
     let to = (d.signal_start_sample + d.signal_samples).saturating_sub(RATE as usize / 50);
-    &y[from..to.min(y.len())]
+    let to = to.min(y.len());
+    &y[from.min(to)..to]
 }
 
 fn input<'a>(ch: usize, y: &'a [f64], rig: &SimRig) -> ChannelInput<'a> {

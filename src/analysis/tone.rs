@@ -253,8 +253,10 @@ impl ToneAnalyzer {
             )));
         }
         if input.samples.len() < MIN_SAMPLES {
-            // Still report invalid or silent data for what it is.
-            sample_stats(input.samples, input, None)?;
+            // Invalid data is reported for what it is; anything else this short is too short.
+            if let Err(e @ Error::NotFinite { .. }) = sample_stats(input.samples, input, None) {
+                return Err(e);
+            }
             return Err(too_short(input, MIN_SAMPLES, ""));
         }
         let (stats, plan, buffers) = measure_spectrum(&self.planner, input)?;

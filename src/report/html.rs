@@ -75,9 +75,18 @@ macro_rules! render {
             $body?;
         }
         if let Some(path) = $png {
-            let area = BitMapBackend::new(path, SIZE).into_drawing_area();
-            let $root = &area;
-            $body?;
+            // Whole or not at all: drawn under a temporary name, renamed when complete.
+            // (the image format comes from the extension, so it stays last)
+            let tmp = path.with_extension("partial.png");
+            {
+                let area = BitMapBackend::new(&tmp, SIZE).into_drawing_area();
+                let $root = &area;
+                $body?;
+            }
+            std::fs::rename(&tmp, path).map_err(|source| Error::Write {
+                path: path.to_path_buf(),
+                source,
+            })?;
         }
         Ok::<String, Error>(svg)
     }};

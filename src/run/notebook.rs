@@ -391,7 +391,10 @@ pub fn analyze_capture(
                 Some((_, d)) if matches!(d.kind, Kind::Tone { .. }) => {
                     let from = d.signal_start_sample + rate / 10;
                     let to = (d.signal_start_sample + d.signal_samples).saturating_sub(rate / 50);
-                    &y[from.min(to)..to.min(y.len())]
+                    // A capture shorter than the stimulus keeps what it has (never an empty or
+                    // reversed range).
+                    let to = to.min(y.len());
+                    &y[from.min(to)..to]
                 }
                 _ => &y[..],
             };
