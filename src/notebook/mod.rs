@@ -232,11 +232,21 @@ impl Notebook {
         outcome
     }
 
+    /// One past the highest run number among the folder names (no run file is read).
     fn next_number(&self) -> Result<usize> {
-        Ok(self
-            .runs()?
-            .iter()
-            .filter_map(|r| r.meta.id.split('-').next()?.parse::<usize>().ok())
+        let Ok(entries) = std::fs::read_dir(self.dir.join("runs")) else {
+            return Ok(1);
+        };
+        Ok(entries
+            .flatten()
+            .filter_map(|e| {
+                e.file_name()
+                    .to_string_lossy()
+                    .split('-')
+                    .next()?
+                    .parse::<usize>()
+                    .ok()
+            })
             .max()
             .unwrap_or(0)
             + 1)
