@@ -1,6 +1,7 @@
 //! Rigs turn a stimulus into a capture. `file` is the user's own player and recorder (the capture
 //! arrives as a WAV file); `sim` is the built-in simulated bench ([`sim::SimRig`]).
 
+pub mod framing;
 pub mod model;
 pub mod sim;
 pub mod triode;

@@ -4,6 +4,7 @@
 mod bad_input;
 mod closed_form;
 mod common;
+mod framing;
 mod imd;
 mod notebook;
 mod numpy_fixtures;
