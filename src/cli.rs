@@ -44,6 +44,11 @@ pub enum Command {
     Zout(ZoutArgs),
     /// Build a calibration profile: interface full scales, attenuator, load, loopback floor.
     Calibrate(CalibrateArgs),
+    /// List the audio hosts and interfaces the live rig can use: channels, rates, formats.
+    Devices,
+    /// Watch a steady tone live (level, THD, THD+N, H2, H3, hum) while trimming bias or hum
+    /// balance; Ctrl-C stops it.
+    Watch(WatchArgs),
     /// The whole bench on the simulated bench: an invented amplifier measured stock and reworked,
     /// kept in a notebook, compared and channel-matched.
     Demo {
@@ -154,10 +159,8 @@ pub struct PowerArgs {
     /// The staircase file `ampnote generate steps` wrote.
     #[arg(long, value_name = "STEPS.wav")]
     pub stimulus: Option<PathBuf>,
-    /// Run the staircase on a rig instead: sim[:MODEL] (the simulated bench; models: stock,
-    /// reworked, or a model file).
-    #[arg(long, value_name = "sim[:MODEL]")]
-    pub rig: Option<String>,
+    #[command(flatten)]
+    pub rig: RigArgs,
     /// Amplifier channel(s): a number from 1, or `all`.
     #[arg(long, default_value = "all", value_name = "N|all")]
     pub channel: String,
@@ -207,9 +210,13 @@ pub struct ZoutArgs {
     /// captures are steady tones.
     #[arg(long, value_name = "SWEEP.wav")]
     pub stimulus: Option<PathBuf>,
-    /// Measure on a rig: sim[:MODEL].
-    #[arg(long, value_name = "sim[:MODEL]")]
-    pub rig: Option<String>,
+    #[command(flatten)]
+    pub rig: RigArgs,
+    #[command(flatten)]
+    pub calibration: CalibrationArgs,
+    /// With --rig: sample rate.
+    #[arg(long, default_value_t = 48_000, value_name = "HZ")]
+    pub rate: u32,
     /// With --rig: measure across the band with a sweep instead of one tone.
     #[arg(long)]
     pub sweep: bool,
@@ -345,6 +352,17 @@ pub enum TwoToneArg {
     Difference,
 }
 
+impl TwoToneArg {
+    /// The method with its standard low tone, high tone and amplitude ratio (IEC 60268-3).
+    pub fn defaults(self) -> (ampnote::signal::stimulus::TwoToneMethod, f64, f64, f64) {
+        use ampnote::signal::stimulus::TwoToneMethod;
+        match self {
+            TwoToneArg::Modulation => (TwoToneMethod::Modulation, 60.0, 7000.0, 4.0),
+            TwoToneArg::Difference => (TwoToneMethod::DifferenceFrequency, 19_000.0, 20_000.0, 1.0),
+        }
+    }
+}
+
 /// Options every stimulus takes.
 #[derive(Debug, Args)]
 pub struct GenerateCommon {
@@ -382,11 +400,24 @@ pub struct GenerateCommon {
 
 #[derive(Debug, Args)]
 pub struct ResponseArgs {
-    /// The recording of the sweep.
-    pub capture: PathBuf,
+    /// The recording of the sweep, or use --rig.
+    pub capture: Option<PathBuf>,
     /// The sweep file `ampnote generate sweep` wrote.
     #[arg(long, value_name = "SWEEP.wav")]
-    pub stimulus: PathBuf,
+    pub stimulus: Option<PathBuf>,
+    #[command(flatten)]
+    pub rig: RigArgs,
+    /// With --rig: the sweep played.
+    #[arg(long = "from", default_value_t = 10.0, value_name = "HZ")]
+    pub from_hz: f64,
+    #[arg(long = "to", value_name = "HZ")]
+    pub to_hz: Option<f64>,
+    #[arg(long, default_value_t = -20.0, value_name = "DBFS", allow_negative_numbers = true)]
+    pub level: f64,
+    #[arg(long, default_value_t = 3.0, value_name = "S")]
+    pub seconds: f64,
+    #[arg(long, default_value_t = 48_000, value_name = "HZ")]
+    pub rate: u32,
     /// Channel of the capture to analyse: a number from 1, or `all`.
     #[arg(long, default_value = "all", value_name = "N|all")]
     pub channel: String,
@@ -419,8 +450,15 @@ pub struct ResponseArgs {
 
 #[derive(Debug, Args)]
 pub struct NoiseArgs {
-    /// The recording of the amplifier's output with no signal.
-    pub capture: PathBuf,
+    /// The recording of the amplifier's output with no signal, or use --rig (it plays silence).
+    pub capture: Option<PathBuf>,
+    #[command(flatten)]
+    pub rig: RigArgs,
+    /// With --rig: how long to listen.
+    #[arg(long, default_value_t = 3.0, value_name = "S")]
+    pub seconds: f64,
+    #[arg(long, default_value_t = 48_000, value_name = "HZ")]
+    pub rate: u32,
     #[arg(long, default_value = "all", value_name = "N|all")]
     pub channel: String,
     /// Measurement band in Hz.
@@ -439,8 +477,21 @@ pub struct NoiseArgs {
 
 #[derive(Debug, Args)]
 pub struct ImdArgs {
-    /// The recording of the two-tone pair.
-    pub capture: PathBuf,
+    /// The recording of the two-tone pair, or use --rig.
+    pub capture: Option<PathBuf>,
+    #[command(flatten)]
+    pub rig: RigArgs,
+    /// With --rig: the pair played (the method's standard frequencies and ratio).
+    #[arg(long, value_enum, default_value_t = TwoToneArg::Modulation)]
+    pub method: TwoToneArg,
+    #[arg(long, default_value_t = -20.0, value_name = "DBFS", allow_negative_numbers = true)]
+    pub level: f64,
+    #[arg(long, default_value_t = 2.0, value_name = "S")]
+    pub seconds: f64,
+    #[arg(long, default_value_t = 48_000, value_name = "HZ")]
+    pub rate: u32,
+    #[command(flatten)]
+    pub calibration: CalibrationArgs,
     /// The two-tone file `ampnote generate twotone` wrote (tells the method and frequencies).
     #[arg(long, value_name = "FILE.wav")]
     pub stimulus: Option<PathBuf>,
@@ -456,8 +507,21 @@ pub struct ImdArgs {
 
 #[derive(Debug, Args)]
 pub struct AnalyzeArgs {
-    /// The recording (WAV: 16/24/32-bit integer or 32-bit float).
-    pub capture: PathBuf,
+    /// The recording (WAV: 16/24/32-bit integer or 32-bit float), or use --rig.
+    pub capture: Option<PathBuf>,
+
+    #[command(flatten)]
+    pub rig: RigArgs,
+
+    /// With --rig: the tone played.
+    #[arg(long, default_value_t = 997.0, value_name = "HZ")]
+    pub freq: f64,
+    #[arg(long, default_value_t = -20.0, value_name = "DBFS", allow_negative_numbers = true)]
+    pub level: f64,
+    #[arg(long, default_value_t = 2.0, value_name = "S")]
+    pub seconds: f64,
+    #[arg(long, default_value_t = 48_000, value_name = "HZ")]
+    pub rate: u32,
 
     /// Channel to analyse: a number from 1, or `all`.
     #[arg(long, default_value = "all", value_name = "N|all")]
@@ -500,6 +564,98 @@ pub struct AnalyzeArgs {
 
     #[command(flatten)]
     pub save: SaveArgs,
+}
+
+/// Where the signal goes and comes from on a rig run, shared by every measuring command.
+#[derive(Debug, Args)]
+pub struct RigArgs {
+    /// Measure on a rig instead of a capture file: sim[:MODEL] (the simulated bench; models
+    /// stock, reworked, or a model file) or card[:NAME] (the audio interface; needs a build
+    /// with --features live). On a real amplifier: attenuator and dummy load first.
+    #[arg(long, value_name = "sim[:MODEL]|card[:NAME]")]
+    pub rig: Option<String>,
+    /// Live rig: the audio host (alsa, jack, pulseaudio, ...; `ampnote devices` lists them).
+    #[arg(long, value_name = "NAME")]
+    pub host: Option<String>,
+    /// Live rig: the input device, when it is not the output device.
+    #[arg(long, value_name = "NAME")]
+    pub input_device: Option<String>,
+    /// Live rig: the interface output feeding each amplifier channel (1 for channel 1, ...).
+    #[arg(long, default_value = "1,2", value_name = "LIST")]
+    pub outputs: String,
+    /// Live rig: the interface input reading each amplifier channel (through the attenuator).
+    #[arg(long, default_value = "1,2", value_name = "LIST")]
+    pub inputs: String,
+    /// Live rig, JACK only: connect ampnote's outputs to its inputs (checks the rig itself,
+    /// with no amplifier).
+    #[arg(long)]
+    pub self_patch: bool,
+    /// Live rig: frames per buffer to ask the host for.
+    #[arg(long, value_name = "FRAMES")]
+    pub buffer: Option<u32>,
+    /// Where rig runs keep their stimulus and capture files (and partial captures).
+    #[arg(long, default_value = "ampnote-captures", value_name = "DIR")]
+    pub captures_dir: PathBuf,
+}
+
+impl RigArgs {
+    /// The live settings, checked.
+    pub fn options(&self, calibration: Calibration) -> Result<ampnote::rig::RigOptions, String> {
+        let list = |flag: &str, text: &str| -> Result<Vec<usize>, String> {
+            text.split(',')
+                .map(|t| t.trim().parse::<usize>().ok().filter(|&n| n >= 1))
+                .collect::<Option<Vec<_>>>()
+                .ok_or_else(|| {
+                    format!("--{flag} takes interface channel numbers from 1, like 1 or 1,2; got `{text}`")
+                })
+        };
+        Ok(ampnote::rig::RigOptions {
+            host: self.host.clone(),
+            input_device: self.input_device.clone(),
+            outputs: list("outputs", &self.outputs)?,
+            inputs: list("inputs", &self.inputs)?,
+            self_patch: self.self_patch,
+            buffer_frames: self.buffer,
+            keep_dir: self.captures_dir.clone(),
+            calibration,
+        })
+    }
+
+    /// The rig the user named, if any.
+    pub fn open(
+        &self,
+        calibration: Calibration,
+    ) -> Result<Option<Box<dyn ampnote::rig::Rig>>, String> {
+        let Some(spec) = &self.rig else {
+            return Ok(None);
+        };
+        ampnote::rig::parse_rig_with(spec, &self.options(calibration)?)
+            .map(Some)
+            .map_err(|e| e.to_string())
+    }
+}
+
+#[derive(Debug, Args)]
+pub struct WatchArgs {
+    #[command(flatten)]
+    pub rig: RigArgs,
+    /// Amplifier channel to watch.
+    #[arg(long, default_value_t = 1, value_name = "N")]
+    pub channel: usize,
+    #[arg(long, default_value_t = 1000.0, value_name = "HZ")]
+    pub freq: f64,
+    #[arg(long, default_value_t = -20.0, value_name = "DBFS", allow_negative_numbers = true)]
+    pub level: f64,
+    #[arg(long, default_value_t = 48_000, value_name = "HZ")]
+    pub rate: u32,
+    /// Readings per second (5 to 50).
+    #[arg(long, default_value_t = 8.0, value_name = "N")]
+    pub refresh: f64,
+    /// Stop after this many seconds (default: until Ctrl-C).
+    #[arg(long, value_name = "S")]
+    pub seconds: Option<f64>,
+    #[command(flatten)]
+    pub calibration: CalibrationArgs,
 }
 
 /// Keeping a run in a notebook, shared by every measuring command.

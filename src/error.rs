@@ -91,6 +91,12 @@ pub enum Error {
 
     #[error("invalid setting: {0}")]
     InvalidSetting(String),
+
+    #[error("live rig: {0}")]
+    Rig(String),
+
+    #[error("stopped by Ctrl-C (the output was silenced first){0}")]
+    Interrupted(String),
 }
 
 /// Shorthand used across the library.

@@ -19,6 +19,8 @@ fn main() -> ExitCode {
         Command::Power(args) => run::power::run(args),
         Command::Zout(args) => run::zout::run(args),
         Command::Calibrate(args) => run::calibrate::run(args),
+        Command::Devices => run::devices(),
+        Command::Watch(args) => run::watch::run(args),
         Command::Demo { out } => run::notebook::demo(out),
         Command::Notebook { action } => run::notebook::notebook(action),
         Command::Compare(args) => run::notebook::compare(args),

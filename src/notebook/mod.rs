@@ -380,3 +380,13 @@ pub fn now_utc() -> String {
         rem % 60
     )
 }
+
+/// The current time for a file name: `YYYYMMDD-HHMMSS` (UTC), plus the milliseconds so that two
+/// files written in one second do not collide.
+pub fn timestamp_for_file() -> String {
+    let t = now_utc()
+        .replace(['-', ':'], "")
+        .replace('T', "-")
+        .replace('Z', "");
+    format!("{t}-{:03}", (nanos() / 1_000_000) % 1000)
+}

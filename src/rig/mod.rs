@@ -1,6 +1,8 @@
 //! Rigs turn a stimulus into a capture. `file` is the user's own player and recorder (the capture
 //! arrives as a WAV file); `sim` is the built-in simulated bench ([`sim::SimRig`]).
 
+#[cfg(feature = "live")]
+pub mod card;
 pub mod framing;
 pub mod model;
 pub mod sim;
@@ -31,21 +33,127 @@ pub trait Rig {
         stimulus: &[f64],
         sample_rate_hz: u32,
     ) -> Result<Vec<f64>>;
+
+    /// Play `table` (a whole number of periods) over and over into `channel` and hand `look` the
+    /// latest `window` captured samples, again and again, until it returns false or Ctrl-C. The
+    /// default plays a fresh stretch each time (fine for a bench that has no clock of its own);
+    /// a live rig streams and calls back every `hop` new samples.
+    fn watch(
+        &mut self,
+        channel: usize,
+        table: &[f64],
+        sample_rate_hz: u32,
+        window: usize,
+        hop: usize,
+        look: &mut dyn FnMut(&[f64]) -> bool,
+    ) -> Result<()> {
+        // A bench faster than real time is paced to one reading per `hop` samples.
+        let period = std::time::Duration::from_secs_f64(hop as f64 / sample_rate_hz as f64);
+        let start = std::time::Instant::now();
+        let settle = window / 4;
+        let mut pos = 0;
+        for k in 1u32.. {
+            let due = start + period * k;
+            let now = std::time::Instant::now();
+            if due > now {
+                std::thread::sleep(due - now);
+            }
+            let chunk: Vec<f64> = (0..settle + window)
+                .map(|i| table[(pos + i) % table.len()])
+                .collect();
+            pos = (pos + settle + window) % table.len();
+            let y = self.play_and_record(channel, &chunk, sample_rate_hz)?;
+            if interrupted() || !look(&y[settle..]) {
+                return Ok(());
+            }
+        }
+        Ok(())
+    }
 }
 
-/// Parse `--rig sim[:MODEL]`: the model name or file (default `stock`).
+static INTERRUPTED: std::sync::atomic::AtomicBool = std::sync::atomic::AtomicBool::new(false);
+
+/// Catch Ctrl-C from now on: the first press asks the run to stop cleanly (output silenced first,
+/// what was captured kept); a second press leaves at once.
+pub fn catch_interrupt() {
+    static ONCE: std::sync::Once = std::sync::Once::new();
+    ONCE.call_once(|| {
+        let _ = ctrlc::set_handler(|| {
+            if INTERRUPTED.swap(true, std::sync::atomic::Ordering::Relaxed) {
+                std::process::exit(130);
+            }
+        });
+    });
+}
+
+/// Whether Ctrl-C was pressed since [`catch_interrupt`].
+pub fn interrupted() -> bool {
+    INTERRUPTED.load(std::sync::atomic::Ordering::Relaxed)
+}
+
+/// How a live rig is set up (ignored by the simulated bench).
+#[derive(Debug, Clone)]
+pub struct RigOptions {
+    /// Audio host (alsa, jack, ...); the system's default when `None`.
+    pub host: Option<String>,
+    /// Input device when it is not the output device.
+    pub input_device: Option<String>,
+    /// Interface output and input channel (1-based) for each amplifier channel.
+    pub outputs: Vec<usize>,
+    pub inputs: Vec<usize>,
+    /// JACK: connect ampnote's outputs to its inputs (checking the rig with no amplifier).
+    pub self_patch: bool,
+    /// Frames per buffer to ask for (the host's default when `None`).
+    pub buffer_frames: Option<u32>,
+    /// Where partial captures are kept.
+    pub keep_dir: std::path::PathBuf,
+    /// The user's calibration (profile and flags).
+    pub calibration: Calibration,
+}
+
+impl Default for RigOptions {
+    fn default() -> Self {
+        RigOptions {
+            host: None,
+            input_device: None,
+            outputs: vec![1, 2],
+            inputs: vec![1, 2],
+            self_patch: false,
+            buffer_frames: None,
+            keep_dir: "ampnote-captures".into(),
+            calibration: Calibration::default(),
+        }
+    }
+}
+
+/// Parse `--rig sim[:MODEL]` with default live settings.
 pub fn parse_rig(spec: &str) -> Result<Box<dyn Rig>> {
+    parse_rig_with(spec, &RigOptions::default())
+}
+
+/// Parse `--rig sim[:MODEL]` (the model name or file, default `stock`) or `--rig card[:NAME]`
+/// (the audio interface, by name or the default one; needs the `live` feature).
+pub fn parse_rig_with(spec: &str, options: &RigOptions) -> Result<Box<dyn Rig>> {
     let (kind, arg) = spec.split_once(':').unwrap_or((spec, ""));
     match kind {
         "sim" => {
             let name = if arg.is_empty() { "stock" } else { arg };
             Ok(Box::new(sim::SimRig::new(model::Model::load(name)?)))
         }
-        "card" => Err(crate::error::Error::InvalidSetting(
-            "the live rig (`--rig card`) needs the `live` feature, which this build does not have yet; record with any recorder and analyse the file, or use --rig sim".into(),
-        )),
+        #[cfg(feature = "live")]
+        "card" => {
+            let name = (!arg.is_empty()).then_some(arg);
+            Ok(Box::new(card::CardRig::open(name, options)?))
+        }
+        #[cfg(not(feature = "live"))]
+        "card" => {
+            let _ = options;
+            Err(crate::error::Error::InvalidSetting(
+                "the live rig (`--rig card`) needs a build with the `live` feature: `cargo install --path . --features live` (see README, Live rig); meanwhile record with any recorder and analyse the file, or use --rig sim".into(),
+            ))
+        }
         other => Err(crate::error::Error::InvalidSetting(format!(
-            "unknown rig `{other}`: use sim[:MODEL] (the simulated bench) or analyse a capture file"
+            "unknown rig `{other}`: use sim[:MODEL] (the simulated bench), card[:NAME] (the audio interface), or analyse a capture file"
         ))),
     }
 }

@@ -12,7 +12,17 @@ pub fn run(args: &AnalyzeArgs) -> Result<ExitCode, String> {
     let cal = args.calibration.calibration()?;
     let channel = args.channel_choice()?;
     let analyzer = ToneAnalyzer::new(config).map_err(|e| e.to_string())?;
-    let info = Capture::probe_wav(&args.capture).map_err(|e| e.to_string())?;
+    let (capture_path, _) =
+        super::capture_or_record(&args.capture, &args.rig, cal, "tone", channel, || {
+            let mut c = ampnote::signal::stimulus::Common::mono(args.rate, args.level);
+            c.lead_s = 0.05;
+            c.fade_s = 0.01;
+            ampnote::signal::stimulus::tone(&c, args.freq, args.seconds)
+                .map(Into::into)
+                .map_err(|e| e.to_string())
+        })?;
+    let capture_path = capture_path.as_path();
+    let info = Capture::probe_wav(capture_path).map_err(|e| e.to_string())?;
     let chosen = select_channels(info.channel_count, channel).map_err(|e| e.to_string())?;
 
     // One channel decoded at a time: memory stays at one channel's samples plus the analysis.
@@ -20,7 +30,7 @@ pub fn run(args: &AnalyzeArgs) -> Result<ExitCode, String> {
     let mut channel_errors = Vec::new();
     let (mut frames, mut truncated) = (0, false);
     for &ch in &chosen {
-        let capture = Capture::read_wav_channels(&args.capture, args.accept_truncated, Some(&[ch]))
+        let capture = Capture::read_wav_channels(capture_path, args.accept_truncated, Some(&[ch]))
             .map_err(|e| e.to_string())?;
         frames = capture.frames();
         truncated = capture.truncated;
@@ -55,13 +65,13 @@ pub fn run(args: &AnalyzeArgs) -> Result<ExitCode, String> {
             "tone",
             r.channel,
             cal,
-            vec![("capture.wav", args.capture.as_path())],
+            vec![("capture.wav", capture_path)],
             r,
         )?;
     }
     let report = AnalyzeReport {
         schema_version: SCHEMA_VERSION,
-        file: args.capture.display().to_string(),
+        file: capture_path.display().to_string(),
         sample_rate_hz: info.sample_rate_hz,
         encoding: info.encoding,
         frames,

@@ -1,7 +1,7 @@
 //! `ampnote generate`: make a stimulus and write it, with its description, whole or not at all.
 
-use crate::cli::{GenerateKind, TwoToneArg};
-use ampnote::signal::stimulus::{self, TwoToneMethod};
+use crate::cli::GenerateKind;
+use ampnote::signal::stimulus;
 use ampnote::signal::wav::write_wav_described;
 use std::process::ExitCode;
 
@@ -57,12 +57,7 @@ pub fn run(kind: &GenerateKind) -> Result<ExitCode, String> {
             seconds,
             common,
         } => {
-            let (m, dl, dh, dr) = match method {
-                TwoToneArg::Modulation => (TwoToneMethod::Modulation, 60.0, 7000.0, 4.0),
-                TwoToneArg::Difference => {
-                    (TwoToneMethod::DifferenceFrequency, 19_000.0, 20_000.0, 1.0)
-                }
-            };
+            let (m, dl, dh, dr) = method.defaults();
             let c = common.common(0.01)?;
             let s = stimulus::two_tone(
                 &c,

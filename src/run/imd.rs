@@ -13,7 +13,26 @@ use std::process::ExitCode;
 
 pub fn run(args: &ImdArgs) -> Result<ExitCode, String> {
     let e = |err: Error| err.to_string();
-    let hint = match &args.stimulus {
+    let cal = args.calibration.calibration()?;
+    let (capture_path, recorded_stimulus) = super::capture_or_record(
+        &args.capture,
+        &args.rig,
+        cal,
+        "imd",
+        channel_choice(&args.channel)?,
+        || {
+            let mut c = ampnote::signal::stimulus::Common::mono(args.rate, args.level);
+            c.lead_s = 0.05;
+            c.fade_s = 0.01;
+            let (m, lo, hi, ratio) = args.method.defaults();
+            ampnote::signal::stimulus::two_tone(&c, m, lo, hi, ratio, args.seconds)
+                .map(Into::into)
+                .map_err(|e| e.to_string())
+        },
+    )?;
+    let capture_path = capture_path.as_path();
+    let stimulus = args.stimulus.clone().or(recorded_stimulus);
+    let hint = match &stimulus {
         Some(path) => {
             let (_, desc) = super::read_stimulus(path, "twotone")?;
             let Kind::TwoTone {
@@ -34,13 +53,13 @@ pub fn run(args: &ImdArgs) -> Result<ExitCode, String> {
         }
         None => None,
     };
-    let info = Capture::probe_wav(&args.capture).map_err(e)?;
+    let info = Capture::probe_wav(capture_path).map_err(e)?;
     let chosen = select_channels(info.channel_count, channel_choice(&args.channel)?).map_err(e)?;
     let analyzer = ImdAnalyzer::new();
     let mut channels = Vec::new();
     let mut channel_errors = Vec::new();
     for &ch in &chosen {
-        let cap = Capture::read_wav_channels(&args.capture, args.accept_truncated, Some(&[ch]))
+        let cap = Capture::read_wav_channels(capture_path, args.accept_truncated, Some(&[ch]))
             .map_err(e)?;
         let input = ChannelInput {
             channel: ch,
@@ -59,7 +78,7 @@ pub fn run(args: &ImdArgs) -> Result<ExitCode, String> {
     }
     let report = ImdReport {
         schema_version: SCHEMA_VERSION,
-        file: args.capture.display().to_string(),
+        file: capture_path.display().to_string(),
         sample_rate_hz: info.sample_rate_hz,
         first: channels.first().cloned(),
         channels,

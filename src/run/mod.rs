@@ -9,6 +9,7 @@ pub mod noise;
 pub mod notebook;
 pub mod power;
 pub mod response;
+pub mod watch;
 pub mod zout;
 
 use ampnote::capture::Capture;
@@ -17,6 +18,17 @@ use ampnote::signal::stimulus::Description;
 use std::io::Write;
 use std::path::Path;
 use std::process::ExitCode;
+
+/// `ampnote devices`: the audio hosts and interfaces the live rig can use.
+pub fn devices() -> Result<ExitCode, String> {
+    #[cfg(feature = "live")]
+    {
+        print_stdout(&ampnote::rig::card::list_devices());
+        Ok(ExitCode::SUCCESS)
+    }
+    #[cfg(not(feature = "live"))]
+    Err("this build has no live audio: install with `cargo install --path . --features live` (needs ALSA and JACK headers, see README, Live rig)".into())
+}
 
 /// Print to stdout; a closed pipe (`| head`) is not an error.
 pub fn print_stdout(text: &str) {
@@ -112,4 +124,103 @@ pub fn keep(
         .map_err(|e| e.to_string())?;
     eprintln!("kept as {} in {}", run.meta.id, dir.display());
     Ok(())
+}
+
+/// What a rig run plays: the signal, its rate, and its description (none for silence).
+pub struct Played {
+    pub signal: Vec<f64>,
+    pub rate: u32,
+    pub description: Option<Description>,
+}
+
+impl From<ampnote::signal::stimulus::Stimulus> for Played {
+    fn from(s: ampnote::signal::stimulus::Stimulus) -> Played {
+        Played {
+            rate: s.description.sample_rate_hz,
+            signal: s.signal,
+            description: Some(s.description),
+        }
+    }
+}
+
+/// The capture a command analyses: the file the user gave, or a fresh one recorded on the rig the
+/// user named (`make_stimulus` gives what to play at the rig's turn). With a rig, the stimulus and
+/// the capture are written to the captures folder first, so the run is analysed (and kept) like
+/// any recording; a run that fails half way keeps the channels it finished, as partial.
+pub fn capture_or_record(
+    capture: &Option<std::path::PathBuf>,
+    rig_args: &crate::cli::RigArgs,
+    calibration: ampnote::calibration::Calibration,
+    procedure: &str,
+    channel: Option<usize>,
+    make_stimulus: impl FnOnce() -> Result<Played, String>,
+) -> Result<(std::path::PathBuf, Option<std::path::PathBuf>), String> {
+    let rig = rig_args.open(calibration)?;
+    let mut rig = match (capture, rig) {
+        (Some(_), Some(_)) => return Err("give a capture file or --rig, not both".into()),
+        (Some(path), None) => return Ok((path.clone(), None)),
+        (None, None) => {
+            return Err(format!(
+                "give a capture file to analyse, or --rig sim (the simulated bench) or --rig card (the audio interface) to measure one ({procedure})"
+            ))
+        }
+        (None, Some(rig)) => rig,
+    };
+    let stim = make_stimulus()?;
+    let rate = stim.rate;
+    let chosen =
+        ampnote::capture::select_channels(rig.channels(), channel).map_err(|e| e.to_string())?;
+    let dir = &rig_args.captures_dir;
+    std::fs::create_dir_all(dir)
+        .map_err(|e| format!("cannot create the captures folder {}: {e}", dir.display()))?;
+    let stamp = ampnote::notebook::timestamp_for_file();
+    let stim_path = dir.join(format!("{procedure}-{stamp}-stimulus.wav"));
+    let cap_path = dir.join(format!("{procedure}-{stamp}-capture.wav"));
+    let description = stim.description.as_ref().map(|d| d.to_json());
+    ampnote::signal::wav::write_wav_described(
+        &stim_path,
+        rate,
+        std::slice::from_ref(&stim.signal),
+        ampnote::signal::wav::WavFormat::Float32,
+        1,
+        description.as_deref(),
+    )
+    .map_err(|e| e.to_string())?;
+    eprintln!("{}", rig.describe());
+    let n = *chosen.iter().max().expect("at least one channel");
+    let mut chans = vec![vec![0.0; stim.signal.len()]; n];
+    let write = |path: &std::path::Path, chans: &[Vec<f64>]| {
+        ampnote::signal::wav::write_wav(
+            path,
+            rate,
+            chans,
+            ampnote::signal::wav::WavFormat::Float32,
+            1,
+        )
+        .map_err(|e| e.to_string())
+    };
+    for (done, &ch) in chosen.iter().enumerate() {
+        match rig.play_and_record(ch, &stim.signal, rate) {
+            Ok(y) => chans[ch - 1] = y,
+            Err(err) => {
+                let mut msg = err.to_string();
+                if done > 0 {
+                    let partial = dir.join(format!("{procedure}-{stamp}-capture.partial.wav"));
+                    write(&partial, &chans)?;
+                    msg.push_str(&format!(
+                        "; the channel(s) measured before it are kept in {} (partial)",
+                        partial.display()
+                    ));
+                }
+                return Err(msg);
+            }
+        }
+    }
+    write(&cap_path, &chans)?;
+    eprintln!(
+        "recorded {} (stimulus {})",
+        cap_path.display(),
+        stim_path.display()
+    );
+    Ok((cap_path, Some(stim_path)))
 }

@@ -100,13 +100,34 @@ pub fn run(args: &NoiseArgs) -> Result<ExitCode, String> {
             )
         })?)
     };
-    let info = Capture::probe_wav(&args.capture).map_err(e)?;
+    let (capture_path, _) = super::capture_or_record(
+        &args.capture,
+        &args.rig,
+        cal,
+        "noise",
+        channel_choice(&args.channel)?,
+        || {
+            if !(args.seconds >= 0.5 && args.seconds <= 600.0) {
+                return Err(format!(
+                    "--seconds takes 0.5 to 600 s of listening, got {}",
+                    args.seconds
+                ));
+            }
+            Ok(super::Played {
+                signal: vec![0.0; (args.seconds * args.rate as f64) as usize],
+                rate: args.rate,
+                description: None,
+            })
+        },
+    )?;
+    let capture_path = capture_path.as_path();
+    let info = Capture::probe_wav(capture_path).map_err(e)?;
     let chosen = select_channels(info.channel_count, channel_choice(&args.channel)?).map_err(e)?;
     let analyzer = NoiseAnalyzer::new();
     let mut channels = Vec::new();
     let mut channel_errors = Vec::new();
     for &ch in &chosen {
-        let cap = Capture::read_wav_channels(&args.capture, false, Some(&[ch])).map_err(e)?;
+        let cap = Capture::read_wav_channels(capture_path, false, Some(&[ch])).map_err(e)?;
         let input = ChannelInput {
             channel: ch,
             samples: &cap.channels[0],
@@ -121,7 +142,7 @@ pub fn run(args: &NoiseArgs) -> Result<ExitCode, String> {
                     "noise",
                     ch,
                     cal,
-                    vec![("capture.wav", args.capture.as_path())],
+                    vec![("capture.wav", capture_path)],
                     &r,
                 )?;
                 channels.push(r)
@@ -134,7 +155,7 @@ pub fn run(args: &NoiseArgs) -> Result<ExitCode, String> {
     }
     let report = NoiseReport {
         schema_version: ampnote::report::SCHEMA_VERSION,
-        file: args.capture.display().to_string(),
+        file: capture_path.display().to_string(),
         first: channels.first().cloned(),
         channels,
         channel_errors,

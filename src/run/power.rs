@@ -8,7 +8,6 @@ use ampnote::procedure::power::{power_from_capture, run_staircase, StaircaseSett
 use ampnote::report::power::PowerReport;
 use ampnote::report::tone::ChannelError;
 use ampnote::report::SCHEMA_VERSION;
-use ampnote::rig::parse_rig;
 use ampnote::signal::stimulus::Kind;
 use std::process::ExitCode;
 
@@ -23,13 +22,13 @@ pub fn run(args: &PowerArgs) -> Result<ExitCode, String> {
     let mut results = Vec::new();
     let mut channel_errors = Vec::new();
     let source;
-    match (&args.capture, &args.rig) {
+    match (&args.capture, &args.rig.rig) {
         (Some(_), Some(_)) => return Err("give a capture file or --rig, not both".into()),
         (None, None) => {
             return Err("give the capture of a `generate steps` stimulus (with --stimulus), or --rig sim to run on the simulated bench".into())
         }
-        (None, Some(spec)) => {
-            let mut rig = parse_rig(spec).map_err(e)?;
+        (None, Some(_)) => {
+            let mut rig = args.rig.open(flags)?.expect("a rig was named");
             if let Some(l) = flags.load_ohms {
                 rig.set_load(l).map_err(e)?;
             }

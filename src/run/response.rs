@@ -39,7 +39,34 @@ pub fn run(args: &ResponseArgs) -> Result<ExitCode, String> {
         ..ResponseConfig::default()
     })
     .map_err(e)?;
-    let (stim, desc) = super::read_stimulus(&args.stimulus, "sweep")?;
+    let (capture_path, recorded_stimulus) = super::capture_or_record(
+        &args.capture,
+        &args.rig,
+        cal,
+        "response",
+        channel_choice(&args.channel)?,
+        || {
+            let mut c = ampnote::signal::stimulus::Common::mono(args.rate, args.level);
+            c.lead_s = 0.05;
+            c.tail_s = 0.3;
+            c.fade_s = 2.0 / args.from_hz;
+            let to = args
+                .to_hz
+                .unwrap_or((0.45 * args.rate as f64).min(40_000.0));
+            ampnote::signal::stimulus::sweep(&c, args.from_hz, to, args.seconds)
+                .map(Into::into)
+                .map_err(|e| e.to_string())
+        },
+    )?;
+    let stimulus_path = match (&args.stimulus, recorded_stimulus) {
+        (_, Some(p)) => p,
+        (Some(p), None) => p.clone(),
+        (None, None) => {
+            return Err("give the sweep file with --stimulus SWEEP.wav (the one `ampnote generate sweep` wrote)".into())
+        }
+    };
+    let (capture_path, stimulus_path) = (capture_path.as_path(), stimulus_path.as_path());
+    let (stim, desc) = super::read_stimulus(stimulus_path, "sweep")?;
     let Kind::Sweep {
         start_hz,
         stop_hz,
@@ -55,7 +82,7 @@ pub fn run(args: &ResponseArgs) -> Result<ExitCode, String> {
         .channel(signal_ch)
         .ok_or("the stimulus's signal channel is missing from it")?;
 
-    let info = Capture::probe_wav(&args.capture).map_err(e)?;
+    let info = Capture::probe_wav(capture_path).map_err(e)?;
     if info.sample_rate_hz != desc.sample_rate_hz {
         return Err(e(Error::SampleRateMismatch {
             stimulus_hz: desc.sample_rate_hz,
@@ -66,7 +93,7 @@ pub fn run(args: &ResponseArgs) -> Result<ExitCode, String> {
     let mut channels = Vec::new();
     let mut channel_errors = Vec::new();
     for &ch in &chosen {
-        let cap = Capture::read_wav_channels(&args.capture, args.accept_truncated, Some(&[ch]))
+        let cap = Capture::read_wav_channels(capture_path, args.accept_truncated, Some(&[ch]))
             .map_err(e)?;
         match analyzer.analyze(
             ch,
@@ -90,16 +117,16 @@ pub fn run(args: &ResponseArgs) -> Result<ExitCode, String> {
             r.channel,
             cal,
             vec![
-                ("stimulus.wav", args.stimulus.as_path()),
-                ("capture.wav", args.capture.as_path()),
+                ("stimulus.wav", stimulus_path),
+                ("capture.wav", capture_path),
             ],
             r,
         )?;
     }
     let report = ResponseReport {
         schema_version: SCHEMA_VERSION,
-        file: args.capture.display().to_string(),
-        stimulus: args.stimulus.display().to_string(),
+        file: capture_path.display().to_string(),
+        stimulus: stimulus_path.display().to_string(),
         sample_rate_hz: info.sample_rate_hz,
         sweep_start_hz: start_hz,
         sweep_stop_hz: stop_hz,

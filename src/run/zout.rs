@@ -9,7 +9,6 @@ use ampnote::error::Error;
 use ampnote::procedure::zout::{from_levels, two_load, ZoutPoint, ZoutResult};
 use ampnote::report::power::ZoutReport;
 use ampnote::report::SCHEMA_VERSION;
-use ampnote::rig::parse_rig;
 use ampnote::signal::stimulus::{self, Common};
 use std::process::ExitCode;
 
@@ -93,12 +92,13 @@ pub fn run(args: &ZoutArgs) -> Result<ExitCode, String> {
     };
     let mut results = Vec::new();
     let source;
-    if let Some(spec) = &args.rig {
-        let mut rig = parse_rig(spec).map_err(e)?;
+    let cal = args.calibration.calibration()?;
+    if let Some(mut rig) = args.rig.open(cal)? {
+        let rate = args.rate;
         source = rig.describe();
         let chosen = select_channels(rig.channels(), channel_choice(&args.channel)?).map_err(e)?;
         let c = Common {
-            sample_rate_hz: 48_000,
+            sample_rate_hz: rate,
             level_dbfs: args.level,
             channels: 1,
             signal_channels: vec![1],
@@ -115,31 +115,31 @@ pub fn run(args: &ZoutArgs) -> Result<ExitCode, String> {
             let mut caps = Vec::new();
             for r in [ra, rb] {
                 rig.set_load(r).map_err(e)?;
-                caps.push(rig.play_and_record(ch, &stim.signal, 48_000).map_err(e)?);
+                caps.push(rig.play_and_record(ch, &stim.signal, rate).map_err(e)?);
             }
             let res = if args.sweep {
                 let sp = SweepParams::from_description(&stim.description).expect("a sweep");
                 let an = ResponseAnalyzer::new(ResponseConfig::default()).map_err(e)?;
                 let thr = rig.overload_threshold();
                 let a = an
-                    .analyze(ch, &stim.signal, sp, &caps[0], 48_000.0, thr)
+                    .analyze(ch, &stim.signal, sp, &caps[0], rate as f64, thr)
                     .map_err(e)?;
                 let b = an
-                    .analyze(ch, &stim.signal, sp, &caps[1], 48_000.0, thr)
+                    .analyze(ch, &stim.signal, sp, &caps[1], rate as f64, thr)
                     .map_err(e)?;
                 from_responses(ch, &a, ra, &b, rb)?
             } else {
-                let skip = 4800 + 9600; // lead and 0.2 s of settling
+                let skip = (0.3 * rate as f64) as usize; // lead and 0.2 s of settling
                 let (la, f) = tone_level(
                     &caps[0][skip..],
-                    48_000.0,
+                    rate as f64,
                     rig.overload_threshold(),
                     rig.resolution_bits(),
                     Some(args.freq),
                 )?;
                 let (lb, _) = tone_level(
                     &caps[1][skip..],
-                    48_000.0,
+                    rate as f64,
                     rig.overload_threshold(),
                     rig.resolution_bits(),
                     Some(args.freq),

@@ -164,7 +164,6 @@ fn nothing_on_the_input_is_no_signal() {
 #[test]
 fn a_sweep_through_the_simulated_amplifier_is_whole() {
     // The markers survive a real (simulated) amplifier: band limits, distortion, its own gain.
-    use ampnote::rig::Rig;
     let mut rig = ampnote::rig::parse_rig("sim:stock").expect("sim rig");
     let c = ampnote::signal::stimulus::Common::mono(RATE, -20.0);
     let s = ampnote::signal::stimulus::sweep(&c, 20.0, 20_000.0, 1.0).expect("sweep");

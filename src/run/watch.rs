@@ -1,0 +1,180 @@
+//! `ampnote watch`: a steady tone out and, several times a second, what comes back: level, power,
+//! THD, THD+N, H2, H3 and the strongest hum line, on one refreshed line. For trimming bias or hum
+//! balance while looking at the figures. Ctrl-C stops it and leaves the terminal as it was.
+
+use crate::cli::WatchArgs;
+use ampnote::analysis::tone::{ChannelInput, ToneAnalyzer, ToneConfig, ToneResult};
+use std::io::{IsTerminal, Write};
+use std::process::ExitCode;
+use std::time::{Duration, Instant};
+
+/// CPU time this process used so far (user + system), from /proc (Linux); `None` elsewhere.
+pub fn cpu_seconds() -> Option<f64> {
+    let stat = std::fs::read_to_string("/proc/self/stat").ok()?;
+    // Fields after the command name (which is in parentheses and may hold spaces).
+    let rest = &stat[stat.rfind(')')? + 2..];
+    let f: Vec<&str> = rest.split_whitespace().collect();
+    let ticks = f.get(11)?.parse::<f64>().ok()? + f.get(12)?.parse::<f64>().ok()?;
+    Some(ticks / 100.0) // USER_HZ is 100 on Linux
+}
+
+/// One reading as a line.
+pub fn reading_line(r: &ToneResult) -> String {
+    let mut s = format!(
+        "{:8.2} Hz  {:7.2} dBFS",
+        r.fundamental_hz, r.fundamental_dbfs
+    );
+    if let Some(v) = r.fundamental_vrms {
+        s.push_str(&format!("  {v:8.4} V"));
+    }
+    if let Some(w) = r.output_w {
+        s.push_str(&format!("  {w:8.4} W"));
+    }
+    s.push_str(&format!(
+        "  THD {:7.4} %  THD+N {:7.4} %",
+        r.thd_percent, r.thdn_percent
+    ));
+    for order in [2, 3] {
+        if let Some(h) = r.harmonics.iter().find(|h| h.order == order) {
+            s.push_str(&format!(
+                "  H{order} {:6.1} dB{}",
+                h.level_dbc,
+                if h.at_noise_floor { "<" } else { "" }
+            ));
+        }
+    }
+    if let Some(h) = r
+        .hum
+        .iter()
+        .max_by(|a, b| a.level_dbc.total_cmp(&b.level_dbc))
+    {
+        s.push_str(&format!(
+            "  hum {:.0} Hz {:6.1} dB{}",
+            h.frequency_hz,
+            h.level_dbc,
+            if h.at_noise_floor { "<" } else { "" }
+        ));
+    }
+    s
+}
+
+pub fn run(args: &WatchArgs) -> Result<ExitCode, String> {
+    if !(5.0..=50.0).contains(&args.refresh) {
+        return Err(format!(
+            "--refresh takes 5 to 50 readings a second, got {}",
+            args.refresh
+        ));
+    }
+    if args.level > 0.0 {
+        return Err(format!(
+            "--level is the tone's RMS in dBFS and must be at most 0, got {}",
+            args.level
+        ));
+    }
+    let rate = args.rate;
+    let freq = args.freq.round();
+    if !(freq >= 10.0 && freq < 0.45 * rate as f64) {
+        return Err(format!(
+            "--freq must lie between 10 Hz and 0.45 x the rate ({} Hz), got {}",
+            0.45 * rate as f64,
+            args.freq
+        ));
+    }
+    let cal = args.calibration.calibration()?;
+    let mut rig = args.rig.open(cal)?.ok_or(
+        "give the rig to watch: --rig card (the audio interface) or --rig sim (the simulated bench)",
+    )?;
+    if args.channel == 0 || args.channel > rig.channels() {
+        return Err(format!(
+            "--channel takes 1..{}, got {}",
+            rig.channels(),
+            args.channel
+        ));
+    }
+    ampnote::rig::catch_interrupt();
+    // One second of the tone: a whole number of periods at a whole-hertz frequency, so it loops
+    // without a seam.
+    // dBFS of a sine: 0 dBFS is the full-scale sine, so the peak is 10^(level/20).
+    let amp = 10f64.powf(args.level / 20.0);
+    let w = 2.0 * std::f64::consts::PI * freq / rate as f64;
+    let table: Vec<f64> = (0..rate as usize)
+        .map(|i| amp * (w * i as f64).sin())
+        .collect();
+    let analyzer = ToneAnalyzer::new(ToneConfig {
+        fundamental_hint_hz: Some(freq),
+        max_harmonic: 5,
+        ..ToneConfig::default()
+    })
+    .map_err(|e| e.to_string())?;
+    let overload = rig.overload_threshold();
+    let bits = rig.resolution_bits();
+    eprintln!("{}", rig.describe());
+    eprintln!(
+        "watching channel {}: {freq} Hz at {} dBFS, {} readings a second; Ctrl-C stops.",
+        args.channel, args.level, args.refresh
+    );
+    eprintln!("Inside a tube amplifier are lethal voltages, also with the power off (charged capacitors): adjust with one hand, insulated tools, and keep the dummy load connected.");
+    let tty = std::io::stdout().is_terminal();
+    let window = rate as usize / 2;
+    let hop = (rate as f64 / args.refresh) as usize;
+    let begun = Instant::now();
+    let mut start = begun;
+    let mut cpu0 = None;
+    let mut readings = 0u32;
+    let mut last = begun;
+    let limit = args.seconds.map(Duration::from_secs_f64);
+    let outcome = rig.watch(args.channel, &table, rate, window, hop, &mut |x| {
+        let input = ChannelInput {
+            channel: args.channel,
+            samples: x,
+            sample_rate_hz: rate as f64,
+            overload_threshold: overload,
+            resolution_bits: bits,
+        };
+        let line = match analyzer.analyze(&input, &cal) {
+            Ok(r) => reading_line(&r),
+            Err(e) => format!("no reading: {e}"),
+        };
+        if readings == 0 {
+            // Rates and CPU are counted from the first reading (the pre-flight comes before).
+            start = Instant::now();
+            cpu0 = cpu_seconds();
+        }
+        let mut out = std::io::stdout().lock();
+        let _ = if tty {
+            write!(out, "\r\x1b[K{line}")
+        } else {
+            writeln!(out, "{line}")
+        };
+        let _ = out.flush();
+        readings += 1;
+        last = Instant::now();
+        limit.is_none_or(|l| begun.elapsed() < l)
+    });
+    if tty {
+        println!();
+    }
+    let secs = last.duration_since(start).as_secs_f64();
+    // Readings after the first, over the time since it.
+    let rate_text = if readings > 1 {
+        format!(" ({:.1} a second)", (readings - 1) as f64 / secs.max(1e-9))
+    } else {
+        String::new()
+    };
+    let cpu = match (cpu0, cpu_seconds()) {
+        (Some(a), Some(b)) if secs > 0.0 => {
+            format!(", CPU {:.1} % of one core", (b - a) / secs * 100.0)
+        }
+        _ => String::new(),
+    };
+    eprintln!(
+        "{readings} readings{rate_text}{cpu}{}",
+        if ampnote::rig::interrupted() {
+            "; stopped by Ctrl-C, the output silenced first"
+        } else {
+            ""
+        }
+    );
+    outcome.map_err(|e| e.to_string())?;
+    Ok(ExitCode::SUCCESS)
+}
