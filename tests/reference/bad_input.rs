@@ -231,3 +231,82 @@ fn good_file_all_formats_and_outputs() {
         .contains("input overload"));
     std::fs::remove_dir_all(&d).ok();
 }
+
+#[test]
+fn rig_runs_refuse_what_they_cannot_do() {
+    let d = tmpdir("rigargs");
+    let wav = write(&d, "tone.wav", &[tone(48_000)], WavFormat::Float32);
+    let dir = d.join("caps");
+    let dir = dir.to_str().unwrap();
+    expect_error(
+        &["analyze", &wav, "--rig", "sim", "--captures-dir", dir],
+        &["a capture file or --rig, not both"],
+    );
+    expect_error(&["analyze"], &["give a capture file", "--rig sim"]);
+    expect_error(&["response", "--rig", "bench"], &["unknown rig `bench`"]);
+    expect_error(&["watch"], &["--rig card", "--rig sim"]);
+    expect_error(
+        &["watch", "--rig", "sim", "--refresh", "2"],
+        &["--refresh takes 5 to 50"],
+    );
+    expect_error(
+        &[
+            "analyze",
+            "--rig",
+            "sim",
+            "--outputs",
+            "1,x",
+            "--captures-dir",
+            dir,
+        ],
+        &["--outputs takes interface channel numbers"],
+    );
+    #[cfg(not(feature = "live"))]
+    {
+        expect_error(
+            &["analyze", "--rig", "card", "--captures-dir", dir],
+            &["needs a build with the `live` feature", "--features live"],
+        );
+        expect_error(&["devices"], &["--features live"]);
+    }
+}
+
+#[test]
+fn a_rig_run_keeps_what_it_measured() {
+    // Nothing measured is lost: a run on the simulated bench writes its stimulus and capture, and
+    // analysing the kept capture again gives the same figures.
+    let d = tmpdir("rigkeep");
+    let dir = d.join("caps");
+    let dir_s = dir.to_str().unwrap();
+    let (code, out, err) = run(&[
+        "analyze",
+        "--rig",
+        "sim",
+        "--channel",
+        "1",
+        "--freq",
+        "1000",
+        "--captures-dir",
+        dir_s,
+        "--json",
+    ]);
+    assert_eq!(code, 0, "{err}");
+    let first: serde_json::Value = serde_json::from_str(&out).unwrap();
+    let file = first["file"].as_str().unwrap().to_string();
+    assert!(file.ends_with("-capture.wav"), "{file}");
+    let stimuli: Vec<_> = std::fs::read_dir(&dir)
+        .unwrap()
+        .filter_map(|e| e.ok())
+        .filter(|e| e.file_name().to_string_lossy().ends_with("-stimulus.wav"))
+        .collect();
+    assert_eq!(stimuli.len(), 1);
+    let (code, again, err) = run(&["analyze", &file, "--channel", "1", "--json"]);
+    assert_eq!(code, 0, "{err}");
+    let again: serde_json::Value = serde_json::from_str(&again).unwrap();
+    for key in ["thd_db", "thdn_db", "fundamental_dbfs"] {
+        assert_eq!(
+            first["channels"][0][key], again["channels"][0][key],
+            "{key} differs"
+        );
+    }
+}
