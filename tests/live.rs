@@ -235,90 +235,67 @@ fn watch_refreshes_at_least_five_times_a_second() {
     assert!(rate >= 5.0, "{rate} readings a second");
 }
 
+/// Run ampnote with `args` on the JACK host, patched or not: exit code and stderr.
+fn on_jack(args: &[&str], patched: bool) -> (i32, String) {
+    jack_running();
+    let dir = captures_dir("bad");
+    let mut all: Vec<&str> = args.to_vec();
+    all.extend(["--host", "jack", "--outputs", "1", "--inputs", "1"]);
+    all.extend(["--channel", "1", "--captures-dir", &dir]);
+    if patched {
+        all.push("--self-patch");
+    }
+    let out = Command::new(env!("CARGO_BIN_EXE_ampnote"))
+        .args(&all)
+        .output()
+        .unwrap();
+    (
+        out.status.code().unwrap_or(-1),
+        String::from_utf8_lossy(&out.stderr).into_owned(),
+    )
+}
+
 #[test]
 fn bad_requests_name_what_is_there() {
-    jack_running();
-    let run = |args: &[&str]| {
-        let out = Command::new(env!("CARGO_BIN_EXE_ampnote"))
-            .args(args)
-            .output()
-            .unwrap();
+    let cases: [(&[&str], bool, &[&str]); 5] = [
+        // A device that is not there: the error lists the ones that are.
         (
-            out.status.code().unwrap_or(-1),
-            String::from_utf8_lossy(&out.stderr).into_owned(),
-        )
-    };
-    // A device that is not there: the error lists the ones that are.
-    let (code, err) = run(&["analyze", "--rig", "card:no-such-box", "--host", "jack"]);
-    assert_eq!(code, 2);
-    assert!(
-        err.contains("no output device matches `no-such-box`"),
-        "{err}"
-    );
-    assert!(err.contains("jack:output"), "{err}");
-    // A host that is not in the build.
-    let (code, err) = run(&["analyze", "--rig", "card", "--host", "no-such-host"]);
-    assert_eq!(code, 2);
-    assert!(err.contains("no audio host called `no-such-host`"), "{err}");
-    // A rate the server refuses (it runs at 48 kHz): the error says what it offers.
-    let dir = captures_dir("rate");
-    let (code, err) = run(&[
-        "analyze",
-        "--rig",
-        "card",
-        "--host",
-        "jack",
-        "--self-patch",
-        "--outputs",
-        "1",
-        "--inputs",
-        "1",
-        "--rate",
-        "96000",
-        "--captures-dir",
-        &dir,
-    ]);
-    assert_eq!(code, 2);
-    assert!(err.contains("refuses 96000 Hz"), "{err}");
-    assert!(err.contains("48000 Hz"), "{err}");
-    // Nothing patched: the pre-flight chirp does not come back, and nothing loud is played.
-    let (code, err) = run(&[
-        "analyze",
-        "--rig",
-        "card",
-        "--host",
-        "jack",
-        "--outputs",
-        "1",
-        "--inputs",
-        "1",
-        "--channel",
-        "1",
-        "--captures-dir",
-        &dir,
-    ]);
-    assert_eq!(code, 2);
-    assert!(err.contains("did not come back on input 1"), "{err}");
-    // A stimulus louder than the interface input takes (a 0 dBFS sine through a gain of 1 peaks
-    // at full scale): refused before it is played.
-    let (code, err) = run(&[
-        "analyze",
-        "--rig",
-        "card",
-        "--host",
-        "jack",
-        "--self-patch",
-        "--outputs",
-        "1",
-        "--inputs",
-        "1",
-        "--channel",
-        "1",
-        "--level",
-        "0",
-        "--captures-dir",
-        &dir,
-    ]);
-    assert_eq!(code, 2);
-    assert!(err.contains("would reach"), "{err}");
+            &["analyze", "--rig", "card:no-such-box"],
+            true,
+            &["no output device matches `no-such-box`", "jack:output"],
+        ),
+        // A host that is not in the build.
+        (
+            &["analyze", "--rig", "card", "--host", "no-such-host"],
+            true,
+            &["no audio host called `no-such-host`"],
+        ),
+        // A rate the server refuses (it runs at 48 kHz): the error says what it offers.
+        (
+            &["analyze", "--rig", "card", "--rate", "96000"],
+            true,
+            &["refuses 96000 Hz", "48000 Hz"],
+        ),
+        // Nothing patched: the pre-flight chirp does not come back, nothing loud is played.
+        (
+            &["analyze", "--rig", "card"],
+            false,
+            &["did not come back on input 1"],
+        ),
+        // A stimulus louder than the interface input takes (a 0 dBFS sine through a gain of 1
+        // peaks at full scale): refused before it is played.
+        (
+            &["analyze", "--rig", "card", "--level", "0"],
+            true,
+            &["would reach"],
+        ),
+    ];
+    for (args, patched, needles) in cases {
+        let (code, err) = on_jack(args, patched);
+        assert_eq!(code, 2, "{args:?}: {err}");
+        for n in needles {
+            assert!(err.contains(n), "{args:?}: message lacks `{n}`: {err}");
+        }
+        assert!(!err.contains("panicked"), "{args:?}: {err}");
+    }
 }
