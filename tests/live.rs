@@ -240,7 +240,10 @@ fn on_jack(args: &[&str], patched: bool) -> (i32, String) {
     jack_running();
     let dir = captures_dir("bad");
     let mut all: Vec<&str> = args.to_vec();
-    all.extend(["--host", "jack", "--outputs", "1", "--inputs", "1"]);
+    if !args.contains(&"--host") {
+        all.extend(["--host", "jack"]);
+    }
+    all.extend(["--outputs", "1", "--inputs", "1"]);
     all.extend(["--channel", "1", "--captures-dir", &dir]);
     if patched {
         all.push("--self-patch");
