@@ -499,7 +499,7 @@ impl CardRig {
         let mut started = false;
         let mut last_progress = (Instant::now(), sh.in_frames.load(Relaxed));
         let fail = |caps: &Vec<Vec<f64>>, why: String| -> Error {
-            let kept = keep_partial(&keep_dir, caps, rate, "partial");
+            let kept = keep_partial(&keep_dir, caps, rate, "failed");
             rig_error(format!("{why}{kept}"))
         };
         loop {
@@ -816,8 +816,7 @@ impl Rig for CardRig {
         }
         sh.mute.store(false, Relaxed);
         sh.out_taken.store(0, Relaxed);
-        // Endless: every short output buffer counts.
-        sh.out_target.store(u64::MAX, Relaxed);
+        sh.out_target.store(0, Relaxed);
         let (ich, och) = (e.in_channels, e.out_channels);
         let mut buf: Vec<f64> = Vec::with_capacity(window + hop + rate as usize);
         let (mut total, mut next_at) = (0usize, window);
@@ -843,6 +842,8 @@ impl Rig for CardRig {
                     });
                     chunk.fill_from_iter(it);
                     pos = (pos + want) % table.len();
+                    // Endless from the first push on: every short output buffer counts.
+                    sh.out_target.store(u64::MAX, Relaxed);
                 }
             }
             if let Ok(chunk) = e.in_ring.read_chunk(e.in_ring.slots() / ich * ich) {
@@ -916,6 +917,10 @@ impl Rig for CardRig {
                         if (lat - p.latency_ms).abs() > 1.0 / fs * 1e3 {
                             eprintln!("live: channel {channel}: latency now {lat:.2} ms (pre-flight {:.2} ms)", p.latency_ms);
                         }
+                    }
+                    let over = aligned.iter().filter(|v| v.abs() >= 0.999).count();
+                    if over > 0 {
+                        eprintln!("live: channel {channel}: the interface input reached full scale on {over} sample(s): add attenuation or lower the level");
                     }
                     let out_peak = aligned.iter().fold(0.0f64, |a, v| a.max(v.abs()));
                     if peak > 1e-3 {
