@@ -604,42 +604,19 @@ impl CardRig {
             .zip(&raw.channels)
             .map(|(&i, c)| (i, framing::locate(c, &framed, rate).ok()))
             .collect();
-        let mine = found.iter().find(|(i, _)| *i == inp).and_then(|(_, l)| *l);
-        let Some(l) = mine else {
-            if let Some((other, _)) = found.iter().find(|(_, l)| l.is_some()) {
-                return Err(rig_error(format!(
-                    "pre-flight: the chirp sent to output {} came back on input {}, not on input {}: swap the leads, or name the inputs with --inputs",
-                    out + 1,
-                    other + 1,
-                    inp + 1
-                )));
-            }
-            return Err(rig_error(format!(
-                "pre-flight: the chirp sent to output {} did not come back on input {} (nor on any other): check the cables, the attenuator, the amplifier's power and volume{}",
-                out + 1,
-                inp + 1,
-                if self.host.id() == cpal::HostId::Jack && !self.opts.self_patch {
-                    ", and the JACK connections"
+        let l = framing::judge_preflight(out, inp, &found).map_err(|fault| {
+            let hint = matches!(fault, framing::PreflightFault::Nowhere { .. })
+                && self.host.id() == cpal::HostId::Jack
+                && !self.opts.self_patch;
+            rig_error(format!(
+                "pre-flight: {fault}{}",
+                if hint {
+                    "; with JACK, check the connections"
                 } else {
                     ""
                 }
-            )));
-        };
-        for (i, other) in &found {
-            if *i != inp {
-                if let Some(o) = other {
-                    if o.gain.abs() > 0.1 * l.gain.abs() {
-                        return Err(rig_error(format!(
-                            "pre-flight: the chirp sent to output {} reaches input {} too, at {:.1} dB of input {}: two inputs share one signal (a wiring fault?)",
-                            out + 1,
-                            i + 1,
-                            20.0 * (o.gain.abs() / l.gain.abs()).log10(),
-                            inp + 1
-                        )));
-                    }
-                }
-            }
-        }
+            ))
+        })?;
         let p = Preflight {
             latency_ms: l.latency_samples / rate as f64 * 1e3,
             gain: l.gain,

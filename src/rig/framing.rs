@@ -394,6 +394,85 @@ pub fn assess(capture: &[f64], framed: &Framed, rate: u32, reported_gaps: u64) -
     Verdict::Whole { aligned, located }
 }
 
+/// What the pre-flight chirp found wrong.
+#[derive(Debug, Clone, PartialEq)]
+pub enum PreflightFault {
+    /// It came back on another input only (0-based).
+    Elsewhere {
+        output: usize,
+        expected: usize,
+        other: usize,
+    },
+    /// It came back nowhere.
+    Nowhere { output: usize, expected: usize },
+    /// It came back on the expected input and, within 20 dB, on another one too.
+    Shared {
+        output: usize,
+        expected: usize,
+        other: usize,
+        relative_db: f64,
+    },
+}
+
+impl std::fmt::Display for PreflightFault {
+    fn fmt(&self, f: &mut std::fmt::Formatter<'_>) -> std::fmt::Result {
+        match *self {
+            PreflightFault::Elsewhere { output, expected, other } => write!(
+                f,
+                "the chirp sent to output {} came back on input {}, not on input {}: swap the leads, or name the inputs with --inputs",
+                output + 1, other + 1, expected + 1
+            ),
+            PreflightFault::Nowhere { output, expected } => write!(
+                f,
+                "the chirp sent to output {} did not come back on input {} (nor on any other): check the cables, the attenuator, the amplifier's power and volume",
+                output + 1, expected + 1
+            ),
+            PreflightFault::Shared { output, expected, other, relative_db } => write!(
+                f,
+                "the chirp sent to output {} reaches input {} too, at {relative_db:.1} dB of input {}: two inputs share one signal (a wiring fault?)",
+                output + 1, other + 1, expected + 1
+            ),
+        }
+    }
+}
+
+/// Judge the pre-flight: the chirp sent to `output` must come back on input `expected` (both
+/// 0-based) and on no other input within 20 dB. `found` holds what [`locate`] found on each
+/// input listened to.
+pub fn judge_preflight(
+    output: usize,
+    expected: usize,
+    found: &[(usize, Option<Located>)],
+) -> Result<Located, PreflightFault> {
+    let mine = found
+        .iter()
+        .find(|(i, _)| *i == expected)
+        .and_then(|(_, l)| *l);
+    let Some(l) = mine else {
+        return Err(match found.iter().find(|(_, l)| l.is_some()) {
+            Some(&(other, _)) => PreflightFault::Elsewhere {
+                output,
+                expected,
+                other,
+            },
+            None => PreflightFault::Nowhere { output, expected },
+        });
+    };
+    for &(other, o) in found {
+        if let Some(o) = o.filter(|_| other != expected) {
+            if o.gain.abs() > 0.1 * l.gain.abs() {
+                return Err(PreflightFault::Shared {
+                    output,
+                    expected,
+                    other,
+                    relative_db: 20.0 * (o.gain.abs() / l.gain.abs()).log10(),
+                });
+            }
+        }
+    }
+    Ok(l)
+}
+
 #[cfg(test)]
 mod tests {
     use super::*;

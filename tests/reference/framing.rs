@@ -177,3 +177,52 @@ fn a_sweep_through_the_simulated_amplifier_is_whole() {
         Verdict::Broken(why) => panic!("the simulated amplifier's capture was rejected: {why}"),
     }
 }
+
+#[test]
+fn preflight_names_the_input_the_chirp_arrived_on() {
+    // The pre-flight plays only the framed silence: markers on output 1 (index 0). Captures of
+    // two inputs are built by hand: the chirp on input 2 alone (a swapped lead), on both at
+    // -6 dB (a shared signal), at -40 dB crosstalk (fine), and nowhere.
+    use ampnote::rig::framing::{judge_preflight, PreflightFault};
+    let f = frame(&vec![0.0; 2400], RATE);
+    let quiet = delayed(&vec![0.0; f.signal.len()], 0, 4800);
+    let scaled = |g: f64| -> Vec<f64> {
+        delayed(&f.signal, 0, 4800)
+            .iter()
+            .map(|v| g * v)
+            .collect::<Vec<_>>()
+    };
+    let judge = |a: &[f64], b: &[f64]| {
+        let found = vec![
+            (0usize, locate(a, &f, RATE).ok()),
+            (1usize, locate(b, &f, RATE).ok()),
+        ];
+        judge_preflight(0, 0, &found)
+    };
+    assert!(matches!(
+        judge(&quiet, &scaled(1.0)),
+        Err(PreflightFault::Elsewhere { other: 1, .. })
+    ));
+    match judge(&scaled(1.0), &scaled(0.5)) {
+        Err(PreflightFault::Shared { relative_db, .. }) => {
+            assert!((relative_db + 6.02).abs() < 0.05, "{relative_db}")
+        }
+        other => panic!("a shared signal passed: {other:?}"),
+    }
+    let ok = judge(&scaled(1.0), &scaled(0.01)).expect("-40 dB crosstalk is fine");
+    assert!((ok.gain - 1.0).abs() < 1e-3);
+    assert!(matches!(
+        judge(&quiet, &quiet),
+        Err(PreflightFault::Nowhere { .. })
+    ));
+    let text = PreflightFault::Elsewhere {
+        output: 0,
+        expected: 0,
+        other: 1,
+    }
+    .to_string();
+    assert!(
+        text.contains("came back on input 2, not on input 1"),
+        "{text}"
+    );
+}
