@@ -618,6 +618,7 @@ impl RigArgs {
             buffer_frames: self.buffer,
             keep_dir: self.captures_dir.clone(),
             calibration,
+            test_drop_frames: 0,
         })
     }
 

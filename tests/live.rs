@@ -218,6 +218,50 @@ fn twenty_runs_without_a_dropout() {
 }
 
 #[test]
+fn a_capture_with_lost_frames_is_kept_as_partial_and_retried_once() {
+    // 300 frames thrown away mid-capture (the rig's test hook, as a route that loses buffers
+    // without saying so would): the markers' distance is 300 short, the capture is rejected,
+    // kept as partial, measured again, and the result says so. The retry is whole.
+    jack_running();
+    let dir = captures_dir("gap");
+    let opts = RigOptions {
+        host: Some("jack".into()),
+        outputs: vec![1],
+        inputs: vec![1],
+        self_patch: true,
+        keep_dir: dir.clone().into(),
+        test_drop_frames: 300,
+        ..RigOptions::default()
+    };
+    let mut rig = parse_rig_with("card", &opts).expect("the JACK rig opens");
+    let fs = 48_000u32;
+    let x: Vec<f64> = (0..fs as usize)
+        .map(|i| 0.25 * (2.0 * std::f64::consts::PI * 997.0 * i as f64 / fs as f64).sin())
+        .collect();
+    let y = rig.play_and_record(1, &x, fs).expect("the retry is whole");
+    let worst = x
+        .iter()
+        .zip(&y)
+        .map(|(a, b)| ((*a as f32) as f64 - b).abs())
+        .fold(0.0, f64::max);
+    assert_eq!(worst, 0.0, "the retried capture differs from the stimulus");
+    let notes = rig.take_notes(1);
+    assert!(
+        notes
+            .iter()
+            .any(|n| n.contains("had a gap and was measured again")),
+        "{notes:?}"
+    );
+    let partial: Vec<String> = std::fs::read_dir(&dir)
+        .unwrap()
+        .filter_map(|e| e.ok())
+        .map(|e| e.file_name().to_string_lossy().into_owned())
+        .filter(|n| n.ends_with(".partial.wav"))
+        .collect();
+    assert_eq!(partial.len(), 1, "{partial:?}");
+}
+
+#[test]
 fn watch_refreshes_at_least_five_times_a_second() {
     let (code, out, err) = live("watch", &["watch", "--seconds", "3"]);
     assert_eq!(code, 0, "{err}");

@@ -14,6 +14,19 @@ pub const SCHEMA_VERSION: u32 = 1;
 pub trait ChannelResult {
     fn channel(&self) -> usize;
     fn warnings(&self) -> &[String];
+    fn warnings_mut(&mut self) -> &mut Vec<String>;
+}
+
+/// Add what the rig noticed while measuring (`(channel, note)`) to each channel's warnings.
+pub fn add_rig_notes<T: ChannelResult>(results: &mut [T], notes: &[(usize, String)]) {
+    for r in results {
+        let ch = r.channel();
+        for (c, n) in notes {
+            if *c == ch && !r.warnings().contains(n) {
+                r.warnings_mut().push(n.clone());
+            }
+        }
+    }
 }
 
 macro_rules! channel_result {
@@ -24,6 +37,9 @@ macro_rules! channel_result {
             }
             fn warnings(&self) -> &[String] {
                 &self.warnings
+            }
+            fn warnings_mut(&mut self) -> &mut Vec<String> {
+                &mut self.warnings
             }
         }
     )*};

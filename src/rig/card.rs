@@ -371,6 +371,9 @@ pub struct CardRig {
     /// Latest gain from output to input per channel (peak in / peak out), for the headroom check.
     gain: Vec<Option<f64>>,
     load_ohms: Option<f64>,
+    /// Per channel, what the runs noticed since the last `take_notes`.
+    notes: Vec<Vec<String>>,
+    in_preflight: bool,
 }
 
 impl CardRig {
@@ -401,6 +404,8 @@ impl CardRig {
             preflight: vec![None; n],
             gain: vec![None; n],
             load_ohms: opts.calibration.load_ohms,
+            notes: vec![Vec::new(); n],
+            in_preflight: false,
         })
     }
 
@@ -475,6 +480,11 @@ impl CardRig {
         rate: u32,
     ) -> Result<RawRun> {
         let keep_dir = self.opts.keep_dir.clone();
+        let mut drop_pending = if self.in_preflight {
+            0
+        } else {
+            std::mem::take(&mut self.opts.test_drop_frames)
+        };
         let e = self.engine(rate)?;
         let fs = rate as f64;
         let sh = e.shared.clone();
@@ -507,6 +517,11 @@ impl CardRig {
             if let Ok(chunk) = e.in_ring.read_chunk(e.in_ring.slots() / ich * ich) {
                 let (a, b) = chunk.as_slices();
                 for frame in a.chunks_exact(ich).chain(b.chunks_exact(ich)) {
+                    // The test hook: lose frames once, half way through the stimulus.
+                    if drop_pending > 0 && caps[0].len() > preroll + signal.len() / 2 {
+                        drop_pending -= 1;
+                        continue;
+                    }
                     for (cap, &i) in caps.iter_mut().zip(ins) {
                         cap.push(frame[i] as f64);
                     }
@@ -598,7 +613,10 @@ impl CardRig {
         ins.sort_unstable();
         ins.dedup();
         let framed = framing::frame(&vec![0.0; (0.05 * rate as f64) as usize], rate);
-        let raw = self.run_signal(out, &ins, &framed.signal, rate)?;
+        self.in_preflight = true;
+        let raw = self.run_signal(out, &ins, &framed.signal, rate);
+        self.in_preflight = false;
+        let raw = raw?;
         let found: Vec<(usize, Option<framing::Located>)> = ins
             .iter()
             .zip(&raw.channels)
@@ -748,6 +766,14 @@ impl Rig for CardRig {
         0.999
     }
 
+    fn take_notes(&mut self, channel: usize) -> Vec<String> {
+        channel
+            .checked_sub(1)
+            .and_then(|k| self.notes.get_mut(k))
+            .map(std::mem::take)
+            .unwrap_or_default()
+    }
+
     fn resolution_bits(&self) -> u32 {
         24
     }
@@ -884,10 +910,15 @@ impl Rig for CardRig {
                 Verdict::Whole { aligned, located } => {
                     let fs = sample_rate_hz as f64;
                     if located.drift_ppm.abs() >= 1.0 {
-                        eprintln!(
-                            "live: channel {channel}: output and input clocks differ by {:+.1} ppm",
+                        let note = format!(
+                            "the interface's output and input clocks differ by {:+.1} ppm (separate clocks?): frequencies read on the input clock, and a sweep's phase at high frequencies is approximate",
                             located.drift_ppm
                         );
+                        eprintln!("live: channel {channel}: {note}");
+                        self.notes[k].push(note);
+                    }
+                    if attempt > 0 {
+                        self.notes[k].push("the first capture had a gap and was measured again (its partial capture is kept in the captures folder)".into());
                     }
                     let lat = located.latency_samples / fs * 1e3;
                     if let Some(p) = self.preflight[k] {

@@ -34,6 +34,13 @@ pub trait Rig {
         sample_rate_hz: u32,
     ) -> Result<Vec<f64>>;
 
+    /// What the rig noticed on `channel` since the last call (a retried capture, clock drift),
+    /// for the result's warnings.
+    fn take_notes(&mut self, channel: usize) -> Vec<String> {
+        let _ = channel;
+        Vec::new()
+    }
+
     /// Play `table` (a whole number of periods) over and over into `channel` and hand `look` the
     /// latest `window` captured samples, again and again, until it returns false or Ctrl-C. The
     /// default plays a fresh stretch each time (fine for a bench that has no clock of its own);
@@ -109,6 +116,9 @@ pub struct RigOptions {
     pub keep_dir: std::path::PathBuf,
     /// The user's calibration (profile and flags).
     pub calibration: Calibration,
+    /// For tests of the gap detection only: the live rig throws away this many input frames
+    /// once, half way through the first stimulus after the pre-flight (0: never).
+    pub test_drop_frames: usize,
 }
 
 impl Default for RigOptions {
@@ -122,6 +132,7 @@ impl Default for RigOptions {
             buffer_frames: None,
             keep_dir: "ampnote-captures".into(),
             calibration: Calibration::default(),
+            test_drop_frames: 0,
         }
     }
 }

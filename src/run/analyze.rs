@@ -12,7 +12,7 @@ pub fn run(args: &AnalyzeArgs) -> Result<ExitCode, String> {
     let cal = args.calibration.calibration()?;
     let channel = args.channel_choice()?;
     let analyzer = ToneAnalyzer::new(config).map_err(|e| e.to_string())?;
-    let (capture_path, _) =
+    let (capture_path, _, notes) =
         super::capture_or_record(&args.capture, &args.rig, cal, "tone", channel, || {
             let mut c = ampnote::signal::stimulus::Common::mono(args.rate, args.level);
             c.lead_s = 0.05;
@@ -59,6 +59,7 @@ pub fn run(args: &AnalyzeArgs) -> Result<ExitCode, String> {
             }),
         }
     }
+    ampnote::report::add_rig_notes(&mut channels, &notes);
     for r in &channels {
         super::keep(
             &args.save,

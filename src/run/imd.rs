@@ -14,7 +14,7 @@ use std::process::ExitCode;
 pub fn run(args: &ImdArgs) -> Result<ExitCode, String> {
     let e = |err: Error| err.to_string();
     let cal = args.calibration.calibration()?;
-    let (capture_path, recorded_stimulus) = super::capture_or_record(
+    let (capture_path, recorded_stimulus, notes) = super::capture_or_record(
         &args.capture,
         &args.rig,
         cal,
@@ -76,6 +76,7 @@ pub fn run(args: &ImdArgs) -> Result<ExitCode, String> {
             }),
         }
     }
+    ampnote::report::add_rig_notes(&mut channels, &notes);
     let report = ImdReport {
         schema_version: SCHEMA_VERSION,
         file: capture_path.display().to_string(),

@@ -143,6 +143,14 @@ impl From<ampnote::signal::stimulus::Stimulus> for Played {
     }
 }
 
+/// A command's capture: the file, the stimulus file a rig run wrote (if any), and what the rig
+/// noticed per channel (for the results' warnings).
+pub type Recorded = (
+    std::path::PathBuf,
+    Option<std::path::PathBuf>,
+    Vec<(usize, String)>,
+);
+
 /// The capture a command analyses: the file the user gave, or a fresh one recorded on the rig the
 /// user named (`make_stimulus` gives what to play at the rig's turn). With a rig, the stimulus and
 /// the capture are written to the captures folder first, so the run is analysed (and kept) like
@@ -154,11 +162,11 @@ pub fn capture_or_record(
     procedure: &str,
     channel: Option<usize>,
     make_stimulus: impl FnOnce() -> Result<Played, String>,
-) -> Result<(std::path::PathBuf, Option<std::path::PathBuf>), String> {
+) -> Result<Recorded, String> {
     let rig = rig_args.open(calibration)?;
     let mut rig = match (capture, rig) {
         (Some(_), Some(_)) => return Err("give a capture file or --rig, not both".into()),
-        (Some(path), None) => return Ok((path.clone(), None)),
+        (Some(path), None) => return Ok((path.clone(), None, Vec::new())),
         (None, None) => {
             return Err(format!(
                 "give a capture file to analyse, or --rig sim (the simulated bench) or --rig card (the audio interface) to measure one ({procedure})"
@@ -199,9 +207,13 @@ pub fn capture_or_record(
         )
         .map_err(|e| e.to_string())
     };
+    let mut notes = Vec::new();
     for (done, &ch) in chosen.iter().enumerate() {
         match rig.play_and_record(ch, &stim.signal, rate) {
-            Ok(y) => chans[ch - 1] = y,
+            Ok(y) => {
+                chans[ch - 1] = y;
+                notes.extend(rig.take_notes(ch).into_iter().map(|n| (ch, n)));
+            }
             Err(err) => {
                 let mut msg = err.to_string();
                 if done > 0 {
@@ -222,5 +234,5 @@ pub fn capture_or_record(
         cap_path.display(),
         stim_path.display()
     );
-    Ok((cap_path, Some(stim_path)))
+    Ok((cap_path, Some(stim_path), notes))
 }

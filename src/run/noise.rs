@@ -100,7 +100,7 @@ pub fn run(args: &NoiseArgs) -> Result<ExitCode, String> {
             )
         })?)
     };
-    let (capture_path, _) = super::capture_or_record(
+    let (capture_path, _, notes) = super::capture_or_record(
         &args.capture,
         &args.rig,
         cal,
@@ -136,7 +136,8 @@ pub fn run(args: &NoiseArgs) -> Result<ExitCode, String> {
             resolution_bits: cap.encoding.resolution_bits(),
         };
         match analyzer.analyze(&input, (lo, hi), mains, &cal) {
-            Ok(r) => {
+            Ok(mut r) => {
+                ampnote::report::add_rig_notes(std::slice::from_mut(&mut r), &notes);
                 super::keep(
                     &args.save,
                     "noise",

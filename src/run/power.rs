@@ -53,7 +53,10 @@ pub fn run(args: &PowerArgs) -> Result<ExitCode, String> {
                         dwell_s: args.dwell,
                     };
                     match run_staircase(rig.as_mut(), ch, &settings) {
-                        Ok(r) => results.push(r),
+                        Ok(mut r) => {
+                            r.warnings.extend(rig.take_notes(ch));
+                            results.push(r)
+                        }
                         Err(err @ Error::InvalidSetting(_)) => return Err(err.to_string()),
                         Err(err) => channel_errors.push(ChannelError {
                             channel: ch,

@@ -39,7 +39,7 @@ pub fn run(args: &ResponseArgs) -> Result<ExitCode, String> {
         ..ResponseConfig::default()
     })
     .map_err(e)?;
-    let (capture_path, recorded_stimulus) = super::capture_or_record(
+    let (capture_path, recorded_stimulus, notes) = super::capture_or_record(
         &args.capture,
         &args.rig,
         cal,
@@ -110,6 +110,7 @@ pub fn run(args: &ResponseArgs) -> Result<ExitCode, String> {
             }),
         }
     }
+    ampnote::report::add_rig_notes(&mut channels, &notes);
     for r in &channels {
         super::keep(
             &args.save,

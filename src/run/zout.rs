@@ -147,6 +147,8 @@ pub fn run(args: &ZoutArgs) -> Result<ExitCode, String> {
                 from_levels(ch, f, 10f64.powf(la / 20.0), ra, 10f64.powf(lb / 20.0), rb)
                     .map_err(e)?
             };
+            let mut res = res;
+            res.warnings.extend(rig.take_notes(ch));
             results.push(res);
         }
         rig.set_load(ra).map_err(e)?;
