@@ -274,6 +274,10 @@ pub struct CalibrateArgs {
     /// Never ask: fail when a value is missing (for scripts).
     #[arg(long)]
     pub no_prompt: bool,
+    /// With --rig card: play the calibration tone through the interface, output 1 wired straight
+    /// to input 1 (no amplifier), and read the input full scale and the floor from it.
+    #[command(flatten)]
+    pub rig: RigArgs,
 }
 
 #[derive(Debug, Subcommand)]

@@ -262,6 +262,39 @@ fn a_capture_with_lost_frames_is_kept_as_partial_and_retried_once() {
 }
 
 #[test]
+fn calibration_through_the_loopback() {
+    // Closed form: with 0.100 V rms read at the output while the -20 dBFS tone plays, the output
+    // full scale is 1.000 V; the tone comes back at -20 dBFS through a wire, so the input full
+    // scale is 1.000 V as well.
+    let out = std::env::temp_dir().join(format!("ampnote-live-cal-{}.toml", std::process::id()));
+    let out_s = out.display().to_string();
+    let (code, _, err) = live(
+        "cal",
+        &[
+            "calibrate",
+            "--meter-vrms",
+            "0.1",
+            "--load-ohms",
+            "8",
+            "--no-prompt",
+            "-o",
+            &out_s,
+        ],
+    );
+    assert_eq!(code, 0, "{err}");
+    let text = std::fs::read_to_string(&out).unwrap();
+    let value = |key: &str| -> f64 {
+        text.lines()
+            .find_map(|l| l.strip_prefix(key))
+            .and_then(|r| r.trim().trim_start_matches('=').trim().parse().ok())
+            .unwrap_or_else(|| panic!("no {key} in {text}"))
+    };
+    assert!((value("output_fs_vrms") - 1.0).abs() < 1e-9, "{text}");
+    assert!((value("input_fs_vrms") - 1.0).abs() < 1e-3, "{text}");
+    assert!(value("thdn_db") < -120.0, "{text}");
+}
+
+#[test]
 fn watch_refreshes_at_least_five_times_a_second() {
     let (code, out, err) = live("watch", &["watch", "--seconds", "3"]);
     assert_eq!(code, 0, "{err}");

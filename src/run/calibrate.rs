@@ -57,6 +57,101 @@ fn ask(prompt: &str, allowed: bool) -> Result<Option<f64>, String> {
     }
 }
 
+/// The calibration tone's reading (997 Hz expected) from a looped-back capture.
+fn tone_reading(
+    samples: &[f64],
+    rate: f64,
+    overload: f64,
+    bits: u32,
+) -> Result<ampnote::analysis::tone::ToneResult, String> {
+    ToneAnalyzer::new(ToneConfig {
+        fundamental_hint_hz: Some(997.0),
+        ..ToneConfig::default()
+    })
+    .map_err(|e| e.to_string())?
+    .analyze(
+        &ChannelInput {
+            channel: 1,
+            samples,
+            sample_rate_hz: rate,
+            overload_threshold: overload,
+            resolution_bits: bits,
+        },
+        &Calibration::default(),
+    )
+    .map_err(|e| e.to_string())
+}
+
+/// Play the calibration tone through the live rig's channel 1, looped straight back: the reading,
+/// and the meter value typed while it played (when `ask_meter`).
+fn live_loopback(
+    args: &CalibrateArgs,
+    ask_meter: bool,
+) -> Result<(ampnote::analysis::tone::ToneResult, Option<f64>), String> {
+    let spec = args.rig.rig.as_deref().unwrap_or_default();
+    if !spec.starts_with("card") {
+        return Err("calibrate measures the interface itself: use --rig card with the interface output wired straight to its input (no amplifier)".into());
+    }
+    let mut rig = args
+        .rig
+        .open(Calibration::default())?
+        .expect("a rig was named");
+    eprintln!(
+        "Wire interface output {} straight to input {} (no amplifier, no attenuator) for this step.",
+        args.rig.outputs.split(',').next().unwrap_or("1"),
+        args.rig.inputs.split(',').next().unwrap_or("1")
+    );
+    let rate = 48_000u32;
+    let amp = 10f64.powf(TONE_DBFS / 20.0);
+    let w = 2.0 * std::f64::consts::PI * 997.0 / rate as f64;
+    let (overload, bits) = (rig.overload_threshold(), rig.resolution_bits());
+    if !ask_meter {
+        let tone: Vec<f64> = (0..3 * rate as usize)
+            .map(|i| amp * (w * i as f64).sin())
+            .collect();
+        let y = rig
+            .play_and_record(1, &tone, rate)
+            .map_err(|e| e.to_string())?;
+        let r = tone_reading(&y[rate as usize / 2..], rate as f64, overload, bits)?;
+        return Ok((r, None));
+    }
+    // Play the tone until the user has typed the meter reading.
+    let table: Vec<f64> = (0..rate as usize)
+        .map(|i| amp * (w * i as f64).sin())
+        .collect();
+    let (tx, rx) = std::sync::mpsc::channel();
+    let mut tx = Some(tx);
+    let mut last = Vec::new();
+    let mut typed = None;
+    rig.watch(1, &table, rate, rate as usize, rate as usize / 4, &mut |x| {
+        last.clear();
+        last.extend_from_slice(x);
+        // Ask once the tone is actually coming back (after the pre-flight).
+        if let Some(tx) = tx.take() {
+            std::thread::spawn(move || {
+                let _ = tx.send(ask(
+                    "The tone plays now. Meter reading at the interface output (V rms), then Enter: ",
+                    true,
+                ));
+            });
+        }
+        match rx.try_recv() {
+            Ok(v) => {
+                typed = Some(v);
+                false
+            }
+            Err(_) => true,
+        }
+    })
+    .map_err(|e| e.to_string())?;
+    let typed = typed.unwrap_or(Ok(None))?;
+    if last.is_empty() {
+        return Err("the loopback delivered no reading; nothing was written".into());
+    }
+    let r = tone_reading(&last, rate as f64, overload, bits)?;
+    Ok((r, typed))
+}
+
 pub fn run(args: &CalibrateArgs) -> Result<ExitCode, String> {
     eprintln!("{SAFETY}");
     let interactive = !args.no_prompt && std::io::stdin().is_terminal();
@@ -85,10 +180,11 @@ pub fn run(args: &CalibrateArgs) -> Result<ExitCode, String> {
             path.display()
         );
     }
-    // Interface output full scale: given, or from the meter reading of the -20 dBFS tone.
+    // Interface output full scale: given, or from the meter reading of the -20 dBFS tone (asked
+    // here, or while the live rig plays the tone).
     let meter = match args.meter_vrms {
         Some(v) => Some(v),
-        None if args.output_fs_vrms.is_none() => ask(
+        None if args.output_fs_vrms.is_none() && args.rig.rig.is_none() => ask(
             "Meter reading at the interface output while the tone plays (V rms, Enter to skip): ",
             interactive,
         )?,
@@ -98,27 +194,36 @@ pub fn run(args: &CalibrateArgs) -> Result<ExitCode, String> {
         .output_fs_vrms
         .or(meter.map(|v| v * 10f64.powf(-TONE_DBFS / 20.0)));
     let tone_vrms = meter.or(output_fs.map(|v| v * 10f64.powf(TONE_DBFS / 20.0)));
-    // Input full scale and the loopback floor from the looped-back recording.
+    // Input full scale and the loopback floor from the looped-back tone: recorded through the
+    // live rig, or a recording the user made.
     let mut input_fs = args.input_fs_vrms;
     let mut floor = LoopbackSection::default();
-    if let Some(path) = &args.loopback {
-        let cap = Capture::read_wav_channels(path, false, Some(&[1])).map_err(|e| e.to_string())?;
-        let r = ToneAnalyzer::new(ToneConfig {
-            fundamental_hint_hz: Some(997.0),
-            ..ToneConfig::default()
-        })
-        .map_err(|e| e.to_string())?
-        .analyze(
-            &ChannelInput {
-                channel: 1,
-                samples: &cap.channels[0],
-                sample_rate_hz: cap.sample_rate_hz as f64,
-                overload_threshold: cap.encoding.overload_threshold(),
-                resolution_bits: cap.encoding.resolution_bits(),
-            },
-            &Calibration::default(),
-        )
-        .map_err(|e| e.to_string())?;
+    let looped = match (&args.rig.rig, &args.loopback) {
+        (Some(_), Some(_)) => return Err("give --loopback FILE or --rig card, not both".into()),
+        (Some(_), None) => Some(live_loopback(args, meter.is_none() && interactive)?),
+        (None, Some(path)) => {
+            let cap =
+                Capture::read_wav_channels(path, false, Some(&[1])).map_err(|e| e.to_string())?;
+            let r = tone_reading(
+                &cap.channels[0],
+                cap.sample_rate_hz as f64,
+                cap.encoding.overload_threshold(),
+                cap.encoding.resolution_bits(),
+            )?;
+            Some((r, None))
+        }
+        (None, None) => None,
+    };
+    // A meter value typed while the live rig played the tone counts as --meter-vrms.
+    let (output_fs, tone_vrms) = match looped.as_ref().and_then(|l| l.1) {
+        Some(typed) => (
+            args.output_fs_vrms
+                .or(Some(typed * 10f64.powf(-TONE_DBFS / 20.0))),
+            Some(typed),
+        ),
+        None => (output_fs, tone_vrms),
+    };
+    if let Some((r, _)) = looped {
         if input_fs.is_none() {
             let v = tone_vrms.ok_or("the loopback gives the input full scale only with the tone's voltage: give --meter-vrms or --output-fs-vrms")?;
             input_fs = Some(v / 10f64.powf(r.fundamental_dbfs / 20.0));

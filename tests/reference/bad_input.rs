@@ -310,3 +310,24 @@ fn a_rig_run_keeps_what_it_measured() {
         );
     }
 }
+
+#[test]
+fn calibrate_measures_the_interface_not_an_amplifier() {
+    let d = tmpdir("calrig");
+    let out = d.join("p.toml");
+    expect_error(
+        &[
+            "calibrate",
+            "--rig",
+            "sim",
+            "--no-prompt",
+            "-o",
+            out.to_str().unwrap(),
+        ],
+        &["use --rig card", "wired straight to its input"],
+    );
+    assert!(
+        !out.exists(),
+        "a profile was written from the simulated amplifier"
+    );
+}
