@@ -1021,7 +1021,7 @@ pub fn list_devices() -> String {
             }
         };
         if devices.is_empty() {
-            let _ = writeln!(s, "  no devices");
+            let _ = writeln!(s, "  no devices (is its server running?)");
         }
         for d in devices {
             let label = device_label(&d);
