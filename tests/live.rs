@@ -7,7 +7,7 @@
 //! `cargo test --features live --test live -- --test-threads=1`.
 
 mod live_common;
-use live_common::{captures_dir, f, json, JACK};
+use live_common::{captures_dir, JACK};
 use std::process::Command;
 
 fn live(tag: &str, args: &[&str]) -> (i32, String, String) {
@@ -31,47 +31,7 @@ fn twenty_runs_without_a_dropout() {
 
 #[test]
 fn staircase_through_the_loopback() {
-    // Closed form: every step comes back at its drive level, with no distortion. The wire never
-    // reaches 1 % THD, so the staircase stops at the power limit (0.12 W into 8 ohm with a 1 V
-    // full scale is -0.2 dBFS).
-    let (code, out, err) = live(
-        "steps",
-        &[
-            "power",
-            "--channel",
-            "1",
-            "--from",
-            "-24",
-            "--step",
-            "6",
-            "--dwell",
-            "0.3",
-            "--settle",
-            "0.1",
-            "--input-fs-vrms",
-            "1",
-            "--output-fs-vrms",
-            "1",
-            "--attenuation",
-            "1",
-            "--load-ohms",
-            "8",
-            "--max-w",
-            "0.12",
-            "--json",
-        ],
-    );
-    assert_eq!(code, 0, "{err}");
-    let v = json(&out);
-    let steps = v["steps"].as_array().expect("steps");
-    assert!(steps.len() >= 4, "{v}");
-    for s in steps {
-        assert!(
-            (f(s, "output_dbfs") - f(s, "drive_dbfs")).abs() < 0.01,
-            "{s}"
-        );
-        assert!(f(s, "thdn_percent") < 1e-4, "{s}"); // below -120 dB
-    }
+    live_common::check_staircase(JACK);
 }
 
 #[test]

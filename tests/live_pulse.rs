@@ -21,6 +21,11 @@ fn sweep_through_the_null_sink_is_flat() {
 }
 
 #[test]
+fn staircase_through_the_null_sink() {
+    live_common::check_staircase(PULSE);
+}
+
+#[test]
 fn twenty_runs_without_a_dropout() {
     live_common::check_twenty_runs(PULSE);
 }
