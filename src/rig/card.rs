@@ -220,6 +220,44 @@ impl Shared {
             + self.xruns.load(Relaxed)
             + (self.overflow_frames.load(Relaxed) > 0) as u64
     }
+
+    /// End a run: the output falls silent first, then the input stops filling the ring.
+    fn stop_run(&self) {
+        self.mute.store(true, Relaxed);
+        self.armed.store(false, Relaxed);
+        self.out_target.store(0, Relaxed);
+    }
+}
+
+/// Notices a device that went away, or an input that stopped delivering data for 3 s.
+struct Watchdog {
+    since: Instant,
+    frames: u64,
+}
+
+impl Watchdog {
+    fn new(sh: &Shared) -> Watchdog {
+        Watchdog {
+            since: Instant::now(),
+            frames: sh.in_frames.load(Relaxed),
+        }
+    }
+
+    /// What is wrong, if anything.
+    fn check(&mut self, sh: &Shared) -> Option<&'static str> {
+        if sh.lost.load(Relaxed) {
+            return Some(
+                "the audio device went away mid run (unplugged, or the sound server stopped)",
+            );
+        }
+        let now = sh.in_frames.load(Relaxed);
+        if now != self.frames {
+            (self.since, self.frames) = (Instant::now(), now);
+        } else if self.since.elapsed() > Duration::from_secs(3) {
+            return Some("the input stopped delivering data for 3 s (device stalled or gone)");
+        }
+        None
+    }
 }
 
 fn on_error(shared: Arc<Shared>) -> impl FnMut(cpal::Error) + Send + 'static {
@@ -345,6 +383,56 @@ struct Engine {
     // Dropped last: the streams stop before the rings go away.
     _out: cpal::Stream,
     _in: cpal::Stream,
+}
+
+impl Engine {
+    /// Throw away whatever waits in the input ring.
+    fn discard_input(&mut self) {
+        while let Ok(c) = self.in_ring.read_chunk(self.in_ring.slots()) {
+            if c.is_empty() {
+                break;
+            }
+            c.commit_all();
+        }
+    }
+
+    /// Hand every whole input frame waiting in the ring to `take`.
+    fn drain_input(&mut self, mut take: impl FnMut(&[f32])) {
+        let ich = self.in_channels;
+        if let Ok(chunk) = self.in_ring.read_chunk(self.in_ring.slots() / ich * ich) {
+            let (a, b) = chunk.as_slices();
+            a.chunks_exact(ich)
+                .chain(b.chunks_exact(ich))
+                .for_each(&mut take);
+            chunk.commit_all();
+        }
+    }
+
+    /// Queue up to `frames` output frames, sample `i` being `sample(i)` on output `out` and
+    /// silence on the others, as far as the ring has room; the number queued.
+    fn queue_output(&mut self, out: usize, frames: usize, sample: impl Fn(usize) -> f64) -> usize {
+        let och = self.out_channels;
+        let n = (self.out_ring.slots() / och).min(frames);
+        if n == 0 {
+            return 0;
+        }
+        match self.out_ring.write_chunk_uninit(n * och) {
+            Ok(chunk) => {
+                let it = (0..n).flat_map(|i| {
+                    let v = sample(i) as f32;
+                    (0..och).map(move |c| if c == out { v } else { 0.0 })
+                });
+                chunk.fill_from_iter(it);
+                n
+            }
+            Err(_) => 0,
+        }
+    }
+
+    /// Output frames queued and not yet played.
+    fn output_queued(&self) -> usize {
+        (self.out_ring.buffer().capacity() - self.out_ring.slots()) / self.out_channels
+    }
 }
 
 /// One run's raw capture: the chosen inputs, and what went wrong.
@@ -488,13 +576,8 @@ impl CardRig {
         let e = self.engine(rate)?;
         let fs = rate as f64;
         let sh = e.shared.clone();
-        // Throw away whatever is in the input ring, start counting afresh.
-        while let Ok(c) = e.in_ring.read_chunk(e.in_ring.slots()) {
-            if c.is_empty() {
-                break;
-            }
-            c.commit_all();
-        }
+        // Start counting afresh.
+        e.discard_input();
         let gaps_before = sh.gaps();
         sh.overflow_frames.store(0, Relaxed);
         sh.mute.store(false, Relaxed);
@@ -502,89 +585,49 @@ impl CardRig {
         let allowance = (0.3 * fs) as usize + 4 * e.buffer_frames.unwrap_or(4096) as usize;
         let wanted = preroll + signal.len() + allowance;
         let mut caps: Vec<Vec<f64>> = ins.iter().map(|_| Vec::with_capacity(wanted)).collect();
-        let ich = e.in_channels;
-        let och = e.out_channels;
         sh.armed.store(true, Relaxed);
         let mut pushed = 0usize;
         let mut started = false;
-        let mut last_progress = (Instant::now(), sh.in_frames.load(Relaxed));
-        let fail = |caps: &Vec<Vec<f64>>, why: String| -> Error {
-            let kept = keep_partial(&keep_dir, caps, rate, "failed");
-            rig_error(format!("{why}{kept}"))
-        };
+        let mut watchdog = Watchdog::new(&sh);
         loop {
-            // Drain the input.
-            if let Ok(chunk) = e.in_ring.read_chunk(e.in_ring.slots() / ich * ich) {
-                let (a, b) = chunk.as_slices();
-                for frame in a.chunks_exact(ich).chain(b.chunks_exact(ich)) {
-                    // The test hook: lose frames once, half way through the stimulus.
-                    if drop_pending > 0 && caps[0].len() > preroll + signal.len() / 2 {
-                        drop_pending -= 1;
-                        continue;
-                    }
-                    for (cap, &i) in caps.iter_mut().zip(ins) {
-                        cap.push(frame[i] as f64);
-                    }
+            e.drain_input(|frame| {
+                // The test hook: lose frames once, half way through the stimulus.
+                if drop_pending > 0 && caps[0].len() > preroll + signal.len() / 2 {
+                    drop_pending -= 1;
+                    return;
                 }
-                chunk.commit_all();
-            }
+                for (cap, &i) in caps.iter_mut().zip(ins) {
+                    cap.push(frame[i] as f64);
+                }
+            });
             let got = caps[0].len();
             // Input first: the stimulus starts only once the input is delivering data.
             if !started && got >= preroll {
                 sh.out_taken.store(0, Relaxed);
-                sh.out_target.store((signal.len() * och) as u64, Relaxed);
+                sh.out_target
+                    .store((signal.len() * e.out_channels) as u64, Relaxed);
                 started = true;
             }
             if started && pushed < signal.len() {
-                let room = e.out_ring.slots() / och;
-                let n = room.min(signal.len() - pushed);
-                if n > 0 {
-                    if let Ok(chunk) = e.out_ring.write_chunk_uninit(n * och) {
-                        let it = signal[pushed..pushed + n].iter().flat_map(|&v| {
-                            (0..och).map(move |c| if c == out { v as f32 } else { 0.0 })
-                        });
-                        chunk.fill_from_iter(it);
-                        pushed += n;
-                    }
-                }
+                let rest = &signal[pushed..];
+                pushed += e.queue_output(out, rest.len(), |i| rest[i]);
             }
             if got >= wanted {
                 break;
             }
             if interrupted() {
-                sh.mute.store(true, Relaxed);
-                sh.armed.store(false, Relaxed);
-                return Err(Error::Interrupted(keep_partial(
-                    &keep_dir,
-                    &caps,
-                    rate,
-                    "interrupted",
-                )));
+                sh.stop_run();
+                let kept = keep_partial(&keep_dir, &caps, rate, "interrupted");
+                return Err(Error::Interrupted(kept));
             }
-            if sh.lost.load(Relaxed) {
-                sh.mute.store(true, Relaxed);
-                sh.armed.store(false, Relaxed);
-                return Err(fail(
-                    &caps,
-                    "the audio device went away mid run (unplugged, or the sound server stopped)"
-                        .into(),
-                ));
-            }
-            let frames_now = sh.in_frames.load(Relaxed);
-            if frames_now != last_progress.1 {
-                last_progress = (Instant::now(), frames_now);
-            } else if last_progress.0.elapsed() > Duration::from_secs(3) {
-                sh.mute.store(true, Relaxed);
-                sh.armed.store(false, Relaxed);
-                return Err(fail(
-                    &caps,
-                    "the input stopped delivering data for 3 s (device stalled or gone)".into(),
-                ));
+            if let Some(why) = watchdog.check(&sh) {
+                sh.stop_run();
+                let kept = keep_partial(&keep_dir, &caps, rate, "failed");
+                return Err(rig_error(format!("{why}{kept}")));
             }
             std::thread::sleep(Duration::from_millis(2));
         }
-        sh.armed.store(false, Relaxed);
-        sh.out_target.store(0, Relaxed);
+        sh.stop_run();
         let gaps = sh.gaps() - gaps_before;
         Ok(RawRun {
             channels: caps,
@@ -808,84 +851,53 @@ impl Rig for CardRig {
         catch_interrupt();
         let (out, inp) = self.mapping(channel)?;
         self.ready(channel, rate, table)?;
-        let keep_dir = self.opts.keep_dir.clone();
         let e = self.engine(rate)?;
         let sh = e.shared.clone();
-        while let Ok(c) = e.in_ring.read_chunk(e.in_ring.slots()) {
-            if c.is_empty() {
-                break;
-            }
-            c.commit_all();
-        }
+        e.discard_input();
         sh.mute.store(false, Relaxed);
         sh.out_taken.store(0, Relaxed);
         sh.out_target.store(0, Relaxed);
-        let (ich, och) = (e.in_channels, e.out_channels);
-        let mut buf: Vec<f64> = Vec::with_capacity(window + hop + rate as usize);
+        // The latest input, with room for a hop or two before the oldest part is dropped.
+        let mut buf: Vec<f64> = Vec::with_capacity(2 * window + rate as usize);
         let (mut total, mut next_at) = (0usize, window);
         let underruns0 = sh.underruns.load(Relaxed);
         let mut pos = 0usize;
-        let mut last_progress = (Instant::now(), sh.in_frames.load(Relaxed));
+        let mut watchdog = Watchdog::new(&sh);
         sh.armed.store(true, Relaxed);
-        let stop = |sh: &Shared| {
-            // Output first: silence, then stop listening.
-            sh.mute.store(true, Relaxed);
-            std::thread::sleep(Duration::from_millis(50));
-            sh.armed.store(false, Relaxed);
-        };
         let outcome = loop {
             // Keep about half a second queued on the output: the analysis may take a while.
-            let queued = (e.out_ring.buffer().capacity() - e.out_ring.slots()) / och;
-            let want = (rate as usize / 2).saturating_sub(queued);
+            let want = (rate as usize / 2).saturating_sub(e.output_queued());
             if want > 0 {
-                if let Ok(chunk) = e.out_ring.write_chunk_uninit(want * och) {
-                    let it = (0..want).flat_map(|i| {
-                        let v = table[(pos + i) % table.len()] as f32;
-                        (0..och).map(move |c| if c == out { v } else { 0.0 })
-                    });
-                    chunk.fill_from_iter(it);
-                    pos = (pos + want) % table.len();
+                let n = e.queue_output(out, want, |i| table[(pos + i) % table.len()]);
+                if n > 0 {
+                    pos = (pos + n) % table.len();
                     // Endless from the first push on: every short output buffer counts.
                     sh.out_target.store(u64::MAX, Relaxed);
                 }
             }
-            if let Ok(chunk) = e.in_ring.read_chunk(e.in_ring.slots() / ich * ich) {
-                let (a, b) = chunk.as_slices();
-                for frame in a.chunks_exact(ich).chain(b.chunks_exact(ich)) {
-                    buf.push(frame[inp] as f64);
-                }
-                total += chunk.len() / ich;
-                chunk.commit_all();
-            }
-            if buf.len() > window {
+            e.drain_input(|frame| {
+                buf.push(frame[inp] as f64);
+                total += 1;
+            });
+            if buf.len() > 2 * window {
                 buf.drain(..buf.len() - window);
             }
             // One reading every `hop` frames on average, whatever the host's buffer size.
-            if buf.len() == window && total >= next_at {
+            if buf.len() >= window && total >= next_at {
                 next_at += hop;
-                if !look(&buf) {
+                if !look(&buf[buf.len() - window..]) {
                     break Ok(());
                 }
             }
             if interrupted() {
                 break Ok(());
             }
-            if sh.lost.load(Relaxed) {
-                break Err(rig_error(format!(
-                    "the audio device went away{}",
-                    keep_partial(&keep_dir, std::slice::from_ref(&buf), rate, "watch")
-                )));
-            }
-            let frames_now = sh.in_frames.load(Relaxed);
-            if frames_now != last_progress.1 {
-                last_progress = (Instant::now(), frames_now);
-            } else if last_progress.0.elapsed() > Duration::from_secs(3) {
-                break Err(rig_error("the input stopped delivering data for 3 s"));
+            if let Some(why) = watchdog.check(&sh) {
+                break Err(rig_error(why));
             }
             std::thread::sleep(Duration::from_millis(5));
         };
-        stop(&sh);
-        sh.out_target.store(0, Relaxed);
+        sh.stop_run();
         let short = sh.underruns.load(Relaxed) - underruns0;
         if short > 0 {
             eprintln!("live: the output ran short {short} time(s) while watching (readings then were wrong): is the computer busy?");

@@ -94,8 +94,11 @@ pub fn correlate(x: &[f64], m: &[f64]) -> Vec<f64> {
     if m.is_empty() || x.len() < m.len() {
         return Vec::new();
     }
+    // One planner for every correlation: the lengths repeat from run to run, so each is planned
+    // once per process.
+    static PLANNER: std::sync::OnceLock<SpectrumPlanner> = std::sync::OnceLock::new();
+    let planner = PLANNER.get_or_init(SpectrumPlanner::new);
     let n = fast_length_up(x.len() + m.len());
-    let planner = SpectrumPlanner::new();
     let fwd = planner.forward(n);
     let inv = planner.inverse(n);
     let mut a = vec![0.0; n];
@@ -309,15 +312,18 @@ pub fn find_holes(capture: &[f64], stimulus: &[f64], rate: u32) -> Vec<(usize, u
         let ratio: Vec<f64> = (0..blocks)
             .map(|b| if active[b] { c[b] / s[b] } else { f64::NAN })
             .collect();
+        let mut near: Vec<f64> = Vec::with_capacity(21);
         for b in 0..blocks {
             if !active[b] {
                 continue;
             }
             // The neighbours' median ratio (10 blocks each side, active ones only).
-            let mut near: Vec<f64> = (b.saturating_sub(10)..(b + 11).min(blocks))
-                .filter(|&j| j.abs_diff(b) > 1 && active[j])
-                .map(|j| ratio[j])
-                .collect();
+            near.clear();
+            near.extend(
+                (b.saturating_sub(10)..(b + 11).min(blocks))
+                    .filter(|&j| j.abs_diff(b) > 1 && active[j])
+                    .map(|j| ratio[j]),
+            );
             if near.len() < 4 {
                 continue;
             }
