@@ -74,6 +74,7 @@ fn calibration_through_the_loopback() {
 
 #[test]
 fn watch_refreshes_at_least_five_times_a_second() {
+    // The target (at least 5 readings a second); the level is closed form (a wire).
     let (code, out, err) = live("watch", &["watch", "--seconds", "3"]);
     assert_eq!(code, 0, "{err}");
     let lines: Vec<&str> = out.lines().filter(|l| l.contains("THD+N")).collect();

@@ -683,7 +683,7 @@ impl CardRig {
             gain: l.gain,
         };
         eprintln!(
-            "live: pre-flight channel {channel}: output {} -> input {}, latency {:.2} ms, gain {:+.2} dB, polarity {}",
+            "live: pre-flight channel {channel}: output {} -> input {}, latency {:.2} ms, gain {:+.2} dB (input dBFS over output dBFS), polarity {}",
             out + 1,
             inp + 1,
             p.latency_ms,

@@ -25,10 +25,10 @@ pub fn reading_line(r: &ToneResult) -> String {
         r.fundamental_hz, r.fundamental_dbfs
     );
     if let Some(v) = r.fundamental_vrms {
-        s.push_str(&format!("  {v:8.4} V"));
+        s.push_str(&format!("  {v:8.4} V rms"));
     }
-    if let Some(w) = r.output_w {
-        s.push_str(&format!("  {w:8.4} W"));
+    if let (Some(w), Some(load)) = (r.output_w, r.load_ohms) {
+        s.push_str(&format!("  {w:8.4} W into {load} ohm"));
     }
     s.push_str(&format!(
         "  THD {:7.4} %  THD+N {:7.4} %",
@@ -37,9 +37,9 @@ pub fn reading_line(r: &ToneResult) -> String {
     for order in [2, 3] {
         if let Some(h) = r.harmonics.iter().find(|h| h.order == order) {
             s.push_str(&format!(
-                "  H{order} {:6.1} dB{}",
-                h.level_dbc,
-                if h.at_noise_floor { "<" } else { "" }
+                "  H{order} {}{:.1} dBc",
+                if h.at_noise_floor { "<" } else { "" },
+                h.level_dbc
             ));
         }
     }
@@ -49,10 +49,10 @@ pub fn reading_line(r: &ToneResult) -> String {
         .max_by(|a, b| a.level_dbc.total_cmp(&b.level_dbc))
     {
         s.push_str(&format!(
-            "  hum {:.0} Hz {:6.1} dB{}",
+            "  hum {:.0} Hz {}{:.1} dBc",
             h.frequency_hz,
-            h.level_dbc,
-            if h.at_noise_floor { "<" } else { "" }
+            if h.at_noise_floor { "<" } else { "" },
+            h.level_dbc
         ));
     }
     s

@@ -187,8 +187,8 @@ pub fn check_sweep(s: Server) {
     );
 }
 
-/// Twenty captures in a row through one rig, each the played tone sample for sample, none
-/// retried.
+/// Closed form (a digital wire): twenty captures in a row through one rig, each the played tone
+/// sample for sample, none retried (the target: zero dropouts in 20 consecutive runs).
 pub fn check_twenty_runs(s: Server) {
     let mut rig = s.rig("twenty", 0);
     for run in 0..20 {
@@ -204,7 +204,7 @@ pub fn check_twenty_runs(s: Server) {
     }
 }
 
-/// 300 frames thrown away mid-capture (the rig's test hook, as a route that loses buffers
+/// Closed form: 300 frames thrown away mid-capture (the rig's test hook, as a route that loses buffers
 /// without saying so would): the markers' distance is 300 short, the capture is rejected, kept
 /// as partial, measured again, and the result says so. The retry is whole.
 pub fn check_retry(s: Server) {

@@ -153,6 +153,7 @@ fn clock_drift_is_measured_not_rejected() {
 
 #[test]
 fn nothing_on_the_input_is_no_signal() {
+    // Closed form: noise alone (about -110 dBFS) holds no copy of the marker.
     let f = frame(&tone(997.0, 0.3, 0.5), RATE);
     let cap = delayed(&vec![0.0; f.signal.len()], 0, 4800);
     match assess(&cap, &f, RATE, 0) {
@@ -164,6 +165,8 @@ fn nothing_on_the_input_is_no_signal() {
 #[test]
 fn a_sweep_through_the_simulated_amplifier_is_whole() {
     // The markers survive a real (simulated) amplifier: band limits, distortion, its own gain.
+    // Closed form: the simulated bench has no delay and one clock, so latency and slip are 0
+    // (within its band-limiting's group delay of a few samples).
     let mut rig = ampnote::rig::parse_rig("sim:stock").expect("sim rig");
     let c = ampnote::signal::stimulus::Common::mono(RATE, -20.0);
     let s = ampnote::signal::stimulus::sweep(&c, 20.0, 20_000.0, 1.0).expect("sweep");
@@ -180,8 +183,8 @@ fn a_sweep_through_the_simulated_amplifier_is_whole() {
 
 #[test]
 fn preflight_names_the_input_the_chirp_arrived_on() {
-    // The pre-flight plays only the framed silence: markers on output 1 (index 0). Captures of
-    // two inputs are built by hand: the chirp on input 2 alone (a swapped lead), on both at
+    // Closed form, on captures of two inputs built by hand. The pre-flight plays only the framed
+    // silence: markers on output 1 (index 0). The captures: the chirp on input 2 alone (a swapped lead), on both at
     // -6 dB (a shared signal), at -40 dB crosstalk (fine), and nowhere.
     use ampnote::rig::framing::{judge_preflight, PreflightFault};
     let f = frame(&vec![0.0; 2400], RATE);
