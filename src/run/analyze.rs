@@ -14,12 +14,8 @@ pub fn run(args: &AnalyzeArgs) -> Result<ExitCode, String> {
     let analyzer = ToneAnalyzer::new(config).map_err(|e| e.to_string())?;
     let (capture_path, _, notes) =
         super::capture_or_record(&args.capture, &args.rig, cal, "tone", channel, || {
-            let mut c = ampnote::signal::stimulus::Common::mono(args.rate, args.level);
-            c.lead_s = 0.05;
-            c.fade_s = 0.01;
-            ampnote::signal::stimulus::tone(&c, args.freq, args.seconds)
-                .map(Into::into)
-                .map_err(|e| e.to_string())
+            let c = super::rig_common(args.rate, args.level, 0.01);
+            super::to_played(ampnote::signal::stimulus::tone(&c, args.freq, args.seconds))
         })?;
     let capture_path = capture_path.as_path();
     let info = Capture::probe_wav(capture_path).map_err(|e| e.to_string())?;

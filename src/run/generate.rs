@@ -43,7 +43,7 @@ pub fn run(kind: &GenerateKind) -> Result<ExitCode, String> {
             seconds,
             common,
         } => {
-            let to = to.unwrap_or((0.45 * common.rate as f64).min(40_000.0));
+            let to = to.unwrap_or(stimulus::default_sweep_stop_hz(common.rate));
             (
                 stimulus::sweep(&common.common(0.0)?, *from, to, *seconds).map_err(e)?,
                 common,

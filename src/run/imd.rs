@@ -21,13 +21,16 @@ pub fn run(args: &ImdArgs) -> Result<ExitCode, String> {
         "imd",
         channel_choice(&args.channel)?,
         || {
-            let mut c = ampnote::signal::stimulus::Common::mono(args.rate, args.level);
-            c.lead_s = 0.05;
-            c.fade_s = 0.01;
+            let c = super::rig_common(args.rate, args.level, 0.01);
             let (m, lo, hi, ratio) = args.method.defaults();
-            ampnote::signal::stimulus::two_tone(&c, m, lo, hi, ratio, args.seconds)
-                .map(Into::into)
-                .map_err(|e| e.to_string())
+            super::to_played(ampnote::signal::stimulus::two_tone(
+                &c,
+                m,
+                lo,
+                hi,
+                ratio,
+                args.seconds,
+            ))
         },
     )?;
     let capture_path = capture_path.as_path();

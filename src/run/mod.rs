@@ -143,6 +143,23 @@ impl From<ampnote::signal::stimulus::Stimulus> for Played {
     }
 }
 
+/// A rig run's stimulus settings: one channel at `level_dbfs` RMS, 50 ms of lead silence and
+/// `fade_s` raised-cosine ramps.
+pub fn rig_common(rate_hz: u32, level_dbfs: f64, fade_s: f64) -> ampnote::signal::stimulus::Common {
+    ampnote::signal::stimulus::Common {
+        lead_s: 0.05,
+        fade_s,
+        ..ampnote::signal::stimulus::Common::mono(rate_hz, level_dbfs)
+    }
+}
+
+/// A generated stimulus, ready for [`capture_or_record`].
+pub fn to_played(
+    s: ampnote::error::Result<ampnote::signal::stimulus::Stimulus>,
+) -> Result<Played, String> {
+    s.map(Into::into).map_err(|e| e.to_string())
+}
+
 /// A command's capture: the file, the stimulus file a rig run wrote (if any), and what the rig
 /// noticed per channel (for the results' warnings).
 pub type Recorded = (

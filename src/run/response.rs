@@ -46,16 +46,20 @@ pub fn run(args: &ResponseArgs) -> Result<ExitCode, String> {
         "response",
         channel_choice(&args.channel)?,
         || {
-            let mut c = ampnote::signal::stimulus::Common::mono(args.rate, args.level);
-            c.lead_s = 0.05;
-            c.tail_s = 0.3;
-            c.fade_s = 2.0 / args.from_hz;
+            // Sweeps fade in only, over a few periods of the start, and need a tail.
+            let c = ampnote::signal::stimulus::Common {
+                tail_s: 0.3,
+                ..super::rig_common(args.rate, args.level, 2.0 / args.from_hz)
+            };
             let to = args
                 .to_hz
-                .unwrap_or((0.45 * args.rate as f64).min(40_000.0));
-            ampnote::signal::stimulus::sweep(&c, args.from_hz, to, args.seconds)
-                .map(Into::into)
-                .map_err(|e| e.to_string())
+                .unwrap_or(ampnote::signal::stimulus::default_sweep_stop_hz(args.rate));
+            super::to_played(ampnote::signal::stimulus::sweep(
+                &c,
+                args.from_hz,
+                to,
+                args.seconds,
+            ))
         },
     )?;
     let stimulus_path = match (&args.stimulus, recorded_stimulus) {

@@ -117,7 +117,7 @@ pub fn run(args: &ZoutArgs) -> Result<ExitCode, String> {
                 rig.set_load(r).map_err(e)?;
                 caps.push(rig.play_and_record(ch, &stim.signal, rate).map_err(e)?);
             }
-            let res = if args.sweep {
+            let mut res = if args.sweep {
                 let sp = SweepParams::from_description(&stim.description).expect("a sweep");
                 let an = ResponseAnalyzer::new(ResponseConfig::default()).map_err(e)?;
                 let thr = rig.overload_threshold();
@@ -147,7 +147,6 @@ pub fn run(args: &ZoutArgs) -> Result<ExitCode, String> {
                 from_levels(ch, f, 10f64.powf(la / 20.0), ra, 10f64.powf(lb / 20.0), rb)
                     .map_err(e)?
             };
-            let mut res = res;
             res.warnings.extend(rig.take_notes(ch));
             results.push(res);
         }

@@ -382,6 +382,12 @@ pub fn steps(
     ))
 }
 
+/// The sweep's default top at `rate_hz`: 0.45 x the rate (inside the converters' passband), at
+/// most 40 kHz.
+pub fn default_sweep_stop_hz(rate_hz: u32) -> f64 {
+    (0.45 * rate_hz as f64).min(40_000.0)
+}
+
 /// The synchronized exponential sweep from `start_hz` to `stop_hz` lasting about `seconds`
 /// (Novak et al. 2015): `L = round(f1 T / ln(f2/f1)) / f1` makes `f1 L` an integer, so the n-th
 /// harmonic of the sweep is the sweep itself advanced by `L ln n` and the harmonic responses keep
