@@ -19,6 +19,35 @@ fn description(path: &Path) -> (Capture, Description) {
     (cap, d)
 }
 
+/// `ampnote generate ARGS -o D/NAME`; the file's path.
+fn generate(d: &Path, name: &str, args: &[&str]) -> String {
+    let path = p(d, name);
+    let mut all = vec!["generate"];
+    all.extend_from_slice(args);
+    all.extend(["-o", &path]);
+    ok(&all);
+    path
+}
+
+/// A 2 s sweep over the audio band, 20 Hz to 20 kHz at 48 kHz, as D/sweep.wav.
+fn audio_band_sweep(d: &Path) -> String {
+    generate(
+        d,
+        "sweep.wav",
+        &[
+            "sweep",
+            "--rate",
+            "48000",
+            "--seconds",
+            "2",
+            "--from",
+            "20",
+            "--to",
+            "20000",
+        ],
+    )
+}
+
 fn p(d: &Path, name: &str) -> String {
     d.join(name).to_string_lossy().into_owned()
 }
@@ -28,29 +57,29 @@ fn sweep_is_novaks_synchronized_sweep() {
     // Novak, Lotton, Simon (2015): L = round(f1 T / ln(f2/f1)) / f1 and
     // x(t) = sin(2 pi f1 L exp(t/L)); f1 L is an integer, so x(t) = sin(2 pi f1 L (exp(t/L) - 1)).
     let d = tmpdir("sweep");
-    let f = p(&d, "sweep.wav");
-    ok(&[
-        "generate",
-        "sweep",
-        "--rate",
-        "48000",
-        "--bits",
-        "32f",
-        "--level",
-        "-6",
-        "--from",
-        "20",
-        "--to",
-        "20000",
-        "--seconds",
-        "3",
-        "--lead",
-        "0.1",
-        "--tail",
-        "0.2",
-        "-o",
-        &f,
-    ]);
+    let f = generate(
+        &d,
+        "sweep.wav",
+        &[
+            "sweep",
+            "--rate",
+            "48000",
+            "--bits",
+            "32f",
+            "--level",
+            "-6",
+            "--from",
+            "20",
+            "--to",
+            "20000",
+            "--seconds",
+            "3",
+            "--lead",
+            "0.1",
+            "--tail",
+            "0.2",
+        ],
+    );
     let (cap, desc) = description(Path::new(&f));
     let Kind::Sweep {
         start_hz,
@@ -91,23 +120,23 @@ fn sweep_is_novaks_synchronized_sweep() {
 fn tone_steps_and_twotone_levels() {
     let d = tmpdir("levels");
     // A -12 dBFS tone reads -12 dBFS (0 dBFS = full-scale sine RMS, AES17).
-    let tone = p(&d, "tone.wav");
-    ok(&[
-        "generate",
-        "tone",
-        "--freq",
-        "1000",
-        "--level",
-        "-12",
-        "--seconds",
-        "1",
-        "--lead",
-        "0",
-        "--tail",
-        "0",
-        "-o",
-        &tone,
-    ]);
+    let tone = generate(
+        &d,
+        "tone.wav",
+        &[
+            "tone",
+            "--freq",
+            "1000",
+            "--level",
+            "-12",
+            "--seconds",
+            "1",
+            "--lead",
+            "0",
+            "--tail",
+            "0",
+        ],
+    );
     let v: serde_json::Value = serde_json::from_str(&ok(&["analyze", &tone, "--json"])).unwrap();
     let lvl = v["channels"][0]["fundamental_dbfs"].as_f64().unwrap();
     assert!((lvl + 12.0).abs() < 0.01, "tone level {lvl}");
@@ -135,23 +164,23 @@ fn tone_steps_and_twotone_levels() {
     }
 
     // Two-tone at -10 dBFS: RMS of the pair equals a -10 dBFS sine's, amplitudes 4:1.
-    let tt = p(&d, "tt.wav");
-    ok(&[
-        "generate",
-        "twotone",
-        "--level",
-        "-10",
-        "--seconds",
-        "2",
-        "--bits",
-        "32f",
-        "--lead",
-        "0",
-        "--tail",
-        "0",
-        "-o",
-        &tt,
-    ]);
+    let tt = generate(
+        &d,
+        "tt.wav",
+        &[
+            "twotone",
+            "--level",
+            "-10",
+            "--seconds",
+            "2",
+            "--bits",
+            "32f",
+            "--lead",
+            "0",
+            "--tail",
+            "0",
+        ],
+    );
     let (cap, desc) = description(Path::new(&tt));
     let x = &cap.channels[0];
     let rms = (x.iter().map(|v| v * v).sum::<f64>() / x.len() as f64).sqrt();
@@ -170,17 +199,11 @@ fn tone_steps_and_twotone_levels() {
     assert_eq!(v["pair_source"], "stimulus description");
 
     // Stereo file with the signal on channel 2 only.
-    let st2 = p(&d, "right.wav");
-    ok(&[
-        "generate",
-        "tone",
-        "--channels",
-        "2",
-        "--signal-on",
-        "2",
-        "-o",
-        &st2,
-    ]);
+    let st2 = generate(
+        &d,
+        "right.wav",
+        &["tone", "--channels", "2", "--signal-on", "2"],
+    );
     let (cap, _) = description(Path::new(&st2));
     assert!(cap.channels[0].iter().all(|&v| v == 0.0) && cap.channels[1].iter().any(|&v| v != 0.0));
     std::fs::remove_dir_all(&d).ok();
@@ -189,21 +212,7 @@ fn tone_steps_and_twotone_levels() {
 #[test]
 fn response_command_and_its_bad_input() {
     let d = tmpdir("resp");
-    let sw = p(&d, "sweep.wav");
-    ok(&[
-        "generate",
-        "sweep",
-        "--rate",
-        "48000",
-        "--seconds",
-        "2",
-        "--from",
-        "20",
-        "--to",
-        "20000",
-        "-o",
-        &sw,
-    ]);
+    let sw = audio_band_sweep(&d);
     // The stimulus played back as its own capture: flat, non-inverting, every required key.
     let v: serde_json::Value = serde_json::from_str(&ok(&[
         "response",
@@ -238,17 +247,11 @@ fn response_command_and_its_bad_input() {
     );
 
     // A tone where the sweep should be.
-    let tone = p(&d, "tone.wav");
-    ok(&[
-        "generate",
-        "tone",
-        "--rate",
-        "48000",
-        "--seconds",
-        "3",
-        "-o",
-        &tone,
-    ]);
+    let tone = generate(
+        &d,
+        "tone.wav",
+        &["tone", "--rate", "48000", "--seconds", "3"],
+    );
     let (code, _, err) = run(&["response", &tone, "--stimulus", &sw]);
     assert_eq!(code, 2, "{err}");
     assert!(
@@ -260,17 +263,11 @@ fn response_command_and_its_bad_input() {
     assert_eq!(code, 2);
     assert!(err.contains("not one of ampnote's sweep stimuli"), "{err}");
     // Different rates.
-    let sw96 = p(&d, "sweep96.wav");
-    ok(&[
-        "generate",
-        "sweep",
-        "--rate",
-        "96000",
-        "--seconds",
-        "2",
-        "-o",
-        &sw96,
-    ]);
+    let sw96 = generate(
+        &d,
+        "sweep96.wav",
+        &["sweep", "--rate", "96000", "--seconds", "2"],
+    );
     let (code, _, err) = run(&["response", &sw96, "--stimulus", &sw]);
     assert_eq!(code, 2);
     assert!(
@@ -601,21 +598,7 @@ fn loopback_response_is_taken_out() {
     // The stimulus as its own (flat) capture: a flat loopback response leaves it flat; a loopback
     // that falls to -1 dB at 20 kHz is taken out, so the capture reads +1 dB there.
     let d = tmpdir("loopcorr");
-    let sw = p(&d, "sweep.wav");
-    ok(&[
-        "generate",
-        "sweep",
-        "--rate",
-        "48000",
-        "--seconds",
-        "2",
-        "--from",
-        "20",
-        "--to",
-        "20000",
-        "-o",
-        &sw,
-    ]);
+    let sw = audio_band_sweep(&d);
     let prof = p(&d, "p.toml");
     std::fs::write(
         &prof,
