@@ -71,6 +71,15 @@ pub enum Error {
         above_noise_db: f64,
     },
 
+    #[error("channel {channel}: {found}. {next}")]
+    WrongKind {
+        channel: usize,
+        /// What the capture holds instead, with the numbers that show it.
+        found: String,
+        /// What to do instead.
+        next: String,
+    },
+
     #[error("the stimulus is at {stimulus_hz} Hz but the capture at {capture_hz} Hz. Record at the stimulus's rate, or generate the stimulus at the recorder's rate (--rate {capture_hz}).")]
     SampleRateMismatch { stimulus_hz: u32, capture_hz: u32 },
 

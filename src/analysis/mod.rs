@@ -4,6 +4,7 @@ pub mod fit;
 pub mod imd;
 pub mod noise;
 pub mod spectrum;
+pub mod steady;
 pub mod sweep;
 pub mod tone;
 pub mod weighting;

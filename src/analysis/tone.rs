@@ -24,6 +24,7 @@
 
 use super::fit::{fit_lines, refine_frequency, LineFit};
 use super::spectrum::{fast_length, SpectrumPlan, SpectrumPlanner};
+use super::steady::{find_steady, Steadiness};
 use super::weighting::Weighting;
 use super::window::{CosineSum, WindowGenerator, BLACKMAN_HARRIS_7, HANN, WINDOW_BLOCK};
 use crate::calibration::Calibration;
@@ -104,8 +105,10 @@ pub struct Harmonic {
     pub phase_deg: f64,
     /// Inside the measurement band (only in-band harmonics count toward THD).
     pub in_band: bool,
-    /// Less than 10 dB above the local noise floor: the level is an upper bound.
-    pub at_noise_floor: bool,
+    /// The line is not distinguishable from the noise around it: `level_dbc` and
+    /// `level_percent` are then its detection limit (see [`detection_limit`]), an upper bound,
+    /// and the phase means nothing.
+    pub upper_bound: bool,
     #[serde(skip_serializing_if = "Option::is_none")]
     pub level_vrms: Option<f64>,
 }
@@ -118,7 +121,8 @@ pub struct HumLine {
     pub frequency_hz: f64,
     pub level_dbc: f64,
     pub level_dbfs: f64,
-    pub at_noise_floor: bool,
+    /// Under the noise: the levels are the detection limit, an upper bound.
+    pub upper_bound: bool,
     #[serde(skip_serializing_if = "Option::is_none")]
     pub level_vrms: Option<f64>,
 }
@@ -140,6 +144,10 @@ pub struct ToneResult {
     pub channel: usize,
     pub samples_analysed: usize,
     pub duration_s: f64,
+    /// The steady span of the tone that was analysed, seconds from the capture's start (the
+    /// floor, fades and settling around it are left out; see [`super::steady`]).
+    pub analysed_from_s: f64,
+    pub analysed_to_s: f64,
     pub fundamental_hz: f64,
     pub fundamental_dbfs: f64,
     /// RMS volts at the amplifier output (calibrated only).
@@ -154,9 +162,15 @@ pub struct ToneResult {
     pub output_w: Option<f64>,
     #[serde(skip_serializing_if = "Option::is_none")]
     pub load_ohms: Option<f64>,
-    /// THD_F: in-band harmonics H2..Hmax over the fundamental.
-    pub thd_percent: f64,
-    pub thd_db: f64,
+    /// THD_F: in-band harmonics H2..Hmax over the fundamental; `null` when no harmonic lies in
+    /// the band (a warning says what rate or band would hold them).
+    pub thd_percent: Option<f64>,
+    pub thd_db: Option<f64>,
+    /// The highest harmonic order THD counts (the last one inside the band).
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub thd_highest_order: Option<usize>,
+    /// THD is mostly made of detection limits: the true figure is at most this.
+    pub thd_upper_bound: bool,
     /// AES17 THD+N: everything in band but the fundamental, over everything in band.
     pub thdn_percent: f64,
     pub thdn_db: f64,
@@ -197,6 +211,21 @@ pub struct ToneAnalyzer {
     pub config: ToneConfig,
     planner: SpectrumPlanner,
 }
+
+/// The amplitude below which a fitted line cannot be told from the noise, given the noise power
+/// `line_noise` that one line fitted at that place picks up (local density times the window's
+/// ENBW). A line fitted to noise alone has an exponentially distributed power (chi-square with 2
+/// degrees of freedom, mean `line_noise`): it exceeds [`NOISE_FLOOR_FACTOR`] times the mean with
+/// probability e^-10 = 4.5e-5, so a line below that amplitude is reported as "< limit".
+pub(crate) fn detection_limit(line_noise: f64) -> f64 {
+    (2.0 * NOISE_FLOOR_FACTOR * line_noise).sqrt()
+}
+
+/// A line no harmonic or mains line explains, stronger than this against the fundamental
+/// (-20 dBc), is a second tone: the capture is a two-tone pair, not one tone. Below it and above
+/// -50 dBc, it is worth a warning (an oscillation, interference); both common practice.
+const SECOND_TONE_RATIO: f64 = 0.01;
+const OTHER_LINE_RATIO: f64 = 1e-5;
 
 /// Lines closer than this many bins to a stronger line are not fitted separately.
 pub(crate) const GUARD_BINS: f64 = 8.0;
@@ -259,10 +288,24 @@ impl ToneAnalyzer {
             }
             return Err(too_short(input, MIN_SAMPLES, ""));
         }
-        let (stats, plan, buffers) = measure_spectrum(&self.planner, input)?;
-        let outcome = self.analyze_spectrum(input, cal, &stats, &plan, &buffers.output, band_hi);
+        let steady = find_steady(input.samples, fs);
+        check_steady_kind(input.channel, &steady, fs)?;
+        let span = ChannelInput {
+            samples: &input.samples[steady.start..steady.end],
+            ..*input
+        };
+        if span.samples.len() < MIN_SAMPLES {
+            return Err(too_short(&span, MIN_SAMPLES, " of steady tone"));
+        }
+        let (stats, plan, buffers) = measure_spectrum(&self.planner, &span)?;
+        let outcome = self.analyze_spectrum(&span, cal, &stats, &plan, &buffers.output, band_hi);
         plan.give_back(buffers);
-        outcome
+        let mut result = outcome?;
+        result.analysed_from_s = steady.start as f64 / fs;
+        result.analysed_to_s = (steady.start + result.samples_analysed) as f64 / fs;
+        let steady_warnings = steady_warnings(&steady, fs);
+        result.warnings.splice(0..0, steady_warnings);
+        Ok(result)
     }
 
     /// Everything after the transform: fits, sums, figures, warnings.
@@ -401,6 +444,33 @@ impl ToneAnalyzer {
                 above_noise_db: 10.0 * (p1 / line_noise(f0_bins).max(1e-300)).log10(),
             });
         }
+        // --- anything else that stands out: a second tone, an oscillation, interference ------
+        let peak_power = spec[k_peak].norm_sqr().max(1e-300);
+        let other = strongest_unexplained_line(spec, &all_model, k_lo, k_hi, |k, p| {
+            let f = k as f64 * bin_hz;
+            explained(f, p / peak_power, f0_hz, mains_hz, fs, 3.0 * bin_hz * half)
+        });
+        let mut other_line = None;
+        if let Some((k_x, r2)) = other {
+            // Both lines under the same window: the ratio of peak bins is the ratio of powers
+            // (to within the window's scalloping, under 1 dB for this window).
+            let ratio = r2 / peak_power;
+            let significant = r2 * scale * enbw > NOISE_FLOOR_FACTOR * line_noise(k_x as f64);
+            let f_x = k_x as f64 * bin_hz;
+            if ratio > SECOND_TONE_RATIO {
+                return Err(Error::WrongKind {
+                    channel: input.channel,
+                    found: format!(
+                        "a second tone at {f_x:.1} Hz stands {:.1} dB below the one at {f0_hz:.1} Hz and is no harmonic of it: the capture holds two tones (an IMD pair?), not one",
+                        -10.0 * ratio.log10()
+                    ),
+                    next: "Measure a two-tone pair with `ampnote imd CAPTURE.wav`; for THD, play one tone.".into(),
+                });
+            }
+            if ratio > OTHER_LINE_RATIO && significant {
+                other_line = Some((f_x, 10.0 * ratio.log10()));
+            }
+        }
         let fundamental_dbfs = 20.0 * a1.log10();
         // sin-convention phase: Re(C e^{jwn}) = |C| sin(wn + arg C + pi/2)
         let phase_sin = |c: Complex64| c.arg() + PI / 2.0;
@@ -411,9 +481,12 @@ impl ToneAnalyzer {
             .map(|i| {
                 let order = i + 1;
                 let c = fit.amplitudes[i];
-                let ratio = c.norm() / a1;
                 let frequency_hz = order as f64 * f0_hz;
-                let level_dbfs = 20.0 * c.norm().max(1e-300).log10();
+                let limit = detection_limit(line_noise(tone_lines[i]));
+                let upper_bound = c.norm() < limit;
+                let amplitude = if upper_bound { limit } else { c.norm() };
+                let ratio = amplitude / a1;
+                let level_dbfs = 20.0 * amplitude.max(1e-300).log10();
                 Harmonic {
                     order,
                     frequency_hz,
@@ -421,8 +494,7 @@ impl ToneAnalyzer {
                     level_percent: 100.0 * ratio,
                     phase_deg: wrap_degrees((phase_sin(c) - order as f64 * phi1).to_degrees()),
                     in_band: in_band(frequency_hz),
-                    at_noise_floor: c.norm_sqr() / 2.0
-                        < NOISE_FLOOR_FACTOR * line_noise(tone_lines[i]),
+                    upper_bound,
                     level_vrms: cal.vrms_from_dbfs(level_dbfs),
                 }
             })
@@ -432,29 +504,38 @@ impl ToneAnalyzer {
             .enumerate()
             .map(|(j, &(order, f))| {
                 let c = fit.amplitudes[tone_lines.len() + j];
-                let level_dbfs = 20.0 * c.norm().max(1e-300).log10();
+                let limit = detection_limit(line_noise(f));
+                let upper_bound = c.norm() < limit;
+                let level_dbfs = 20.0 * c.norm().max(limit).max(1e-300).log10();
                 HumLine {
                     order,
                     frequency_hz: mains_hz * order as f64,
                     level_dbc: level_dbfs - fundamental_dbfs,
                     level_dbfs,
-                    at_noise_floor: c.norm_sqr() / 2.0 < NOISE_FLOOR_FACTOR * line_noise(f),
+                    upper_bound,
                     level_vrms: cal.vrms_from_dbfs(level_dbfs),
                 }
             })
             .collect();
         let mains_source = match self.config.mains {
             Mains::Hz(_) => "given",
-            Mains::Auto if hum.iter().any(|h| !h.at_noise_floor) => "detected",
+            Mains::Auto if hum.iter().any(|h| !h.upper_bound) => "detected",
             Mains::Auto => "not detected (no mains line above the noise)",
         };
 
-        let harmonic_power: f64 = harmonics
+        let power_of = |h: &Harmonic| (h.level_percent / 100.0 * a1).powi(2) / 2.0;
+        let counted: Vec<&Harmonic> = harmonics.iter().filter(|h| h.in_band).collect();
+        let harmonic_power: f64 = counted.iter().map(|h| power_of(h)).sum();
+        let bound_power: f64 = counted
             .iter()
-            .filter(|h| h.in_band)
-            .map(|h| (h.level_percent / 100.0 * a1).powi(2) / 2.0)
+            .filter(|h| h.upper_bound)
+            .map(|h| power_of(h))
             .sum();
-        let thd_ratio = (harmonic_power / p1).sqrt();
+        // THD needs at least H2 in the band; with none, it is not measured (never 0).
+        let thd_ratio = (!counted.is_empty()).then(|| (harmonic_power / p1).sqrt());
+        let thd_highest_order = counted.last().map(|h| h.order);
+        // More than 1 % of the sum (0.04 dB) from detection limits: THD is a bound.
+        let thd_upper_bound = bound_power > 0.01 * harmonic_power;
         let thdn_ratio = if p_total > 0.0 {
             (p_thdn / p_total).sqrt()
         } else {
@@ -469,6 +550,8 @@ impl ToneAnalyzer {
             channel: input.channel,
             samples_analysed: n,
             duration_s: n as f64 / fs,
+            analysed_from_s: 0.0,
+            analysed_to_s: n as f64 / fs,
             fundamental_hz: f0_hz,
             fundamental_dbfs,
             fundamental_vrms,
@@ -476,8 +559,10 @@ impl ToneAnalyzer {
             fundamental_dbu: fundamental_vrms.map(crate::calibration::dbu),
             output_w: cal.watts_from_dbfs(fundamental_dbfs),
             load_ohms: cal.load_ohms.filter(|_| cal.has_volts()),
-            thd_percent: 100.0 * thd_ratio,
-            thd_db: 20.0 * thd_ratio.max(1e-300).log10(),
+            thd_percent: thd_ratio.map(|r| 100.0 * r),
+            thd_db: thd_ratio.map(|r| 20.0 * r.max(1e-300).log10()),
+            thd_highest_order,
+            thd_upper_bound,
             thdn_percent: 100.0 * thdn_ratio,
             thdn_db,
             sinad_db: -thdn_db,
@@ -504,6 +589,11 @@ impl ToneAnalyzer {
             warnings: Vec::new(),
         };
         result.warnings = quality_warnings(&result, input, cal, p_thdn, p1, drift);
+        if let Some((f_x, dbc)) = other_line {
+            result.warnings.push(format!(
+                "a line at {f_x:.1} Hz ({dbc:.1} dBc) is neither a harmonic of the tone nor mains hum: an oscillation, interference or a second signal. THD+N and the noise include it; find its source before reading them as the amplifier's distortion."
+            ));
+        }
         Ok(result)
     }
 }
@@ -934,6 +1024,40 @@ fn quality_warnings(
             ));
         }
     }
+    // Harmonics past the band's top: THD counts fewer orders, or none.
+    if r.thd_highest_order.is_none_or(|o| o < 3) {
+        let fs = input.sample_rate_hz;
+        let f0 = r.fundamental_hz;
+        let h3_rate = [48_000.0, 96_000.0, 192_000.0, 384_000.0]
+            .into_iter()
+            .find(|&rate| 0.95 * rate / 2.0 >= 3.06 * f0);
+        let fix = match h3_rate {
+            Some(rate) if rate > fs => format!(
+                "record at {rate:.0} Hz or more and widen the band (--band {}:{:.0}) to hold H2 and H3",
+                r.band_hz[0],
+                3.06 * f0
+            ),
+            Some(_) => format!(
+                "widen the band (--band {}:{:.0}) to hold H2 and H3",
+                r.band_hz[0],
+                (3.06 * f0).min(0.95 * fs / 2.0)
+            ),
+            None => "no common rate holds H2 and H3 of a tone this high".to_string(),
+        };
+        w.push(match r.thd_highest_order {
+            None => format!(
+                "THD not measurable: H2 ({:.0} Hz) lies above the band's top ({:.0} Hz){}; THD+N still holds. To measure THD, {fix}.",
+                2.0 * f0,
+                r.band_hz[1],
+                if 2.0 * f0 > fs / 2.0 { " and past Nyquist" } else { "" }
+            ),
+            Some(_) => format!(
+                "THD counts H2 only: H3 ({:.0} Hz) lies above the band's top ({:.0} Hz). To include H3, {fix}.",
+                3.0 * f0,
+                r.band_hz[1]
+            ),
+        });
+    }
     // Resolution floor of the stored samples: an ideal B-bit quantizer's noise in the band,
     // SNR = 6.02 B + 1.76 dB for a full-scale sine over the whole Nyquist band (quantization
     // theory), less the fraction of that band measured.
@@ -957,7 +1081,7 @@ fn quality_warnings(
     let floor_orders: Vec<String> = r
         .harmonics
         .iter()
-        .filter(|h| h.at_noise_floor && h.in_band && h.order <= 3)
+        .filter(|h| h.upper_bound && h.in_band && h.order <= 3)
         .map(|h| format!("H{}", h.order))
         .collect();
     if floor_orders.len()
@@ -1002,11 +1126,148 @@ fn quality_warnings(
         .filter(|h| h.frequency_hz >= r.band_hz[0] && h.frequency_hz <= r.band_hz[1])
         .map(|h| 10f64.powf(h.level_dbc / 10.0) * p1)
         .sum();
-    if hum_power > 0.5 * p_thdn && !r.hum.iter().all(|h| h.at_noise_floor) {
+    if hum_power > 0.5 * p_thdn && !r.hum.iter().all(|h| h.upper_bound) {
         w.push(format!(
             "mains hum dominates the THD+N residual ({:.1} dBc of hum): check grounding, heater wiring and filter capacitors before reading THD+N as distortion.",
             10.0 * (hum_power / p1).log10()
         ));
     }
     w
+}
+
+/// A relative change of the tone's frequency across the span beyond this (2 %) is a sweep, not a
+/// tone: a player's speed error or a drifting oscillator stays well under it (common practice).
+const MAX_FREQUENCY_CHANGE: f64 = 0.02;
+
+/// Refuse a capture that is not one steady tone: a staircase of levels or a sweep.
+fn check_steady_kind(channel: usize, s: &Steadiness, fs: f64) -> Result<()> {
+    if s.levels_db.len() >= 3 {
+        let (hi, lo) = (s.levels_db[0], s.levels_db[s.levels_db.len() - 1]);
+        return Err(Error::WrongKind {
+            channel,
+            found: format!(
+                "the capture holds {} steady levels from {lo:.1} to {hi:.1} dBFS between {:.2} s and {:.2} s: a staircase, not one steady tone",
+                s.levels_db.len(),
+                s.tone_start as f64 / fs,
+                s.tone_end as f64 / fs
+            ),
+            next: "Measure a staircase with `ampnote power CAPTURE.wav --stimulus STEPS.wav`, or record one level for `analyze`.".into(),
+        });
+    }
+    if let Some(c) = s.frequency_change {
+        if c.abs() > MAX_FREQUENCY_CHANGE {
+            return Err(Error::WrongKind {
+                channel,
+                found: format!(
+                    "the signal's frequency changes by {:+.0} % across the capture: a sweep, not a steady tone",
+                    100.0 * c
+                ),
+                next: "Measure a sweep with `ampnote response CAPTURE.wav --stimulus SWEEP.wav`.".into(),
+            });
+        }
+    }
+    Ok(())
+}
+
+/// What the steady-span search found that the user must know: the span analysed, jumps,
+/// dropouts, settling.
+fn steady_warnings(s: &Steadiness, fs: f64) -> Vec<String> {
+    let mut w = Vec::new();
+    let secs = |i: usize| i as f64 / fs;
+    if s.levels_db.len() == 2 {
+        w.push(format!(
+            "level jump: the tone sits at {:.1} dBFS for part of the capture and {:.1} dBFS for another; only the longest steady part ({:.2}-{:.2} s) was analysed. Record one level, or cut the file.",
+            s.levels_db[0],
+            s.levels_db[1],
+            secs(s.start),
+            secs(s.end)
+        ));
+    }
+    for d in &s.dropouts {
+        w.push(format!(
+            "dropout at {:.3} s: the level fell {} for about {:.0} ms; only the longest steady part ({:.2}-{:.2} s) was analysed. Check cables and the recorder's buffer settings.",
+            d.at_s,
+            if d.depth_db > 60.0 {
+                "to nothing".to_string()
+            } else {
+                format!("{:.0} dB", d.depth_db)
+            },
+            d.length_s * 1000.0,
+            secs(s.start),
+            secs(s.end)
+        ));
+    }
+    let tone_len = s.tone_end.saturating_sub(s.tone_start);
+    let steady_len = s.end - s.start;
+    if s.judged && tone_len > 0 && (steady_len as f64) < 0.5 * tone_len as f64 {
+        w.push(format!(
+            "only {:.2} s of the {:.2} s tone is steady within {:.2} dB (the level settles or wanders): the figures are from that part. Let the amplifier settle before recording, or record longer.",
+            secs(steady_len),
+            secs(tone_len),
+            s.tolerance_db
+        ));
+    }
+    if s.drift_db.abs() > 0.5 {
+        w.push(format!(
+            "the level moves {:+.2} dB across the analysed span: the amplifier or the supply is still settling; the figures are an average over it.",
+            s.drift_db
+        ));
+    }
+    w
+}
+
+/// Whether a line at `f` Hz, `ratio` (power) below the fundamental, is explained by the tone (a
+/// harmonic, or its alias folded back from above Nyquist), the mains family, or hum sidebands on
+/// the tone, within `tol` Hz. A harmonic of order n carries at most about 4/(pi n) of the
+/// fundamental's amplitude (a square wave, the limit of clipping; Fourier series), so only
+/// orders up to 1.3 / sqrt(ratio) can explain a line that strong. Mains lines beyond the 20th
+/// order (1 or 1.2 kHz) are not expected as distinct lines (common practice).
+fn explained(f: f64, ratio: f64, f0: f64, mains: f64, fs: f64, tol: f64) -> bool {
+    let max_order = (1.3 / ratio.max(1e-12).sqrt()).min(400.0);
+    let near_multiple = |f: f64, of: f64, orders: f64| {
+        let k = (f / of).round();
+        k >= 1.0 && k <= orders && (f - k * of).abs() <= tol
+    };
+    if near_multiple(f, mains, 20.0) || near_multiple(f, f0, max_order) {
+        return true;
+    }
+    // Hum sidebands: the tone modulated by the supply's ripple.
+    let offset = (f - f0).abs();
+    if (1..=4).any(|k| (offset - k as f64 * mains).abs() <= tol) {
+        return true;
+    }
+    // Aliases of harmonics: |n f0 - m fs|.
+    (2..=(max_order as usize).min(40)).any(|n| {
+        let h = n as f64 * f0;
+        let folded = (h - (h / fs).round() * fs).abs();
+        h > fs / 2.0 && (folded - f).abs() <= tol
+    })
+}
+
+/// The strongest residual bin (spectrum minus every fitted line) in `k_lo..=k_hi` that
+/// `explained` does not account for: `(bin, |residual|^2)`.
+fn strongest_unexplained_line(
+    spec: &[Complex64],
+    all: &[(usize, Complex64)],
+    k_lo: usize,
+    k_hi: usize,
+    explained: impl Fn(usize, f64) -> bool,
+) -> Option<(usize, f64)> {
+    if k_hi < k_lo {
+        return None;
+    }
+    let mut ai = all.partition_point(|e| e.0 < k_lo);
+    let mut best: Option<(usize, f64)> = None;
+    for (k, &x) in spec.iter().enumerate().take(k_hi + 1).skip(k_lo) {
+        let mut r = x;
+        if ai < all.len() && all[ai].0 == k {
+            r -= all[ai].1;
+            ai += 1;
+        }
+        let p = r.norm_sqr();
+        if best.is_none_or(|b| p > b.1) && !explained(k, p) {
+            best = Some((k, p));
+        }
+    }
+    best
 }

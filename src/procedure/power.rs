@@ -37,10 +37,14 @@ pub struct PowerStep {
     pub output_dbu: Option<f64>,
     #[serde(skip_serializing_if = "Option::is_none")]
     pub output_w: Option<f64>,
-    pub thd_percent: f64,
+    /// `null` when no harmonic lies in the band at this frequency and rate.
+    pub thd_percent: Option<f64>,
+    /// THD is mostly made of detection limits (an upper bound).
+    pub thd_upper_bound: bool,
     pub thdn_percent: f64,
-    pub h2_dbc: f64,
-    pub h3_dbc: f64,
+    /// `null` when the harmonic lies outside the band (or past Nyquist).
+    pub h2_dbc: Option<f64>,
+    pub h3_dbc: Option<f64>,
     /// Samples at or beyond the interface's full scale: such a step is left out of every figure.
     pub overload_samples: usize,
     pub excluded: bool,
@@ -78,11 +82,50 @@ pub struct PowerResult {
     pub warnings: Vec<String>,
 }
 
-/// How each step is analysed: a steady tone with harmonics up to 20 kHz (at most H40).
-pub fn step_analyzer(frequency_hz: f64) -> Result<ToneAnalyzer> {
+/// The band each step is analysed in: 20 Hz to 20 kHz, widened when H2 and H3 of a high test
+/// frequency lie above 20 kHz, as far as the rate allows (the top 5 % below Nyquist is left to
+/// the interface's anti-alias filter, common practice). Returns the high edge, and a note when it
+/// was widened or when even that cannot hold H3.
+pub fn step_band(frequency_hz: f64, sample_rate_hz: f64) -> (f64, Option<String>) {
+    let usable = 0.95 * sample_rate_hz / 2.0;
+    let wanted = 3.0 * frequency_hz * 1.02;
+    if wanted <= 20_000.0 || usable <= 20_000.0 {
+        let top = 20_000f64.min(sample_rate_hz / 2.0);
+        let note = (wanted > top).then(|| band_note(frequency_hz, top));
+        return (top, note);
+    }
+    let top = wanted.min(usable);
+    let mut note =
+        format!("at {frequency_hz:.0} Hz the band was widened to {top:.0} Hz to hold H2 and H3");
+    if wanted > usable {
+        note = band_note(frequency_hz, top);
+    }
+    (top, Some(note))
+}
+
+/// What the band `top` leaves out at `f`, and the rate that would hold H2 and H3.
+fn band_note(f: f64, top: f64) -> String {
+    let rate = [48_000.0, 96_000.0, 192_000.0, 384_000.0]
+        .into_iter()
+        .find(|&r| 0.95 * r / 2.0 >= 3.06 * f);
+    let fix = match rate {
+        Some(r) => format!("record at {r:.0} Hz or more (--rate {r:.0}) to hold H2 and H3"),
+        None => "no common rate holds H2 and H3 here".to_string(),
+    };
+    if 2.0 * f > top {
+        format!("at {f:.0} Hz no harmonic lies within the {top:.0} Hz band, so THD cannot be measured there; {fix}")
+    } else {
+        format!("at {f:.0} Hz only H2 lies within the {top:.0} Hz band: THD counts H2 alone; {fix}")
+    }
+}
+
+/// How each step is analysed: a steady tone with harmonics up to the band's top (at most H40).
+pub fn step_analyzer(frequency_hz: f64, sample_rate_hz: f64) -> Result<ToneAnalyzer> {
+    let (top, _) = step_band(frequency_hz, sample_rate_hz);
     ToneAnalyzer::new(ToneConfig {
-        max_harmonic: ((20_000.0 / frequency_hz).floor() as usize).clamp(2, 40),
+        max_harmonic: ((top / frequency_hz).floor() as usize).clamp(2, 40),
         fundamental_hint_hz: Some(frequency_hz),
+        band_high_hz: Some(top),
         mains: Mains::Auto,
         ..ToneConfig::default()
     })
@@ -93,8 +136,8 @@ pub fn step_from(drive_dbfs: f64, r: &ToneResult) -> PowerStep {
     let h = |o: usize| {
         r.harmonics
             .iter()
-            .find(|h| h.order == o)
-            .map_or(-300.0, |h| h.level_dbc)
+            .find(|h| h.order == o && h.in_band)
+            .map(|h| h.level_dbc)
     };
     PowerStep {
         drive_dbfs,
@@ -104,6 +147,7 @@ pub fn step_from(drive_dbfs: f64, r: &ToneResult) -> PowerStep {
         output_dbu: r.fundamental_dbu,
         output_w: r.output_w,
         thd_percent: r.thd_percent,
+        thd_upper_bound: r.thd_upper_bound,
         thdn_percent: r.thdn_percent,
         h2_dbc: h(2),
         h3_dbc: h(3),
@@ -115,15 +159,18 @@ pub fn step_from(drive_dbfs: f64, r: &ToneResult) -> PowerStep {
 /// Power at each THD target, interpolated log-log (log power against log THD) between the first
 /// pair of steps that brackets it.
 pub fn power_at_targets(steps: &[PowerStep], load_ohms: Option<f64>) -> Vec<PowerAtThd> {
-    let used: Vec<&PowerStep> = steps.iter().filter(|s| !s.excluded).collect();
+    // Only steps with a measured THD (not a bound, not out of band) can bracket a target.
+    let used: Vec<(&PowerStep, f64)> = steps
+        .iter()
+        .filter(|s| !s.excluded && !s.thd_upper_bound)
+        .filter_map(|s| Some((s, s.thd_percent?)))
+        .collect();
     THD_TARGETS
         .iter()
         .filter_map(|&t| {
-            let w = used
-                .windows(2)
-                .find(|w| w[0].thd_percent < t && w[1].thd_percent >= t)?;
-            let (a, b) = (w[0], w[1]);
-            let f = (t.ln() - a.thd_percent.ln()) / (b.thd_percent.ln() - a.thd_percent.ln());
+            let w = used.windows(2).find(|w| w[0].1 < t && w[1].1 >= t)?;
+            let ((a, ta), (b, tb)) = (w[0], w[1]);
+            let f = (t.ln() - ta.ln()) / (tb.ln() - ta.ln());
             // Power goes as the fundamental's square: interpolate its dB level linearly in
             // log THD, which is log power against log THD.
             let dbfs = a.output_dbfs + f * (b.output_dbfs - a.output_dbfs);
@@ -145,25 +192,32 @@ pub fn power_at_targets(steps: &[PowerStep], load_ohms: Option<f64>) -> Vec<Powe
 /// The first step where THD climbs faster than [`CLIPPING_SLOPE_DB_PER_DB`] (only among steps
 /// whose THD is at least 0.3 %, so noise at low drive cannot trip it).
 pub fn clipping_onset(steps: &[PowerStep]) -> Option<f64> {
-    let used: Vec<&PowerStep> = steps.iter().filter(|s| !s.excluded).collect();
+    let used: Vec<(&PowerStep, f64)> = steps
+        .iter()
+        .filter(|s| !s.excluded)
+        .filter_map(|s| Some((s, s.thd_percent?)))
+        .collect();
     used.windows(2)
         .find(|w| {
-            let dd = w[1].drive_dbfs - w[0].drive_dbfs;
-            let dt = 20.0 * (w[1].thd_percent / w[0].thd_percent).log10();
-            dd > 0.0 && w[1].thd_percent >= 0.3 && dt / dd > CLIPPING_SLOPE_DB_PER_DB
+            let dd = w[1].0.drive_dbfs - w[0].0.drive_dbfs;
+            let dt = 20.0 * (w[1].1 / w[0].1).log10();
+            dd > 0.0 && w[1].1 >= 0.3 && dt / dd > CLIPPING_SLOPE_DB_PER_DB
         })
-        .map(|w| w[1].drive_dbfs)
+        .map(|w| w[1].0.drive_dbfs)
 }
 
 /// Builds the result from the steps and says what the figures lack.
 pub fn finish(
     channel: usize,
     frequency_hz: f64,
+    sample_rate_hz: f64,
     cal: &Calibration,
     mut steps: Vec<PowerStep>,
     stopped_because: Option<String>,
 ) -> PowerResult {
     steps.sort_by(|a, b| a.drive_dbfs.total_cmp(&b.drive_dbfs));
+    // A drive measured twice (a refinement landing on a coarse step) is listed once.
+    steps.dedup_by(|later, earlier| (later.drive_dbfs - earlier.drive_dbfs).abs() < 1e-6);
     let load_ohms = cal.load_ohms.filter(|_| cal.has_volts());
     let mut warnings = Vec::new();
     let excluded: Vec<String> = steps
@@ -183,7 +237,17 @@ pub fn finish(
         warnings.push("no load given: volts but no watts; add --load-ohms".into());
     }
     let power_at_thd = power_at_targets(&steps, load_ohms);
-    if power_at_thd.iter().all(|p| p.thd_percent != 1.0) {
+    let (_, band) = step_band(frequency_hz, sample_rate_hz);
+    let measurable = steps.iter().any(|s| s.thd_percent.is_some());
+    if let Some(note) = band {
+        warnings.push(note);
+    }
+    if !measurable {
+        warnings.push(
+            "no power at 1 % THD: THD cannot be measured at this frequency and rate (see above)"
+                .into(),
+        );
+    } else if power_at_thd.iter().all(|p| p.thd_percent != 1.0) {
         warnings.push("THD never crossed 1 % within the staircase; extend it upward (--to) to find the 1 % point".into());
     }
     PowerResult {
@@ -212,7 +276,7 @@ pub fn power_from_capture(
     latency: isize,
     cal: &Calibration,
 ) -> Result<PowerResult> {
-    let analyzer = step_analyzer(frequency_hz)?;
+    let analyzer = step_analyzer(frequency_hz, sample_rate_hz)?;
     let mut steps = Vec::with_capacity(table.len());
     let mut missing = Vec::new();
     for s in table {
@@ -242,7 +306,7 @@ pub fn power_from_capture(
             "channel {channel}: no step of the staircase was found in the capture; check that it is the recording of this stimulus and channel"
         )));
     }
-    let mut r = finish(channel, frequency_hz, cal, steps, None);
+    let mut r = finish(channel, frequency_hz, sample_rate_hz, cal, steps, None);
     if !missing.is_empty() {
         r.warnings.insert(
             0,
@@ -308,7 +372,7 @@ pub fn run_staircase(
             s.step_db
         )));
     }
-    let analyzer = step_analyzer(s.frequency_hz)?;
+    let analyzer = step_analyzer(s.frequency_hz, s.sample_rate_hz as f64)?;
     let fs = s.sample_rate_hz as f64;
     let settle = (s.settle_s * fs) as usize;
     let dwell = (s.dwell_s * fs) as usize;
@@ -333,9 +397,12 @@ pub fn run_staircase(
     let stopped;
     loop {
         let cur = measure(rig, drive)?;
-        let prev_thd = steps.last().map(|p: &PowerStep| p.thd_percent);
+        // Where THD cannot be measured (harmonics out of band), THD+N stands in: it is never
+        // below THD, so the stop limit still holds.
+        let distortion = |p: &PowerStep| p.thd_percent.unwrap_or(p.thdn_percent);
+        let prev_thd = steps.last().map(distortion);
         let prev_drive = steps.last().map(|p| p.drive_dbfs);
-        let (cur_thd, cur_w, overloaded) = (cur.thd_percent, cur.output_w, cur.excluded);
+        let (cur_thd, cur_w, overloaded) = (distortion(&cur), cur.output_w, cur.excluded);
         steps.push(cur);
         if overloaded {
             stopped = Some("the interface input overloaded; add attenuation".to_string());
@@ -380,5 +447,12 @@ pub fn run_staircase(
         }
         drive = next;
     }
-    Ok(finish(channel, s.frequency_hz, &cal, steps, stopped))
+    Ok(finish(
+        channel,
+        s.frequency_hz,
+        s.sample_rate_hz as f64,
+        &cal,
+        steps,
+        stopped,
+    ))
 }

@@ -58,15 +58,19 @@ impl PowerReport {
             for st in &r.steps {
                 let _ = writeln!(
                     s,
-                    "  {:>10.2} {:>10.2} {:>9} {:>10} {:>12} {:>12} {:>8.1} {:>8.1}{}",
+                    "  {:>10.2} {:>10.2} {:>9} {:>10} {:>12} {:>12} {:>8} {:>8}{}",
                     st.drive_dbfs,
                     st.output_dbfs,
                     st.output_vrms.map_or("-".into(), |v| format!("{v:.3}")),
                     st.output_w.map_or("-".into(), |w| format!("{w:.3}")),
-                    fmt_pct(st.thd_percent),
+                    match st.thd_percent {
+                        Some(t) if st.thd_upper_bound => format!("<{}", fmt_pct(t)),
+                        Some(t) => fmt_pct(t),
+                        None => "-".into(),
+                    },
                     fmt_pct(st.thdn_percent),
-                    st.h2_dbc,
-                    st.h3_dbc,
+                    st.h2_dbc.map_or("-".into(), |v| format!("{v:.1}")),
+                    st.h3_dbc.map_or("-".into(), |v| format!("{v:.1}")),
                     if st.excluded {
                         "  (interface overload: left out)"
                     } else {

@@ -82,8 +82,8 @@ impl AnalyzeReport {
                 format!("{}", c.fundamental_dbfs),
                 opt(c.fundamental_vrms),
                 opt(c.output_w),
-                format!("{}", c.thd_percent),
-                format!("{}", c.thd_db),
+                opt(c.thd_percent),
+                opt(c.thd_db),
                 format!("{}", c.thdn_percent),
                 format!("{}", c.thdn_db),
                 format!("{}", c.sinad_db),
@@ -167,12 +167,25 @@ fn channel_table(s: &mut String, c: &ToneResult) {
         let _ = write!(level, "   {} into {} ohm", fmt_watts(w), fmt_num(r));
     }
     let _ = writeln!(s, "  Fundamental {level}");
-    let _ = writeln!(
-        s,
-        "  THD         {:>12} %   {:>8.2} dB",
-        fmt_pct(c.thd_percent),
-        c.thd_db
-    );
+    match (c.thd_percent, c.thd_db) {
+        (Some(p), Some(db)) => {
+            let bound = if c.thd_upper_bound { "<" } else { " " };
+            let _ = writeln!(
+                s,
+                "  THD         {bound}{:>11} %   {bound}{:>7.2} dB{}",
+                fmt_pct(p),
+                db,
+                match c.thd_highest_order {
+                    Some(o) if o < 3 => "   (H2 only)".to_string(),
+                    Some(o) => format!("   (H2-H{o})"),
+                    None => String::new(),
+                }
+            );
+        }
+        _ => {
+            let _ = writeln!(s, "  THD         not measurable (no harmonic in the band)");
+        }
+    }
     let _ = writeln!(
         s,
         "  THD+N       {:>12} %   {:>8.2} dB   (SINAD {:.2} dB)",
@@ -205,19 +218,24 @@ fn channel_table(s: &mut String, c: &ToneResult) {
         "\n  Harmonic   Frequency        dBc          %      Phase"
     );
     for h in &c.harmonics {
-        let mark = match (h.in_band, h.at_noise_floor) {
+        let mark = match (h.in_band, h.upper_bound) {
             (false, _) => "  (out of band)",
-            (true, true) => "  (noise floor)",
+            (true, true) => "  (under the noise: detection limit)",
             _ => "",
+        };
+        // A line under the noise has a limit, not a level, and no phase.
+        let (lt, phase) = if h.upper_bound {
+            ("<", "        -    ".to_string())
+        } else {
+            (" ", format!("{:>+9.1} deg", h.phase_deg))
         };
         let _ = writeln!(
             s,
-            "  H{:<8} {:>10.1} Hz {:>8.2} {:>10} {:>+9.1} deg{}",
+            "  H{:<8} {:>10.1} Hz {lt}{:>7.2} {lt}{:>9} {phase}{}",
             h.order,
             h.frequency_hz,
             h.level_dbc,
             fmt_pct(h.level_percent),
-            h.phase_deg,
             mark
         );
     }
@@ -238,8 +256,8 @@ fn channel_table(s: &mut String, c: &ToneResult) {
             if let Some(v) = h.level_vrms {
                 let _ = write!(line, "   {} rms", fmt_volts(v));
             }
-            if h.at_noise_floor {
-                line += "  (noise floor)";
+            if h.upper_bound {
+                line += "  (under the noise: detection limit)";
             }
             let _ = writeln!(s, "{line}");
         }

@@ -30,15 +30,19 @@ pub fn reading_line(r: &ToneResult) -> String {
     if let (Some(w), Some(load)) = (r.output_w, r.load_ohms) {
         s.push_str(&format!("  {w:8.4} W into {load} ohm"));
     }
-    s.push_str(&format!(
-        "  THD {:7.4} %  THD+N {:7.4} %",
-        r.thd_percent, r.thdn_percent
-    ));
+    match r.thd_percent {
+        Some(t) => s.push_str(&format!(
+            "  THD {}{t:7.4} %",
+            if r.thd_upper_bound { "<" } else { "" }
+        )),
+        None => s.push_str("  THD    -    "),
+    }
+    s.push_str(&format!("  THD+N {:7.4} %", r.thdn_percent));
     for order in [2, 3] {
-        if let Some(h) = r.harmonics.iter().find(|h| h.order == order) {
+        if let Some(h) = r.harmonics.iter().find(|h| h.order == order && h.in_band) {
             s.push_str(&format!(
                 "  H{order} {}{:.1} dBc",
-                if h.at_noise_floor { "<" } else { "" },
+                if h.upper_bound { "<" } else { "" },
                 h.level_dbc
             ));
         }
@@ -51,7 +55,7 @@ pub fn reading_line(r: &ToneResult) -> String {
         s.push_str(&format!(
             "  hum {:.0} Hz {}{:.1} dBc",
             h.frequency_hz,
-            if h.at_noise_floor { "<" } else { "" },
+            if h.upper_bound { "<" } else { "" },
             h.level_dbc
         ));
     }
