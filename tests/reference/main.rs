@@ -6,6 +6,7 @@ mod closed_form;
 mod common;
 mod framing;
 mod imd;
+mod messy;
 mod notebook;
 mod numpy_fixtures;
 mod power;

@@ -382,7 +382,11 @@ fn clock_drift_is_reported() {
             if t < 0.0 || t >= len as f64 / fs {
                 0.0
             } else {
-                amp * (2.0 * std::f64::consts::PI * 20.0 * rate_s * (t / rate_s).exp_m1()).sin()
+                // 1 % of H2 from a memoryless square law (c v^2 with c A / 2 = 0.01): the
+                // offset is timed from the harmonic's response, which a linear system lacks.
+                let v = amp
+                    * (2.0 * std::f64::consts::PI * 20.0 * rate_s * (t / rate_s).exp_m1()).sin();
+                v + 0.02 / amp * v * v
             }
         })
         .collect();
