@@ -8,7 +8,7 @@ pub mod response;
 pub mod tone;
 
 /// Version of the JSON layout; bumped when a field changes meaning or disappears.
-pub const SCHEMA_VERSION: u32 = 1;
+pub const SCHEMA_VERSION: u32 = 2;
 
 /// A per-channel result: which channel, and its measurement-quality warnings.
 pub trait ChannelResult {
