@@ -208,13 +208,24 @@ pub fn refine_frequency(
             None => f64::INFINITY,
         }
     };
+    golden_min((f_init - 1.0).max(0.5), f_init + 1.0, 60, 1e-10, cost)
+}
+
+/// The minimum of a unimodal `cost` on `[a, b]` by golden-section search (Kiefer 1953): at most
+/// `iterations` steps, stopping once the bracket is narrower than `tolerance`.
+pub(crate) fn golden_min(
+    mut a: f64,
+    mut b: f64,
+    iterations: usize,
+    tolerance: f64,
+    mut cost: impl FnMut(f64) -> f64,
+) -> f64 {
     let gr = (5f64.sqrt() - 1.0) / 2.0;
-    let (mut a, mut b) = ((f_init - 1.0).max(0.5), f_init + 1.0);
     let mut c = b - gr * (b - a);
     let mut d = a + gr * (b - a);
     let (mut fc, mut fd) = (cost(c), cost(d));
-    for _ in 0..60 {
-        if (b - a).abs() < 1e-10 {
+    for _ in 0..iterations {
+        if (b - a).abs() < tolerance {
             break;
         }
         if fc < fd {

@@ -27,17 +27,21 @@
 //!
 //! Nothing here decides; [`Steadiness`] says what was found and the callers refuse or warn.
 
-/// Envelope hop: about 1 ms.
+/// Envelope hop: about 1 ms (our choice: fine enough to place a fade or a dropout to a few ms).
 const HOP_S: f64 = 0.001;
-/// The envelope's moving mean spans at least this long (and a whole number of periods).
+/// The envelope's moving mean spans at least this long (and a whole number of periods): 10 ms
+/// holds ten periods of 1 kHz and keeps the envelope's noise scatter small (our choice).
 const MIN_WINDOW_S: f64 = 0.010;
-/// A flat run must last this long to count as a plateau.
+/// A flat run must last this long to count as a plateau (our choice: five envelope windows; a
+/// staircase step lasts far longer, a click far shorter).
 const MIN_PLATEAU_S: f64 = 0.050;
 /// Plateaus this far below the loudest envelope are the floor, not the tone (see module docs).
 const TONE_RANGE_DB: f64 = 20.0;
-/// Plateaus whose levels differ by more than this are different levels.
+/// Plateaus whose levels differ by more than this are different levels (our choice: far above
+/// the flatness tolerance, below the 2 dB of a coarse staircase step).
 const LEVEL_STEP_DB: f64 = 1.0;
-/// A dip this deep between two stretches of the tone is a dropout.
+/// A dip this deep between two stretches of the tone is a dropout: half the amplitude, far
+/// beyond any level wander (common practice).
 const DROPOUT_DB: f64 = 6.0;
 /// Smallest flatness tolerance: above the 0.05 dB ripple the hop rounding can leave.
 const MIN_TOLERANCE_DB: f64 = 0.15;
@@ -126,24 +130,16 @@ pub fn find_steady(x: &[f64], fs: f64) -> Steadiness {
     let loud_hops: Vec<usize> = (0..hops).filter(|&j| p[j] >= 0.25 * p_max).collect();
     let loud_ms = loud_hops.iter().map(|&j| p[j]).sum::<f64>() / loud_hops.len() as f64;
     let threshold = 0.5 * (2.0 * loud_ms).sqrt();
+    // Runs of consecutive loud hops, each counted on its own (no crossing across a gap).
     let (mut crossings, mut span_samples) = (0usize, 0usize);
-    let mut armed = false;
-    let mut last = usize::MAX;
-    for &j in &loud_hops {
-        if last != usize::MAX && j != last + 1 {
-            armed = false;
+    let mut run_start = 0;
+    for i in 1..=loud_hops.len() {
+        if i == loud_hops.len() || loud_hops[i] != loud_hops[i - 1] + 1 {
+            let (from, to) = (loud_hops[run_start] * hop, (loud_hops[i - 1] + 1) * hop);
+            crossings += up_crossings(&x[from..to], mean, threshold).count;
+            span_samples += to - from;
+            run_start = i;
         }
-        last = j;
-        for &v in &x[j * hop..(j + 1) * hop] {
-            let v = v - mean;
-            if v < -threshold {
-                armed = true;
-            } else if armed && v > threshold {
-                crossings += 1;
-                armed = false;
-            }
-        }
-        span_samples += hop;
     }
     let period = if crossings >= 4 {
         span_samples as f64 / crossings as f64
@@ -263,27 +259,26 @@ pub fn find_steady(x: &[f64], fs: f64) -> Steadiness {
         }
     }
     // The tone's extent, and dips between its first and last plateau.
-    let first = plateaus.first().expect("a plateau exists");
-    let last = plateaus.last().expect("a plateau exists");
     let tone_lo = env_db.iter().position(|&v| in_tone(v)).unwrap_or(0);
     let tone_hi = env_db
         .iter()
         .rposition(|&v| in_tone(v))
         .unwrap_or(count - 1);
+    // Dips between consecutive plateaus, against the lower of the two levels around them.
     let mut dropouts = Vec::new();
-    let (from, to) = (first.start / hop, (last.end / hop).min(count));
-    let mut j = from;
-    while j < to {
-        // The nearest plateau levels on either side set what "the tone" was there.
-        let t = j * hop;
-        let before = plateaus.iter().rev().find(|p| p.end <= t + hop);
-        let after = plateaus.iter().find(|p| p.start >= t);
-        let (Some(b), Some(a)) = (before, after) else {
-            j += 1;
-            continue;
-        };
-        let reference = b.level_db.min(a.level_db);
-        if env_db[j] < reference - DROPOUT_DB {
+    for pair in plateaus.windows(2) {
+        let (before, after) = (pair[0], pair[1]);
+        let reference = before.level_db.min(after.level_db);
+        let (from, to) = (
+            (before.end / hop).min(count),
+            (after.start / hop).min(count),
+        );
+        let mut j = from;
+        while j < to {
+            if env_db[j] >= reference - DROPOUT_DB {
+                j += 1;
+                continue;
+            }
             let s = j;
             let mut deepest = env_db[j];
             while j < to && env_db[j] < reference - DROPOUT_DB {
@@ -298,7 +293,6 @@ pub fn find_steady(x: &[f64], fs: f64) -> Steadiness {
                 depth_db: reference - deepest,
             });
         }
-        j += 1;
     }
     // Level change across the span: last tenth against first tenth of its envelope.
     let (a, b) = (
@@ -326,29 +320,45 @@ pub fn find_steady(x: &[f64], fs: f64) -> Steadiness {
     }
 }
 
-/// Relative change of the up-crossing rate from the first to the last quarter of `x`.
+/// Up-crossings of `x - mean` through `+threshold` after it was below `-threshold` (hysteresis, so
+/// noise and harmonics riding on the tone do not count twice): how many, and where the first and
+/// last were.
+struct Crossings {
+    count: usize,
+    first: usize,
+    last: usize,
+}
+
+fn up_crossings(x: &[f64], mean: f64, threshold: f64) -> Crossings {
+    let mut c = Crossings {
+        count: 0,
+        first: 0,
+        last: 0,
+    };
+    let mut armed = false;
+    for (i, &v) in x.iter().enumerate() {
+        let v = v - mean;
+        if v < -threshold {
+            armed = true;
+        } else if armed && v > threshold {
+            armed = false;
+            if c.count == 0 {
+                c.first = i;
+            }
+            c.count += 1;
+            c.last = i;
+        }
+    }
+    c
+}
+
+/// Relative change of the up-crossing rate (whole periods between the first and last crossing)
+/// from the first to the last quarter of `x`.
 fn frequency_change(x: &[f64], mean: f64, threshold: f64) -> Option<f64> {
     let q = x.len() / 4;
     let rate = |part: &[f64]| -> Option<f64> {
-        let mut armed = false;
-        let (mut first, mut last, mut count) = (None, 0usize, 0usize);
-        for (i, &v) in part.iter().enumerate() {
-            let v = v - mean;
-            if v < -threshold {
-                armed = true;
-            } else if armed && v > threshold {
-                armed = false;
-                if first.is_none() {
-                    first = Some(i);
-                } else {
-                    count += 1;
-                }
-                last = i;
-            }
-        }
-        // Whole periods between the first and last crossing.
-        let first = first?;
-        (count >= 8 && last > first).then(|| count as f64 / (last - first) as f64)
+        let c = up_crossings(part, mean, threshold);
+        (c.count > 8 && c.last > c.first).then(|| (c.count - 1) as f64 / (c.last - c.first) as f64)
     };
     let (a, b) = (rate(&x[..q])?, rate(&x[x.len() - q..])?);
     Some(b / a - 1.0)

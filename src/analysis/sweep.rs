@@ -509,7 +509,8 @@ impl ResponseAnalyzer {
             ));
         }
         // Warn only on a clear offset: over 10 ppm (where the harmonic curves start to smear on
-        // a long sweep) and four standard errors from zero.
+        // a long sweep; common practice) and four standard errors from zero (a normal estimate
+        // passes that by chance with probability 6e-5).
         if let Some((d, se)) = drift {
             if d.abs() > 10.0 && d.abs() > 4.0 * se {
                 warnings.push(format!(
@@ -649,26 +650,7 @@ fn parabolic_peak(x: &[f64], i: usize) -> f64 {
         }
         sum.abs()
     };
-    let (mut a, mut b) = (-0.5f64, 0.5f64);
-    let g = (5f64.sqrt() - 1.0) / 2.0;
-    let (mut c, mut d) = (b - g * (b - a), a + g * (b - a));
-    let (mut fc, mut fd) = (at(c), at(d));
-    for _ in 0..40 {
-        if fc > fd {
-            b = d;
-            d = c;
-            fd = fc;
-            c = b - g * (b - a);
-            fc = at(c);
-        } else {
-            a = c;
-            c = d;
-            fc = fd;
-            d = a + g * (b - a);
-            fd = at(d);
-        }
-    }
-    (0.5 * (a + b)).clamp(-0.5, 0.5)
+    super::fit::golden_min(-0.5, 0.5, 40, 1e-9, |t| -at(t)).clamp(-0.5, 0.5)
 }
 
 /// Cuts the response around `centre` (fractional sample, taken modulo the record) from

@@ -848,13 +848,7 @@ pub(crate) fn local_density(
     let skip = TONE_WINDOW.main_lobe_half_width() as isize + 1;
     let mut sum = 0.0;
     let mut count = 0usize;
-    let mut ai = all.partition_point(|e| e.0 < lo);
-    for (k, &x) in spec.iter().enumerate().take(hi + 1).skip(lo) {
-        let mut r = x;
-        if ai < all.len() && all[ai].0 == k {
-            r -= all[ai].1;
-            ai += 1;
-        }
+    for (k, r) in residuals(spec, all, lo, hi) {
         if (k as isize - centre).abs() > skip {
             sum += r.norm_sqr();
             count += 1;
@@ -1197,6 +1191,8 @@ fn steady_warnings(s: &Steadiness, fs: f64) -> Vec<String> {
             secs(s.end)
         ));
     }
+    // Less than half the tone steady, or a level moving more than 0.5 dB across the span: worth
+    // saying (common practice: a settled level holds to a tenth of a dB or so).
     let tone_len = s.tone_end.saturating_sub(s.tone_start);
     let steady_len = s.end - s.start;
     if s.judged && tone_len > 0 && (steady_len as f64) < 0.5 * tone_len as f64 {
@@ -1253,21 +1249,35 @@ fn strongest_unexplained_line(
     k_hi: usize,
     explained: impl Fn(usize, f64) -> bool,
 ) -> Option<(usize, f64)> {
-    if k_hi < k_lo {
-        return None;
-    }
-    let mut ai = all.partition_point(|e| e.0 < k_lo);
     let mut best: Option<(usize, f64)> = None;
-    for (k, &x) in spec.iter().enumerate().take(k_hi + 1).skip(k_lo) {
-        let mut r = x;
-        if ai < all.len() && all[ai].0 == k {
-            r -= all[ai].1;
-            ai += 1;
-        }
+    for (k, r) in residuals(spec, all, k_lo, k_hi) {
         let p = r.norm_sqr();
         if best.is_none_or(|b| p > b.1) && !explained(k, p) {
             best = Some((k, p));
         }
     }
     best
+}
+
+/// `(k, X[k] - model[k])` for the bins `lo..=hi` (none when `hi < lo`), the model given as
+/// sorted `(bin, value)` pairs.
+fn residuals<'a>(
+    spec: &'a [Complex64],
+    model: &'a [(usize, Complex64)],
+    lo: usize,
+    hi: usize,
+) -> impl Iterator<Item = (usize, Complex64)> + 'a {
+    let mut mi = model.partition_point(|e| e.0 < lo);
+    spec.iter()
+        .enumerate()
+        .take(hi.saturating_add(1))
+        .skip(lo)
+        .map(move |(k, &x)| {
+            if mi < model.len() && model[mi].0 == k {
+                mi += 1;
+                (k, x - model[mi - 1].1)
+            } else {
+                (k, x)
+            }
+        })
 }

@@ -13,20 +13,10 @@ use std::f64::consts::PI;
 
 const FS: f64 = 48_000.0;
 
-/// Seeded Gaussian noise (Box-Muller over a 64-bit LCG; Knuth's MMIX constants).
+/// Seeded Gaussian noise from the library's generator (the one the simulated bench uses).
 fn noise(n: usize, sigma: f64, seed: u64) -> Vec<f64> {
-    let mut s = seed
-        .wrapping_mul(6364136223846793005)
-        .wrapping_add(1442695040888963407);
-    let mut u = || {
-        s = s
-            .wrapping_mul(6364136223846793005)
-            .wrapping_add(1442695040888963407);
-        ((s >> 11) as f64 + 0.5) / (1u64 << 53) as f64
-    };
-    (0..n)
-        .map(|_| sigma * (-2.0 * u().ln()).sqrt() * (2.0 * PI * u()).cos())
-        .collect()
+    let mut rng = ampnote::signal::dither::Rng::new(seed);
+    (0..n).map(|_| sigma * rng.gaussian()).collect()
 }
 
 /// A 1 kHz tone at -6 dBFS with H2 at -60 dBc and H3 at -70 dBc.
