@@ -13,7 +13,7 @@ use crate::calibration::{AttenuatorSection, Calibration, InterfaceSection, LoadS
 use crate::error::Result;
 use crate::notebook::{NewRun, Notebook};
 use crate::procedure::power::power_from_capture;
-use crate::procedure::zout::from_levels;
+use crate::procedure::zout::from_tones;
 use crate::report::compare::{compare, match_channels, Comparison, MatchResult, MatchTolerances};
 use crate::rig::model::Model;
 use crate::rig::sim::SimRig;
@@ -250,14 +250,7 @@ pub fn run(out: &Path, mut progress: impl FnMut(&str)) -> Result<DemoOutcome> {
                 &input(ch, steady(&yb, &tone), &rig),
                 &Calibration::default(),
             )?;
-            let z = from_levels(
-                ch,
-                la.fundamental_hz,
-                10f64.powf(la.fundamental_dbfs / 20.0),
-                bench.load_ohms,
-                10f64.powf(lb.fundamental_dbfs / 20.0),
-                2.0 * bench.load_ohms,
-            )?;
+            let z = from_tones(ch, &la, bench.load_ohms, &lb, 2.0 * bench.load_ohms)?;
             save(
                 "zout",
                 vec![

@@ -112,7 +112,7 @@ fn analyze_spectrum(
             peak_near(h.high_hz),
             h.source,
         ),
-        None => detect_pair(spec, half, top)?,
+        None => detect_pair(input.channel, spec, bin, half, top)?,
     };
     let f_low = refine_frequency(spec, n, &TONE_WINDOW, k_low as f64, &[]);
     let f_high = refine_frequency(spec, n, &TONE_WINDOW, k_high as f64, &[]);
@@ -188,11 +188,19 @@ fn analyze_spectrum(
         })
         .collect();
     let (u_low, u_high) = (amp(named[0].0), amp(named[1].0));
-    if u_high <= 0.0 || u_low <= 0.0 {
-        return Err(Error::InvalidSetting(
-            "one of the two tones is missing from the capture".into(),
-        ));
-    }
+    check_pair(
+        input.channel,
+        spec,
+        &model,
+        n,
+        bin,
+        (half, top),
+        [(f_low, u_low), (f_high, u_high)],
+        match hint {
+            Some(h) => [h.low_hz, h.high_hz],
+            None => [f_low * bin, f_high * bin],
+        },
+    )?;
     let mut r = ImdResult {
         channel: input.channel,
         method,
@@ -249,11 +257,77 @@ fn analyze_spectrum(
     Ok(r)
 }
 
+/// Each tone of a pair must stand this far (30 dB) above the noise around it: a real two-tone
+/// capture clears it by far more, a sweep or noise (whose bins only scatter about their mean)
+/// never does.
+const MIN_PAIR_SNR: f64 = 1e3;
+
+/// The weaker tone may sit at most this far (30 dB, amplitude 1/31.6) below the stronger: the
+/// standard pairs are 4:1 (12 dB) and 1:1.
+const MIN_PAIR_RATIO: f64 = 1e-3;
+
+/// Refuse a capture that does not hold the pair: a tone missing or lost in the noise (a single
+/// tone, a sweep, noise), or a stronger line elsewhere (another tone or another pair). `tones`
+/// are (bin, fitted amplitude) of the low and the high tone.
+fn check_pair(
+    channel: usize,
+    spec: &[Complex64],
+    model: &[(usize, Complex64)],
+    n: usize,
+    bin: f64,
+    (half, top): (f64, f64),
+    tones: [(f64, f64); 2],
+    nominal_hz: [f64; 2],
+) -> Result<()> {
+    let scale = 2.0 / (n as f64 * n as f64 * TONE_WINDOW.mean_square());
+    let enbw = TONE_WINDOW.enbw_bins();
+    let pair = format!("{:.1} and {:.1} Hz", nominal_hz[0], nominal_hz[1]);
+    let strongest = ((2.0 * half) as usize..=top as usize)
+        .max_by(|&a, &b| spec[a].norm_sqr().total_cmp(&spec[b].norm_sqr()));
+    let wrong = |found: String| Error::WrongKind {
+        channel,
+        found,
+        next: "Record the pair `ampnote generate twotone` wrote and give that file with --stimulus; measure a single tone with `ampnote analyze`, a sweep with `ampnote response`.".into(),
+    };
+    let a_max = tones[0].1.max(tones[1].1);
+    let strongest_note = strongest.map_or(String::new(), |k| {
+        format!(" (the strongest line is at {:.1} Hz)", k as f64 * bin)
+    });
+    for (&(f, a), nominal) in tones.iter().zip(nominal_hz) {
+        let noise = local_density(spec, model, f, n) * scale * enbw;
+        let snr = a * a / 2.0 / noise.max(1e-300);
+        if snr < MIN_PAIR_SNR {
+            return Err(wrong(format!(
+                "no tone at {nominal:.1} Hz: the line there reads {:+.1} dB against the noise around it{strongest_note}, so the capture does not hold the two-tone pair ({pair})",
+                10.0 * snr.max(1e-30).log10()
+            )));
+        }
+        if (a / a_max).powi(2) < MIN_PAIR_RATIO {
+            return Err(wrong(format!(
+                "the tone at {nominal:.1} Hz stands {:.1} dB below the other: not the two-tone pair ({pair})",
+                -20.0 * (a / a_max).log10()
+            )));
+        }
+    }
+    if let Some(k) = strongest {
+        let near = |f: f64| (k as f64 - f).abs() <= GUARD_BINS;
+        if !near(tones[0].0) && !near(tones[1].0) {
+            return Err(wrong(format!(
+                "the strongest line is at {:.1} Hz, not one of the pair ({pair}): the capture holds another signal",
+                k as f64 * bin
+            )));
+        }
+    }
+    Ok(())
+}
+
 /// Finds the two strongest lines and tells the method from their spacing and ratio: a low tone
 /// well below a weaker high tone is the modulation method; two similar tones close together are
 /// the difference-frequency method.
 fn detect_pair(
+    channel: usize,
     spec: &[Complex64],
+    bin: f64,
     half: f64,
     top: f64,
 ) -> Result<(TwoToneMethod, usize, usize, &'static str)> {
@@ -261,16 +335,34 @@ fn detect_pair(
     let hi = top as usize;
     let strongest = |exclude: Option<usize>| -> Option<usize> {
         (lo..=hi)
-            .filter(|&k| exclude.is_none_or(|e| (k as f64 - e as f64).abs() > 2.0 * GUARD_BINS))
+            .filter(|&k| exclude.is_none_or(|e| (k as f64 - e as f64).abs() > 2.0 * GUARD_BINS + half))
             .max_by(|&a, &b| spec[a].norm_sqr().total_cmp(&spec[b].norm_sqr()))
     };
     let first = strongest(None).ok_or_else(|| {
         Error::InvalidSetting("the capture is too short for a two-tone analysis".into())
     })?;
-    let second = strongest(Some(first))
-        .ok_or_else(|| Error::InvalidSetting("only one tone found".into()))?;
+    let single = |detail: String| Error::WrongKind {
+        channel,
+        found: format!("only one tone, at {:.1} Hz{detail}: not a two-tone pair", first as f64 * bin),
+        next: "Record the pair `ampnote generate twotone` wrote and give that file with --stimulus; measure a single tone with `ampnote analyze`.".into(),
+    };
+    let second = strongest(Some(first)).ok_or_else(|| single(String::new()))?;
     let (k_low, k_high) = (first.min(second), first.max(second));
     let ratio = spec[k_low].norm() / spec[k_high].norm();
+    let weaker = spec[second].norm_sqr() / spec[first].norm_sqr();
+    // A harmonic of the first line, or anything this far down, is no second tone.
+    let harmonic = {
+        let r = second as f64 / first as f64;
+        r > 1.5 && (r - r.round()).abs() * first as f64 <= GUARD_BINS
+    };
+    if weaker < MIN_PAIR_RATIO || harmonic {
+        return Err(single(format!(
+            " (the next line, at {:.1} Hz, stands {:.1} dB below it{})",
+            second as f64 * bin,
+            -10.0 * weaker.log10(),
+            if harmonic { " and is its harmonic" } else { "" }
+        )));
+    }
     if k_low * 5 <= k_high && ratio > 1.5 {
         Ok((TwoToneMethod::Modulation, k_low, k_high, "detected"))
     } else if (k_high - k_low) * 2 < k_low && (0.5..=2.0).contains(&ratio) {

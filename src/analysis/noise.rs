@@ -9,7 +9,7 @@
 use super::fit::fit_lines;
 use super::spectrum::SpectrumPlanner;
 use super::tone::{
-    local_density, measure_spectrum, ChannelInput, Mains, GUARD_BINS, NOISE_FLOOR_FACTOR,
+    local_density, measure_spectrum, residuals, ChannelInput, Mains, GUARD_BINS, NOISE_FLOOR_FACTOR,
     TONE_WINDOW,
 };
 use super::weighting::a_weighting_power;
@@ -197,18 +197,26 @@ fn analyze_spectrum(
     let noise_vrms = cal.vrms_from_dbfs(noise_dbfs);
     let noise_a_vrms = cal.vrms_from_dbfs(noise_a_dbfs);
     let mut warnings = Vec::new();
-    // A strong line that is not mains: a signal is present.
-    let strongest =
-        (k_lo..=k_hi).max_by(|&a, &b| spec[a].norm_sqr().total_cmp(&spec[b].norm_sqr()));
-    if let Some(k) = strongest {
-        let f = k as f64 * bin;
-        let is_mains = hum.iter().any(|h| (h.frequency_hz - f).abs() < 3.0 * bin);
-        let line_db = dbfs(spec[k].norm_sqr() * enbw);
-        if !is_mains && line_db > noise_dbfs + 20.0 && line_db > -100.0 {
-            warnings.push(format!(
-                "a line at {f:.1} Hz ({line_db:.1} dBFS) stands out of the noise: this capture carries a signal, so it is not a noise measurement; short or silence the amplifier's input"
-            ));
+    // A line that is not mains and stands out of the noise around it: a signal is present.
+    if let Some(line) = signal_line(spec, &model, k_lo, k_hi, n, bin, mains_hz) {
+        let level_dbfs = dbfs(line.power);
+        let share = line.power / flat.max(1e-300);
+        let f = line.bin as f64 * bin;
+        let found = format!(
+            "a tone at {f:.1} Hz ({level_dbfs:.1} dBFS) stands {:.0} dB above the noise around it and makes {:.0} % of what would be read as noise",
+            10.0 * line.above_noise.log10(),
+            100.0 * share.min(1.0)
+        );
+        if share > MAX_SIGNAL_SHARE {
+            return Err(Error::WrongKind {
+                channel: input.channel,
+                found: format!("{found}: the capture carries a signal, so it is not a noise measurement"),
+                next: "Short the amplifier's input (or stop the source) and record again; measure a tone with `ampnote analyze`.".into(),
+            });
         }
+        warnings.push(format!(
+            "{found}; it is counted in the noise figures. Look for a source left playing, interference or an oscillation."
+        ));
     }
     if overload > 0 {
         warnings.push(format!(
@@ -240,5 +248,62 @@ fn analyze_spectrum(
         dc_offset: dc,
         overload_samples: overload,
         warnings,
+    })
+}
+
+/// A noise figure is refused when one line makes more than half of it (it would then read the
+/// line, not the noise, by over 3 dB).
+const MAX_SIGNAL_SHARE: f64 = 0.5;
+
+/// A line counts as a signal when its peak bin stands this far (30 dB) above the mean residual
+/// density around it. For noise alone each bin's power is exponentially distributed (chi-square
+/// with two degrees of freedom), so a bin passes 1000 times the mean with probability e^-1000:
+/// never by chance.
+const SIGNAL_LINE_RATIO: f64 = 1e3;
+
+/// A line found in a noise capture.
+struct SignalLine {
+    bin: usize,
+    /// Power over the line's main lobe, in the spectrum's squared units.
+    power: f64,
+    /// Peak bin over the mean residual density around it (power ratio).
+    above_noise: f64,
+}
+
+/// The strongest residual line in `k_lo..=k_hi` that is no mains line (up to the 40th order:
+/// rectifier buzz reaches a few kHz, common practice) and stands [`SIGNAL_LINE_RATIO`] above
+/// the noise around it.
+fn signal_line(
+    spec: &[realfft::num_complex::Complex64],
+    model: &[(usize, realfft::num_complex::Complex64)],
+    k_lo: usize,
+    k_hi: usize,
+    n: usize,
+    bin: f64,
+    mains_hz: f64,
+) -> Option<SignalLine> {
+    let half = TONE_WINDOW.main_lobe_half_width() as usize + 1;
+    let tol = half as f64 * bin;
+    let is_mains = |k: usize| {
+        let f = k as f64 * bin;
+        let o = (f / mains_hz).round();
+        o >= 1.0 && o <= 40.0 && (f - o * mains_hz).abs() <= tol
+    };
+    let (k, p) = residuals(spec, model, k_lo, k_hi)
+        .filter(|&(k, _)| !is_mains(k))
+        .map(|(k, r)| (k, r.norm_sqr()))
+        .max_by(|a, b| a.1.total_cmp(&b.1))?;
+    let density = local_density(spec, model, k as f64, n);
+    let above_noise = p / density.max(1e-300);
+    if above_noise < SIGNAL_LINE_RATIO {
+        return None;
+    }
+    let power = residuals(spec, model, k.saturating_sub(half).max(1), (k + half).min(n / 2))
+        .map(|(_, r)| r.norm_sqr())
+        .sum();
+    Some(SignalLine {
+        bin: k,
+        power,
+        above_noise,
     })
 }

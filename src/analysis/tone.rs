@@ -148,8 +148,15 @@ pub struct ToneResult {
     /// floor, fades and settling around it are left out; see [`super::steady`]).
     pub analysed_from_s: f64,
     pub analysed_to_s: f64,
+    /// How far the level moves across the analysed span (its last tenth against its first), dB.
+    pub level_drift_db: f64,
     pub fundamental_hz: f64,
     pub fundamental_dbfs: f64,
+    /// One standard deviation of `fundamental_dbfs` from the noise around the line: the fitted
+    /// amplitude's radial scatter is `sqrt(line noise)` (a line fitted to noise of power N has
+    /// complex scatter of mean square 2N), over the amplitude, in dB. It leaves out the
+    /// calibration's own uncertainty and any wander of the level itself.
+    pub fundamental_sigma_db: f64,
     /// RMS volts at the amplifier output (calibrated only).
     #[serde(skip_serializing_if = "Option::is_none")]
     pub fundamental_vrms: Option<f64>,
@@ -303,6 +310,7 @@ impl ToneAnalyzer {
         let mut result = outcome?;
         result.analysed_from_s = steady.start as f64 / fs;
         result.analysed_to_s = (steady.start + result.samples_analysed) as f64 / fs;
+        result.level_drift_db = steady.drift_db;
         let steady_warnings = steady_warnings(&steady, fs);
         result.warnings.splice(0..0, steady_warnings);
         Ok(result)
@@ -552,8 +560,10 @@ impl ToneAnalyzer {
             duration_s: n as f64 / fs,
             analysed_from_s: 0.0,
             analysed_to_s: n as f64 / fs,
+            level_drift_db: 0.0,
             fundamental_hz: f0_hz,
             fundamental_dbfs,
+            fundamental_sigma_db: 20.0 / std::f64::consts::LN_10 * line_noise(f0_bins).sqrt() / a1,
             fundamental_vrms,
             fundamental_dbv: fundamental_vrms.map(crate::calibration::dbv),
             fundamental_dbu: fundamental_vrms.map(crate::calibration::dbu),
@@ -1261,7 +1271,7 @@ fn strongest_unexplained_line(
 
 /// `(k, X[k] - model[k])` for the bins `lo..=hi` (none when `hi < lo`), the model given as
 /// sorted `(bin, value)` pairs.
-fn residuals<'a>(
+pub(crate) fn residuals<'a>(
     spec: &'a [Complex64],
     model: &'a [(usize, Complex64)],
     lo: usize,

@@ -6,6 +6,7 @@
 //! amplifier's output transformer must not run unloaded (common practice). The voltages may be in
 //! any unit common to both (dBFS through the same interface and attenuator will do).
 
+use crate::analysis::tone::ToneResult;
 use crate::error::{Error, Result};
 use serde::Serialize;
 
@@ -51,6 +52,10 @@ pub struct ZoutResult {
     /// At the tone's frequency, or at 1 kHz for sweeps.
     pub frequency_hz: f64,
     pub zout_ohms: f64,
+    /// One standard deviation of `zout_ohms` from the noise of the two readings (absent when
+    /// their noise is not known).
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub zout_sigma_ohms: Option<f64>,
     pub damping_factor: f64,
     /// Across the band (sweep captures only).
     #[serde(skip_serializing_if = "Vec::is_empty")]
@@ -88,8 +93,91 @@ pub fn from_levels(
         nominal_load_ohms: nominal,
         frequency_hz,
         zout_ohms: z,
+        zout_sigma_ohms: None,
         damping_factor: nominal / z,
         points: Vec::new(),
         warnings: zout_warnings(load_a, load_b, z),
     })
+}
+
+/// Two readings differ by a real change only past four standard deviations of their noise
+/// (normal statistics: noise alone passes that with probability 6e-5).
+const DISTINCT_SIGMAS: f64 = 4.0;
+
+/// Refuse two readings whose levels (dB) differ by no more than their noise allows: the same
+/// capture twice, or the load not switched between them. `sigma_db` is one standard deviation of
+/// the difference.
+pub fn check_distinct(channel: usize, level_a_db: f64, level_b_db: f64, sigma_db: f64) -> Result<()> {
+    let d = level_b_db - level_a_db;
+    if d.abs() <= DISTINCT_SIGMAS * sigma_db {
+        return Err(Error::WrongKind {
+            channel,
+            found: format!(
+                "the two captures read the same level within their noise (they differ by {} dB where their noise and wander allow {} dB): the load was not switched between them, or one recording was given twice",
+                small(d),
+                small(DISTINCT_SIGMAS * sigma_db)
+            ),
+            next: "Record one capture into each load (the rated load, then about twice it), switching loads with the amplifier muted; never leave a tube amplifier's output open.".into(),
+        });
+    }
+    Ok(())
+}
+
+/// A small dB figure readable at any size: fixed point down to a thousandth, then exponent.
+fn small(x: f64) -> String {
+    if x == 0.0 || x.abs() >= 1e-3 {
+        format!("{x:.3}")
+    } else {
+        format!("{x:.1e}")
+    }
+}
+
+/// One standard deviation of the two-load impedance from one of the level difference `sigma_db`:
+/// with `g = v2 / v1`, `Z = (g - 1) / (1/R1 - g/R2)` and `dZ/dg = (1/R1 - 1/R2) / (1/R1 - g/R2)^2`.
+pub fn zout_sigma(v1: f64, r1: f64, v2: f64, r2: f64, sigma_db: f64) -> f64 {
+    let g = v2 / v1;
+    let den = 1.0 / r1 - g / r2;
+    ((1.0 / r1 - 1.0 / r2) / (den * den)).abs() * g * sigma_db * std::f64::consts::LN_10 / 20.0
+}
+
+/// The two-load result from two steady-tone analyses (same drive, loads `load_a` and `load_b`):
+/// refuses tones at different frequencies and levels that do not differ beyond their noise.
+pub fn from_tones(
+    channel: usize,
+    a: &ToneResult,
+    load_a: f64,
+    b: &ToneResult,
+    load_b: f64,
+) -> Result<ZoutResult> {
+    let (fa, fb) = (a.fundamental_hz, b.fundamental_hz);
+    if (fa - fb).abs() > 0.01 * fa.max(fb) {
+        return Err(Error::WrongKind {
+            channel,
+            found: format!(
+                "the two captures hold tones at different frequencies ({fa:.1} Hz and {fb:.1} Hz)"
+            ),
+            next: "Record both loads with the same tone at the same drive.".into(),
+        });
+    }
+    // The noise of each reading, and half the level's own movement across each span: a level
+    // that wanders by d within a capture cannot be trusted to better than about d/2 against
+    // another capture.
+    let sigma = [
+        a.fundamental_sigma_db,
+        b.fundamental_sigma_db,
+        a.level_drift_db / 2.0,
+        b.level_drift_db / 2.0,
+    ]
+    .iter()
+    .map(|x| x * x)
+    .sum::<f64>()
+    .sqrt();
+    check_distinct(channel, a.fundamental_dbfs, b.fundamental_dbfs, sigma)?;
+    let (va, vb) = (
+        10f64.powf(a.fundamental_dbfs / 20.0),
+        10f64.powf(b.fundamental_dbfs / 20.0),
+    );
+    let mut r = from_levels(channel, fa, va, load_a, vb, load_b)?;
+    r.zout_sigma_ohms = Some(zout_sigma(va, load_a, vb, load_b, sigma));
+    Ok(r)
 }

@@ -107,8 +107,15 @@ impl ZoutReport {
         for r in &self.results {
             let _ = writeln!(
                 s,
-                "\nChannel {}: output impedance {:.3} ohm at {:.0} Hz, damping factor {:.2} (re {} ohm; loads {} and {} ohm)",
-                r.channel, r.zout_ohms, r.frequency_hz, r.damping_factor, r.nominal_load_ohms, r.load_a_ohms, r.load_b_ohms
+                "\nChannel {}: output impedance {:.3}{} ohm at {:.0} Hz, damping factor {:.2} (re {} ohm; loads {} and {} ohm)",
+                r.channel,
+                r.zout_ohms,
+                r.zout_sigma_ohms.map_or(String::new(), |s| format!(" +/- {s:.3}")),
+                r.frequency_hz,
+                r.damping_factor,
+                r.nominal_load_ohms,
+                r.load_a_ohms,
+                r.load_b_ohms
             );
             if !r.points.is_empty() {
                 let _ = writeln!(s, "  Frequency     Z out   Damping");

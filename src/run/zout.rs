@@ -2,11 +2,13 @@
 
 use crate::cli::{channel_choice, ZoutArgs};
 use ampnote::analysis::sweep::{ResponseAnalyzer, ResponseConfig, ResponseResult, SweepParams};
-use ampnote::analysis::tone::{ChannelInput, ToneAnalyzer, ToneConfig};
+use ampnote::analysis::tone::{ChannelInput, ToneAnalyzer, ToneConfig, ToneResult};
 use ampnote::calibration::Calibration;
 use ampnote::capture::{select_channels, Capture};
 use ampnote::error::Error;
-use ampnote::procedure::zout::{from_levels, two_load, ZoutPoint, ZoutResult};
+use ampnote::procedure::zout::{
+    check_distinct, from_levels, from_tones, two_load, zout_sigma, ZoutPoint, ZoutResult,
+};
 use ampnote::report::power::ZoutReport;
 use ampnote::report::SCHEMA_VERSION;
 use ampnote::signal::stimulus::{self, Common};
@@ -16,35 +18,35 @@ fn e(err: Error) -> String {
     err.to_string()
 }
 
-/// Level of a steady tone in dBFS.
+/// The steady-tone analysis of one load's capture.
 fn tone_level(
     samples: &[f64],
     fs: f64,
     overload: f64,
     bits: u32,
     hint: Option<f64>,
-) -> Result<(f64, f64), String> {
+) -> Result<ToneResult, String> {
     let a = ToneAnalyzer::new(ToneConfig {
         fundamental_hint_hz: hint,
         ..ToneConfig::default()
     })
     .map_err(e)?;
-    let r = a
-        .analyze(
-            &ChannelInput {
-                channel: 1,
-                samples,
-                sample_rate_hz: fs,
-                overload_threshold: overload,
-                resolution_bits: bits,
-            },
-            &Calibration::default(),
-        )
-        .map_err(e)?;
-    Ok((r.fundamental_dbfs, r.fundamental_hz))
+    a.analyze(
+        &ChannelInput {
+            channel: 1,
+            samples,
+            sample_rate_hz: fs,
+            overload_threshold: overload,
+            resolution_bits: bits,
+        },
+        &Calibration::default(),
+    )
+    .map_err(e)
 }
 
-/// Z across the band from two responses to the same sweep.
+/// Z across the band from two responses to the same sweep. The difference of the two curves
+/// must stand out of its own point-to-point scatter (a real output impedance changes smoothly
+/// with frequency; noise changes from one point to the next).
 fn from_responses(
     channel: usize,
     a: &ResponseResult,
@@ -53,8 +55,21 @@ fn from_responses(
     rb: f64,
 ) -> Result<ZoutResult, String> {
     let lin = |r: &ResponseResult, db: f64| 10f64.powf((r.reference_gain_db + db) / 20.0);
+    let diff: Vec<f64> = a
+        .points
+        .iter()
+        .zip(&b.points)
+        .map(|(pa, pb)| (b.reference_gain_db + pb.magnitude_db) - (a.reference_gain_db + pa.magnitude_db))
+        .collect();
+    // Robust scatter of one difference: the median absolute step between neighbours, scaled to
+    // a standard deviation (1.4826 for normal data) and divided by sqrt 2 (a step holds two).
+    let mut steps: Vec<f64> = diff.windows(2).map(|w| (w[1] - w[0]).abs()).collect();
+    steps.sort_by(f64::total_cmp);
+    let sigma = steps.get(steps.len() / 2).copied().unwrap_or(0.0) * 1.4826 / 2f64.sqrt();
+    check_distinct(channel, a.reference_gain_db, b.reference_gain_db, sigma).map_err(e)?;
     let mut res =
         from_levels(channel, a.reference_hz, lin(a, 0.0), ra, lin(b, 0.0), rb).map_err(e)?;
+    res.zout_sigma_ohms = Some(zout_sigma(lin(a, 0.0), ra, lin(b, 0.0), rb, sigma));
     let nominal = res.nominal_load_ohms;
     res.points = a
         .points
@@ -129,23 +144,18 @@ pub fn run(args: &ZoutArgs) -> Result<ExitCode, String> {
                     .map_err(e)?;
                 from_responses(ch, &a, ra, &b, rb)?
             } else {
-                let skip = (0.3 * rate as f64) as usize; // lead and 0.2 s of settling
-                let (la, f) = tone_level(
-                    &caps[0][skip..],
-                    rate as f64,
-                    rig.overload_threshold(),
-                    rig.resolution_bits(),
-                    Some(args.freq),
-                )?;
-                let (lb, _) = tone_level(
-                    &caps[1][skip..],
-                    rate as f64,
-                    rig.overload_threshold(),
-                    rig.resolution_bits(),
-                    Some(args.freq),
-                )?;
-                from_levels(ch, f, 10f64.powf(la / 20.0), ra, 10f64.powf(lb / 20.0), rb)
-                    .map_err(e)?
+                let level = |cap: &[f64], hint: f64| {
+                    tone_level(
+                        cap,
+                        rate as f64,
+                        rig.overload_threshold(),
+                        rig.resolution_bits(),
+                        Some(hint),
+                    )
+                };
+                let a = level(&caps[0], args.freq)?;
+                let b = level(&caps[1], args.freq)?;
+                from_tones(ch, &a, ra, &b, rb).map_err(e)?
             };
             res.warnings.extend(rig.take_notes(ch));
             results.push(res);
@@ -185,6 +195,13 @@ pub fn run(args: &ZoutArgs) -> Result<ExitCode, String> {
                     "the two captures have different sample rates; record both the same way".into(),
                 );
             }
+            if ca.channels[0] == cb.channels[0] {
+                return Err(e(Error::WrongKind {
+                    channel: ch,
+                    found: "the two captures hold the same samples: one recording given twice".into(),
+                    next: "Give the capture into the first load, then the one into the second.".into(),
+                }));
+            }
             let fs = ca.sample_rate_hz as f64;
             let res = match &sweep {
                 Some((x, sp)) => {
@@ -212,22 +229,21 @@ pub fn run(args: &ZoutArgs) -> Result<ExitCode, String> {
                     from_responses(ch, &a, ra, &b, rb)?
                 }
                 None => {
-                    let (la, f) = tone_level(
+                    let a = tone_level(
                         &ca.channels[0],
                         fs,
                         ca.encoding.overload_threshold(),
                         ca.encoding.resolution_bits(),
                         None,
                     )?;
-                    let (lb, _) = tone_level(
+                    let b = tone_level(
                         &cb.channels[0],
                         fs,
                         cb.encoding.overload_threshold(),
                         cb.encoding.resolution_bits(),
-                        Some(f),
+                        None,
                     )?;
-                    from_levels(ch, f, 10f64.powf(la / 20.0), ra, 10f64.powf(lb / 20.0), rb)
-                        .map_err(e)?
+                    from_tones(ch, &a, ra, &b, rb).map_err(e)?
                 }
             };
             results.push(res);
