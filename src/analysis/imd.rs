@@ -284,10 +284,12 @@ fn check_pair(
     let pair = format!("{:.1} and {:.1} Hz", nominal_hz[0], nominal_hz[1]);
     let strongest = ((2.0 * half) as usize..=top as usize)
         .max_by(|&a, &b| spec[a].norm_sqr().total_cmp(&spec[b].norm_sqr()));
-    let wrong = |found: String| Error::WrongKind {
+    let wrong = |found: String| {
+        Error::WrongKind {
         channel,
         found,
         next: "Record the pair `ampnote generate twotone` wrote and give that file with --stimulus; measure a single tone with `ampnote analyze`, a sweep with `ampnote response`.".into(),
+    }
     };
     let a_max = tones[0].1.max(tones[1].1);
     let strongest_note = strongest.map_or(String::new(), |k| {
@@ -335,16 +337,20 @@ fn detect_pair(
     let hi = top as usize;
     let strongest = |exclude: Option<usize>| -> Option<usize> {
         (lo..=hi)
-            .filter(|&k| exclude.is_none_or(|e| (k as f64 - e as f64).abs() > 2.0 * GUARD_BINS + half))
+            .filter(|&k| {
+                exclude.is_none_or(|e| (k as f64 - e as f64).abs() > 2.0 * GUARD_BINS + half)
+            })
             .max_by(|&a, &b| spec[a].norm_sqr().total_cmp(&spec[b].norm_sqr()))
     };
     let first = strongest(None).ok_or_else(|| {
         Error::InvalidSetting("the capture is too short for a two-tone analysis".into())
     })?;
-    let single = |detail: String| Error::WrongKind {
+    let single = |detail: String| {
+        Error::WrongKind {
         channel,
         found: format!("only one tone, at {:.1} Hz{detail}: not a two-tone pair", first as f64 * bin),
         next: "Record the pair `ampnote generate twotone` wrote and give that file with --stimulus; measure a single tone with `ampnote analyze`.".into(),
+    }
     };
     let second = strongest(Some(first)).ok_or_else(|| single(String::new()))?;
     let (k_low, k_high) = (first.min(second), first.max(second));

@@ -9,8 +9,8 @@
 use super::fit::fit_lines;
 use super::spectrum::SpectrumPlanner;
 use super::tone::{
-    local_density, measure_spectrum, residuals, ChannelInput, Mains, GUARD_BINS, NOISE_FLOOR_FACTOR,
-    TONE_WINDOW,
+    local_density, measure_spectrum, residuals, ChannelInput, Mains, GUARD_BINS,
+    NOISE_FLOOR_FACTOR, TONE_WINDOW,
 };
 use super::weighting::a_weighting_power;
 use crate::calibration::Calibration;
@@ -298,9 +298,14 @@ fn signal_line(
     if above_noise < SIGNAL_LINE_RATIO {
         return None;
     }
-    let power = residuals(spec, model, k.saturating_sub(half).max(1), (k + half).min(n / 2))
-        .map(|(_, r)| r.norm_sqr())
-        .sum();
+    let power = residuals(
+        spec,
+        model,
+        k.saturating_sub(half).max(1),
+        (k + half).min(n / 2),
+    )
+    .map(|(_, r)| r.norm_sqr())
+    .sum();
     Some(SignalLine {
         bin: k,
         power,

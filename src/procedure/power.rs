@@ -306,6 +306,7 @@ pub fn power_from_capture(
             "channel {channel}: no step of the staircase was found in the capture; check that it is the recording of this stimulus and channel"
         )));
     }
+    check_follows_drive(channel, &steps)?;
     let mut r = finish(channel, frequency_hz, sample_rate_hz, cal, steps, None);
     if !missing.is_empty() {
         r.warnings.insert(
@@ -318,6 +319,47 @@ pub fn power_from_capture(
         );
     }
     Ok(r)
+}
+
+/// Below 1 % THD an amplifier is close to linear: its output moves with its drive to within a
+/// few hundredths of a dB per dB of drive (compression sets in near clipping; common practice).
+/// A step whose output moves more than this (0.5 dB, or half the drive's own step) away from
+/// the drive's move was not recorded from that drive.
+const STEP_FOLLOW_TOLERANCE_DB: f64 = 0.5;
+
+/// Refuse a capture whose steps do not follow the staircase they are labelled with: the capture
+/// of another staircase (another step size, dwell or start) analysed against this one gives
+/// drive labels that do not belong to the levels read.
+pub fn check_follows_drive(channel: usize, steps: &[PowerStep]) -> Result<()> {
+    let linear: Vec<&PowerStep> = steps
+        .iter()
+        .filter(|s| !s.excluded && s.thd_percent.unwrap_or(s.thdn_percent) < 1.0)
+        .collect();
+    let off: Vec<(f64, f64, f64, f64)> = linear
+        .windows(2)
+        .filter_map(|w| {
+            let dd = w[1].drive_dbfs - w[0].drive_dbfs;
+            let dout = w[1].output_dbfs - w[0].output_dbfs;
+            ((dout - dd).abs() > STEP_FOLLOW_TOLERANCE_DB.max(0.5 * dd.abs())).then_some((
+                w[0].drive_dbfs,
+                w[1].drive_dbfs,
+                dd,
+                dout,
+            ))
+        })
+        .collect();
+    if let Some(&(a, b, dd, dout)) = off.first() {
+        return Err(Error::WrongKind {
+            channel,
+            found: format!(
+                "the output does not follow the staircase: from drive {a:.1} to {b:.1} dBFS it moves {dout:+.2} dB where the drive moves {dd:+.2} dB ({} of {} steps below 1 % THD are off like this), so the capture is not a recording of this staircase (another step size, dwell or start)",
+                off.len(),
+                linear.len().saturating_sub(1)
+            ),
+            next: "Give the staircase file this capture was recorded from with --stimulus, or record this one again.".into(),
+        });
+    }
+    Ok(())
 }
 
 /// Settings of a staircase run on a rig.

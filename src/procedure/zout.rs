@@ -12,6 +12,18 @@ use serde::Serialize;
 
 /// The two-load formula.
 pub fn two_load(v1: f64, r1: f64, v2: f64, r2: f64) -> Result<f64> {
+    check_loads(r1, r2)?;
+    let den = v1 / r1 - v2 / r2;
+    if den.abs() < 1e-300 {
+        return Err(Error::InvalidSetting(
+            "the two readings do not differ enough to give an impedance".into(),
+        ));
+    }
+    Ok((v2 - v1) / den)
+}
+
+/// Both loads above 0 ohm, and different.
+pub fn check_loads(r1: f64, r2: f64) -> Result<()> {
     for (name, r) in [("first load", r1), ("second load", r2)] {
         if !(r.is_finite() && r > 0.0) {
             return Err(Error::InvalidSetting(format!(
@@ -24,13 +36,7 @@ pub fn two_load(v1: f64, r1: f64, v2: f64, r2: f64) -> Result<f64> {
             "the two loads must differ (for example the rated load and twice it)".into(),
         ));
     }
-    let den = v1 / r1 - v2 / r2;
-    if den.abs() < 1e-300 {
-        return Err(Error::InvalidSetting(
-            "the two readings do not differ enough to give an impedance".into(),
-        ));
-    }
-    Ok((v2 - v1) / den)
+    Ok(())
 }
 
 /// Output impedance at one frequency, or one point of the curve across the band.
@@ -107,7 +113,12 @@ const DISTINCT_SIGMAS: f64 = 4.0;
 /// Refuse two readings whose levels (dB) differ by no more than their noise allows: the same
 /// capture twice, or the load not switched between them. `sigma_db` is one standard deviation of
 /// the difference.
-pub fn check_distinct(channel: usize, level_a_db: f64, level_b_db: f64, sigma_db: f64) -> Result<()> {
+pub fn check_distinct(
+    channel: usize,
+    level_a_db: f64,
+    level_b_db: f64,
+    sigma_db: f64,
+) -> Result<()> {
     let d = level_b_db - level_a_db;
     if d.abs() <= DISTINCT_SIGMAS * sigma_db {
         return Err(Error::WrongKind {
@@ -149,6 +160,7 @@ pub fn from_tones(
     b: &ToneResult,
     load_b: f64,
 ) -> Result<ZoutResult> {
+    check_loads(load_a, load_b)?;
     let (fa, fb) = (a.fundamental_hz, b.fundamental_hz);
     if (fa - fb).abs() > 0.01 * fa.max(fb) {
         return Err(Error::WrongKind {

@@ -7,7 +7,8 @@ use ampnote::calibration::Calibration;
 use ampnote::capture::{select_channels, Capture};
 use ampnote::error::Error;
 use ampnote::procedure::zout::{
-    check_distinct, from_levels, from_tones, two_load, zout_sigma, ZoutPoint, ZoutResult,
+    check_distinct, check_loads, from_levels, from_tones, two_load, zout_sigma, ZoutPoint,
+    ZoutResult,
 };
 use ampnote::report::power::ZoutReport;
 use ampnote::report::SCHEMA_VERSION;
@@ -54,12 +55,15 @@ fn from_responses(
     b: &ResponseResult,
     rb: f64,
 ) -> Result<ZoutResult, String> {
+    check_loads(ra, rb).map_err(e)?;
     let lin = |r: &ResponseResult, db: f64| 10f64.powf((r.reference_gain_db + db) / 20.0);
     let diff: Vec<f64> = a
         .points
         .iter()
         .zip(&b.points)
-        .map(|(pa, pb)| (b.reference_gain_db + pb.magnitude_db) - (a.reference_gain_db + pa.magnitude_db))
+        .map(|(pa, pb)| {
+            (b.reference_gain_db + pb.magnitude_db) - (a.reference_gain_db + pa.magnitude_db)
+        })
         .collect();
     // Robust scatter of one difference: the median absolute step between neighbours, scaled to
     // a standard deviation (1.4826 for normal data) and divided by sqrt 2 (a step holds two).
@@ -198,8 +202,10 @@ pub fn run(args: &ZoutArgs) -> Result<ExitCode, String> {
             if ca.channels[0] == cb.channels[0] {
                 return Err(e(Error::WrongKind {
                     channel: ch,
-                    found: "the two captures hold the same samples: one recording given twice".into(),
-                    next: "Give the capture into the first load, then the one into the second.".into(),
+                    found: "the two captures hold the same samples: one recording given twice"
+                        .into(),
+                    next: "Give the capture into the first load, then the one into the second."
+                        .into(),
                 }));
             }
             let fs = ca.sample_rate_hz as f64;

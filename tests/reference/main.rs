@@ -18,3 +18,4 @@ mod targets;
 mod wav_reading;
 mod weighting;
 mod window;
+mod wrong_kind;
