@@ -522,6 +522,10 @@ pub struct AnalyzeArgs {
     pub freq: f64,
     #[arg(long, default_value_t = -20.0, value_name = "DBFS", allow_negative_numbers = true)]
     pub level: f64,
+    /// With --rig, instead of --level: the power into the load the tone should give ("THD at
+    /// 1 W"); the drive is found from a short -40 dBFS probe. Needs the calibration with a load.
+    #[arg(long, value_name = "W", conflicts_with = "level")]
+    pub watts: Option<f64>,
     #[arg(long, default_value_t = 2.0, value_name = "S")]
     pub seconds: f64,
     #[arg(long, default_value_t = 48_000, value_name = "HZ")]
@@ -816,20 +820,49 @@ impl AnalyzeArgs {
 impl CalibrationArgs {
     /// The profile (if any) with the flags over it, checked.
     pub fn calibration(&self) -> Result<Calibration, String> {
+        self.over(Calibration::default())
+    }
+
+    /// The calibration of a run that may be kept in a notebook: the notebook's own (its profile
+    /// and load, copied in at `notebook init`) under the profile given here, under the flags.
+    pub fn resolve(&self, save: &SaveArgs) -> Result<Calibration, String> {
+        let base = match &save.notebook {
+            Some(dir) => {
+                let nb = ampnote::notebook::Notebook::open(dir).map_err(|e| e.to_string())?;
+                let cal = match &nb.info.calibration {
+                    Some(p) => p
+                        .calibration()
+                        .map_err(|e| format!("the calibration kept in {}: {e}", dir.display()))?,
+                    None => Calibration::default(),
+                };
+                Calibration {
+                    load_ohms: cal.load_ohms.or(nb.info.load_ohms),
+                    ..cal
+                }
+            }
+            None => Calibration::default(),
+        };
+        self.over(base)
+    }
+
+    /// `base` with the profile given here over it, then the flags.
+    fn over(&self, notebook: Calibration) -> Result<Calibration, String> {
         let base = match &self.profile {
             Some(p) => Profile::load(p)
                 .and_then(|p| p.calibration())
                 .map_err(|e| e.to_string())?,
             None => Calibration::default(),
         };
-        base.overridden_by(Calibration {
-            input_fs_vrms: self.input_fs_vrms,
-            attenuation: self.attenuation,
-            load_ohms: self.load_ohms,
-            output_fs_vrms: self.output_fs_vrms,
-            ..Calibration::default()
-        })
-        .validated()
-        .map_err(|e| e.to_string())
+        notebook
+            .overridden_by(base)
+            .overridden_by(Calibration {
+                input_fs_vrms: self.input_fs_vrms,
+                attenuation: self.attenuation,
+                load_ohms: self.load_ohms,
+                output_fs_vrms: self.output_fs_vrms,
+                ..Calibration::default()
+            })
+            .validated()
+            .map_err(|e| e.to_string())
     }
 }

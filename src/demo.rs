@@ -161,6 +161,7 @@ pub fn run(out: &Path, mut progress: impl FnMut(&str)) -> Result<DemoOutcome> {
                     notes,
                     settings: settings.clone(),
                     calibration: cal,
+                    analysis: None,
                     files,
                     blobs: Vec::new(),
                     result,

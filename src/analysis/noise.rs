@@ -223,13 +223,13 @@ fn analyze_spectrum(
             "input overload: {overload} sample(s) at or beyond full scale"
         ));
     }
-    if let Some(floor) = cal.loopback_noise_dbfs {
-        if noise_dbfs < floor + 10.0 {
-            warnings.push(format!(
-                "noise ({noise_dbfs:.1} dBFS) is within 10 dB of the interface's own ({floor:.1} dBFS): reduce the attenuation or treat the figure as an upper bound"
-            ));
-        }
-    }
+    warnings.extend(super::tone::against_loopback(
+        "noise",
+        noise_dbfs,
+        "dBFS",
+        cal.loopback_noise_dbfs,
+        "reduce the attenuation or treat the figure as an upper bound",
+    ));
     Ok(NoiseResult {
         channel: input.channel,
         duration_s: n as f64 / fs,

@@ -62,8 +62,8 @@ impl SweepParams {
     }
 }
 
-/// Settings of the response analysis.
-#[derive(Debug, Clone)]
+/// Settings of the response analysis (kept with a notebook run, so a re-analysis repeats them).
+#[derive(Debug, Clone, PartialEq, serde::Serialize, serde::Deserialize)]
 pub struct ResponseConfig {
     /// Magnitudes are reported relative to the response here (1 kHz by default).
     pub reference_hz: f64,

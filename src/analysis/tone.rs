@@ -37,7 +37,8 @@ use std::f64::consts::PI;
 pub const TONE_WINDOW: CosineSum = BLACKMAN_HARRIS_7;
 
 /// Which mains frequency to look for.
-#[derive(Debug, Clone, Copy, PartialEq, Default)]
+#[derive(Debug, Clone, Copy, PartialEq, Default, serde::Serialize, serde::Deserialize)]
+#[serde(rename_all = "snake_case")]
 pub enum Mains {
     /// Pick 50 or 60 Hz, whichever family of lines is stronger.
     #[default]
@@ -46,8 +47,9 @@ pub enum Mains {
     Hz(f64),
 }
 
-/// Settings for the steady-tone analysis.
-#[derive(Debug, Clone)]
+/// Settings for the steady-tone analysis (kept with a notebook run, so a re-analysis repeats
+/// them).
+#[derive(Debug, Clone, PartialEq, serde::Serialize, serde::Deserialize)]
 pub struct ToneConfig {
     /// Measurement band (low, high) in Hz; `None` for the high edge means 20 kHz or Nyquist,
     /// whichever is lower.
@@ -1102,22 +1104,20 @@ fn quality_warnings(
     }
     // The interface's own floor (from the calibration profile): readings within 10 dB of it
     // measure the interface (DESIGN: measurement quality, common practice).
-    if let Some(floor) = cal.loopback_thdn_db {
-        if r.thdn_db < floor + 10.0 {
-            w.push(format!(
-                "THD+N ({:.1} dB) is within 10 dB of the interface's own loopback floor ({floor:.1} dB): the reading says as much about the interface as the amplifier.",
-                r.thdn_db
-            ));
-        }
-    }
-    if let Some(floor) = cal.loopback_noise_dbfs {
-        if r.noise_dbfs < floor + 10.0 {
-            w.push(format!(
-                "noise ({:.1} dBFS) is within 10 dB of the interface's own noise ({floor:.1} dBFS): reduce the attenuation or treat the figure as an upper bound.",
-                r.noise_dbfs
-            ));
-        }
-    }
+    w.extend(against_loopback(
+        "THD+N",
+        r.thdn_db,
+        "dB",
+        cal.loopback_thdn_db,
+        "the reading says as much about the interface as the amplifier",
+    ));
+    w.extend(against_loopback(
+        "noise",
+        r.noise_dbfs,
+        "dBFS",
+        cal.loopback_noise_dbfs,
+        "reduce the attenuation or treat the figure as an upper bound",
+    ));
     if r.dc_offset.abs() > 0.01 {
         w.push(format!(
             "DC offset of {:.2} % of full scale at the interface input: check for a DC-coupled input or a leaky coupling capacitor.",
@@ -1290,4 +1290,30 @@ pub(crate) fn residuals<'a>(
                 (k, x)
             }
         })
+}
+
+/// A reading set against the interface's own loopback figure from the calibration profile:
+/// within 10 dB of it, the reading measures the interface too (common practice); clearly below
+/// it (3 dB, past any scatter of a noise reading), the capture cannot have come through that
+/// interface, or the profile is out of date.
+pub(crate) fn against_loopback(
+    what: &str,
+    value: f64,
+    unit: &str,
+    floor: Option<f64>,
+    near_advice: &str,
+) -> Option<String> {
+    let floor = floor?;
+    if value < floor - 3.0 {
+        Some(format!(
+            "{what} ({value:.1} {unit}) reads {:.1} dB below the interface's own loopback figure ({floor:.1} {unit}) in the calibration: this capture did not pass through that interface (a generated or processed file?), or the profile is out of date (run `ampnote calibrate` again).",
+            floor - value
+        ))
+    } else if value < floor + 10.0 {
+        Some(format!(
+            "{what} ({value:.1} {unit}) is within 10 dB of the interface's own loopback figure ({floor:.1} {unit}): {near_advice}."
+        ))
+    } else {
+        None
+    }
 }

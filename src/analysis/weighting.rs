@@ -3,7 +3,7 @@
 use serde::Serialize;
 
 /// Which weighting a noise figure carries.
-#[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize, Default)]
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize, serde::Deserialize, Default)]
 #[serde(rename_all = "snake_case")]
 pub enum Weighting {
     /// Flat across the measurement band.

@@ -31,6 +31,15 @@ pub struct NotebookInfo {
     pub calibration: Option<Profile>,
 }
 
+/// The analysis settings a run was made with, so that a re-analysis repeats them (the band, the
+/// weighting, the harmonics counted, the reference frequency...).
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+#[serde(tag = "analysis", rename_all = "snake_case")]
+pub enum AnalysisSettings {
+    Tone(crate::analysis::tone::ToneConfig),
+    Response(crate::analysis::sweep::ResponseConfig),
+}
+
 /// `run.json`: what a run is.
 #[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
 pub struct RunMeta {
@@ -48,6 +57,10 @@ pub struct RunMeta {
     /// The calibration the result was computed with.
     #[serde(default)]
     pub calibration: Calibration,
+    /// The analysis settings (absent in runs made before they were kept, and for procedures
+    /// whose settings follow from the stimulus).
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub analysis: Option<AnalysisSettings>,
     /// Files in the run folder.
     pub files: Vec<String>,
 }
@@ -68,6 +81,7 @@ pub struct NewRun<'a> {
     pub notes: &'a str,
     pub settings: BTreeMap<String, String>,
     pub calibration: Calibration,
+    pub analysis: Option<AnalysisSettings>,
     /// Files to copy in under the given names (`stimulus.wav`, `capture.wav`).
     pub files: Vec<(&'a str, &'a Path)>,
     /// Files to write in (name, bytes), for captures that exist only in memory.
@@ -207,6 +221,7 @@ impl Notebook {
                     notes: run.notes.to_string(),
                     settings: run.settings.clone(),
                     calibration: run.calibration,
+                    analysis: run.analysis.clone(),
                     files: files.clone(),
                 };
                 let meta_text = serde_json::to_string_pretty(&meta).expect("meta serializes");

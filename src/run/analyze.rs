@@ -9,15 +9,24 @@ use std::process::ExitCode;
 
 pub fn run(args: &AnalyzeArgs) -> Result<ExitCode, String> {
     let config = args.tone_config()?;
-    let cal = args.calibration.calibration()?;
+    let cal = args.calibration.resolve(&args.save)?;
     let channel = args.channel_choice()?;
     let analyzer = ToneAnalyzer::new(config).map_err(|e| e.to_string())?;
-    let (capture_path, _, notes) =
-        super::capture_or_record(&args.capture, &args.rig, cal, "tone", channel, || {
+    let recorded = super::capture_or_record(
+        &args.capture,
+        &args.rig,
+        cal,
+        "tone",
+        channel,
+        args.watts,
+        || {
             let c = super::rig_common(args.rate, args.level, 0.01);
             super::to_played(ampnote::signal::stimulus::tone(&c, args.freq, args.seconds))
-        })?;
-    let capture_path = capture_path.as_path();
+        },
+    )?;
+    let cal = recorded.calibration_or(cal);
+    let notes = recorded.notes;
+    let capture_path = recorded.capture.as_path();
     let info = Capture::probe_wav(capture_path).map_err(|e| e.to_string())?;
     let chosen = select_channels(info.channel_count, channel).map_err(|e| e.to_string())?;
 
@@ -62,6 +71,9 @@ pub fn run(args: &AnalyzeArgs) -> Result<ExitCode, String> {
             "tone",
             r.channel,
             cal,
+            Some(ampnote::notebook::AnalysisSettings::Tone(
+                analyzer.config.clone(),
+            )),
             vec![("capture.wav", capture_path)],
             r,
         )?;

@@ -14,12 +14,13 @@ use std::process::ExitCode;
 pub fn run(args: &ImdArgs) -> Result<ExitCode, String> {
     let e = |err: Error| err.to_string();
     let cal = args.calibration.calibration()?;
-    let (capture_path, recorded_stimulus, notes) = super::capture_or_record(
+    let recorded = super::capture_or_record(
         &args.capture,
         &args.rig,
         cal,
         "imd",
         channel_choice(&args.channel)?,
+        None,
         || {
             let c = super::rig_common(args.rate, args.level, 0.01);
             let (m, lo, hi, ratio) = args.method.defaults();
@@ -33,8 +34,9 @@ pub fn run(args: &ImdArgs) -> Result<ExitCode, String> {
             ))
         },
     )?;
-    let capture_path = capture_path.as_path();
-    let stimulus = args.stimulus.clone().or(recorded_stimulus);
+    let notes = recorded.notes;
+    let capture_path = recorded.capture.as_path();
+    let stimulus = args.stimulus.clone().or(recorded.stimulus);
     let hint = match &stimulus {
         Some(path) => {
             let (_, desc) = super::read_stimulus(path, "twotone")?;

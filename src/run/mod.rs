@@ -102,6 +102,7 @@ pub fn keep(
     procedure: &str,
     channel: usize,
     calibration: ampnote::calibration::Calibration,
+    analysis: Option<ampnote::notebook::AnalysisSettings>,
     files: Vec<(&str, &Path)>,
     result: &impl serde::Serialize,
 ) -> Result<(), String> {
@@ -117,6 +118,7 @@ pub fn keep(
             notes: &save.note,
             settings: save.settings_map()?,
             calibration,
+            analysis,
             files,
             blobs: Vec::new(),
             result: serde_json::to_value(result).expect("results serialize"),
@@ -160,30 +162,55 @@ pub fn to_played(
     s.map(Into::into).map_err(|e| e.to_string())
 }
 
-/// A command's capture: the file, the stimulus file a rig run wrote (if any), and what the rig
-/// noticed per channel (for the results' warnings).
-pub type Recorded = (
-    std::path::PathBuf,
-    Option<std::path::PathBuf>,
-    Vec<(usize, String)>,
-);
+/// A command's capture: the file, the stimulus file a rig run wrote (if any), what the rig
+/// noticed per channel (for the results' warnings), and the rig's own calibration (the simulated
+/// bench knows its interface and load; a card rig carries the user's).
+pub struct Recorded {
+    pub capture: std::path::PathBuf,
+    pub stimulus: Option<std::path::PathBuf>,
+    pub notes: Vec<(usize, String)>,
+    pub calibration: Option<ampnote::calibration::Calibration>,
+}
+
+impl Recorded {
+    /// The calibration to analyse with: the rig's on a rig run, else the user's.
+    pub fn calibration_or(
+        &self,
+        user: ampnote::calibration::Calibration,
+    ) -> ampnote::calibration::Calibration {
+        self.calibration.unwrap_or(user)
+    }
+}
 
 /// The capture a command analyses: the file the user gave, or a fresh one recorded on the rig the
 /// user named (`make_stimulus` gives what to play at the rig's turn). With a rig, the stimulus and
 /// the capture are written to the captures folder first, so the run is analysed (and kept) like
-/// any recording; a run that fails half way keeps the channels it finished, as partial.
+/// any recording; a run that fails half way keeps the channels it finished, as partial. With
+/// `watts`, each channel's drive is the one that gives that power into the load (a tone stimulus
+/// only; see [`ampnote::procedure::drive`]).
 pub fn capture_or_record(
     capture: &Option<std::path::PathBuf>,
     rig_args: &crate::cli::RigArgs,
     calibration: ampnote::calibration::Calibration,
     procedure: &str,
     channel: Option<usize>,
+    watts: Option<f64>,
     make_stimulus: impl FnOnce() -> Result<Played, String>,
 ) -> Result<Recorded, String> {
     let rig = rig_args.open(calibration)?;
     let mut rig = match (capture, rig) {
         (Some(_), Some(_)) => return Err("give a capture file or --rig, not both".into()),
-        (Some(path), None) => return Ok((path.clone(), None, Vec::new())),
+        (Some(path), None) => {
+            if watts.is_some() {
+                return Err("--watts sets the drive of a rig run; a capture file was recorded at whatever drive it was: drop --watts".into());
+            }
+            return Ok(Recorded {
+                capture: path.clone(),
+                stimulus: None,
+                notes: Vec::new(),
+                calibration: None,
+            });
+        }
         (None, None) => {
             return Err(format!(
                 "give a capture file to analyse, or --rig sim (the simulated bench) or --rig card (the audio interface) to measure one ({procedure})"
@@ -225,8 +252,39 @@ pub fn capture_or_record(
         .map_err(|e| e.to_string())
     };
     let mut notes = Vec::new();
+    let tone_hz = match stim.description.as_ref().map(|d| &d.kind) {
+        Some(ampnote::signal::stimulus::Kind::Tone { frequency_hz }) => Some(*frequency_hz),
+        _ => None,
+    };
+    let level = stim.description.as_ref().map_or(0.0, |d| d.level_dbfs);
     for (done, &ch) in chosen.iter().enumerate() {
-        match rig.play_and_record(ch, &stim.signal, rate) {
+        let scaled;
+        let signal = match (watts, tone_hz) {
+            (None, _) => &stim.signal,
+            (Some(_), None) => return Err("--watts applies to a tone".into()),
+            (Some(w), Some(f)) => {
+                let found = ampnote::procedure::drive::drive_for_power(&mut *rig, ch, f, rate, w)
+                    .map_err(|e| e.to_string())?;
+                eprintln!(
+                    "channel {ch}: {:.2} dBFS of drive gives {:.3} W (asked {w} W; the {} dBFS probe read {:.3e} W)",
+                    found.drive_dbfs,
+                    found.confirmed_w,
+                    ampnote::procedure::drive::PROBE_DBFS,
+                    found.probe_w
+                );
+                let miss = 10.0 * (found.confirmed_w / w).log10();
+                if miss.abs() > ampnote::procedure::drive::TOLERANCE_DB {
+                    notes.push((ch, format!(
+                        "the drive found for {w} W gives {:.3} W ({miss:+.1} dB): the amplifier is not linear there (clipping or compression); the figures are at that power",
+                        found.confirmed_w
+                    )));
+                }
+                let g = 10f64.powf((found.drive_dbfs - level) / 20.0);
+                scaled = stim.signal.iter().map(|v| v * g).collect::<Vec<f64>>();
+                &scaled
+            }
+        };
+        match rig.play_and_record(ch, signal, rate) {
             Ok(y) => {
                 chans[ch - 1] = y;
                 notes.extend(rig.take_notes(ch).into_iter().map(|n| (ch, n)));
@@ -251,5 +309,10 @@ pub fn capture_or_record(
         cap_path.display(),
         stim_path.display()
     );
-    Ok((cap_path, Some(stim_path), notes))
+    Ok(Recorded {
+        capture: cap_path,
+        stimulus: Some(stim_path),
+        notes,
+        calibration: Some(rig.calibration()),
+    })
 }

@@ -78,7 +78,7 @@ fn table(r: &NoiseReport) -> String {
 
 pub fn run(args: &NoiseArgs) -> Result<ExitCode, String> {
     let e = |err: ampnote::Error| err.to_string();
-    let cal = args.calibration.calibration()?;
+    let cal = args.calibration.resolve(&args.save)?;
     let (lo, hi) = args
         .band
         .split_once(':')
@@ -100,12 +100,13 @@ pub fn run(args: &NoiseArgs) -> Result<ExitCode, String> {
             )
         })?)
     };
-    let (capture_path, _, notes) = super::capture_or_record(
+    let recorded = super::capture_or_record(
         &args.capture,
         &args.rig,
         cal,
         "noise",
         channel_choice(&args.channel)?,
+        None,
         || {
             if !(args.seconds >= 0.5 && args.seconds <= 600.0) {
                 return Err(format!(
@@ -120,7 +121,9 @@ pub fn run(args: &NoiseArgs) -> Result<ExitCode, String> {
             })
         },
     )?;
-    let capture_path = capture_path.as_path();
+    let cal = recorded.calibration_or(cal);
+    let notes = recorded.notes;
+    let capture_path = recorded.capture.as_path();
     let info = Capture::probe_wav(capture_path).map_err(e)?;
     let chosen = select_channels(info.channel_count, channel_choice(&args.channel)?).map_err(e)?;
     let analyzer = NoiseAnalyzer::new();
@@ -143,6 +146,7 @@ pub fn run(args: &NoiseArgs) -> Result<ExitCode, String> {
                     "noise",
                     ch,
                     cal,
+                    None,
                     vec![("capture.wav", capture_path)],
                     &r,
                 )?;

@@ -189,7 +189,8 @@ fn runs_from_file(
     let mut out = Vec::new();
     for ch in 1..=info.channel_count {
         let cap = Capture::read_wav_channels(path, false, Some(&[ch])).map_err(e)?;
-        let (procedure, result) = analyze_capture(&cap, ch, stim.as_ref().zip(desc.as_ref()), cal)?;
+        let (procedure, result) =
+            analyze_capture(&cap, ch, stim.as_ref().zip(desc.as_ref()), cal, None)?;
         out.push(Run {
             dir: path.to_path_buf(),
             meta: ampnote::notebook::RunMeta {
@@ -201,6 +202,7 @@ fn runs_from_file(
                 notes: String::new(),
                 settings: Default::default(),
                 calibration: *cal,
+                analysis: None,
                 files: vec![],
             },
             result,
@@ -324,9 +326,11 @@ pub fn analyze_capture(
         &ampnote::signal::stimulus::Description,
     )>,
     cal: &ampnote::calibration::Calibration,
+    settings: Option<&ampnote::notebook::AnalysisSettings>,
 ) -> Result<(&'static str, serde_json::Value), String> {
     use ampnote::analysis::sweep::{ResponseAnalyzer, ResponseConfig, SweepParams};
     use ampnote::analysis::tone::{ChannelInput, ToneAnalyzer, ToneConfig};
+    use ampnote::notebook::AnalysisSettings;
     use ampnote::signal::stimulus::Kind;
     let y = &capture.channels[0];
     let fs = capture.sample_rate_hz as f64;
@@ -345,7 +349,11 @@ pub fn analyze_capture(
             let x = s
                 .channel(d.signal_channels[0])
                 .ok_or("the stimulus lacks its signal channel")?;
-            let r = ResponseAnalyzer::new(ResponseConfig::default())
+            let config = match settings {
+                Some(AnalysisSettings::Response(c)) => c.clone(),
+                _ => ResponseConfig::default(),
+            };
+            let r = ResponseAnalyzer::new(config)
                 .map_err(e)?
                 .analyze(channel, x, sp, y, fs, input.overload_threshold)
                 .map_err(e)?;
@@ -398,7 +406,11 @@ pub fn analyze_capture(
                 }
                 _ => &y[..],
             };
-            let r = ToneAnalyzer::new(ToneConfig::default())
+            let config = match settings {
+                Some(AnalysisSettings::Tone(c)) => c.clone(),
+                _ => ToneConfig::default(),
+            };
+            let r = ToneAnalyzer::new(config)
                 .map_err(e)?
                 .analyze(&ChannelInput { samples, ..input }, cal)
                 .map_err(e)?;
@@ -441,7 +453,13 @@ fn reanalyze(dir: &Path, only: &[String]) -> Result<ExitCode, String> {
             .and_then(|s| s.description_json.as_deref())
             .and_then(Description::from_json);
         let pair = stim.as_ref().zip(desc.as_ref());
-        let (procedure, v) = analyze_capture(&cap, run.meta.channel, pair, &run.meta.calibration)?;
+        let (procedure, v) = analyze_capture(
+            &cap,
+            run.meta.channel,
+            pair,
+            &run.meta.calibration,
+            run.meta.analysis.as_ref(),
+        )?;
         if procedure != run.meta.procedure {
             skipped.push(format!(
                 "{} (its stored stimulus no longer matches a {} run)",

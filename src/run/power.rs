@@ -18,10 +18,12 @@ fn first_start(steps: &[ampnote::signal::stimulus::Step]) -> usize {
 
 pub fn run(args: &PowerArgs) -> Result<ExitCode, String> {
     let e = |err: Error| err.to_string();
-    let flags = args.calibration.calibration()?;
+    let flags = args.calibration.resolve(&args.save)?;
     let mut results = Vec::new();
     let mut channel_errors = Vec::new();
     let source;
+    // What the results were computed with: the rig's calibration on a rig run.
+    let mut used = flags;
     match (&args.capture, &args.rig.rig) {
         (Some(_), Some(_)) => return Err("give a capture file or --rig, not both".into()),
         (None, None) => {
@@ -33,6 +35,7 @@ pub fn run(args: &PowerArgs) -> Result<ExitCode, String> {
                 rig.set_load(l).map_err(e)?;
             }
             source = rig.describe();
+            used = rig.calibration();
             let freqs: Vec<f64> = args
                 .freq
                 .split(',')
@@ -133,7 +136,7 @@ pub fn run(args: &PowerArgs) -> Result<ExitCode, String> {
         if let (Some(c), Some(st)) = (&args.capture, &args.stimulus) {
             files = vec![("stimulus.wav", st.as_path()), ("capture.wav", c.as_path())];
         }
-        super::keep(&args.save, "power", r.channel, flags, files, r)?;
+        super::keep(&args.save, "power", r.channel, used, None, files, r)?;
     }
     let report = PowerReport {
         schema_version: SCHEMA_VERSION,

@@ -29,7 +29,7 @@ fn loopback_response(args: &ResponseArgs) -> Result<Vec<(f64, f64)>, String> {
 
 pub fn run(args: &ResponseArgs) -> Result<ExitCode, String> {
     let e = |err: Error| err.to_string();
-    let cal = args.calibration.calibration()?;
+    let cal = args.calibration.resolve(&args.save)?;
     let analyzer = ResponseAnalyzer::new(ResponseConfig {
         reference_hz: args.reference,
         points_per_octave: args.points_per_octave,
@@ -39,12 +39,13 @@ pub fn run(args: &ResponseArgs) -> Result<ExitCode, String> {
         ..ResponseConfig::default()
     })
     .map_err(e)?;
-    let (capture_path, recorded_stimulus, notes) = super::capture_or_record(
+    let recorded = super::capture_or_record(
         &args.capture,
         &args.rig,
         cal,
         "response",
         channel_choice(&args.channel)?,
+        None,
         || {
             // Sweeps fade in only, over a few periods of the start, and need a tail.
             let c = ampnote::signal::stimulus::Common {
@@ -62,7 +63,9 @@ pub fn run(args: &ResponseArgs) -> Result<ExitCode, String> {
             ))
         },
     )?;
-    let stimulus_path = match (&args.stimulus, recorded_stimulus) {
+    let cal = recorded.calibration_or(cal);
+    let (capture_path, notes) = (recorded.capture, recorded.notes);
+    let stimulus_path = match (&args.stimulus, recorded.stimulus) {
         (_, Some(p)) => p,
         (Some(p), None) => p.clone(),
         (None, None) => {
@@ -121,6 +124,9 @@ pub fn run(args: &ResponseArgs) -> Result<ExitCode, String> {
             "response",
             r.channel,
             cal,
+            Some(ampnote::notebook::AnalysisSettings::Response(
+                analyzer.config.clone(),
+            )),
             vec![
                 ("stimulus.wav", stimulus_path),
                 ("capture.wav", capture_path),

@@ -111,7 +111,7 @@ pub fn run(args: &ZoutArgs) -> Result<ExitCode, String> {
     };
     let mut results = Vec::new();
     let source;
-    let cal = args.calibration.calibration()?;
+    let cal = args.calibration.resolve(&args.save)?;
     if let Some(mut rig) = args.rig.open(cal)? {
         let rate = args.rate;
         source = rig.describe();
@@ -263,7 +263,7 @@ pub fn run(args: &ZoutArgs) -> Result<ExitCode, String> {
             ],
             _ => Vec::new(),
         };
-        super::keep(&args.save, "zout", r.channel, Default::default(), files, r)?;
+        super::keep(&args.save, "zout", r.channel, cal, None, files, r)?;
     }
     let report = ZoutReport {
         schema_version: SCHEMA_VERSION,

@@ -2,6 +2,7 @@
 //! Each module names its source beside every check.
 
 mod bad_input;
+mod bench_calibration;
 mod closed_form;
 mod common;
 mod framing;

@@ -1,0 +1,106 @@
+//! The drive that gives a set power: "THD at 1 W" is how bench results are logged, so a rig run
+//! can ask for watts into the load instead of a drive level in dBFS.
+//!
+//! A short probe tone well below any clipping (-40 dBFS) gives the chain's gain; the drive for
+//! the target follows from it (power goes as the square of the drive while the amplifier is
+//! linear), and one confirming tone at that drive corrects for any compression on the way up.
+
+use crate::analysis::tone::{ChannelInput, ToneAnalyzer, ToneConfig};
+use crate::error::{Error, Result};
+use crate::procedure::power::check_input_headroom;
+use crate::rig::Rig;
+
+/// The probe's drive: far below where any power amplifier with a line-level input clips.
+pub const PROBE_DBFS: f64 = -40.0;
+
+/// How close the confirming tone must come to the target before no correction is made (0.2 dB,
+/// the scatter of a bench reading of a tube amplifier's level from one minute to the next;
+/// common practice).
+pub const TOLERANCE_DB: f64 = 0.2;
+
+/// A correction larger than this (3 dB) is not applied: the amplifier is then far from linear
+/// (clipping or a fault), and driving harder to chase the target is not safe.
+const MAX_CORRECTION_DB: f64 = 3.0;
+
+/// What the search found on one channel.
+#[derive(Debug, Clone, Copy)]
+pub struct DriveForPower {
+    pub drive_dbfs: f64,
+    /// Watts the probe read at [`PROBE_DBFS`].
+    pub probe_w: f64,
+    /// Watts the confirming tone read at `drive_dbfs`.
+    pub confirmed_w: f64,
+}
+
+/// Find the drive (dBFS at the interface output) that gives `watts` into the rig's load from
+/// `channel`, with a tone at `frequency_hz`. Needs a calibration with volts and a load, and an
+/// interface input that survives `watts`.
+pub fn drive_for_power(
+    rig: &mut dyn Rig,
+    channel: usize,
+    frequency_hz: f64,
+    rate: u32,
+    watts: f64,
+) -> Result<DriveForPower> {
+    if !(watts.is_finite() && watts > 0.0) {
+        return Err(Error::InvalidSetting(format!(
+            "--watts takes a power above 0 W, got {watts}"
+        )));
+    }
+    let cal = rig.calibration();
+    if !cal.has_volts() || cal.load_ohms.is_none() {
+        return Err(Error::InvalidSetting(
+            "--watts needs the calibration (interface input full scale, attenuation and load) to know what a watt reads; give --profile or the flags, or use --level".into(),
+        ));
+    }
+    check_input_headroom(&cal, watts)?;
+    let fs = rate as f64;
+    let analyzer = ToneAnalyzer::new(ToneConfig {
+        fundamental_hint_hz: Some(frequency_hz),
+        ..ToneConfig::default()
+    })?;
+    let power_at = |rig: &mut dyn Rig, drive: f64| -> Result<f64> {
+        let a = 10f64.powf(drive / 20.0);
+        let w = 2.0 * std::f64::consts::PI * frequency_hz / fs;
+        let n = (0.5 * fs) as usize;
+        let tone: Vec<f64> = (0..n).map(|i| a * (w * i as f64).sin()).collect();
+        let cap = rig.play_and_record(channel, &tone, rate)?;
+        let settle = n / 2;
+        let r = analyzer.analyze(
+            &ChannelInput {
+                channel,
+                samples: &cap[settle..],
+                sample_rate_hz: fs,
+                overload_threshold: rig.overload_threshold(),
+                resolution_bits: rig.resolution_bits(),
+            },
+            &cal,
+        )?;
+        Ok(r.output_w.expect("calibrated with a load"))
+    };
+    let probe_w = power_at(rig, PROBE_DBFS)?;
+    let mut drive = PROBE_DBFS + 10.0 * (watts / probe_w).log10();
+    let full_scale_w = probe_w * 10f64.powf(-PROBE_DBFS / 10.0);
+    let out_of_reach = |drive: f64| {
+        Error::InvalidSetting(format!(
+            "{watts} W cannot be reached from channel {channel}: it would take {drive:+.1} dBFS of drive (the probe at {PROBE_DBFS} dBFS read {probe_w:.3e} W, so full scale gives about {full_scale_w:.3} W if the amplifier stays linear); lower --watts, or raise the interface's output level"
+        ))
+    };
+    if drive > 0.0 {
+        return Err(out_of_reach(drive));
+    }
+    let mut confirmed_w = power_at(rig, drive)?;
+    let miss_db = 10.0 * (watts / confirmed_w).log10();
+    if miss_db.abs() > TOLERANCE_DB && miss_db.abs() <= MAX_CORRECTION_DB {
+        drive += miss_db;
+        if drive > 0.0 {
+            return Err(out_of_reach(drive));
+        }
+        confirmed_w = power_at(rig, drive)?;
+    }
+    Ok(DriveForPower {
+        drive_dbfs: drive,
+        probe_w,
+        confirmed_w,
+    })
+}
