@@ -1,11 +1,15 @@
 //! Before/after comparison of two sets of runs, and the channel-match check.
 //!
-//! Both read the figures each run's result holds (tone, power, response, output impedance) and set
-//! them side by side; a figure only one side measured is left out and said so.
+//! Both read the figures each run's result holds (tone, power, response, output impedance), as
+//! typed views ([`super::views`]), and set them side by side; a figure only one side measured is
+//! left out and said so. A comparison is only as honest as its two sides are alike: tone figures
+//! are set against each other only at the same output level (within 0.5 dB), a figure that is a
+//! detection limit on either side is shown as `< limit` and gives no delta, and staircases are
+//! compared frequency by frequency.
 
+use super::views::{view, LineView, NoiseView, PowerView, ResponseView, ToneView, ZoutView};
 use crate::notebook::Run;
 use serde::Serialize;
-use serde_json::Value;
 
 /// One compared figure.
 #[derive(Debug, Clone, Serialize)]
@@ -14,10 +18,14 @@ pub struct CompareLine {
     pub figure: String,
     pub a: f64,
     pub b: f64,
+    /// The side's value is a detection limit (the figure is at most this): no delta is given.
+    pub a_upper_bound: bool,
+    pub b_upper_bound: bool,
     pub unit: String,
     /// B relative to A, in `delta_unit` (dB for powers, levels and ratios; the unit itself for
-    /// dB figures and impedances).
-    pub delta: f64,
+    /// dB figures and impedances); `null` when a side is a bound or the runs are not like for
+    /// like (the sentence says why).
+    pub delta: Option<f64>,
     pub delta_unit: String,
     pub sentence: String,
 }
@@ -41,67 +49,97 @@ pub struct Comparison {
     pub warnings: Vec<String>,
 }
 
+/// Tone runs whose output levels differ by more than this (0.5 dB) are not like for like:
+/// distortion depends on level (common practice: THD is quoted at a stated power).
+pub const LEVEL_MATCH_DB: f64 = 0.5;
+
 /// B minus A at the frequencies both responses share (same stimulus, so the same points).
-fn deviation_curve(a: &Value, b: &Value) -> Vec<[f64; 2]> {
-    let pts = |v: &Value| -> Vec<(f64, f64)> {
-        v.get("points")
-            .and_then(Value::as_array)
-            .map(|p| {
-                p.iter()
-                    .filter_map(|q| Some((num(q, "frequency_hz")?, num(q, "magnitude_db")?)))
-                    .collect()
-            })
-            .unwrap_or_default()
-    };
-    let (pa, pb) = (pts(a), pts(b));
-    pa.iter()
-        .filter_map(|&(f, x)| {
-            pb.iter()
-                .find(|(g, _)| (g / f - 1.0).abs() < 1e-6)
-                .map(|&(_, y)| [f, y - x])
+fn deviation_curve(a: &ResponseView, b: &ResponseView) -> Vec<[f64; 2]> {
+    a.points
+        .iter()
+        .filter_map(|p| {
+            b.points
+                .iter()
+                .find(|q| (q.frequency_hz / p.frequency_hz - 1.0).abs() < 1e-6)
+                .map(|q| [p.frequency_hz, q.magnitude_db - p.magnitude_db])
         })
         .collect()
 }
 
-/// The latest run of `procedure` on `channel` among `runs`.
-fn latest<'a>(runs: &'a [Run], procedure: &str, channel: usize) -> Option<&'a Value> {
+/// The latest run of `procedure` on `channel` among `runs`, read as `T`.
+fn latest<T: serde::de::DeserializeOwned>(
+    runs: &[Run],
+    procedure: &str,
+    channel: usize,
+) -> Option<T> {
     runs.iter()
         .filter(|r| r.meta.procedure == procedure && r.meta.channel == channel)
         .max_by(|x, y| x.meta.id.cmp(&y.meta.id))
-        .map(|r| &r.result)
+        .and_then(|r| view(&r.result))
 }
 
-fn num(v: &Value, key: &str) -> Option<f64> {
-    v.get(key).and_then(Value::as_f64)
-}
-
-fn harmonic_dbc(v: &Value, order: u64) -> Option<f64> {
-    v.get("harmonics")?
-        .as_array()?
+/// The latest staircase per test frequency on `channel`, in frequency order.
+fn power_runs(runs: &[Run], channel: usize) -> Vec<PowerView> {
+    let mut sorted: Vec<&Run> = runs
         .iter()
-        .find(|h| h.get("order").and_then(Value::as_u64) == Some(order))
-        .and_then(|h| num(h, "level_dbc"))
+        .filter(|r| r.meta.procedure == "power" && r.meta.channel == channel)
+        .collect();
+    sorted.sort_by(|x, y| x.meta.id.cmp(&y.meta.id));
+    let mut out: Vec<PowerView> = Vec::new();
+    for p in sorted
+        .into_iter()
+        .filter_map(|r| view::<PowerView>(&r.result))
+    {
+        match out
+            .iter_mut()
+            .find(|q| (q.frequency_hz / p.frequency_hz - 1.0).abs() < 1e-3)
+        {
+            Some(q) => *q = p,
+            None => out.push(p),
+        }
+    }
+    out.sort_by(|x, y| x.frequency_hz.total_cmp(&y.frequency_hz));
+    out
 }
 
-fn power_at(v: &Value, thd: f64) -> Option<(f64, &'static str)> {
-    let p = v
-        .get("power_at_thd")?
-        .as_array()?
-        .iter()
-        .find(|p| num(p, "thd_percent") == Some(thd))?;
-    num(p, "output_w")
-        .map(|w| (w, "W"))
-        .or_else(|| num(p, "output_dbfs").map(|d| (d, "dBFS")))
+/// A value, and whether it is only an upper bound (a detection limit).
+#[derive(Debug, Clone, Copy)]
+struct Val {
+    v: f64,
+    bound: bool,
 }
 
-/// THD at output power `w` from a staircase, interpolated log-log between the bracketing steps.
-pub fn thd_at_power(v: &Value, w: f64) -> Option<f64> {
-    let steps: Vec<(f64, f64)> = v
-        .get("steps")?
-        .as_array()?
+fn measured(v: Option<f64>) -> Option<Val> {
+    v.map(|v| Val { v, bound: false })
+}
+
+fn harmonic(lines: &[LineView], order: usize) -> Option<Val> {
+    lines
         .iter()
-        .filter(|s| s.get("excluded").and_then(Value::as_bool) != Some(true))
-        .filter_map(|s| Some((num(s, "output_w")?, num(s, "thd_percent")?)))
+        .find(|h| h.order == order && h.in_band)
+        .map(|h| Val {
+            v: h.level_dbc,
+            bound: h.upper_bound,
+        })
+}
+
+fn power_at(p: &PowerView, thd: f64) -> Option<(f64, &'static str)> {
+    let at = p.power_at_thd.iter().find(|q| q.thd_percent == thd)?;
+    Some(
+        at.output_w
+            .map(|w| (w, "W"))
+            .unwrap_or((at.output_dbfs, "dBFS")),
+    )
+}
+
+/// THD at output power `w` from a staircase, interpolated log-log between the bracketing steps
+/// (only steps with a measured THD, not a bound).
+pub fn thd_at_power(p: &PowerView, w: f64) -> Option<f64> {
+    let steps: Vec<(f64, f64)> = p
+        .steps
+        .iter()
+        .filter(|s| !s.excluded && !s.thd_upper_bound)
+        .filter_map(|s| Some((s.output_w?, s.thd_percent?)))
         .collect();
     let pair = steps.windows(2).find(|p| p[0].0 <= w && p[1].0 >= w)?;
     let t = (w / pair[0].0).ln() / (pair[1].0 / pair[0].0).ln();
@@ -121,30 +159,98 @@ fn fmt(v: f64, unit: &str) -> String {
     }
 }
 
-/// A line with its plain sentence. `ratio` figures (powers, percentages, volts) get a dB delta;
-/// dB figures and the rest a plain difference.
-fn line(channel: usize, figure: &str, a: f64, b: f64, unit: &str) -> CompareLine {
-    let ratio_kind = matches!(unit, "W" | "%" | "V");
-    let (delta, delta_unit) = match unit {
+/// B relative to A: dB for ratio figures (powers, percentages, volts), a plain difference for the
+/// rest.
+fn change(a: f64, b: f64, unit: &str) -> (f64, String) {
+    match unit {
         "W" => (10.0 * (b / a).log10(), "dB".to_string()),
         "%" | "V" => (20.0 * (b / a).log10(), "dB".to_string()),
         u => (b - a, u.to_string()),
-    };
+    }
+}
+
+fn fmt_change(delta: f64, unit: &str) -> String {
     let sign = if delta >= 0.0 { "+" } else { "" };
-    let d = if ratio_kind || unit.starts_with("dB") {
+    if matches!(unit, "W" | "%" | "V") || unit.starts_with("dB") {
         format!("{sign}{delta:.2} dB")
     } else {
         format!("{sign}{}", fmt(delta, unit))
+    }
+}
+
+/// A line with its plain sentence. `unlike` (the reason, with both sides' levels) keeps a delta
+/// from being given for runs that are not like for like.
+fn line(
+    channel: usize,
+    figure: &str,
+    a: Val,
+    b: Val,
+    unit: &str,
+    unlike: Option<&str>,
+) -> CompareLine {
+    let shown = |x: Val| {
+        if x.bound {
+            format!("< {}", fmt(x.v, unit))
+        } else {
+            fmt(x.v, unit)
+        }
+    };
+    let (d, delta_unit) = change(a.v, b.v, unit);
+    let magnitude = if delta_unit == "dB" || unit.starts_with("dB") {
+        format!("{:.1} dB", d.abs())
+    } else {
+        fmt(d.abs(), unit)
+    };
+    let (delta, tail) = match (a.bound, b.bound, unlike) {
+        (_, _, Some(why)) => (None, format!("not compared: {why}")),
+        (false, false, None) => (Some(d), fmt_change(d, unit)),
+        (true, true, None) => (
+            None,
+            "both under the noise: no change can be read".to_string(),
+        ),
+        (false, true, None) if d < 0.0 => (
+            None,
+            format!("now under the noise: down by at least {magnitude}"),
+        ),
+        (true, false, None) if d > 0.0 => (
+            None,
+            format!("now above the noise: up by at least {magnitude}"),
+        ),
+        _ => (
+            None,
+            "one side is under the noise: no change can be read".to_string(),
+        ),
     };
     CompareLine {
         channel,
         figure: figure.to_string(),
-        a,
-        b,
+        a: a.v,
+        b: b.v,
+        a_upper_bound: a.bound,
+        b_upper_bound: b.bound,
         unit: unit.to_string(),
         delta,
         delta_unit,
-        sentence: format!("{figure}: {} -> {}, {d}", fmt(a, unit), fmt(b, unit)),
+        sentence: format!("{figure}: {} -> {}, {tail}", shown(a), shown(b)),
+    }
+}
+
+/// How two tone runs' output levels compare: their difference in dB (volts when both are
+/// calibrated, else dBFS through the same interface), and each side's level as text.
+fn tone_levels(a: &ToneView, b: &ToneView) -> (f64, String, String) {
+    match (a.fundamental_vrms, b.fundamental_vrms) {
+        (Some(x), Some(y)) => {
+            let said = |t: &ToneView, v: f64| match t.output_w {
+                Some(w) => fmt(w, "W"),
+                None => format!("{v:.3} V"),
+            };
+            (20.0 * (y / x).log10(), said(a, x), said(b, y))
+        }
+        _ => (
+            b.fundamental_dbfs - a.fundamental_dbfs,
+            format!("{:.1} dBFS", a.fundamental_dbfs),
+            format!("{:.1} dBFS", b.fundamental_dbfs),
+        ),
     }
 }
 
@@ -188,153 +294,217 @@ pub fn compare(name_a: &str, a: &[Run], name_b: &str, b: &[Run]) -> Comparison {
     let mut skipped: Vec<String> = Vec::new();
     let mut deviation_curves = Vec::new();
     for ch in channels {
-        if let (Some(ra), Some(rb)) = (latest(a, "response", ch), latest(b, "response", ch)) {
-            let points = deviation_curve(ra, rb);
+        let mut add =
+            |fig: &str, x: Option<Val>, y: Option<Val>, unit: &str, unlike: Option<&str>| {
+                if let (Some(x), Some(y)) = (x, y) {
+                    if x.v.is_finite()
+                        && y.v.is_finite()
+                        && (unit != "W" && unit != "%" || x.v > 0.0 && y.v > 0.0)
+                    {
+                        lines.push(line(ch, fig, x, y, unit, unlike));
+                    }
+                }
+            };
+        let (pa, pb) = (power_runs(a, ch), power_runs(b, ch));
+        let several = pa.len() > 1 || pb.len() > 1;
+        for p in &pa {
+            let Some(q) = pb
+                .iter()
+                .find(|q| (q.frequency_hz / p.frequency_hz - 1.0).abs() < 1e-3)
+            else {
+                if several {
+                    skipped.push(format!(
+                        "channel {ch}: a staircase at {} only on `{name_a}`: not compared",
+                        fmt(p.frequency_hz, "Hz")
+                    ));
+                }
+                continue;
+            };
+            let at_f = if several {
+                format!(" ({})", fmt(p.frequency_hz, "Hz"))
+            } else {
+                String::new()
+            };
+            for t in [1.0, 3.0, 10.0] {
+                match (power_at(p, t), power_at(q, t)) {
+                    (Some((x, u)), Some((y, v))) if u == v => add(
+                        &format!("power at {t} % THD{at_f}"),
+                        measured(Some(x)),
+                        measured(Some(y)),
+                        u,
+                        None,
+                    ),
+                    (Some((_, u)), Some((_, v))) => skipped.push(format!(
+                        "channel {ch}: power at {t} %{at_f} is in {u} on one side and {v} on the other: not compared (give both sides a calibration)"
+                    )),
+                    _ => {}
+                }
+            }
+            add(
+                &format!("THD at 1 W (staircase){at_f}"),
+                measured(thd_at_power(p, 1.0)),
+                measured(thd_at_power(q, 1.0)),
+                "%",
+                None,
+            );
+        }
+        if let (Some(ta), Some(tb)) = (
+            latest::<ToneView>(a, "tone", ch),
+            latest::<ToneView>(b, "tone", ch),
+        ) {
+            let (diff, at_a, at_b) = tone_levels(&ta, &tb);
+            let unlike_text = format!(
+                "the tone runs were at different levels ({at_a} and {at_b}, {diff:+.1} dB); distortion depends on level, so measure both at the same output (for example --watts 1)"
+            );
+            let unlike = (diff.abs() > LEVEL_MATCH_DB).then_some(unlike_text.as_str());
+            if let Some(u) = unlike {
+                warnings.push(format!("channel {ch}: {u}"));
+            }
+            let at = if unlike.is_some() {
+                String::new()
+            } else {
+                format!(" at {at_a}")
+            };
+            let thd = |t: &ToneView| {
+                t.thd_percent.map(|v| Val {
+                    v,
+                    bound: t.thd_upper_bound,
+                })
+            };
+            add(&format!("THD{at}"), thd(&ta), thd(&tb), "%", unlike);
+            add(
+                &format!("THD+N{at}"),
+                measured(Some(ta.thdn_percent)),
+                measured(Some(tb.thdn_percent)),
+                "%",
+                unlike,
+            );
+            for o in 2..=5 {
+                add(
+                    &format!("H{o}{at}"),
+                    harmonic(&ta.harmonics, o),
+                    harmonic(&tb.harmonics, o),
+                    "dBc",
+                    unlike,
+                );
+            }
+            add(
+                "noise",
+                measured(Some(ta.noise_dbfs)),
+                measured(Some(tb.noise_dbfs)),
+                "dBFS",
+                None,
+            );
+            // The strongest hum line that stands above the noise, else the highest limit.
+            let hum = |t: &ToneView| -> Option<Val> {
+                let real = t
+                    .hum
+                    .iter()
+                    .filter(|h| !h.upper_bound)
+                    .map(|h| h.level_dbc)
+                    .reduce(f64::max);
+                match real {
+                    Some(v) => Some(Val { v, bound: false }),
+                    None => t
+                        .hum
+                        .iter()
+                        .map(|h| h.level_dbc)
+                        .reduce(f64::max)
+                        .map(|v| Val { v, bound: true }),
+                }
+            };
+            add("strongest hum line", hum(&ta), hum(&tb), "dBc", None);
+        }
+        if let (Some(ra), Some(rb)) = (
+            latest::<ResponseView>(a, "response", ch),
+            latest::<ResponseView>(b, "response", ch),
+        ) {
+            let points = deviation_curve(&ra, &rb);
             if !points.is_empty() {
                 deviation_curves.push(DeviationCurve {
                     channel: ch,
                     points,
                 });
             }
-        }
-        let mut add = |fig: &str, x: Option<f64>, y: Option<f64>, unit: &str| {
-            if let (Some(x), Some(y)) = (x, y) {
-                if x.is_finite()
-                    && y.is_finite()
-                    && (unit != "W" && unit != "%" || x > 0.0 && y > 0.0)
-                {
-                    lines.push(line(ch, fig, x, y, unit));
-                }
-            }
-        };
-        if let (Some(pa), Some(pb)) = (latest(a, "power", ch), latest(b, "power", ch)) {
-            for t in [1.0, 3.0, 10.0] {
-                match (power_at(pa, t), power_at(pb, t)) {
-                    (Some((x, u)), Some((y, v))) if u == v => add(&format!("power at {t} % THD"), Some(x), Some(y), u),
-                    (Some((_, u)), Some((_, v))) => skipped.push(format!(
-                        "channel {ch}: power at {t} % is in {u} on one side and {v} on the other: not compared (give both sides a calibration)"
-                    )),
-                    _ => {}
-                }
-            }
-            add(
-                "THD at 1 W (staircase)",
-                thd_at_power(pa, 1.0),
-                thd_at_power(pb, 1.0),
-                "%",
-            );
-        }
-        if let (Some(ta), Some(tb)) = (latest(a, "tone", ch), latest(b, "tone", ch)) {
-            let (wa, wb) = (num(ta, "output_w"), num(tb, "output_w"));
-            if let (Some(x), Some(y)) = (wa, wb) {
-                if (10.0 * (y / x).log10()).abs() > 0.5 {
-                    warnings.push(format!(
-                        "channel {ch}: the tone runs were at different powers ({} and {}); their THD figures are not like for like",
-                        fmt(x, "W"),
-                        fmt(y, "W")
-                    ));
-                }
-            }
-            let at = wa.map_or(String::new(), |w| format!(" at {}", fmt(w, "W")));
-            add(
-                &format!("THD{at}"),
-                num(ta, "thd_percent"),
-                num(tb, "thd_percent"),
-                "%",
-            );
-            add(
-                &format!("THD+N{at}"),
-                num(ta, "thdn_percent"),
-                num(tb, "thdn_percent"),
-                "%",
-            );
-            for o in 2..=5 {
-                add(
-                    &format!("H{o}{at}"),
-                    harmonic_dbc(ta, o),
-                    harmonic_dbc(tb, o),
-                    "dBc",
-                );
-            }
-            add(
-                "noise",
-                num(ta, "noise_dbfs"),
-                num(tb, "noise_dbfs"),
-                "dBFS",
-            );
-            let hum = |v: &Value| -> Option<f64> {
-                v.get("hum")?
-                    .as_array()?
-                    .iter()
-                    .filter_map(|h| num(h, "level_dbc"))
-                    .reduce(f64::max)
-            };
-            add("strongest hum line", hum(ta), hum(tb), "dBc");
-        }
-        if let (Some(ra), Some(rb)) = (latest(a, "response", ch), latest(b, "response", ch)) {
             add(
                 "low -3 dB point",
-                num(ra, "low_3db_hz"),
-                num(rb, "low_3db_hz"),
+                measured(ra.low_3db_hz),
+                measured(rb.low_3db_hz),
                 "Hz",
+                None,
             );
             add(
                 "high -3 dB point",
-                num(ra, "high_3db_hz"),
-                num(rb, "high_3db_hz"),
+                measured(ra.high_3db_hz),
+                measured(rb.high_3db_hz),
                 "Hz",
+                None,
             );
             add(
                 "largest deviation 20 Hz-20 kHz",
-                num(ra, "max_deviation_db"),
-                num(rb, "max_deviation_db"),
+                measured(Some(ra.max_deviation_db)),
+                measured(Some(rb.max_deviation_db)),
                 "dB",
+                None,
             );
             add(
                 "H2 at 40 Hz (sweep)",
-                sweep_harmonic(ra, 2, 40.0),
-                sweep_harmonic(rb, 2, 40.0),
+                measured(sweep_harmonic(&ra, 2, 40.0)),
+                measured(sweep_harmonic(&rb, 2, 40.0)),
                 "dBc",
+                None,
             );
         }
-        if let (Some(na), Some(nb)) = (latest(a, "noise", ch), latest(b, "noise", ch)) {
-            add(
-                "noise with no signal (flat)",
-                num(na, "noise_dbfs"),
-                num(nb, "noise_dbfs"),
-                "dBFS",
-            );
-            add(
-                "noise with no signal (A-weighted)",
-                num(na, "noise_a_dbfs"),
-                num(nb, "noise_a_dbfs"),
-                "dBFS",
-            );
-            add(
-                "hum and noise with no signal",
-                num(na, "hum_and_noise_dbfs"),
-                num(nb, "hum_and_noise_dbfs"),
-                "dBFS",
-            );
-            add(
-                "S/N re 1 W (A-weighted)",
-                num(na, "snr_a_re_1w_db"),
-                num(nb, "snr_a_re_1w_db"),
-                "dB",
-            );
+        if let (Some(na), Some(nb)) = (
+            latest::<NoiseView>(a, "noise", ch),
+            latest::<NoiseView>(b, "noise", ch),
+        ) {
+            for (fig, x, y, unit) in [
+                (
+                    "noise with no signal (flat)",
+                    Some(na.noise_dbfs),
+                    Some(nb.noise_dbfs),
+                    "dBFS",
+                ),
+                (
+                    "noise with no signal (A-weighted)",
+                    Some(na.noise_a_dbfs),
+                    Some(nb.noise_a_dbfs),
+                    "dBFS",
+                ),
+                (
+                    "hum and noise with no signal",
+                    Some(na.hum_and_noise_dbfs),
+                    Some(nb.hum_and_noise_dbfs),
+                    "dBFS",
+                ),
+                (
+                    "S/N re 1 W (A-weighted)",
+                    na.snr_a_re_1w_db,
+                    nb.snr_a_re_1w_db,
+                    "dB",
+                ),
+            ] {
+                add(fig, measured(x), measured(y), unit, None);
+            }
         }
-        if let (Some(za), Some(zb)) = (latest(a, "zout", ch), latest(b, "zout", ch)) {
+        if let (Some(za), Some(zb)) = (
+            latest::<ZoutView>(a, "zout", ch),
+            latest::<ZoutView>(b, "zout", ch),
+        ) {
             add(
                 "output impedance",
-                num(za, "zout_ohms"),
-                num(zb, "zout_ohms"),
+                measured(Some(za.zout_ohms)),
+                measured(Some(zb.zout_ohms)),
                 "ohm",
+                None,
             );
             add(
                 "damping factor",
-                num(za, "damping_factor"),
-                num(zb, "damping_factor"),
+                measured(Some(za.damping_factor)),
+                measured(Some(zb.damping_factor)),
                 "",
+                None,
             );
         }
     }
@@ -353,20 +523,20 @@ pub fn compare(name_a: &str, a: &[Run], name_b: &str, b: &[Run]) -> Comparison {
 }
 
 /// A swept harmonic's level at the point nearest `f`.
-fn sweep_harmonic(v: &Value, order: u64, f: f64) -> Option<f64> {
-    let curve = v
-        .get("harmonics")?
-        .as_array()?
+fn sweep_harmonic(r: &ResponseView, order: usize, f: f64) -> Option<f64> {
+    r.harmonics
         .iter()
-        .find(|h| h.get("order").and_then(Value::as_u64) == Some(order))?;
-    curve
-        .get("points")?
-        .as_array()?
+        .find(|h| h.order == order)?
+        .points
         .iter()
-        .filter_map(|p| Some((num(p, "frequency_hz")?, num(p, "level_dbc")?)))
-        .min_by(|x, y| (x.0 / f).ln().abs().total_cmp(&(y.0 / f).ln().abs()))
-        .filter(|p| (p.0 / f).ln().abs() < 0.05)
-        .map(|p| p.1)
+        .min_by(|x, y| {
+            (x.frequency_hz / f)
+                .ln()
+                .abs()
+                .total_cmp(&(y.frequency_hz / f).ln().abs())
+        })
+        .filter(|p| (p.frequency_hz / f).ln().abs() < 0.05)
+        .map(|p| p.level_dbc)
 }
 
 /// Tolerances of the channel-match checks (common practice for the first two; the rest are our
@@ -418,27 +588,24 @@ pub struct MatchResult {
     pub warnings: Vec<String>,
 }
 
-/// The largest difference between two response curves over 20 Hz - 20 kHz, for `key`
-/// (`magnitude_db` or `phase_deg`, wrapped), matching points by frequency.
-fn curve_difference(a: &Value, b: &Value, key: &str) -> Option<f64> {
-    let pts = |v: &Value| -> Option<Vec<(f64, f64)>> {
-        Some(
-            v.get("points")?
-                .as_array()?
-                .iter()
-                .filter_map(|p| Some((num(p, "frequency_hz")?, num(p, key)?)))
-                .filter(|p| p.0 >= 20.0 && p.0 <= 20_000.0)
-                .collect(),
-        )
-    };
-    let (pa, pb) = (pts(a)?, pts(b)?);
+/// The largest difference between two response curves over 20 Hz - 20 kHz, in magnitude (dB)
+/// or in phase (degrees, wrapped), matching points by frequency.
+fn curve_difference(a: &ResponseView, b: &ResponseView, phase: bool) -> Option<f64> {
     let mut worst: Option<f64> = None;
-    for (f, x) in &pa {
-        if let Some((_, y)) = pb.iter().find(|(g, _)| (g / f - 1.0).abs() < 1e-6) {
-            let d = if key == "phase_deg" {
-                crate::analysis::tone::wrap_degrees(y - x).abs()
+    for p in a
+        .points
+        .iter()
+        .filter(|p| p.frequency_hz >= 20.0 && p.frequency_hz <= 20_000.0)
+    {
+        if let Some(q) = b
+            .points
+            .iter()
+            .find(|q| (q.frequency_hz / p.frequency_hz - 1.0).abs() < 1e-6)
+        {
+            let d = if phase {
+                crate::analysis::tone::wrap_degrees(q.phase_deg - p.phase_deg).abs()
             } else {
-                (y - x).abs()
+                (q.magnitude_db - p.magnitude_db).abs()
             };
             worst = Some(worst.map_or(d, |w: f64| w.max(d)));
         }
@@ -469,43 +636,41 @@ pub fn match_channels(
         });
         Some(v)
     };
-    let (ta, tb) = (latest(a, "tone", ca), latest(b, "tone", cb));
-    let (ra, rb) = (latest(a, "response", ca), latest(b, "response", cb));
-    // Gain: from the sweeps (the same drive on both channels by construction); tone runs only
-    // when they were driven alike (a tone set to 1 W on each channel hides the difference).
-    let drive = |v: &Value| num(v, "fundamental_dbfs").zip(num(v, "drive_dbfs"));
-    let gain = match (ra, rb, ta, tb) {
-        (Some(x), Some(y), _, _) => num(y, "reference_gain_db")
-            .zip(num(x, "reference_gain_db"))
-            .map(|(p, q)| p - q),
-        (_, _, Some(x), Some(y)) => match (drive(x), drive(y)) {
-            (Some((lx, dx)), Some((ly, dy))) => Some((ly - dy) - (lx - dx)),
-            _ => num(y, "fundamental_dbfs")
-                .zip(num(x, "fundamental_dbfs"))
-                .map(|(p, q)| p - q),
-        },
+    let (ta, tb) = (
+        latest::<ToneView>(a, "tone", ca),
+        latest::<ToneView>(b, "tone", cb),
+    );
+    let (ra, rb) = (
+        latest::<ResponseView>(a, "response", ca),
+        latest::<ResponseView>(b, "response", cb),
+    );
+    // Gain: from the sweeps (the same drive on both channels by construction), else from the
+    // tone runs' levels.
+    let gain = match (&ra, &rb, &ta, &tb) {
+        (Some(x), Some(y), _, _) => Some(y.reference_gain_db - x.reference_gain_db),
+        (_, _, Some(x), Some(y)) => Some(y.fundamental_dbfs - x.fundamental_dbfs),
         _ => None,
     };
     let gain_difference_db = check("gain difference", gain, tol.gain_db, "dB");
-    let response_max_deviation_db = match (ra, rb) {
+    let response_max_deviation_db = match (&ra, &rb) {
         (Some(x), Some(y)) => check(
             "largest response deviation 20 Hz-20 kHz",
-            curve_difference(x, y, "magnitude_db"),
+            curve_difference(x, y, false),
             tol.response_db,
             "dB",
         ),
         _ => None,
     };
-    if let (Some(x), Some(y)) = (ra, rb) {
+    if let (Some(x), Some(y)) = (&ra, &rb) {
         check(
             "largest phase difference 20 Hz-20 kHz",
-            curve_difference(x, y, "phase_deg"),
+            curve_difference(x, y, true),
             tol.phase_deg,
             "deg",
         );
     }
-    let (pa, pb) = (latest(a, "power", ca), latest(b, "power", cb));
-    if let (Some(x), Some(y)) = (pa, pb) {
+    let (pa, pb) = (power_runs(a, ca), power_runs(b, cb));
+    if let (Some(x), Some(y)) = (pa.first(), pb.first()) {
         let thd = thd_at_power(x, 1.0)
             .zip(thd_at_power(y, 1.0))
             .map(|(p, q)| 20.0 * (q / p).log10());
@@ -521,12 +686,10 @@ pub fn match_channels(
             });
         check("power at 1 % THD difference", p1, tol.power_db, "dB");
     }
-    if let (Some(x), Some(y)) = (ta, tb) {
+    if let (Some(x), Some(y)) = (&ta, &tb) {
         check(
             "noise difference",
-            num(y, "noise_dbfs")
-                .zip(num(x, "noise_dbfs"))
-                .map(|(p, q)| p - q),
+            Some(y.noise_dbfs - x.noise_dbfs),
             tol.noise_db,
             "dB",
         );

@@ -6,9 +6,10 @@ pub mod imd;
 pub mod power;
 pub mod response;
 pub mod tone;
+pub mod views;
 
 /// Version of the JSON layout; bumped when a field changes meaning or disappears.
-pub const SCHEMA_VERSION: u32 = 2;
+pub const SCHEMA_VERSION: u32 = 3;
 
 /// A per-channel result: which channel, and its measurement-quality warnings.
 pub trait ChannelResult {

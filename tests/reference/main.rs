@@ -6,6 +6,7 @@ mod bench_calibration;
 mod closed_form;
 mod common;
 mod framing;
+mod honest_compare;
 mod imd;
 mod messy;
 mod notebook;

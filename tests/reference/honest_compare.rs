@@ -1,0 +1,169 @@
+//! Compare tells a change only where one can be read: tone figures at the same level, no delta
+//! from a detection limit, staircases frequency by frequency. Sources: closed-form tones (a
+//! fundamental with a second harmonic of known amplitude; THD = a2/a1), the definition
+//! 20 lg(b/a) of a level change, and the chi-square statistics of windowed white noise.
+
+use super::common::{analyze, sines, tmpdir};
+use ampnote::calibration::Calibration;
+use ampnote::notebook::{NewRun, Notebook};
+use ampnote::procedure::power::{finish, PowerStep};
+use ampnote::report::compare::{compare, CompareLine};
+use std::collections::BTreeMap;
+
+const FS: f64 = 48_000.0;
+
+/// A 1 kHz tone at `dbfs` with H2 at `h2` of it, over white noise at -110 dBFS (so H4 and up
+/// are under the noise).
+fn tone(dbfs: f64, h2: f64, seed: u64) -> serde_json::Value {
+    let a = 10f64.powf(dbfs / 20.0);
+    let mut x = sines(FS, 48_000, &[(1000.0, a, 0.1), (2000.0, a * h2, 0.7)]);
+    let mut rng = ampnote::signal::dither::Rng::new(seed);
+    let sigma = 10f64.powf(-110.0 / 20.0) / 2f64.sqrt();
+    x.iter_mut().for_each(|v| *v += sigma * rng.gaussian());
+    serde_json::to_value(analyze(&x, FS)).unwrap()
+}
+
+/// A staircase at `f` whose THD is 0.5 % then 2 % at 1 and 4 W (and 1 % at 2 W).
+fn staircase(f: f64, scale: f64) -> serde_json::Value {
+    let step = |w: f64, thd: f64| PowerStep {
+        drive_dbfs: 10.0 * w.log10() - 20.0,
+        output_dbfs: 10.0 * w.log10() - 20.0,
+        output_vrms: Some((w * 8.0).sqrt()),
+        output_dbv: None,
+        output_dbu: None,
+        output_w: Some(w),
+        thd_percent: Some(thd),
+        thd_upper_bound: false,
+        thdn_percent: thd,
+        h2_dbc: None,
+        h3_dbc: None,
+        overload_samples: 0,
+        excluded: false,
+    };
+    let cal = Calibration {
+        input_fs_vrms: Some(2.0),
+        attenuation: Some(10.0),
+        load_ohms: Some(8.0),
+        ..Calibration::default()
+    };
+    let steps = vec![
+        step(scale, 0.5),
+        step(2.0 * scale, 1.0 + 1e-9),
+        step(4.0 * scale, 2.0),
+    ];
+    serde_json::to_value(finish(1, f, 96_000.0, &cal, steps, None)).unwrap()
+}
+
+fn notebook(tag: &str, runs: &[(&str, &str, serde_json::Value)]) -> (std::path::PathBuf, Notebook) {
+    let d = tmpdir(tag);
+    let nb = Notebook::init(&d.join("amp"), "amp", 1, None, None).unwrap();
+    for (label, procedure, result) in runs {
+        nb.save(NewRun {
+            label,
+            channel: 1,
+            procedure,
+            notes: "",
+            settings: BTreeMap::new(),
+            calibration: Calibration::default(),
+            analysis: None,
+            files: vec![],
+            blobs: vec![],
+            result: result.clone(),
+        })
+        .unwrap();
+    }
+    (d, nb)
+}
+
+fn find<'a>(lines: &'a [CompareLine], prefix: &str) -> &'a CompareLine {
+    lines
+        .iter()
+        .find(|l| l.figure.starts_with(prefix))
+        .unwrap_or_else(|| panic!("no line {prefix}: {lines:#?}"))
+}
+
+#[test]
+fn tone_figures_are_compared_only_at_the_same_level() {
+    // H2 at 1 % then 0.5 %: THD -6.02 dB (20 lg 0.5), when both runs sit within 0.5 dB.
+    let (d, nb) = notebook(
+        "cmp-level",
+        &[
+            ("a", "tone", tone(-24.0, 0.01, 1)),
+            ("b", "tone", tone(-24.2, 0.005, 2)),
+            ("c", "tone", tone(-22.7, 0.005, 3)),
+        ],
+    );
+    let sel = |l: &str| nb.select(l, None).unwrap();
+    let c = compare("a", &sel("a"), "b", &sel("b"));
+    let thd = find(&c.lines, "THD at");
+    let d_thd = thd.delta.expect("like for like");
+    assert!((d_thd - 20.0 * 0.5f64.log10()).abs() < 0.01, "{thd:?}");
+    assert!(c.warnings.iter().all(|w| !w.contains("different levels")));
+    // 1.3 dB apart: the figures are shown with both levels, no delta, and a warning.
+    let c = compare("a", &sel("a"), "c", &sel("c"));
+    let thd = find(&c.lines, "THD");
+    assert!(thd.delta.is_none(), "{thd:?}");
+    assert!(
+        thd.sentence.contains("-24.0 dBFS") && thd.sentence.contains("-22.7 dBFS"),
+        "{}",
+        thd.sentence
+    );
+    assert!(c.warnings.iter().any(|w| w.contains("different levels")));
+    std::fs::remove_dir_all(&d).ok();
+}
+
+#[test]
+fn bounds_are_shown_as_bounds_and_give_no_delta() {
+    let (d, nb) = notebook(
+        "cmp-bound",
+        &[
+            ("a", "tone", tone(-20.0, 0.01, 4)),
+            ("b", "tone", tone(-20.0, 1e-7, 5)),
+        ],
+    );
+    let sel = |l: &str| nb.select(l, None).unwrap();
+    let c = compare("a", &sel("a"), "b", &sel("b"));
+    // H4 is under the -110 dBFS noise on both sides: two detection limits, no change.
+    let h4 = find(&c.lines, "H4");
+    assert!(
+        h4.a_upper_bound && h4.b_upper_bound && h4.delta.is_none(),
+        "{h4:?}"
+    );
+    assert!(h4.sentence.contains("< -"), "{}", h4.sentence);
+    // H2 falls from -40 dBc into the noise: a bound on the change, not a delta.
+    let h2 = find(&c.lines, "H2");
+    assert!(
+        !h2.a_upper_bound && h2.b_upper_bound && h2.delta.is_none(),
+        "{h2:?}"
+    );
+    assert!(h2.sentence.contains("down by at least"), "{}", h2.sentence);
+    std::fs::remove_dir_all(&d).ok();
+}
+
+#[test]
+fn staircases_are_compared_per_frequency() {
+    // Power at 1 % THD: 2 W before at every frequency; after, 4 W at 40 Hz and 3 W at 1 kHz
+    // (the staircase scaled), so +3.01 and +1.76 dB (10 lg of the ratios).
+    let (d, nb) = notebook(
+        "cmp-freq",
+        &[
+            ("a", "power", staircase(40.0, 1.0)),
+            ("a", "power", staircase(1000.0, 1.0)),
+            ("b", "power", staircase(40.0, 2.0)),
+            ("b", "power", staircase(1000.0, 1.5)),
+        ],
+    );
+    let sel = |l: &str| nb.select(l, None).unwrap();
+    let c = compare("a", &sel("a"), "b", &sel("b"));
+    let at40 = find(&c.lines, "power at 1 % THD (40.0 Hz)");
+    assert!(
+        (at40.delta.unwrap() - 10.0 * 2f64.log10()).abs() < 1e-6,
+        "{at40:?}"
+    );
+    let at1k = find(&c.lines, "power at 1 % THD (1.00 kHz)");
+    assert!(
+        (at1k.delta.unwrap() - 10.0 * 1.5f64.log10()).abs() < 1e-6,
+        "{at1k:?}"
+    );
+    std::fs::remove_dir_all(&d).ok();
+}
