@@ -269,6 +269,7 @@ const MIN_PAIR_RATIO: f64 = 1e-3;
 /// Refuse a capture that does not hold the pair: a tone missing or lost in the noise (a single
 /// tone, a sweep, noise), or a stronger line elsewhere (another tone or another pair). `tones`
 /// are (bin, fitted amplitude) of the low and the high tone.
+#[allow(clippy::too_many_arguments)]
 fn check_pair(
     channel: usize,
     spec: &[Complex64],

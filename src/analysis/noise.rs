@@ -282,12 +282,12 @@ fn signal_line(
     bin: f64,
     mains_hz: f64,
 ) -> Option<SignalLine> {
-    let half = TONE_WINDOW.main_lobe_half_width() as usize + 1;
+    let half = TONE_WINDOW.main_lobe_half_width() + 1;
     let tol = half as f64 * bin;
     let is_mains = |k: usize| {
         let f = k as f64 * bin;
         let o = (f / mains_hz).round();
-        o >= 1.0 && o <= 40.0 && (f - o * mains_hz).abs() <= tol
+        (1.0..=40.0).contains(&o) && (f - o * mains_hz).abs() <= tol
     };
     let (k, p) = residuals(spec, model, k_lo, k_hi)
         .filter(|&(k, _)| !is_mains(k))
