@@ -225,6 +225,10 @@ pub struct ZoutArgs {
     pub freq: f64,
     #[arg(long, default_value_t = -20.0, value_name = "DBFS", allow_negative_numbers = true)]
     pub level: f64,
+    /// Instead of --level: the power the tone should give into the first load; the drive is found
+    /// from a short -40 dBFS probe. Needs the calibration with a load.
+    #[arg(long, value_name = "W", conflicts_with = "level")]
+    pub watts: Option<f64>,
     #[arg(long, default_value = "all", value_name = "N|all")]
     pub channel: String,
     #[arg(long)]
@@ -655,6 +659,10 @@ pub struct WatchArgs {
     pub freq: f64,
     #[arg(long, default_value_t = -20.0, value_name = "DBFS", allow_negative_numbers = true)]
     pub level: f64,
+    /// Instead of --level: the power into the load the tone should give; the drive is found
+    /// from a short -40 dBFS probe. Needs the calibration with a load.
+    #[arg(long, value_name = "W", conflicts_with = "level")]
+    pub watts: Option<f64>,
     #[arg(long, default_value_t = 48_000, value_name = "HZ")]
     pub rate: u32,
     /// Readings per second (5 to 50).

@@ -118,7 +118,6 @@ pub fn run(out: &Path, mut progress: impl FnMut(&str)) -> Result<DemoOutcome> {
         fade_s: 0.01,
         ..Common::mono(RATE, -20.0)
     };
-    let probe = stimulus::tone(&base, 997.0, 0.6)?;
     let steps = stimulus::steps(&base, 997.0, -30.0, -1.0, 1.0, 0.3, 0.08)?;
     let sweep = stimulus::sweep(
         &Common {
@@ -167,23 +166,10 @@ pub fn run(out: &Path, mut progress: impl FnMut(&str)) -> Result<DemoOutcome> {
                     result,
                 })
             };
-            // A tone at 1 W: a first tone finds the gain, the second sits at 1 W.
+            // A tone at 1 W: the drive found from a probe and a confirming tone.
             rig.set_load(bench.load_ohms)?;
-            let y = rig.play_and_record(ch, &probe.signal, RATE)?;
-            let first = tone_cfg.analyze(&input(ch, steady(&y, &probe), &rig), &cal)?;
-            let mut drive = -20.0 + 10.0 * (1.0 / first.output_w.unwrap_or(1.0)).log10();
-            // The amplifier is not linear: correct the drive once more at the level found.
-            let again = stimulus::tone(
-                &Common {
-                    level_dbfs: drive.min(-1.0),
-                    ..base.clone()
-                },
-                997.0,
-                0.6,
-            )?;
-            let y = rig.play_and_record(ch, &again.signal, RATE)?;
-            let second = tone_cfg.analyze(&input(ch, steady(&y, &again), &rig), &cal)?;
-            drive += 10.0 * (1.0 / second.output_w.unwrap_or(1.0)).log10();
+            let drive = crate::procedure::drive::drive_for_power(&mut rig, ch, 997.0, RATE, 1.0)?
+                .drive_dbfs;
             let tone = stimulus::tone(
                 &Common {
                     level_dbfs: drive.min(-1.0),

@@ -13,10 +13,13 @@ use crate::rig::Rig;
 /// The probe's drive: far below where any power amplifier with a line-level input clips.
 pub const PROBE_DBFS: f64 = -40.0;
 
-/// How close the confirming tone must come to the target before no correction is made (0.2 dB,
-/// the scatter of a bench reading of a tube amplifier's level from one minute to the next;
-/// common practice).
+/// A miss of the target beyond this (0.2 dB, the scatter of a bench reading of a tube amplifier's
+/// level from one minute to the next; common practice) is said with the result.
 pub const TOLERANCE_DB: f64 = 0.2;
+
+/// The confirming tone's miss is corrected once when it passes this (0.01 dB: so "1 W" reads
+/// 1.00 W, not 995 mW).
+const CORRECT_ABOVE_DB: f64 = 0.01;
 
 /// A correction larger than this (3 dB) is not applied: the amplifier is then far from linear
 /// (clipping or a fault), and driving harder to chase the target is not safe.
@@ -91,7 +94,7 @@ pub fn drive_for_power(
     }
     let mut confirmed_w = power_at(rig, drive)?;
     let miss_db = 10.0 * (watts / confirmed_w).log10();
-    if miss_db.abs() > TOLERANCE_DB && miss_db.abs() <= MAX_CORRECTION_DB {
+    if miss_db.abs() > CORRECT_ABOVE_DB && miss_db.abs() <= MAX_CORRECTION_DB {
         drive += miss_db;
         if drive > 0.0 {
             return Err(out_of_reach(drive));

@@ -95,11 +95,30 @@ pub fn run(args: &WatchArgs) -> Result<ExitCode, String> {
             args.channel
         ));
     }
+    let cal = rig.calibration();
+    let level = match args.watts {
+        Some(w) => {
+            let found = ampnote::procedure::drive::drive_for_power(
+                rig.as_mut(),
+                args.channel,
+                freq,
+                rate,
+                w,
+            )
+            .map_err(|e| e.to_string())?;
+            eprintln!(
+                "{:.2} dBFS of drive gives {:.3} W (asked {w} W)",
+                found.drive_dbfs, found.confirmed_w
+            );
+            found.drive_dbfs
+        }
+        None => args.level,
+    };
     ampnote::rig::catch_interrupt();
     // One second of the tone: a whole number of periods at a whole-hertz frequency, so it loops
     // without a seam.
     // dBFS of a sine: 0 dBFS is the full-scale sine, so the peak is 10^(level/20).
-    let amp = 10f64.powf(args.level / 20.0);
+    let amp = 10f64.powf(level / 20.0);
     let w = 2.0 * std::f64::consts::PI * freq / rate as f64;
     let table: Vec<f64> = (0..rate as usize)
         .map(|i| amp * (w * i as f64).sin())
@@ -114,8 +133,8 @@ pub fn run(args: &WatchArgs) -> Result<ExitCode, String> {
     let bits = rig.resolution_bits();
     eprintln!("{}", rig.describe());
     eprintln!(
-        "watching channel {}: {freq} Hz at {} dBFS, {} readings a second; Ctrl-C stops.",
-        args.channel, args.level, args.refresh
+        "watching channel {}: {freq} Hz at {level:.2} dBFS, {} readings a second; Ctrl-C stops.",
+        args.channel, args.refresh
     );
     eprintln!("Inside a tube amplifier are lethal voltages, also with the power off (charged capacitors): adjust with one hand, insulated tools, and keep the dummy load connected.");
     let tty = std::io::stdout().is_terminal();

@@ -130,11 +130,32 @@ pub fn run(args: &ZoutArgs) -> Result<ExitCode, String> {
         } else {
             stimulus::tone(&c, args.freq, 1.5).map_err(e)?
         };
+        if args.watts.is_some() && args.sweep {
+            return Err("--watts sets a tone's drive; drop it with --sweep (or use --level)".into());
+        }
         for &ch in &chosen {
+            // With --watts: this channel's drive for that power into the first load.
+            let scaled: Option<Vec<f64>> = match args.watts {
+                Some(w) => {
+                    rig.set_load(ra).map_err(e)?;
+                    let found = ampnote::procedure::drive::drive_for_power(
+                        rig.as_mut(),
+                        ch,
+                        args.freq,
+                        rate,
+                        w,
+                    )
+                    .map_err(e)?;
+                    let g = 10f64.powf((found.drive_dbfs - args.level) / 20.0);
+                    Some(stim.signal.iter().map(|v| v * g).collect())
+                }
+                None => None,
+            };
+            let signal = scaled.as_deref().unwrap_or(&stim.signal);
             let mut caps = Vec::new();
             for r in [ra, rb] {
                 rig.set_load(r).map_err(e)?;
-                caps.push(rig.play_and_record(ch, &stim.signal, rate).map_err(e)?);
+                caps.push(rig.play_and_record(ch, signal, rate).map_err(e)?);
             }
             let mut res = if args.sweep {
                 let sp = SweepParams::from_description(&stim.description).expect("a sweep");
