@@ -30,20 +30,56 @@ pub struct Calibration {
 }
 
 impl Calibration {
-    /// Checks that every given figure is finite and positive.
+    /// Checks every given figure against one rule set, shared by the flags and the profile (each
+    /// message names both): finite, and within what a bench can have. The ranges are wide on
+    /// purpose (they catch typos and units off by a thousand, not unusual benches): interface full
+    /// scales 1 mV to 1 kV RMS, an attenuator ratio 1 (none) to 100 000 (a resistive divider
+    /// cannot raise the voltage), a load 0.1 ohm to 100 kohm, loopback figures -250 to 0 dB.
     pub fn validated(self) -> Result<Self> {
-        let check = |name: &str, v: Option<f64>| -> Result<()> {
+        let check = |names: &str, unit: &str, v: Option<f64>, lo: f64, hi: f64| -> Result<()> {
             match v {
-                Some(x) if !(x.is_finite() && x > 0.0) => Err(Error::InvalidSetting(format!(
-                    "{name} must be a positive number, got {x}"
-                ))),
+                Some(x) if !(x.is_finite() && x >= lo && x <= hi) => Err(Error::InvalidSetting(
+                    format!("{names} must lie between {lo} and {hi} {unit}, got {x}"),
+                )),
                 _ => Ok(()),
             }
         };
-        check("--input-fs-vrms", self.input_fs_vrms)?;
-        check("--attenuation", self.attenuation)?;
-        check("--load-ohms", self.load_ohms)?;
-        check("--output-fs-vrms", self.output_fs_vrms)?;
+        check(
+            "--input-fs-vrms ([interface] input_fs_vrms)",
+            "V",
+            self.input_fs_vrms,
+            1e-3,
+            1e3,
+        )?;
+        check(
+            "--output-fs-vrms ([interface] output_fs_vrms)",
+            "V",
+            self.output_fs_vrms,
+            1e-3,
+            1e3,
+        )?;
+        check(
+            "--attenuation ([attenuator] ratio; a resistive attenuator cannot raise the voltage, so at least 1)",
+            "(amplifier volts / interface volts)",
+            self.attenuation,
+            1.0,
+            1e5,
+        )?;
+        check("--load-ohms ([load] ohms)", "ohm", self.load_ohms, 0.1, 1e5)?;
+        check(
+            "[loopback] thdn_db",
+            "dB",
+            self.loopback_thdn_db,
+            -250.0,
+            0.0,
+        )?;
+        check(
+            "[loopback] noise_dbfs",
+            "dBFS",
+            self.loopback_noise_dbfs,
+            -250.0,
+            0.0,
+        )?;
         if self.input_fs_vrms.is_none() && (self.attenuation.is_some() || self.load_ohms.is_some())
         {
             return Err(Error::InvalidSetting(
@@ -169,10 +205,15 @@ impl Profile {
             }
             (Some(r), None, None) => Some(r),
             (None, Some(top), Some(bottom)) => {
-                for (name, v) in [("r_top_ohms", top), ("r_bottom_ohms", bottom)] {
-                    if !(v.is_finite() && v > 0.0) {
+                let input = att.interface_input_ohms;
+                for (name, v) in [
+                    ("r_top_ohms", Some(top)),
+                    ("r_bottom_ohms", Some(bottom)),
+                    ("interface_input_ohms", input),
+                ] {
+                    if let Some(v) = v.filter(|v| !(v.is_finite() && *v >= 1.0 && *v <= 1e9)) {
                         return Err(Error::InvalidSetting(format!(
-                            "[attenuator] {name} must be above 0, got {v}"
+                            "[attenuator] {name} must lie between 1 ohm and 1 Gohm, got {v}"
                         )));
                     }
                 }

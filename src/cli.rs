@@ -171,13 +171,28 @@ pub struct PowerArgs {
     #[arg(long = "from", default_value_t = -30.0, value_name = "DBFS", allow_negative_numbers = true)]
     pub from_dbfs: f64,
     /// Step size of a rig run, dB (refined to a fifth across each THD target).
-    #[arg(long, default_value_t = 1.0, value_name = "DB")]
+    #[arg(
+        long,
+        allow_negative_numbers = true,
+        default_value_t = 1.0,
+        value_name = "DB"
+    )]
     pub step: f64,
     /// Stop a rig run once THD passes this, percent.
-    #[arg(long, default_value_t = 10.0, value_name = "PCT")]
+    #[arg(
+        long,
+        allow_negative_numbers = true,
+        default_value_t = 10.0,
+        value_name = "PCT"
+    )]
     pub stop_thd: f64,
     /// Never drive into a step whose predicted output passes this, watts.
-    #[arg(long, default_value_t = 25.0, value_name = "W")]
+    #[arg(
+        long,
+        allow_negative_numbers = true,
+        default_value_t = 25.0,
+        value_name = "W"
+    )]
     pub max_w: f64,
     /// Sample rate of a rig run.
     #[arg(long, default_value_t = 48_000, value_name = "HZ")]

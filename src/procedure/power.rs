@@ -363,7 +363,7 @@ pub fn check_follows_drive(channel: usize, steps: &[PowerStep]) -> Result<()> {
 }
 
 /// Settings of a staircase run on a rig.
-#[derive(Debug, Clone)]
+#[derive(Debug, Clone, Copy)]
 pub struct StaircaseSettings {
     pub frequency_hz: f64,
     pub sample_rate_hz: u32,
@@ -376,6 +376,79 @@ pub struct StaircaseSettings {
     pub settle_s: f64,
     pub dwell_s: f64,
 }
+
+/// Rates a rig run may use (the range ampnote reads from files).
+pub const RATE_RANGE_HZ: (u32, u32) = (8_000, 384_000);
+
+impl StaircaseSettings {
+    /// Every setting finite and in range, checked before anything is opened or played: the power
+    /// limit a positive number of watts (at most 10 kW), the THD stop above 0 and at most 100 %,
+    /// the first drive at most 0 dBFS (full scale) and above -140 dBFS, the step in (0, 6] dB,
+    /// dwell 0.05-60 s, settle 0-60 s, the rate 8-384 kHz and the frequency 10 Hz to 0.45 x the
+    /// rate.
+    pub fn validated(self) -> Result<Self> {
+        let bad = |what: String| Err(Error::InvalidSetting(what));
+        let within = |x: f64, lo: f64, hi: f64| x.is_finite() && x >= lo && x <= hi;
+        if !(self.max_w.is_finite() && self.max_w > 0.0 && self.max_w <= 10_000.0) {
+            return bad(format!(
+                "--max-w is the power limit no step may pass: a number of watts above 0 and at most 10000, got {}",
+                self.max_w
+            ));
+        }
+        if !(self.stop_thd_percent.is_finite()
+            && self.stop_thd_percent > 0.0
+            && self.stop_thd_percent <= 100.0)
+        {
+            return bad(format!(
+                "--stop-thd must lie above 0 and at most 100 %, got {}",
+                self.stop_thd_percent
+            ));
+        }
+        if !within(self.from_dbfs, -140.0, 0.0) {
+            return bad(format!(
+                "--from is the first drive in dBFS: between -140 and 0 (full scale), got {}",
+                self.from_dbfs
+            ));
+        }
+        if !(self.step_db.is_finite() && self.step_db > 0.0 && self.step_db <= 6.0) {
+            return bad(format!(
+                "--step must lie in (0, 6] dB, got {}",
+                self.step_db
+            ));
+        }
+        if !within(self.dwell_s, 0.05, 60.0) {
+            return bad(format!(
+                "--dwell must lie between 0.05 and 60 s, got {}",
+                self.dwell_s
+            ));
+        }
+        if !within(self.settle_s, 0.0, 60.0) {
+            return bad(format!(
+                "--settle must lie between 0 and 60 s, got {}",
+                self.settle_s
+            ));
+        }
+        let (lo, hi) = RATE_RANGE_HZ;
+        if !(lo..=hi).contains(&self.sample_rate_hz) {
+            return bad(format!(
+                "--rate must lie between {lo} and {hi} Hz, got {}",
+                self.sample_rate_hz
+            ));
+        }
+        let top = 0.45 * self.sample_rate_hz as f64;
+        if !within(self.frequency_hz, 10.0, top) {
+            return bad(format!(
+                "--freq must lie between 10 Hz and 0.45 x the rate ({top} Hz), got {}",
+                self.frequency_hz
+            ));
+        }
+        Ok(self)
+    }
+}
+
+/// Before the first step, a tone this low (-60 dBFS: 10 mV from a 10 V interface) gives the
+/// chain's gain, so the first step's power is predicted like every other's.
+pub const POWER_PROBE_DBFS: f64 = -60.0;
 
 /// Checks, before anything is played, that the interface input survives the power limit: the
 /// peak voltage it would see, `sqrt(2 P R) / attenuation`, must stay below its full-scale peak.
@@ -406,14 +479,9 @@ pub fn run_staircase(
     channel: usize,
     s: &StaircaseSettings,
 ) -> Result<PowerResult> {
+    let s = &(*s).validated()?;
     let cal = rig.calibration();
     check_input_headroom(&cal, s.max_w)?;
-    if !(s.step_db > 0.0 && s.step_db <= 6.0) {
-        return Err(Error::InvalidSetting(format!(
-            "--step must lie in (0, 6] dB, got {}",
-            s.step_db
-        )));
-    }
     let analyzer = step_analyzer(s.frequency_hz, s.sample_rate_hz as f64)?;
     let fs = s.sample_rate_hz as f64;
     let settle = (s.settle_s * fs) as usize;
@@ -434,6 +502,21 @@ pub fn run_staircase(
         };
         Ok(step_from(drive, &analyzer.analyze(&input, &cal)?))
     };
+    // The first step's power, predicted from a low probe (the gain holds while the amplifier is
+    // linear; compression only lowers the real figure): refused before it is played when it
+    // would pass the limit.
+    let probe_at = POWER_PROBE_DBFS.min(s.from_dbfs);
+    let probe = measure(rig, probe_at)?;
+    if let Some(w) = probe.output_w {
+        let predicted = w * 10f64.powf((s.from_dbfs - probe_at) / 10.0);
+        if predicted > s.max_w {
+            let start = probe_at + 10.0 * (s.max_w / w).log10() - s.step_db;
+            return Err(Error::InvalidSetting(format!(
+                "the first step ({:.1} dBFS) would give about {predicted:.3} W, over the power limit of {} W (--max-w): start lower, at {start:.1} dBFS or below (--from)",
+                s.from_dbfs, s.max_w
+            )));
+        }
+    }
     let mut steps: Vec<PowerStep> = Vec::new();
     let mut drive = s.from_dbfs;
     let stopped;

@@ -30,22 +30,17 @@ pub fn run(args: &PowerArgs) -> Result<ExitCode, String> {
             return Err("give the capture of a `generate steps` stimulus (with --stimulus), or --rig sim to run on the simulated bench".into())
         }
         (None, Some(_)) => {
-            let mut rig = args.rig.open(flags)?.expect("a rig was named");
-            if let Some(l) = flags.load_ohms {
-                rig.set_load(l).map_err(e)?;
-            }
-            source = rig.describe();
-            used = rig.calibration();
+            // Every setting checked before the rig is opened or anything is played.
             let freqs: Vec<f64> = args
                 .freq
                 .split(',')
                 .map(|t| t.trim().parse::<f64>())
                 .collect::<Result<_, _>>()
                 .map_err(|_| format!("--freq takes frequencies in Hz like 1000 or 40,1000,10000; got `{}`", args.freq))?;
-            let chosen = select_channels(rig.channels(), channel_choice(&args.channel)?).map_err(e)?;
-            for &f in &freqs {
-                for &ch in &chosen {
-                    let settings = StaircaseSettings {
+            let plans: Vec<StaircaseSettings> = freqs
+                .iter()
+                .map(|&f| {
+                    StaircaseSettings {
                         frequency_hz: f,
                         sample_rate_hz: args.rate,
                         from_dbfs: args.from_dbfs,
@@ -54,8 +49,21 @@ pub fn run(args: &PowerArgs) -> Result<ExitCode, String> {
                         max_w: args.max_w,
                         settle_s: args.settle,
                         dwell_s: args.dwell,
-                    };
-                    match run_staircase(rig.as_mut(), ch, &settings) {
+                    }
+                    .validated()
+                })
+                .collect::<Result<_, _>>()
+                .map_err(e)?;
+            let mut rig = args.rig.open(flags)?.expect("a rig was named");
+            if let Some(l) = flags.load_ohms {
+                rig.set_load(l).map_err(e)?;
+            }
+            source = rig.describe();
+            used = rig.calibration();
+            let chosen = select_channels(rig.channels(), channel_choice(&args.channel)?).map_err(e)?;
+            for settings in &plans {
+                for &ch in &chosen {
+                    match run_staircase(rig.as_mut(), ch, settings) {
                         Ok(mut r) => {
                             r.warnings.extend(rig.take_notes(ch));
                             results.push(r)

@@ -131,7 +131,9 @@ pub fn run(args: &ZoutArgs) -> Result<ExitCode, String> {
             stimulus::tone(&c, args.freq, 1.5).map_err(e)?
         };
         if args.watts.is_some() && args.sweep {
-            return Err("--watts sets a tone's drive; drop it with --sweep (or use --level)".into());
+            return Err(
+                "--watts sets a tone's drive; drop it with --sweep (or use --level)".into(),
+            );
         }
         for &ch in &chosen {
             // With --watts: this channel's drive for that power into the first load.

@@ -228,9 +228,27 @@ fn check_common(c: &Common) -> Result<()> {
         ("--tail", c.tail_s),
         ("--fade", c.fade_s),
     ] {
-        if !(v.is_finite() && v >= 0.0) {
-            return bad(format!("{name} must be 0 s or more, got {v}"));
+        if !(v.is_finite() && (0.0..=MAX_STIMULUS_S).contains(&v)) {
+            return bad(format!(
+                "{name} must lie between 0 and {MAX_STIMULUS_S} s, got {v}"
+            ));
         }
+    }
+    Ok(())
+}
+
+/// The longest stimulus ampnote makes (10 minutes: at 384 kHz that is 230 million samples, the
+/// most a capture of it can be held in memory as comfortably as the analyses need).
+pub const MAX_STIMULUS_S: f64 = 600.0;
+
+/// A signal length in seconds, checked before anything is allocated: finite, above 0 and with
+/// the lead and tail at most [`MAX_STIMULUS_S`] altogether.
+fn check_seconds(c: &Common, name: &str, seconds: f64) -> Result<()> {
+    let total = seconds + c.lead_s + c.tail_s;
+    if !(seconds.is_finite() && seconds > 0.0 && total <= MAX_STIMULUS_S) {
+        return Err(Error::InvalidSetting(format!(
+            "{name} {seconds} s: a stimulus lasts above 0 and at most {MAX_STIMULUS_S} s with its lead and tail; record longer runs as several"
+        )));
     }
     Ok(())
 }
@@ -291,6 +309,7 @@ fn fade(x: &mut [f64], n_in: usize, n_out: usize) {
 pub fn tone(c: &Common, frequency_hz: f64, seconds: f64) -> Result<Stimulus> {
     check_common(c)?;
     check_freq(c, "--freq", frequency_hz)?;
+    check_seconds(c, "--seconds", seconds)?;
     let n = secs(c, seconds);
     if n == 0 {
         return Err(Error::InvalidSetting("--seconds must be above 0".into()));
@@ -338,6 +357,7 @@ pub fn steps(
             "{count} steps is too many; use a larger --step"
         )));
     }
+    check_seconds(c, "the staircase (steps x --dwell)", count as f64 * dwell_s)?;
     let w = 2.0 * PI * frequency_hz / c.sample_rate_hz as f64;
     let dwell = secs(c, dwell_s);
     let settle = secs(c, settle_s);
@@ -401,6 +421,7 @@ pub fn sweep(c: &Common, start_hz: f64, stop_hz: f64, seconds: f64) -> Result<St
             "--to ({stop_hz} Hz) must be well above --from ({start_hz} Hz)"
         )));
     }
+    check_seconds(c, "--seconds", seconds)?;
     let ln = (stop_hz / start_hz).ln();
     let rate_s = (start_hz * seconds / ln).round().max(1.0) / start_hz;
     let duration_s = rate_s * ln;
@@ -467,6 +488,7 @@ pub fn two_tone(
             "--ratio must be above 0, got {ratio}"
         )));
     }
+    check_seconds(c, "--seconds", seconds)?;
     // RMS of the pair = sqrt((aL^2 + aH^2) / 2) = 10^(L/20) / sqrt 2
     let total = amplitude_of(c.level_dbfs);
     let a_high = total / (1.0 + ratio * ratio).sqrt();

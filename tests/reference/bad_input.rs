@@ -148,7 +148,7 @@ fn bad_files_give_clear_errors() {
     );
     expect_error(
         &["analyze", &good, "--input-fs-vrms=-1"],
-        &["must be a positive number"],
+        &["must lie between 0.001 and 1000 V"],
     );
     std::fs::remove_dir_all(&d).ok();
 }

@@ -14,6 +14,7 @@ mod numpy_fixtures;
 mod power;
 mod properties;
 mod quantization;
+mod safety;
 mod stimuli;
 mod sweep_response;
 mod targets;

@@ -514,7 +514,7 @@ fn power_from_a_recorded_staircase() {
     // Bad load and a run past the interface's input.
     let (code, _, err) = run(&["power", "--rig", "sim", "--load-ohms", "0"]);
     assert_eq!(code, 2);
-    assert!(err.contains("positive") || err.contains("above 0"), "{err}");
+    assert!(err.contains("must lie between 0.1 and 100000 ohm"), "{err}");
     let (code, _, err) = run(&["power", "--rig", "sim", "--max-w", "200"]);
     assert_eq!(code, 2);
     assert!(err.contains("raise the attenuation"), "{err}");
