@@ -225,6 +225,7 @@ fn read_header<R: Read>(reader: &mut R, path: &Path) -> Result<WavInfo> {
         return Err(not_wav("no RIFF/WAVE signature at the start"));
     }
     let mut fmt: Option<(u16, usize, u32, usize, u16)> = None; // tag, channels, rate, block align, valid bits
+    let mut container_bits = 0u16;
     let mut description_json = None;
     let data_len = loop {
         let mut ch = [0u8; 8];
@@ -234,8 +235,15 @@ fn read_header<R: Read>(reader: &mut R, path: &Path) -> Result<WavInfo> {
         let len = u32::from_le_bytes([ch[4], ch[5], ch[6], ch[7]]) as u64;
         match &ch[0..4] {
             b"fmt " => {
+                if fmt.is_some() {
+                    return Err(not_wav(
+                        "it has two format chunks (a damaged or hand-joined file): which one holds is unknown",
+                    ));
+                }
                 if len < 16 {
-                    return Err(not_wav("its format chunk is too short"));
+                    return Err(not_wav(&format!(
+                        "its format chunk is {len} bytes, shorter than the 16 every WAV needs"
+                    )));
                 }
                 let mut f = vec![0u8; len.min(4096) as usize];
                 reader
@@ -249,7 +257,14 @@ fn read_header<R: Read>(reader: &mut R, path: &Path) -> Result<WavInfo> {
                 let rate = u32::from_le_bytes([f[4], f[5], f[6], f[7]]);
                 let block_align = u16_at(12) as usize;
                 let mut bits = u16_at(14);
-                if tag == 0xFFFE && f.len() >= 40 {
+                container_bits = bits;
+                if tag == 0xFFFE && f.len() < 40 {
+                    return Err(not_wav(&format!(
+                        "its format chunk says WAVE_FORMAT_EXTENSIBLE but is {} bytes, too short for the extension (40 needed)",
+                        f.len()
+                    )));
+                }
+                if tag == 0xFFFE {
                     // WAVE_FORMAT_EXTENSIBLE: valid bits, then the sub-format GUID whose first
                     // two bytes are the real format tag.
                     let valid = u16_at(18);
@@ -289,6 +304,19 @@ fn read_header<R: Read>(reader: &mut R, path: &Path) -> Result<WavInfo> {
     if bps == 0 || bps * n_ch != block_align {
         return Err(not_wav(&format!(
             "its block size ({block_align} bytes) does not fit {n_ch} channel(s)"
+        )));
+    }
+    // The header's three sizes must agree: block_align = channels x bytes per sample, and the
+    // bytes per sample hold the sample's bits (bits_per_sample rounded up to whole bytes).
+    if container_bits == 0 || bps != (container_bits as usize).div_ceil(8) {
+        return Err(not_wav(&format!(
+            "its header disagrees with itself: bits_per_sample {container_bits} needs {} byte(s) per sample, but block_align {block_align} over {n_ch} channel(s) gives {bps}",
+            (container_bits as usize).div_ceil(8)
+        )));
+    }
+    if bits > container_bits {
+        return Err(not_wav(&format!(
+            "its header disagrees with itself: {bits} valid bits in {container_bits}-bit samples"
         )));
     }
     let encoding = match (tag, bits, bps) {

@@ -51,6 +51,9 @@ pub enum Error {
     #[error("channel {channel} is silent (every sample is zero). Check the cable, the input selected on the interface, and --channel.")]
     Silent { channel: usize },
 
+    #[error("channel {channel}: its samples reach only {peak:.1e} of full scale, far below what any converter resolves (-240 dBFS): the file was written at the wrong scale or is damaged. Re-export it from the recorder at its real level (24-bit PCM or 32-bit float).")]
+    FarTooQuiet { channel: usize, peak: f64 },
+
     #[error("channel {channel} holds only a DC level ({dc_fraction:.6} of full scale) and no tone. Check that the stimulus is playing and reaching this input.")]
     DcOnly { channel: usize, dc_fraction: f64 },
 
@@ -83,8 +86,12 @@ pub enum Error {
     #[error("the stimulus is at {stimulus_hz} Hz but the capture at {capture_hz} Hz. Record at the stimulus's rate, or generate the stimulus at the recorder's rate (--rate {capture_hz}).")]
     SampleRateMismatch { stimulus_hz: u32, capture_hz: u32 },
 
-    #[error("{path} is not one of ampnote's {wanted} stimuli (it carries no description, or another kind). Give the file `ampnote generate {wanted}` wrote.")]
-    NotAStimulus { path: PathBuf, wanted: &'static str },
+    #[error("{path} is not one of ampnote's {wanted} stimuli: {why}. Give the file `ampnote generate {wanted}` wrote (a copy made with a file manager keeps it whole; an editor's export does not).")]
+    NotAStimulus {
+        path: PathBuf,
+        wanted: &'static str,
+        why: String,
+    },
 
     #[error("channel {channel}: the capture does not contain the sweep (the best match stands only {snr_db:.1} dB above the rest). Check that this is the recording of this stimulus and of the right channel.")]
     SweepNotFound { channel: usize, snr_db: f64 },

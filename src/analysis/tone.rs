@@ -752,6 +752,13 @@ pub(crate) fn sample_stats(
             Error::Silent {
                 channel: input.channel,
             }
+        } else if dc.abs() <= (max - min).max(0.0) {
+            // It moves, but by less than any converter resolves (-240 dBFS): not a DC level,
+            // a file written at the wrong scale or damaged.
+            Error::FarTooQuiet {
+                channel: input.channel,
+                peak: max.abs().max(min.abs()),
+            }
         } else {
             Error::DcOnly {
                 channel: input.channel,

@@ -295,9 +295,10 @@ pub fn power_from_capture(
         };
         match analyzer.analyze(&input, cal) {
             Ok(r) => steps.push(step_from(s.level_dbfs, &r)),
-            Err(Error::NoTone { .. }) | Err(Error::Silent { .. }) | Err(Error::DcOnly { .. }) => {
-                missing.push(s.level_dbfs)
-            }
+            Err(Error::NoTone { .. })
+            | Err(Error::Silent { .. })
+            | Err(Error::DcOnly { .. })
+            | Err(Error::FarTooQuiet { .. }) => missing.push(s.level_dbfs),
             Err(e) => return Err(e),
         }
     }

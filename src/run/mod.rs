@@ -81,18 +81,18 @@ pub fn finish<T: ampnote::report::ChannelResult>(
 /// the `wanted` kind (`tone`, `steps`, `sweep`, `twotone`).
 pub fn read_stimulus(path: &Path, wanted: &'static str) -> Result<(Capture, Description), String> {
     let cap = Capture::read_wav(path, false).map_err(|e| e.to_string())?;
-    let desc = cap
-        .description_json
-        .as_deref()
-        .and_then(Description::from_json)
-        .filter(|d| d.kind.name() == wanted)
-        .ok_or_else(|| {
-            Error::NotAStimulus {
-                path: path.to_path_buf(),
-                wanted,
-            }
-            .to_string()
-        })?;
+    let not = |why: String| {
+        Error::NotAStimulus {
+            path: path.to_path_buf(),
+            wanted,
+            why,
+        }
+        .to_string()
+    };
+    let desc = Description::of_capture(&cap).map_err(not)?;
+    if desc.kind.name() != wanted {
+        return Err(not(format!("it is a {} stimulus", desc.kind.name())));
+    }
     Ok((cap, desc))
 }
 

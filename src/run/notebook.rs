@@ -175,16 +175,15 @@ fn runs_from_file(
         Some(p) => Some(Capture::read_wav(p, false).map_err(e)?),
         None => None,
     };
-    let desc = stim
-        .as_ref()
-        .and_then(|s| s.description_json.as_deref())
-        .and_then(Description::from_json);
-    if stim.is_some() && desc.is_none() {
-        return Err(format!(
-            "{} carries no stimulus description; give the file `ampnote generate` wrote",
-            stimulus.map_or(String::new(), |p| p.display().to_string())
-        ));
-    }
+    let desc = match &stim {
+        Some(s) => Some(Description::of_capture(s).map_err(|why| {
+            format!(
+                "{} is not one of ampnote's stimuli: {why}; give the file `ampnote generate` wrote",
+                stimulus.map_or(String::new(), |p| p.display().to_string())
+            )
+        })?),
+        None => None,
+    };
     let info = Capture::probe_wav(path).map_err(e)?;
     let mut out = Vec::new();
     for ch in 1..=info.channel_count {
@@ -448,10 +447,7 @@ fn reanalyze(dir: &Path, only: &[String]) -> Result<ExitCode, String> {
         };
         let cap = Capture::read_wav_channels(&cap_path, true, Some(&[ch])).map_err(e)?;
         let stim = Capture::read_wav(&run.dir.join("stimulus.wav"), false).ok();
-        let desc = stim
-            .as_ref()
-            .and_then(|s| s.description_json.as_deref())
-            .and_then(Description::from_json);
+        let desc = stim.as_ref().and_then(|s| Description::of_capture(s).ok());
         let pair = stim.as_ref().zip(desc.as_ref());
         let (procedure, v) = analyze_capture(
             &cap,

@@ -109,42 +109,298 @@ impl Description {
     }
 
     /// Parse a description found in a WAV; `None` when absent, not ampnote's, or inconsistent
-    /// (a hand-edited chunk must not lead an analysis astray).
+    /// (a hand-edited chunk must not lead an analysis astray). [`Description::parse`] says why.
     pub fn from_json(text: &str) -> Option<Description> {
-        let d: Description = serde_json::from_str(text).ok()?;
-        d.is_consistent().then_some(d)
+        Description::parse(text).ok()
+    }
+
+    /// Parse and check a description: the chunk is untrusted input (a file can be edited by
+    /// hand or damaged), so every field is range-checked before anything is sized from it.
+    pub fn parse(text: &str) -> std::result::Result<Description, String> {
+        if text.len() > 1 << 20 {
+            return Err(format!(
+                "its description chunk is {} bytes, far more than any stimulus needs",
+                text.len()
+            ));
+        }
+        let d: Description = serde_json::from_str(text)
+            .map_err(|e| format!("its description chunk does not parse ({e})"))?;
+        d.check()?;
+        Ok(d)
     }
 
     /// Signal channels inside the file, the signal inside the samples, a staircase with steps in
     /// order, a sweep with sane parameters.
     pub fn is_consistent(&self) -> bool {
-        let channels_ok = !self.signal_channels.is_empty()
-            && self
+        self.check().is_ok()
+    }
+
+    /// Every field in range and consistent with the others; the error names the field.
+    pub fn check(&self) -> std::result::Result<(), String> {
+        let fs = self.sample_rate_hz as f64;
+        let nyquist = fs / 2.0;
+        let bad = |field: &str, why: String| Err(format!("its description's {field} {why}"));
+        let finite_in = |x: f64, lo: f64, hi: f64| x.is_finite() && x >= lo && x <= hi;
+        if self.ampnote_stimulus == 0 || self.ampnote_stimulus > DESCRIPTION_VERSION {
+            return bad(
+                "ampnote_stimulus",
+                format!(
+                    "is {}, a version this build does not know (it reads 1..={DESCRIPTION_VERSION})",
+                    self.ampnote_stimulus
+                ),
+            );
+        }
+        if !(crate::capture::MIN_RATE_HZ..=crate::capture::MAX_RATE_HZ)
+            .contains(&self.sample_rate_hz)
+        {
+            return bad(
+                "sample_rate_hz",
+                format!("{} lies outside 8000..384000 Hz", self.sample_rate_hz),
+            );
+        }
+        if !finite_in(self.level_dbfs, -200.0, 0.0) {
+            return bad(
+                "level_dbfs",
+                format!("{} lies outside -200..0 dBFS", self.level_dbfs),
+            );
+        }
+        if !(1..=64).contains(&self.channels) {
+            return bad("channels", format!("{} lies outside 1..64", self.channels));
+        }
+        if self.signal_channels.is_empty()
+            || self
                 .signal_channels
                 .iter()
-                .all(|&c| c >= 1 && c <= self.channels);
-        let span_ok = self.signal_start_sample + self.signal_samples <= self.total_samples;
-        let kind_ok = match &self.kind {
-            Kind::Steps { steps, .. } => {
-                !steps.is_empty()
-                    && steps.iter().all(|s| {
-                        s.start_sample <= s.analyse_from_sample
-                            && s.analyse_from_sample < s.analyse_to_sample
-                            && s.analyse_to_sample <= self.total_samples
-                    })
+                .any(|&c| c == 0 || c > self.channels)
+        {
+            return bad(
+                "signal_channels",
+                format!(
+                    "{:?} are not within 1..{}",
+                    self.signal_channels, self.channels
+                ),
+            );
+        }
+        for (field, v) in [("lead_s", self.lead_s), ("tail_s", self.tail_s)] {
+            if !finite_in(v, 0.0, MAX_STIMULUS_S) {
+                return bad(field, format!("{v} lies outside 0..{MAX_STIMULUS_S} s"));
+            }
+        }
+        let max_samples = (MAX_STIMULUS_S * fs) as usize;
+        if self.total_samples > max_samples {
+            return bad(
+                "total_samples",
+                format!(
+                    "{} is more than {MAX_STIMULUS_S} s at its rate",
+                    self.total_samples
+                ),
+            );
+        }
+        if self.signal_samples == 0
+            || self
+                .signal_start_sample
+                .checked_add(self.signal_samples)
+                .is_none_or(|end| end > self.total_samples)
+        {
+            return bad(
+                "signal span",
+                format!(
+                    "({} samples from {}) does not lie within its {} samples",
+                    self.signal_samples, self.signal_start_sample, self.total_samples
+                ),
+            );
+        }
+        if (self.signal_start_sample as f64 - self.lead_s * fs).abs() > 2.0 {
+            return bad(
+                "signal_start_sample",
+                format!(
+                    "{} does not match its lead of {} s",
+                    self.signal_start_sample, self.lead_s
+                ),
+            );
+        }
+        let freq = |field: &str, f: f64| -> std::result::Result<(), String> {
+            if f.is_finite() && f > 0.0 && f < nyquist {
+                Ok(())
+            } else {
+                Err(format!(
+                    "its description's {field} {f} Hz lies outside 0..{nyquist} Hz (the Nyquist frequency of its rate)"
+                ))
+            }
+        };
+        let secs_in = |field: &str, v: f64, hi: f64| -> std::result::Result<(), String> {
+            if finite_in(v, 0.0, hi) {
+                Ok(())
+            } else {
+                Err(format!(
+                    "its description's {field} {v} s lies outside 0..{hi} s"
+                ))
+            }
+        };
+        let signal_s = self.signal_samples as f64 / fs;
+        match &self.kind {
+            Kind::Tone { frequency_hz } => freq("frequency_hz", *frequency_hz)?,
+            Kind::TwoTone {
+                low_hz,
+                high_hz,
+                ratio,
+                ..
+            } => {
+                freq("low_hz", *low_hz)?;
+                freq("high_hz", *high_hz)?;
+                if high_hz <= low_hz {
+                    return bad(
+                        "high_hz",
+                        format!("{high_hz} Hz is not above low_hz {low_hz} Hz"),
+                    );
+                }
+                if !finite_in(*ratio, 1e-3, 1e3) {
+                    return bad("ratio", format!("{ratio} lies outside 0.001..1000"));
+                }
             }
             Kind::Sweep {
                 start_hz,
                 stop_hz,
                 rate_s,
-                ..
-            } => *start_hz > 0.0 && stop_hz > start_hz && *rate_s > 0.0,
-            Kind::Tone { frequency_hz } => *frequency_hz > 0.0,
-            Kind::TwoTone {
-                low_hz, high_hz, ..
-            } => *low_hz > 0.0 && high_hz > low_hz,
+                duration_s,
+                fade_in_s,
+                fade_out_s,
+            } => {
+                freq("start_hz", *start_hz)?;
+                freq("stop_hz", *stop_hz)?;
+                if *stop_hz <= 1.5 * start_hz {
+                    return bad(
+                        "stop_hz",
+                        format!("{stop_hz} Hz is not well above start_hz {start_hz} Hz"),
+                    );
+                }
+                // L ln(f2/f1) is the sweep's length, and the length is the signal span's.
+                let expected = rate_s * (stop_hz / start_hz).ln();
+                if !(rate_s.is_finite() && *rate_s > 0.0)
+                    || (expected - signal_s).abs() > 0.01 * signal_s + 2.0 / fs
+                {
+                    return bad(
+                        "rate_s",
+                        format!("{rate_s} s gives a {expected:.4} s sweep, but its signal lasts {signal_s:.4} s"),
+                    );
+                }
+                if (duration_s - signal_s).abs() > 2.0 / fs {
+                    return bad(
+                        "duration_s",
+                        format!("{duration_s} s does not match its signal span of {signal_s:.4} s"),
+                    );
+                }
+                secs_in("fade_in_s", *fade_in_s, signal_s)?;
+                secs_in("fade_out_s", *fade_out_s, signal_s)?;
+            }
+            Kind::Steps {
+                frequency_hz,
+                start_dbfs,
+                stop_dbfs,
+                step_db,
+                dwell_s,
+                settle_s,
+                steps,
+            } => {
+                freq("frequency_hz", *frequency_hz)?;
+                if !(finite_in(*start_dbfs, -200.0, 0.0) && finite_in(*stop_dbfs, *start_dbfs, 0.0))
+                {
+                    return bad(
+                        "start_dbfs/stop_dbfs",
+                        format!(
+                            "{start_dbfs}/{stop_dbfs} are not a rising run within -200..0 dBFS"
+                        ),
+                    );
+                }
+                if !finite_in(*step_db, 1e-3, 60.0) {
+                    return bad("step_db", format!("{step_db} lies outside 0.001..60 dB"));
+                }
+                secs_in("dwell_s", *dwell_s, MAX_STIMULUS_S)?;
+                secs_in("settle_s", *settle_s, *dwell_s)?;
+                if steps.is_empty() || steps.len() > 1000 {
+                    return bad(
+                        "steps",
+                        format!("has {} entries (1..1000 expected)", steps.len()),
+                    );
+                }
+                let mut previous_end = 0;
+                for (i, st) in steps.iter().enumerate() {
+                    let ok = finite_in(st.level_dbfs, -200.0, 0.0)
+                        && st.start_sample >= previous_end
+                        && st.start_sample <= st.analyse_from_sample
+                        && st.analyse_from_sample < st.analyse_to_sample
+                        && st.analyse_to_sample <= self.total_samples;
+                    if !ok {
+                        return bad(
+                            "steps",
+                            format!("entry {} is out of order or outside the file", i + 1),
+                        );
+                    }
+                    previous_end = st.analyse_to_sample;
+                }
+            }
+        }
+        Ok(())
+    }
+
+    /// The description of the stimulus file `cap` (every channel decoded), checked against the
+    /// file itself: its rate, channels and length, a silent lead and a signal at about the level
+    /// the description states (the first step's, for a staircase).
+    pub fn of_capture(cap: &crate::capture::Capture) -> std::result::Result<Description, String> {
+        let text = cap
+            .description_json
+            .as_deref()
+            .ok_or("it carries no description (any WAV a recorder or editor writes)")?;
+        let d = Description::parse(text)?;
+        if d.sample_rate_hz != cap.sample_rate_hz {
+            return Err(format!(
+                "its description says {} Hz but the file is at {} Hz (resampled after it was made?)",
+                d.sample_rate_hz, cap.sample_rate_hz
+            ));
+        }
+        if d.channels != cap.channel_count {
+            return Err(format!(
+                "its description says {} channel(s) but the file has {}",
+                d.channels, cap.channel_count
+            ));
+        }
+        if d.total_samples != cap.frames() {
+            return Err(format!(
+                "its description says {} frames but the file has {} (edited or cut after it was made?)",
+                d.total_samples,
+                cap.frames()
+            ));
+        }
+        let Some(x) = cap.channel(d.signal_channels[0]) else {
+            return Err("its signal channel was not decoded".into());
         };
-        channels_ok && span_ok && kind_ok
+        let rms_db = |v: &[f64]| {
+            let p = v.iter().map(|s| s * s).sum::<f64>() / v.len().max(1) as f64;
+            // dBFS re a full-scale sine: RMS sqrt(1/2) is 0 dBFS.
+            10.0 * (2.0 * p).max(1e-30).log10()
+        };
+        let (from, len) = match &d.kind {
+            Kind::Steps { steps, .. } => (
+                steps[0].analyse_from_sample,
+                steps[0].analyse_to_sample - steps[0].analyse_from_sample,
+            ),
+            _ => (d.signal_start_sample, d.signal_samples),
+        };
+        let level = rms_db(&x[from..from + len]);
+        // Fades take a little off; dither and the sweep's own fade-in a little more at low
+        // levels. 3 dB either way is far tighter than an edited level and far looser than these.
+        if (level - d.level_dbfs).abs() > 3.0 {
+            return Err(format!(
+                "its signal reads {level:.1} dBFS where its description says {:.1} dBFS (the samples were changed after it was made?)",
+                d.level_dbfs
+            ));
+        }
+        if d.signal_start_sample > 0 && rms_db(&x[..d.signal_start_sample]) > d.level_dbfs - 40.0 {
+            return Err(
+                "its lead, silent when it was made, holds signal (the samples were changed after it was made?)".into(),
+            );
+        }
+        Ok(d)
     }
 }
 

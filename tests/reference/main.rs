@@ -18,6 +18,7 @@ mod safety;
 mod stimuli;
 mod sweep_response;
 mod targets;
+mod untrusted;
 mod wav_reading;
 mod weighting;
 mod window;

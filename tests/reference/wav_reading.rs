@@ -116,3 +116,66 @@ fn sixteen_bit_scaling_and_channel_selection() {
         32_767.0 / 32_768.0
     );
 }
+
+/// A plain PCM format chunk with each field given (so it can disagree with itself).
+fn fmt_pcm(channels: u16, rate: u32, block_align: u16, bits: u16) -> Vec<u8> {
+    let mut f = Vec::new();
+    f.extend_from_slice(&1u16.to_le_bytes());
+    f.extend_from_slice(&channels.to_le_bytes());
+    f.extend_from_slice(&rate.to_le_bytes());
+    f.extend_from_slice(&(rate * block_align as u32).to_le_bytes());
+    f.extend_from_slice(&block_align.to_le_bytes());
+    f.extend_from_slice(&bits.to_le_bytes());
+    chunk(b"fmt ", &f)
+}
+
+#[test]
+fn headers_that_disagree_with_themselves_are_refused_naming_the_field() {
+    let data = chunk(b"data", &[0u8; 600]);
+    let err = |bytes: Vec<u8>| read(&bytes).unwrap_err().to_string();
+    // Mono 16-bit samples in 3-byte blocks: block_align and bits_per_sample disagree.
+    let e = err(riff(&[fmt_pcm(1, 48_000, 3, 16), data.clone()]));
+    assert!(
+        e.contains("block_align") && e.contains("bits_per_sample"),
+        "{e}"
+    );
+    // A second format chunk.
+    let e = err(riff(&[
+        fmt_pcm(1, 48_000, 2, 16),
+        fmt_pcm(1, 48_000, 3, 24),
+        data.clone(),
+    ]));
+    assert!(e.contains("two format chunks"), "{e}");
+    // WAVE_FORMAT_EXTENSIBLE in an 18-byte chunk: too short for its extension, not "compressed".
+    let mut short = fmt_pcm(1, 48_000, 2, 16);
+    short[8] = 0xFE;
+    short[9] = 0xFF;
+    short[4] = 18;
+    short.extend_from_slice(&[0, 0]);
+    let e = err(riff(&[short, data.clone()]));
+    assert!(e.contains("EXTENSIBLE") && e.contains("18 bytes"), "{e}");
+    // A consistent header still reads.
+    assert!(read(&riff(&[fmt_pcm(1, 48_000, 2, 16), data])).is_ok());
+}
+
+#[test]
+fn a_signal_below_any_converter_is_not_called_dc() {
+    // A 1 kHz tone scaled by 1e-38 in 32-bit float: it moves, but 760 dB under full scale.
+    let x: Vec<f64> = (0..48_000)
+        .map(|i| 1e-38 * (2.0 * std::f64::consts::PI * 1000.0 * i as f64 / 48_000.0).sin())
+        .collect();
+    let e = ampnote::analysis::tone::ToneAnalyzer::new(Default::default())
+        .unwrap()
+        .analyze(
+            &ampnote::analysis::tone::ChannelInput {
+                channel: 1,
+                samples: &x,
+                sample_rate_hz: 48_000.0,
+                overload_threshold: 1.0,
+                resolution_bits: 24,
+            },
+            &Default::default(),
+        )
+        .unwrap_err();
+    assert!(matches!(e, ampnote::Error::FarTooQuiet { .. }), "{e}");
+}
