@@ -526,6 +526,9 @@ pub struct ImdArgs {
     pub json: bool,
     #[arg(long)]
     pub accept_truncated: bool,
+
+    #[command(flatten)]
+    pub save: SaveArgs,
 }
 
 #[derive(Debug, Args)]

@@ -13,7 +13,7 @@ pub enum Error {
         source: std::io::Error,
     },
 
-    #[error("cannot write {path}: {source}. Check that the folder exists and has space.")]
+    #[error("cannot write {path}: {}", write_advice(source))]
     Write {
         path: PathBuf,
         source: std::io::Error,
@@ -117,3 +117,18 @@ pub enum Error {
 
 /// Shorthand used across the library.
 pub type Result<T> = std::result::Result<T, Error>;
+
+/// What a failed write means, in plain words, and what to do.
+fn write_advice(e: &std::io::Error) -> String {
+    use std::io::ErrorKind as K;
+    match e.kind() {
+        K::StorageFull | K::FileTooLarge => {
+            "the disk is full (or a file-size limit was reached). Free some space and run the command again; nothing half-written was kept.".into()
+        }
+        K::PermissionDenied | K::ReadOnlyFilesystem => {
+            format!("permission denied ({e}). Choose a folder you can write to.")
+        }
+        K::NotFound => format!("{e}. Check that the folder exists."),
+        _ => format!("{e}. Check that the folder exists and has space."),
+    }
+}

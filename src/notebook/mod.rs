@@ -61,8 +61,87 @@ pub struct RunMeta {
     /// whose settings follow from the stimulus).
     #[serde(default, skip_serializing_if = "Option::is_none")]
     pub analysis: Option<AnalysisSettings>,
+    /// The measurement this run belongs to (the channels one command measured together); a run
+    /// whose siblings are missing is listed as incomplete, never as a whole measurement.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub measurement: Option<Measurement>,
     /// Files in the run folder.
     pub files: Vec<String>,
+}
+
+/// The channels one command measured together, kept as one measurement.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+pub struct Measurement {
+    pub id: String,
+    pub channels: Vec<usize>,
+    /// How many runs the measurement holds (a power run at several frequencies has several
+    /// per channel).
+    pub runs: usize,
+}
+
+/// A run folder that cannot be read as a run: which file, and why.
+#[derive(Debug, Clone, Serialize)]
+pub struct Damaged {
+    pub dir: PathBuf,
+    pub file: String,
+    pub reason: String,
+}
+
+/// Everything in a notebook's `runs/` folder.
+#[derive(Debug, Clone, Default)]
+pub struct Scan {
+    /// Complete runs of complete measurements, in id order.
+    pub runs: Vec<Run>,
+    /// Runs whose measurement lacks channels (an interrupted write): listed, never compared.
+    pub incomplete: Vec<Run>,
+    pub damaged: Vec<Damaged>,
+    /// Temporary folders left by writes that never finished (removed at the next write).
+    pub leftovers: usize,
+}
+
+/// Labels are kept whole in `run.json`; folder names use at most this many characters of them.
+const SLUG_CHARS: usize = 40;
+
+/// The longest label accepted (characters).
+pub const MAX_LABEL_CHARS: usize = 200;
+
+/// A label or note made safe to print: control characters and the bidirectional-override
+/// characters (which can reorder or hide what a terminal shows) written as `\u{..}` escapes.
+pub fn printable(text: &str) -> String {
+    text.chars()
+        .flat_map(|c| {
+            let hide = c.is_control()
+                || matches!(c, '\u{200E}' | '\u{200F}' | '\u{202A}'..='\u{202E}' | '\u{2066}'..='\u{2069}');
+            if hide {
+                format!("\\u{{{:x}}}", c as u32).chars().collect::<Vec<_>>()
+            } else {
+                vec![c]
+            }
+        })
+        .collect()
+}
+
+/// Refuse a label no one could select or read back: empty, blank, over
+/// [`MAX_LABEL_CHARS`], or holding control or bidirectional-override characters.
+pub fn check_label(label: &str) -> Result<()> {
+    if label.trim().is_empty() {
+        return Err(Error::InvalidSetting(
+            "--label must not be empty: name the state of the amplifier, for example stock or \"after driver rework\"".into(),
+        ));
+    }
+    if label.chars().count() > MAX_LABEL_CHARS {
+        return Err(Error::InvalidSetting(format!(
+            "--label is {} characters; keep it to {MAX_LABEL_CHARS} and put the rest in --note",
+            label.chars().count()
+        )));
+    }
+    if printable(label) != label {
+        return Err(Error::InvalidSetting(format!(
+            "--label holds control or text-direction characters ({}); use plain text",
+            printable(label)
+        )));
+    }
+    Ok(())
 }
 
 /// A run as read back: its folder, metadata and latest result.
@@ -125,6 +204,7 @@ impl Notebook {
                 "a notebook needs at least one channel".into(),
             ));
         }
+        let made_dir = !dir.exists();
         std::fs::create_dir_all(dir.join("runs")).map_err(io_err(dir))?;
         let info = NotebookInfo {
             ampnote_notebook: NOTEBOOK_VERSION,
@@ -135,7 +215,14 @@ impl Notebook {
             calibration,
         };
         let text = toml::to_string_pretty(&info).expect("notebook info serializes");
-        crate::files::write_whole(&file, text.as_bytes())?;
+        if let Err(err) = crate::files::write_whole(&file, text.as_bytes()) {
+            // Leave nothing behind that looks like a notebook.
+            let _ = std::fs::remove_dir(dir.join("runs"));
+            if made_dir {
+                let _ = std::fs::remove_dir(dir);
+            }
+            return Err(err);
+        }
         Ok(Notebook {
             dir: dir.to_path_buf(),
             info,
@@ -177,35 +264,63 @@ impl Notebook {
 
     /// Keep a run: assembled under a temporary name, renamed into place when whole.
     pub fn save(&self, run: NewRun) -> Result<Run> {
-        if run.channel == 0 || run.channel > self.info.channels {
-            return Err(Error::InvalidSetting(format!(
-                "channel {} is not in this notebook (channels 1..{})",
-                run.channel, self.info.channels
-            )));
+        Ok(self.save_measurement(vec![run])?.remove(0))
+    }
+
+    /// Keep the runs one command measured together (its channels) as one measurement: every
+    /// run is assembled in full under a temporary folder first, then each gets a run number
+    /// reserved atomically (so concurrent writers never share one) and is renamed into place.
+    /// Each run records the measurement's channels, so a write interrupted between two renames
+    /// shows as an incomplete measurement, never as a whole one.
+    pub fn save_measurement(&self, runs_in: Vec<NewRun>) -> Result<Vec<Run>> {
+        for run in &runs_in {
+            check_label(run.label)?;
+            if run.channel == 0 || run.channel > self.info.channels {
+                return Err(Error::InvalidSetting(format!(
+                    "channel {} is not in this notebook (channels 1..{})",
+                    run.channel, self.info.channels
+                )));
+            }
         }
         let runs = self.dir.join("runs");
-        std::fs::create_dir_all(&runs).map_err(io_err(&runs))?;
+        std::fs::create_dir_all(runs.join(CLAIMS)).map_err(io_err(&runs))?;
+        self.clean_leftovers();
         let tmp = runs.join(format!(".partial-{}-{}", std::process::id(), nanos()));
         std::fs::create_dir(&tmp).map_err(io_err(&tmp))?;
-        let outcome = (|| -> Result<Run> {
-            let mut files = Vec::new();
-            for (name, src) in &run.files {
-                std::fs::copy(src, tmp.join(name)).map_err(|source| Error::Write {
-                    path: tmp.join(name),
-                    source,
-                })?;
-                files.push(name.to_string());
+        let measurement = (runs_in.len() > 1).then(|| Measurement {
+            id: format!("{}-{}", std::process::id(), nanos()),
+            channels: runs_in.iter().map(|r| r.channel).collect(),
+            runs: runs_in.len(),
+        });
+        let outcome = (|| -> Result<Vec<Run>> {
+            // Everything written first, under the temporary folder.
+            let mut staged = Vec::new();
+            for (i, run) in runs_in.iter().enumerate() {
+                let dir = tmp.join(format!("{i}"));
+                std::fs::create_dir(&dir).map_err(io_err(&dir))?;
+                let mut files = Vec::new();
+                for (name, src) in &run.files {
+                    std::fs::copy(src, dir.join(name)).map_err(|source| Error::Write {
+                        path: dir.join(name),
+                        source,
+                    })?;
+                    files.push(name.to_string());
+                }
+                for (name, bytes) in &run.blobs {
+                    std::fs::write(dir.join(name), bytes).map_err(io_err(&dir.join(name)))?;
+                    files.push(name.to_string());
+                }
+                let result_text =
+                    serde_json::to_string_pretty(&run.result).expect("result serializes");
+                std::fs::write(dir.join("result.json"), result_text)
+                    .map_err(io_err(&dir.join("result.json")))?;
+                files.push("result.json".into());
+                staged.push((dir, files));
             }
-            for (name, bytes) in &run.blobs {
-                std::fs::write(tmp.join(name), bytes).map_err(io_err(&tmp.join(name)))?;
-                files.push(name.to_string());
-            }
-            let result_text = serde_json::to_string_pretty(&run.result).expect("result serializes");
-            std::fs::write(tmp.join("result.json"), result_text).map_err(io_err(&tmp))?;
-            files.push("result.json".into());
-            // Claim the next number; a rename never replaces an existing run.
-            for attempt in 0..1000 {
-                let n = self.next_number()? + attempt;
+            // Then each run gets its number and its place.
+            let mut kept = Vec::new();
+            for (run, (dir, files)) in runs_in.iter().zip(staged) {
+                let n = self.claim_number()?;
                 let id = format!(
                     "{n:04}-{}-ch{}-{}",
                     slug(run.label),
@@ -222,75 +337,190 @@ impl Notebook {
                     settings: run.settings.clone(),
                     calibration: run.calibration,
                     analysis: run.analysis.clone(),
+                    measurement: measurement.clone(),
                     files: files.clone(),
                 };
                 let meta_text = serde_json::to_string_pretty(&meta).expect("meta serializes");
-                std::fs::write(tmp.join("run.json"), meta_text).map_err(io_err(&tmp))?;
+                std::fs::write(dir.join("run.json"), meta_text)
+                    .map_err(io_err(&dir.join("run.json")))?;
                 let dest = runs.join(&id);
-                if dest.exists() {
-                    continue;
-                }
-                std::fs::rename(&tmp, &dest).map_err(io_err(&dest))?;
-                return Ok(Run {
+                std::fs::rename(&dir, &dest).map_err(io_err(&dest))?;
+                kept.push(Run {
                     dir: dest,
                     meta,
                     result: run.result.clone(),
                 });
             }
-            Err(Error::InvalidSetting(
-                "could not find a free run number".into(),
-            ))
+            Ok(kept)
         })();
-        if outcome.is_err() {
-            let _ = std::fs::remove_dir_all(&tmp);
-        }
+        let _ = std::fs::remove_dir_all(&tmp);
         outcome
     }
 
-    /// One past the highest run number among the folder names (no run file is read).
-    fn next_number(&self) -> Result<usize> {
-        let Ok(entries) = std::fs::read_dir(self.dir.join("runs")) else {
-            return Ok(1);
-        };
-        Ok(entries
-            .flatten()
-            .filter_map(|e| {
-                e.file_name()
-                    .to_string_lossy()
-                    .split('-')
-                    .next()?
-                    .parse::<usize>()
-                    .ok()
-            })
-            .max()
-            .unwrap_or(0)
-            + 1)
+    /// Reserve the next free run number: one past the highest among run folders and earlier
+    /// reservations, taken by creating its reservation file exclusively (an atomic operation:
+    /// of two writers, exactly one succeeds and the other tries the next number).
+    fn claim_number(&self) -> Result<usize> {
+        let claims = self.dir.join("runs").join(CLAIMS);
+        let mut n = self.next_number();
+        for _ in 0..100_000 {
+            match std::fs::OpenOptions::new()
+                .write(true)
+                .create_new(true)
+                .open(claims.join(format!("{n:06}")))
+            {
+                Ok(_) => return Ok(n),
+                Err(e) if e.kind() == std::io::ErrorKind::AlreadyExists => n += 1,
+                Err(e) => return Err(io_err(&claims)(e)),
+            }
+        }
+        Err(Error::InvalidSetting(
+            "could not reserve a run number: the notebook's runs/.claims folder is full of reservations".into(),
+        ))
     }
 
-    /// Every complete run, in id order (partial folders are skipped).
+    /// One past the highest run number among the run folders and the reservations.
+    fn next_number(&self) -> usize {
+        let runs = self.dir.join("runs");
+        let numbers = |dir: &Path| -> usize {
+            std::fs::read_dir(dir)
+                .map(|entries| {
+                    entries
+                        .flatten()
+                        .filter_map(|e| {
+                            e.file_name()
+                                .to_string_lossy()
+                                .split('-')
+                                .next()?
+                                .parse::<usize>()
+                                .ok()
+                        })
+                        .max()
+                        .unwrap_or(0)
+                })
+                .unwrap_or(0)
+        };
+        numbers(&runs).max(numbers(&runs.join(CLAIMS))) + 1
+    }
+
+    /// Remove temporary folders left by writes whose process is gone (killed, or the disk
+    /// filled). Returns how many were removed.
+    pub fn clean_leftovers(&self) -> usize {
+        let mut removed = 0;
+        for path in self.leftovers() {
+            if std::fs::remove_dir_all(&path).is_ok() {
+                removed += 1;
+            }
+        }
+        removed
+    }
+
+    /// Temporary folders whose writer is no longer running.
+    fn leftovers(&self) -> Vec<PathBuf> {
+        let Ok(entries) = std::fs::read_dir(self.dir.join("runs")) else {
+            return Vec::new();
+        };
+        entries
+            .flatten()
+            .filter_map(|e| {
+                let name = e.file_name().to_string_lossy().to_string();
+                let pid: u32 = name
+                    .strip_prefix(".partial-")?
+                    .split('-')
+                    .next()?
+                    .parse()
+                    .ok()?;
+                (!process_alive(pid)).then(|| e.path())
+            })
+            .collect()
+    }
+
+    /// Every complete run, in id order (partial, damaged and incomplete ones left out; see
+    /// [`Notebook::scan`]).
     pub fn runs(&self) -> Result<Vec<Run>> {
+        Ok(self.scan()?.runs)
+    }
+
+    /// Everything in `runs/`: complete runs, runs of incomplete measurements, damaged folders
+    /// (with the file and the reason), and leftovers of unfinished writes. A folder that is a
+    /// symbolic link is damaged, never followed (it could lead outside the notebook).
+    pub fn scan(&self) -> Result<Scan> {
         let runs_dir = self.dir.join("runs");
         let Ok(entries) = std::fs::read_dir(&runs_dir) else {
-            return Ok(Vec::new());
+            return Ok(Scan::default());
         };
-        let mut out = Vec::new();
+        let mut scan = Scan {
+            leftovers: self.leftovers().len(),
+            ..Scan::default()
+        };
+        let mut all = Vec::new();
         for e in entries.flatten() {
             let dir = e.path();
             let name = e.file_name().to_string_lossy().to_string();
-            if name.starts_with('.') || !dir.is_dir() {
+            if name.starts_with('.') {
                 continue;
             }
-            let Ok(meta_text) = std::fs::read_to_string(dir.join("run.json")) else {
-                continue;
+            let damaged = |file: &str, reason: String| Damaged {
+                dir: dir.clone(),
+                file: file.to_string(),
+                reason,
             };
-            let Ok(meta) = serde_json::from_str::<RunMeta>(&meta_text) else {
-                continue;
+            let kind = match std::fs::symlink_metadata(&dir) {
+                Ok(m) => m.file_type(),
+                Err(err) => {
+                    scan.damaged
+                        .push(damaged("", format!("cannot be read ({err})")));
+                    continue;
+                }
             };
-            let result = latest_result(&dir).unwrap_or(serde_json::Value::Null);
-            out.push(Run { dir, meta, result });
+            if kind.is_symlink() {
+                scan.damaged.push(damaged(
+                    "",
+                    "is a symbolic link; runs are folders inside the notebook, and a link is never followed".into(),
+                ));
+                continue;
+            }
+            if !kind.is_dir() {
+                continue;
+            }
+            let meta = match std::fs::read_to_string(dir.join("run.json")) {
+                Err(err) => Err(format!("cannot be read ({err})")),
+                Ok(text) => serde_json::from_str::<RunMeta>(&text)
+                    .map_err(|err| format!("does not parse ({err})")),
+            };
+            let meta = match meta {
+                Ok(m) => m,
+                Err(reason) => {
+                    scan.damaged.push(damaged("run.json", reason));
+                    continue;
+                }
+            };
+            let result = match latest_result(&dir) {
+                Ok(v) => v,
+                Err((file, reason)) => {
+                    scan.damaged.push(damaged(&file, reason));
+                    continue;
+                }
+            };
+            all.push(Run { dir, meta, result });
         }
-        out.sort_by(|a, b| a.meta.id.cmp(&b.meta.id));
-        Ok(out)
+        // A measurement is whole when all its runs are there.
+        let whole = |r: &Run| -> bool {
+            r.meta.measurement.as_ref().is_none_or(|m| {
+                all.iter()
+                    .filter(|o| o.meta.measurement.as_ref().is_some_and(|om| om.id == m.id))
+                    .count()
+                    >= m.runs
+            })
+        };
+        let (complete, incomplete): (Vec<Run>, Vec<Run>) =
+            all.clone().into_iter().partition(|r| whole(r));
+        scan.runs = complete;
+        scan.incomplete = incomplete;
+        scan.runs.sort_by(|a, b| a.meta.id.cmp(&b.meta.id));
+        scan.incomplete.sort_by(|a, b| a.meta.id.cmp(&b.meta.id));
+        scan.damaged.sort_by(|a, b| a.dir.cmp(&b.dir));
+        Ok(scan)
     }
 
     /// Runs under `label` (and `channel`, when given); an error listing what exists otherwise.
@@ -304,12 +534,13 @@ impl Notebook {
         if chosen.is_empty() {
             let mut labels: Vec<String> = all
                 .iter()
-                .map(|r| format!("{} (ch{})", r.meta.label, r.meta.channel))
+                .map(|r| format!("{} (ch{})", printable(&r.meta.label), r.meta.channel))
                 .collect();
             labels.sort();
             labels.dedup();
             return Err(Error::InvalidSetting(format!(
-                "no run labelled `{label}`{} in {}; it holds: {}",
+                "no run labelled `{}`{} in {}; it holds: {}",
+                printable(label),
                 channel.map_or(String::new(), |c| format!(" on channel {c}")),
                 self.dir.display(),
                 if labels.is_empty() {
@@ -333,23 +564,52 @@ impl Notebook {
     }
 }
 
-/// The newest `result*.json` of a run folder (re-analyses sort after the original).
-fn latest_result(dir: &Path) -> Option<serde_json::Value> {
+/// The newest `result*.json` of a run folder (re-analyses sort after the original), or the file
+/// that cannot be read and why.
+fn latest_result(dir: &Path) -> std::result::Result<serde_json::Value, (String, String)> {
     let mut names: Vec<String> = std::fs::read_dir(dir)
-        .ok()?
+        .map_err(|e| (String::new(), format!("cannot be read ({e})")))?
         .flatten()
         .map(|e| e.file_name().to_string_lossy().to_string())
         .filter(|n| n.starts_with("result") && n.ends_with(".json"))
         .collect();
     names.sort_by_key(|n| (n != "result.json", n.clone()));
-    let newest = names.last()?;
-    serde_json::from_str(&std::fs::read_to_string(dir.join(newest)).ok()?).ok()
+    let newest = names
+        .last()
+        .ok_or_else(|| ("result.json".to_string(), "is missing".to_string()))?;
+    let text = std::fs::read_to_string(dir.join(newest))
+        .map_err(|e| (newest.clone(), format!("cannot be read ({e})")))?;
+    let v: serde_json::Value = serde_json::from_str(&text)
+        .map_err(|e| (newest.clone(), format!("does not parse ({e})")))?;
+    if !v.is_object() {
+        return Err((newest.clone(), "holds no result (not a JSON object)".into()));
+    }
+    Ok(v)
 }
 
-/// A label as a file-name-safe word.
+/// The folder holding run-number reservations, inside `runs/`.
+const CLAIMS: &str = ".claims";
+
+/// Whether process `pid` is still running (Linux and other systems with `/proc`; elsewhere every
+/// writer is taken to be running, so a leftover is counted but never removed).
+fn process_alive(pid: u32) -> bool {
+    if pid == std::process::id() {
+        return true;
+    }
+    let proc_root = Path::new("/proc");
+    if proc_root.join("self").exists() {
+        proc_root.join(pid.to_string()).exists()
+    } else {
+        true
+    }
+}
+
+/// A label as a file-name-safe word of at most [`SLUG_CHARS`] characters (the label itself is
+/// kept whole in the run's metadata).
 pub fn slug(label: &str) -> String {
     let s: String = label
         .chars()
+        .take(SLUG_CHARS)
         .map(|c| {
             if c.is_ascii_alphanumeric() {
                 c.to_ascii_lowercase()

@@ -7,7 +7,9 @@
 //! detection limit on either side is shown as `< limit` and gives no delta, and staircases are
 //! compared frequency by frequency.
 
-use super::views::{view, LineView, NoiseView, PowerView, ResponseView, ToneView, ZoutView};
+use super::views::{
+    view, ImdView, LineView, NoiseView, PowerView, ResponseView, ToneView, ZoutView,
+};
 use crate::notebook::Run;
 use serde::Serialize;
 
@@ -488,6 +490,42 @@ pub fn compare(name_a: &str, a: &[Run], name_b: &str, b: &[Run]) -> Comparison {
                 add(fig, measured(x), measured(y), unit, None);
             }
         }
+        if let (Some(ia), Some(ib)) = (
+            latest::<ImdView>(a, "imd", ch),
+            latest::<ImdView>(b, "imd", ch),
+        ) {
+            let same_pair =
+                (ia.low_hz - ib.low_hz).abs() < 1.0 && (ia.high_hz - ib.high_hz).abs() < 1.0;
+            if same_pair {
+                let pair = format!(" ({:.0} + {:.0} Hz)", ia.low_hz, ia.high_hz);
+                add(
+                    &format!("IMD{pair}"),
+                    measured(ia.imd_percent),
+                    measured(ib.imd_percent),
+                    "%",
+                    None,
+                );
+                add(
+                    &format!("d2{pair}"),
+                    measured(ia.dd2_percent),
+                    measured(ib.dd2_percent),
+                    "%",
+                    None,
+                );
+                add(
+                    &format!("d3{pair}"),
+                    measured(ia.dd3_percent),
+                    measured(ib.dd3_percent),
+                    "%",
+                    None,
+                );
+            } else {
+                skipped.push(format!(
+                    "channel {ch}: the IMD runs used different pairs ({:.0} + {:.0} Hz and {:.0} + {:.0} Hz): not compared",
+                    ia.low_hz, ia.high_hz, ib.low_hz, ib.high_hz
+                ));
+            }
+        }
         if let (Some(za), Some(zb)) = (
             latest::<ZoutView>(a, "zout", ch),
             latest::<ZoutView>(b, "zout", ch),
@@ -717,17 +755,18 @@ impl Comparison {
     }
 
     pub fn to_table(&self) -> String {
-        let mut s = format!("{} -> {}\n", self.a, self.b);
+        let p = crate::notebook::printable;
+        let mut s = format!("{} -> {}\n", p(&self.a), p(&self.b));
         let mut last = 0;
         for l in &self.lines {
             if l.channel != last {
                 s += &format!("\nChannel {}\n", l.channel);
                 last = l.channel;
             }
-            s += &format!("  {}\n", l.sentence);
+            s += &format!("  {}\n", p(&l.sentence));
         }
         for w in &self.warnings {
-            s += &format!("  warning: {w}\n");
+            s += &format!("  warning: {}\n", p(w));
         }
         s
     }
@@ -741,8 +780,8 @@ impl MatchResult {
     pub fn to_table(&self) -> String {
         let mut s = format!(
             "{} against {}: {}\n\n",
-            self.a,
-            self.b,
+            crate::notebook::printable(&self.a),
+            crate::notebook::printable(&self.b),
             if self.pass { "MATCHED" } else { "NOT MATCHED" }
         );
         for c in &self.checks {
@@ -757,7 +796,7 @@ impl MatchResult {
             );
         }
         for w in &self.warnings {
-            s += &format!("  warning: {w}\n");
+            s += &format!("  warning: {}\n", crate::notebook::printable(w));
         }
         s
     }

@@ -92,8 +92,10 @@ macro_rules! render {
     }};
 }
 
-fn draw_err<E: std::fmt::Debug>(e: E) -> Error {
-    Error::InvalidSetting(format!("drawing a chart failed: {e:?}"))
+fn draw_err<E: std::fmt::Display>(e: E) -> Error {
+    Error::InvalidSetting(format!(
+        "could not draw or write a chart ({e}); if the disk is full, free space and run `ampnote report` again"
+    ))
 }
 
 /// What a line chart shows.
@@ -459,8 +461,11 @@ fn tone_views(run: &Run) -> Option<(Points, Points)> {
     Some((spectrum, residual))
 }
 
+/// Text for the page: control and text-direction characters made visible (see
+/// [`crate::notebook::printable`]), then the HTML specials escaped.
 fn escape(s: &str) -> String {
-    s.replace('&', "&amp;")
+    crate::notebook::printable(s)
+        .replace('&', "&amp;")
         .replace('<', "&lt;")
         .replace('>', "&gt;")
         .replace('"', "&quot;")

@@ -130,3 +130,32 @@ pub struct ZoutView {
     pub zout_sigma_ohms: Option<f64>,
     pub damping_factor: f64,
 }
+
+/// An intermodulation run.
+#[derive(Debug, Clone, Deserialize)]
+pub struct ImdView {
+    pub low_hz: f64,
+    pub high_hz: f64,
+    #[serde(default)]
+    pub imd_percent: Option<f64>,
+    #[serde(default)]
+    pub dd2_percent: Option<f64>,
+    #[serde(default)]
+    pub dd3_percent: Option<f64>,
+}
+
+impl ImdView {
+    /// One line: the total (modulation method) or d2 and d3 (difference-frequency).
+    pub fn headline(&self) -> String {
+        match (self.imd_percent, self.dd2_percent, self.dd3_percent) {
+            (Some(t), _, _) => {
+                format!("IMD {t:.3} % ({:.0} + {:.0} Hz)", self.low_hz, self.high_hz)
+            }
+            (None, Some(d2), Some(d3)) => format!(
+                "d2 {d2:.4} %, d3 {d3:.4} % ({:.0} + {:.0} Hz)",
+                self.low_hz, self.high_hz
+            ),
+            _ => format!("IMD ({:.0} + {:.0} Hz)", self.low_hz, self.high_hz),
+        }
+    }
+}

@@ -8,6 +8,7 @@ use ampnote::report::SCHEMA_VERSION;
 use std::process::ExitCode;
 
 pub fn run(args: &AnalyzeArgs) -> Result<ExitCode, String> {
+    super::check_save(&args.save)?;
     let config = args.tone_config()?;
     let cal = args.calibration.resolve(&args.save)?;
     let channel = args.channel_choice()?;
@@ -65,9 +66,9 @@ pub fn run(args: &AnalyzeArgs) -> Result<ExitCode, String> {
         }
     }
     ampnote::report::add_rig_notes(&mut channels, &notes);
+    let mut keeper = super::Keeper::new(&args.save);
     for r in &channels {
-        super::keep(
-            &args.save,
+        keeper.add(
             "tone",
             r.channel,
             cal,
@@ -76,8 +77,9 @@ pub fn run(args: &AnalyzeArgs) -> Result<ExitCode, String> {
             )),
             vec![("capture.wav", capture_path)],
             r,
-        )?;
+        );
     }
+    keeper.commit()?;
     let report = AnalyzeReport {
         schema_version: SCHEMA_VERSION,
         file: capture_path.display().to_string(),

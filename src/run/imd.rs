@@ -12,8 +12,9 @@ use ampnote::signal::stimulus::Kind;
 use std::process::ExitCode;
 
 pub fn run(args: &ImdArgs) -> Result<ExitCode, String> {
+    super::check_save(&args.save)?;
     let e = |err: Error| err.to_string();
-    let cal = args.calibration.calibration()?;
+    let cal = args.calibration.resolve(&args.save)?;
     let recorded = super::capture_or_record(
         &args.capture,
         &args.rig,
@@ -34,6 +35,7 @@ pub fn run(args: &ImdArgs) -> Result<ExitCode, String> {
             ))
         },
     )?;
+    let recorded_cal = recorded.calibration_or(cal);
     let notes = recorded.notes;
     let capture_path = recorded.capture.as_path();
     let stimulus = args.stimulus.clone().or(recorded.stimulus);
@@ -82,6 +84,15 @@ pub fn run(args: &ImdArgs) -> Result<ExitCode, String> {
         }
     }
     ampnote::report::add_rig_notes(&mut channels, &notes);
+    let mut keeper = super::Keeper::new(&args.save);
+    for r in &channels {
+        let mut files = vec![("capture.wav", capture_path)];
+        if let Some(st) = &stimulus {
+            files.insert(0, ("stimulus.wav", st.as_path()));
+        }
+        keeper.add("imd", r.channel, recorded_cal, None, files, r);
+    }
+    keeper.commit()?;
     let report = ImdReport {
         schema_version: SCHEMA_VERSION,
         file: capture_path.display().to_string(),

@@ -96,35 +96,101 @@ pub fn read_stimulus(path: &Path, wanted: &'static str) -> Result<(Capture, Desc
     Ok((cap, desc))
 }
 
-/// Keep one channel's result in the notebook the user named (if any), with the files that made it.
-pub fn keep(
-    save: &crate::cli::SaveArgs,
-    procedure: &str,
+/// The results of one command, kept in the notebook the user named (if any) as one
+/// measurement: every channel, or none (see [`ampnote::notebook::Notebook::save_measurement`]).
+pub struct Keeper<'a> {
+    save: &'a crate::cli::SaveArgs,
+    pending: Vec<Pending>,
+}
+
+struct Pending {
+    procedure: String,
     channel: usize,
     calibration: ampnote::calibration::Calibration,
     analysis: Option<ampnote::notebook::AnalysisSettings>,
-    files: Vec<(&str, &Path)>,
-    result: &impl serde::Serialize,
-) -> Result<(), String> {
-    let (Some(dir), Some(label)) = (&save.notebook, &save.label) else {
-        return Ok(());
-    };
-    let nb = ampnote::notebook::Notebook::open(dir).map_err(|e| e.to_string())?;
-    let run = nb
-        .save(ampnote::notebook::NewRun {
-            label,
+    files: Vec<(String, std::path::PathBuf)>,
+    result: serde_json::Value,
+}
+
+impl<'a> Keeper<'a> {
+    pub fn new(save: &'a crate::cli::SaveArgs) -> Self {
+        Keeper {
+            save,
+            pending: Vec::new(),
+        }
+    }
+
+    /// One channel's result, with the files that made it.
+    pub fn add(
+        &mut self,
+        procedure: &str,
+        channel: usize,
+        calibration: ampnote::calibration::Calibration,
+        analysis: Option<ampnote::notebook::AnalysisSettings>,
+        files: Vec<(&str, &Path)>,
+        result: &impl serde::Serialize,
+    ) {
+        if self.save.notebook.is_none() {
+            return;
+        }
+        self.pending.push(Pending {
+            procedure: procedure.to_string(),
             channel,
-            procedure,
-            notes: &save.note,
-            settings: save.settings_map()?,
             calibration,
             analysis,
-            files,
-            blobs: Vec::new(),
+            files: files
+                .into_iter()
+                .map(|(n, p)| (n.to_string(), p.to_path_buf()))
+                .collect(),
             result: serde_json::to_value(result).expect("results serialize"),
-        })
-        .map_err(|e| e.to_string())?;
-    eprintln!("kept as {} in {}", run.meta.id, dir.display());
+        });
+    }
+
+    /// Write every channel added, as one measurement.
+    pub fn commit(self) -> Result<(), String> {
+        let (Some(dir), Some(label)) = (&self.save.notebook, &self.save.label) else {
+            return Ok(());
+        };
+        if self.pending.is_empty() {
+            return Ok(());
+        }
+        let nb = ampnote::notebook::Notebook::open(dir).map_err(|e| e.to_string())?;
+        let settings = self.save.settings_map()?;
+        let runs: Vec<ampnote::notebook::NewRun> = self
+            .pending
+            .iter()
+            .map(|p| ampnote::notebook::NewRun {
+                label,
+                channel: p.channel,
+                procedure: &p.procedure,
+                notes: &self.save.note,
+                settings: settings.clone(),
+                calibration: p.calibration,
+                analysis: p.analysis.clone(),
+                files: p
+                    .files
+                    .iter()
+                    .map(|(n, path)| (n.as_str(), path.as_path()))
+                    .collect(),
+                blobs: Vec::new(),
+                result: p.result.clone(),
+            })
+            .collect();
+        let kept = nb.save_measurement(runs).map_err(|e| e.to_string())?;
+        for run in kept {
+            eprintln!("kept as {} in {}", run.meta.id, dir.display());
+        }
+        Ok(())
+    }
+}
+
+/// Check the notebook and label before measuring, so a run is never made that cannot be kept.
+pub fn check_save(save: &crate::cli::SaveArgs) -> Result<(), String> {
+    if let (Some(dir), Some(label)) = (&save.notebook, &save.label) {
+        ampnote::notebook::Notebook::open(dir).map_err(|e| e.to_string())?;
+        ampnote::notebook::check_label(label).map_err(|e| e.to_string())?;
+        save.settings_map()?;
+    }
     Ok(())
 }
 

@@ -77,6 +77,7 @@ fn table(r: &NoiseReport) -> String {
 }
 
 pub fn run(args: &NoiseArgs) -> Result<ExitCode, String> {
+    super::check_save(&args.save)?;
     let e = |err: ampnote::Error| err.to_string();
     let cal = args.calibration.resolve(&args.save)?;
     let (lo, hi) = args
@@ -129,6 +130,7 @@ pub fn run(args: &NoiseArgs) -> Result<ExitCode, String> {
     let analyzer = NoiseAnalyzer::new();
     let mut channels = Vec::new();
     let mut channel_errors = Vec::new();
+    let mut keeper = super::Keeper::new(&args.save);
     for &ch in &chosen {
         let cap = Capture::read_wav_channels(capture_path, false, Some(&[ch])).map_err(e)?;
         let input = ChannelInput {
@@ -141,15 +143,14 @@ pub fn run(args: &NoiseArgs) -> Result<ExitCode, String> {
         match analyzer.analyze(&input, (lo, hi), mains, &cal) {
             Ok(mut r) => {
                 ampnote::report::add_rig_notes(std::slice::from_mut(&mut r), &notes);
-                super::keep(
-                    &args.save,
+                keeper.add(
                     "noise",
                     ch,
                     cal,
                     None,
                     vec![("capture.wav", capture_path)],
                     &r,
-                )?;
+                );
                 channels.push(r)
             }
             Err(err) => channel_errors.push(ChannelError {
@@ -158,6 +159,7 @@ pub fn run(args: &NoiseArgs) -> Result<ExitCode, String> {
             }),
         }
     }
+    keeper.commit()?;
     let report = NoiseReport {
         schema_version: ampnote::report::SCHEMA_VERSION,
         file: capture_path.display().to_string(),

@@ -78,39 +78,88 @@ pub fn notebook(action: &NotebookAction) -> Result<ExitCode, String> {
         NotebookAction::Reanalyze { dir, runs } => reanalyze(dir, runs),
         NotebookAction::Log { dir, json } => {
             let nb = Notebook::open(dir).map_err(e)?;
-            let runs = nb.runs().map_err(e)?;
+            let scan = nb.scan().map_err(e)?;
             if *json {
-                let list: Vec<serde_json::Value> = runs
-                    .iter()
-                    .map(|r| serde_json::json!({"meta": r.meta, "headline": headline(r)}))
-                    .collect();
-                let v = serde_json::json!({
-                    "schema_version": ampnote::report::SCHEMA_VERSION,
-                    "amplifier": nb.info.amplifier,
-                    "runs": list,
-                });
+                #[derive(serde::Serialize)]
+                struct LogRun<'a> {
+                    meta: &'a ampnote::notebook::RunMeta,
+                    headline: String,
+                }
+                #[derive(serde::Serialize)]
+                struct Log<'a> {
+                    schema_version: u32,
+                    amplifier: &'a str,
+                    runs: Vec<LogRun<'a>>,
+                    incomplete: Vec<LogRun<'a>>,
+                    damaged: &'a [ampnote::notebook::Damaged],
+                    leftovers: usize,
+                }
+                fn row(r: &Run) -> LogRun<'_> {
+                    LogRun {
+                        meta: &r.meta,
+                        headline: headline(r),
+                    }
+                }
+                let log = Log {
+                    schema_version: ampnote::report::SCHEMA_VERSION,
+                    amplifier: &nb.info.amplifier,
+                    runs: scan.runs.iter().map(row).collect(),
+                    incomplete: scan.incomplete.iter().map(row).collect(),
+                    damaged: &scan.damaged,
+                    leftovers: scan.leftovers,
+                };
                 super::print_stdout(
-                    &(serde_json::to_string_pretty(&v).expect("serializes") + "\n"),
+                    &(serde_json::to_string_pretty(&log).expect("serializes") + "\n"),
                 );
             } else {
+                let p = ampnote::notebook::printable;
                 let mut s = format!(
                     "{}: {} ({} channel(s))\n",
                     nb.dir.display(),
-                    nb.info.amplifier,
+                    p(&nb.info.amplifier),
                     nb.info.channels
                 );
-                if runs.is_empty() {
+                if scan.runs.is_empty() {
                     s += "  no runs yet: save one with --notebook DIR --label LABEL on a measuring command, or run `ampnote demo`\n";
                 }
-                for r in &runs {
-                    s += &format!(
+                let line = |r: &Run| {
+                    format!(
                         "  {:<36} {}  {:<18} ch{}  {:<9} {}\n",
-                        r.meta.id,
+                        p(&r.meta.id),
                         r.meta.time,
-                        r.meta.label,
+                        p(&r.meta.label),
                         r.meta.channel,
-                        r.meta.procedure,
+                        p(&r.meta.procedure),
                         headline(r)
+                    )
+                };
+                for r in &scan.runs {
+                    s += &line(r);
+                }
+                if !scan.incomplete.is_empty() {
+                    s += &format!(
+                        "\n  incomplete measurements (a write was interrupted; not compared): {}\n",
+                        scan.incomplete.len()
+                    );
+                    for r in &scan.incomplete {
+                        s += &line(r);
+                    }
+                }
+                if !scan.damaged.is_empty() {
+                    s += "\n  damaged run folders (not read; repair or remove them):\n";
+                    for d in &scan.damaged {
+                        s += &format!(
+                            "  {} {} {}\n",
+                            p(&d.dir.display().to_string()),
+                            p(&d.file),
+                            p(&d.reason)
+                        );
+                    }
+                }
+                if scan.leftovers > 0 {
+                    s += &format!(
+                        "\n  {} unfinished write(s) left temporary folders behind; the next write removes them\n",
+                        scan.leftovers
                     );
                 }
                 super::print_stdout(&s);
@@ -120,45 +169,57 @@ pub fn notebook(action: &NotebookAction) -> Result<ExitCode, String> {
     }
 }
 
-/// The run's one-line figure.
+/// The run's one-line figure, from its result read as a typed view.
 fn headline(r: &Run) -> String {
-    let v = &r.result;
-    let f = |k: &str| v.get(k).and_then(|x| x.as_f64());
+    use ampnote::report::views::{view, NoiseView, PowerView, ResponseView, ToneView, ZoutView};
+    let unreadable = || format!("(its {} result does not read as one)", r.meta.procedure);
     match r.meta.procedure.as_str() {
-        "tone" => format!(
-            "THD {:.3} %, THD+N {:.3} % at {}",
-            f("thd_percent").unwrap_or(f64::NAN),
-            f("thdn_percent").unwrap_or(f64::NAN),
-            f("output_w").map_or_else(
-                || format!("{:.1} dBFS", f("fundamental_dbfs").unwrap_or(f64::NAN)),
-                |w| format!("{w:.2} W")
-            )
-        ),
-        "power" => v
-            .get("power_at_thd")
-            .and_then(|p| p.as_array())
-            .and_then(|p| p.first())
-            .and_then(|p| p.get("output_w").and_then(|w| w.as_f64()))
-            .map_or("power: 1 % not reached".into(), |w| {
-                format!("{w:.2} W at 1 % THD")
-            }),
-        "response" => {
+        "tone" => view::<ToneView>(&r.result).map_or_else(unreadable, |t| {
+            let thd = t.thd_percent.map_or("THD not measurable".to_string(), |v| {
+                format!("THD {}{v:.3} %", if t.thd_upper_bound { "< " } else { "" })
+            });
+            let at = t.output_w.map_or_else(
+                || format!("{:.1} dBFS", t.fundamental_dbfs),
+                |w| format!("{w:.2} W"),
+            );
+            format!("{thd}, THD+N {:.3} % at {at}", t.thdn_percent)
+        }),
+        "power" => view::<PowerView>(&r.result).map_or_else(unreadable, |p| {
+            let at = p.power_at_thd.iter().find(|q| q.thd_percent == 1.0);
+            match at {
+                Some(q) => match q.output_w {
+                    Some(w) => format!("{w:.2} W at 1 % THD ({:.0} Hz)", p.frequency_hz),
+                    None => format!(
+                        "{:.1} dBFS at 1 % THD ({:.0} Hz)",
+                        q.output_dbfs, p.frequency_hz
+                    ),
+                },
+                None => format!("power: 1 % not reached ({:.0} Hz)", p.frequency_hz),
+            }
+        }),
+        "response" => view::<ResponseView>(&r.result).map_or_else(unreadable, |v| {
             let hz =
-                |k: &str| f(k).map_or("beyond the sweep".to_string(), |v| format!("{v:.1} Hz"));
-            format!("-3 dB at {} and {}", hz("low_3db_hz"), hz("high_3db_hz"))
-        }
-        "noise" => format!(
-            "noise {:.1} dBFS ({:.1} A-weighted){}",
-            f("noise_dbfs").unwrap_or(f64::NAN),
-            f("noise_a_dbfs").unwrap_or(f64::NAN),
-            f("snr_a_re_1w_db").map_or(String::new(), |s| format!(", S/N {s:.1} dB(A) re 1 W"))
-        ),
-        "zout" => format!(
-            "{:.2} ohm, damping factor {:.1}",
-            f("zout_ohms").unwrap_or(f64::NAN),
-            f("damping_factor").unwrap_or(f64::NAN)
-        ),
-        other => other.to_string(),
+                |x: Option<f64>| x.map_or("beyond the sweep".to_string(), |v| format!("{v:.1} Hz"));
+            format!("-3 dB at {} and {}", hz(v.low_3db_hz), hz(v.high_3db_hz))
+        }),
+        "noise" => view::<NoiseView>(&r.result).map_or_else(unreadable, |n| {
+            format!(
+                "noise {:.1} dBFS ({:.1} A-weighted){}",
+                n.noise_dbfs,
+                n.noise_a_dbfs,
+                n.snr_a_re_1w_db
+                    .map_or(String::new(), |s| format!(", S/N {s:.1} dB(A) re 1 W"))
+            )
+        }),
+        "zout" => view::<ZoutView>(&r.result).map_or_else(unreadable, |z| {
+            format!(
+                "{:.2} ohm, damping factor {:.1}",
+                z.zout_ohms, z.damping_factor
+            )
+        }),
+        "imd" => view::<ampnote::report::views::ImdView>(&r.result)
+            .map_or_else(unreadable, |i| i.headline()),
+        other => ampnote::notebook::printable(other),
     }
 }
 
@@ -202,6 +263,7 @@ fn runs_from_file(
                 settings: Default::default(),
                 calibration: *cal,
                 analysis: None,
+                measurement: None,
                 files: vec![],
             },
             result,

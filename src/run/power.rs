@@ -17,6 +17,7 @@ fn first_start(steps: &[ampnote::signal::stimulus::Step]) -> usize {
 }
 
 pub fn run(args: &PowerArgs) -> Result<ExitCode, String> {
+    super::check_save(&args.save)?;
     let e = |err: Error| err.to_string();
     let flags = args.calibration.resolve(&args.save)?;
     let mut results = Vec::new();
@@ -139,13 +140,15 @@ pub fn run(args: &PowerArgs) -> Result<ExitCode, String> {
             }
         }
     }
+    let mut keeper = super::Keeper::new(&args.save);
     for r in &results {
         let mut files = Vec::new();
         if let (Some(c), Some(st)) = (&args.capture, &args.stimulus) {
             files = vec![("stimulus.wav", st.as_path()), ("capture.wav", c.as_path())];
         }
-        super::keep(&args.save, "power", r.channel, used, None, files, r)?;
+        keeper.add("power", r.channel, used, None, files, r);
     }
+    keeper.commit()?;
     let report = PowerReport {
         schema_version: SCHEMA_VERSION,
         source,

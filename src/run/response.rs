@@ -28,6 +28,7 @@ fn loopback_response(args: &ResponseArgs) -> Result<Vec<(f64, f64)>, String> {
 }
 
 pub fn run(args: &ResponseArgs) -> Result<ExitCode, String> {
+    super::check_save(&args.save)?;
     let e = |err: Error| err.to_string();
     let cal = args.calibration.resolve(&args.save)?;
     let analyzer = ResponseAnalyzer::new(ResponseConfig {
@@ -118,9 +119,9 @@ pub fn run(args: &ResponseArgs) -> Result<ExitCode, String> {
         }
     }
     ampnote::report::add_rig_notes(&mut channels, &notes);
+    let mut keeper = super::Keeper::new(&args.save);
     for r in &channels {
-        super::keep(
-            &args.save,
+        keeper.add(
             "response",
             r.channel,
             cal,
@@ -132,8 +133,9 @@ pub fn run(args: &ResponseArgs) -> Result<ExitCode, String> {
                 ("capture.wav", capture_path),
             ],
             r,
-        )?;
+        );
     }
+    keeper.commit()?;
     let report = ResponseReport {
         schema_version: SCHEMA_VERSION,
         file: capture_path.display().to_string(),

@@ -92,6 +92,7 @@ fn from_responses(
 }
 
 pub fn run(args: &ZoutArgs) -> Result<ExitCode, String> {
+    super::check_save(&args.save)?;
     let loads: Vec<f64> = args
         .loads
         .split(',')
@@ -278,6 +279,7 @@ pub fn run(args: &ZoutArgs) -> Result<ExitCode, String> {
             results.push(res);
         }
     }
+    let mut keeper = super::Keeper::new(&args.save);
     for r in &results {
         let files: Vec<(&str, &std::path::Path)> = match &args.captures[..] {
             [a, b] => vec![
@@ -286,8 +288,9 @@ pub fn run(args: &ZoutArgs) -> Result<ExitCode, String> {
             ],
             _ => Vec::new(),
         };
-        super::keep(&args.save, "zout", r.channel, cal, None, files, r)?;
+        keeper.add("zout", r.channel, cal, None, files, r);
     }
+    keeper.commit()?;
     let report = ZoutReport {
         schema_version: SCHEMA_VERSION,
         source,

@@ -333,7 +333,7 @@ fn a_write_that_fails_half_way_leaves_the_notebook_intact() {
     let leftovers: Vec<_> = std::fs::read_dir(d.join("amp/runs"))
         .unwrap()
         .flatten()
-        .filter(|e| e.file_name().to_string_lossy().starts_with('.'))
+        .filter(|e| e.file_name().to_string_lossy().starts_with(".partial"))
         .collect();
     assert!(leftovers.is_empty(), "partial folders left behind");
     // A channel the notebook does not have.
