@@ -16,6 +16,7 @@ mod properties;
 mod quantization;
 mod safety;
 mod stimuli;
+mod store;
 mod sweep_response;
 mod targets;
 mod untrusted;
