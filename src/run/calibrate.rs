@@ -29,7 +29,39 @@ Before you connect anything (common practice; local electrical codes and license
   - Above about 30 V rms / 60 V DC an output is hazardous to touch.
 ";
 
-fn ask(prompt: &str, allowed: bool) -> Result<Option<f64>, String> {
+/// What a typed answer may be: the range of the calibration's one rule set
+/// ([`ampnote::calibration::Calibration::validated`]), so an answer is checked when it is typed,
+/// not after the last question.
+#[derive(Clone, Copy)]
+struct Range {
+    lo: f64,
+    hi: f64,
+    unit: &'static str,
+}
+
+/// The meter reading of the -20 dBFS tone: a tenth of the output full scale (1 mV to 1 kV).
+const METER: Range = Range {
+    lo: 1e-4,
+    hi: 100.0,
+    unit: "V rms",
+};
+const FULL_SCALE: Range = Range {
+    lo: 1e-3,
+    hi: 1e3,
+    unit: "V rms",
+};
+const RATIO: Range = Range {
+    lo: 1.0,
+    hi: 1e5,
+    unit: "(amplifier V / interface V; 1 means no attenuator)",
+};
+const LOAD: Range = Range {
+    lo: 0.1,
+    hi: 1e5,
+    unit: "ohm",
+};
+
+fn ask(prompt: &str, allowed: bool, range: Range) -> Result<Option<f64>, String> {
     if !allowed {
         return Ok(None);
     }
@@ -51,8 +83,11 @@ fn ask(prompt: &str, allowed: bool) -> Result<Option<f64>, String> {
             return Ok(None);
         }
         match t.parse::<f64>() {
-            Ok(v) if v.is_finite() && v > 0.0 => return Ok(Some(v)),
-            _ => eprintln!("  please type a positive number (or press Enter to skip)"),
+            Ok(v) if v.is_finite() && v >= range.lo && v <= range.hi => return Ok(Some(v)),
+            _ => eprintln!(
+                "  please type a number between {} and {} {} (or press Enter to skip)",
+                range.lo, range.hi, range.unit
+            ),
         }
     }
 }
@@ -132,6 +167,7 @@ fn live_loopback(
                 let _ = tx.send(ask(
                     "The tone plays now. Meter reading at the interface output (V rms), then Enter: ",
                     true,
+                    METER,
                 ));
             });
         }
@@ -187,6 +223,7 @@ pub fn run(args: &CalibrateArgs) -> Result<ExitCode, String> {
         None if args.output_fs_vrms.is_none() && args.rig.rig.is_none() => ask(
             "Meter reading at the interface output while the tone plays (V rms, Enter to skip): ",
             interactive,
+            METER,
         )?,
         None => None,
     };
@@ -239,6 +276,7 @@ pub fn run(args: &CalibrateArgs) -> Result<ExitCode, String> {
         input_fs = ask(
             "Interface input full scale (V rms that reads 0 dBFS, Enter to skip): ",
             interactive,
+            FULL_SCALE,
         )?;
     }
     let mut att = AttenuatorSection {
@@ -251,6 +289,7 @@ pub fn run(args: &CalibrateArgs) -> Result<ExitCode, String> {
         att.ratio = ask(
             "Attenuator ratio, amplifier V / interface V (10 for 20 dB; Enter if none): ",
             interactive,
+            RATIO,
         )?;
     }
     let load = match args.load_ohms {
@@ -258,6 +297,7 @@ pub fn run(args: &CalibrateArgs) -> Result<ExitCode, String> {
         None => ask(
             "Dummy-load resistance in ohms (Enter to skip): ",
             interactive,
+            LOAD,
         )?,
     };
     let profile = Profile {
@@ -270,7 +310,30 @@ pub fn run(args: &CalibrateArgs) -> Result<ExitCode, String> {
         load: load.map(|ohms| LoadSection { ohms: Some(ohms) }),
         loopback: (floor != LoopbackSection::default()).then_some(floor),
     };
-    let cal = profile.calibration().map_err(|e| e.to_string())?;
+    let cal = match profile.calibration() {
+        Ok(c) => c,
+        Err(err) if interactive => {
+            // Keep what was typed: the answers go beside the profile, to correct and rename.
+            let mut kept = args.out.clone().into_os_string();
+            kept.push(".answers.toml");
+            let kept = std::path::PathBuf::from(kept);
+            let text = format!(
+                "# answers typed into `ampnote calibrate`, not yet a valid profile: {err}\n{}",
+                profile.to_toml()
+            );
+            let saved = ampnote::files::write_whole(&kept, text.as_bytes()).is_ok();
+            return Err(if saved {
+                format!(
+                    "{err}; your answers are kept in {}: correct the value named and rename it to {}",
+                    kept.display(),
+                    args.out.display()
+                )
+            } else {
+                err.to_string()
+            });
+        }
+        Err(err) => return Err(err.to_string()),
+    };
     let mut missing = Vec::new();
     if cal.input_fs_vrms.is_none() {
         missing.push("--input-fs-vrms or --loopback");
