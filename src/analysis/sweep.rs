@@ -169,10 +169,19 @@ const MIN_IMPULSE_SNR_DB: f64 = 25.0;
 
 impl ResponseAnalyzer {
     pub fn new(config: ResponseConfig) -> Result<Self> {
-        if config.points_per_octave == 0 || config.max_harmonic < 2 {
-            return Err(Error::InvalidSetting(
-                "points per octave must be 1 or more and the highest harmonic 2 or more".into(),
-            ));
+        if !(1..=96).contains(&config.points_per_octave) || !(2..=20).contains(&config.max_harmonic)
+        {
+            return Err(Error::InvalidSetting(format!(
+                "--points-per-octave must lie in 1..=96 and --harmonics in 2..=20, got {} and {}",
+                config.points_per_octave, config.max_harmonic
+            )));
+        }
+        if let Some(n) = config.smoothing {
+            if !(1..=48).contains(&n) {
+                return Err(Error::InvalidSetting(format!(
+                    "--smooth takes N in 1..=48 (1/N octave), got {n}"
+                )));
+            }
         }
         if config.reference_hz.is_nan() || config.reference_hz <= 0.0 {
             return Err(Error::InvalidSetting(

@@ -261,15 +261,16 @@ impl ToneAnalyzer {
                 )));
             }
         }
-        if config.max_harmonic < 2 {
-            return Err(Error::InvalidSetting(
-                "--harmonics must be 2 or more (H2 is the first harmonic reported)".into(),
-            ));
+        if !(2..=1000).contains(&config.max_harmonic) {
+            return Err(Error::InvalidSetting(format!(
+                "--harmonics must lie in 2..=1000 (H2 is the first harmonic reported), got {}",
+                config.max_harmonic
+            )));
         }
         if let Mains::Hz(f) = config.mains {
-            if !(f.is_finite() && f > 0.0) {
+            if !(f.is_finite() && (10.0..=1000.0).contains(&f)) {
                 return Err(Error::InvalidSetting(format!(
-                    "--mains must be a positive frequency such as 50 or 60, got {f}"
+                    "--mains must be a frequency between 10 and 1000 Hz, such as 50 or 60, got {f}"
                 )));
             }
         }

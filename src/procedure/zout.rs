@@ -22,12 +22,12 @@ pub fn two_load(v1: f64, r1: f64, v2: f64, r2: f64) -> Result<f64> {
     Ok((v2 - v1) / den)
 }
 
-/// Both loads above 0 ohm, and different.
+/// Both loads within 0.1 ohm to 100 kohm (the calibration's load range), and different.
 pub fn check_loads(r1: f64, r2: f64) -> Result<()> {
     for (name, r) in [("first load", r1), ("second load", r2)] {
-        if !(r.is_finite() && r > 0.0) {
+        if !(r.is_finite() && (0.1..=1e5).contains(&r)) {
             return Err(Error::InvalidSetting(format!(
-                "the {name} must be above 0 ohm, got {r}"
+                "the {name} must lie between 0.1 and 100000 ohm, got {r}"
             )));
         }
     }

@@ -355,6 +355,20 @@ pub fn match_(args: &MatchArgs) -> Result<ExitCode, String> {
         power_db: args.power_tolerance,
         noise_db: args.noise_tolerance,
     };
+    for (name, v) in [
+        ("--gain-tolerance", tol.gain_db),
+        ("--response-tolerance", tol.response_db),
+        ("--phase-tolerance", tol.phase_deg),
+        ("--thd-tolerance", tol.thd_db),
+        ("--power-tolerance", tol.power_db),
+        ("--noise-tolerance", tol.noise_db),
+    ] {
+        if !(v.is_finite() && (0.0..=1000.0).contains(&v)) {
+            return Err(format!(
+                "{name} must be a number between 0 and 1000 (dB, or degrees for phase), got {v}"
+            ));
+        }
+    }
     let m = match_channels(&na, &a, &nb_name, &b, &tol);
     super::print_stdout(&if args.json { m.to_json() } else { m.to_table() });
     Ok(if m.pass {
