@@ -144,6 +144,8 @@ def main():
     ap.add_argument("--cases", type=int, default=3000)
     ap.add_argument("--seed", type=int, default=1)
     ap.add_argument("--bin", default="target/release/ampnote")
+    ap.add_argument("--flags", action="store_true", help="also every numeric flag")
+    ap.add_argument("--show-ok", action="store_true", help="print the flag cases that ran")
     a = ap.parse_args()
     rng = random.Random(a.seed)
     binary = os.path.abspath(a.bin)
@@ -192,6 +194,42 @@ def main():
             bad = os.path.join(tmp, f"{group}-{outcome}-{i}.wav")
             open(bad, "wb").write(spoiled)
             examples[outcome] = (bad, out[-400:])
+    # Hostile numbers in every numeric flag of the measuring commands (on the simulated bench
+    # or the generated files), one flag at a time.
+    if a.flags:
+        counts["flags"] = {}
+        hostile = ["nan", "inf", "-inf", "0", "-1", "1e-300", "1e300", "-0", "7999", "1e9"]
+        tone = os.path.join(tmp, "tone.wav")
+        sw = os.path.join(tmp, "sweep.wav")
+        st = os.path.join(tmp, "steps.wav")
+        tt = os.path.join(tmp, "twotone.wav")
+        caps = os.path.join(tmp, "caps")
+        rig = ["--rig", "sim", "--channel", "1", "--captures-dir", caps]
+        plans = [
+            (["analyze"] + rig, ["--freq", "--level", "--seconds", "--rate", "--watts"]),
+            (["analyze", tone], ["--harmonics", "--input-fs-vrms", "--attenuation", "--load-ohms"]),
+            (["response"] + rig, ["--from", "--to", "--level", "--seconds", "--rate", "--smooth",
+                                  "--points-per-octave", "--harmonics", "--reference"]),
+            (["imd"] + rig, ["--level", "--seconds", "--rate"]),
+            (["noise"] + rig, ["--seconds", "--rate"]),
+            (["power"] + rig, ["--freq", "--from", "--step", "--stop-thd", "--max-w", "--rate",
+                               "--dwell", "--settle"]),
+            (["zout"] + rig, ["--rate", "--freq", "--level", "--watts"]),
+            (["watch", "--rig", "sim", "--seconds", "0.3"], ["--freq", "--level", "--rate",
+                                                              "--refresh", "--watts"]),
+            (["generate", "sweep", "--out", sw + ".x"], ["--from", "--to", "--seconds", "--rate",
+                                                         "--level", "--lead", "--tail", "--fade"]),
+            (["generate", "steps", "--out", st + ".x"], ["--freq", "--from", "--to", "--step",
+                                                         "--dwell", "--settle"]),
+            (["generate", "twotone", "--out", tt + ".x"], ["--seconds", "--level"]),
+        ]
+        for base_cmd, flags in plans:
+            for flag in flags:
+                for v in hostile:
+                    outcome, out = run([binary] + base_cmd + [flag + "=" + v], timeout=60)
+                    counts["flags"][outcome] = counts["flags"].get(outcome, 0) + 1
+                    if outcome in ("panic", "hang", "crash") or (a.show_ok and outcome == "ok"):
+                        print(outcome, base_cmd, flag, v, out[-300:])
     for group, c in counts.items():
         total = sum(c.values())
         print(f"{group}: {total} tried, " + ", ".join(f"{k} {v}" for k, v in sorted(c.items())))

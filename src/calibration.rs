@@ -38,9 +38,12 @@ impl Calibration {
     pub fn validated(self) -> Result<Self> {
         let check = |names: &str, unit: &str, v: Option<f64>, lo: f64, hi: f64| -> Result<()> {
             match v {
-                Some(x) if !(x.is_finite() && x >= lo && x <= hi) => Err(Error::InvalidSetting(
-                    format!("{names} must lie between {lo} and {hi} {unit}, got {x}"),
-                )),
+                Some(x) if !(x.is_finite() && x >= lo && x <= hi) => {
+                    Err(Error::InvalidSetting(format!(
+                        "{names} must lie between {lo} and {hi} {unit}, got {}",
+                        crate::error::shown(x)
+                    )))
+                }
                 _ => Ok(()),
             }
         };
@@ -213,7 +216,8 @@ impl Profile {
                 ] {
                     if let Some(v) = v.filter(|v| !(v.is_finite() && *v >= 1.0 && *v <= 1e9)) {
                         return Err(Error::InvalidSetting(format!(
-                            "[attenuator] {name} must lie between 1 ohm and 1 Gohm, got {v}"
+                            "[attenuator] {name} must lie between 1 ohm and 1 Gohm, got {}",
+                            crate::error::shown(v)
                         )));
                     }
                 }

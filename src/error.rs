@@ -132,3 +132,13 @@ fn write_advice(e: &std::io::Error) -> String {
         _ => format!("{e}. Check that the folder exists and has space."),
     }
 }
+
+/// A number as a user typed it back in a message: plain when ordinary, in exponent form when
+/// tiny or huge (so 1e-300 never prints as three hundred zeros).
+pub fn shown(x: f64) -> String {
+    if x != 0.0 && x.is_finite() && !(1e-3..1e6).contains(&x.abs()) {
+        format!("{x:e}")
+    } else {
+        format!("{x}")
+    }
+}

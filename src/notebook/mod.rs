@@ -103,7 +103,7 @@ pub struct Scan {
 const SLUG_CHARS: usize = 40;
 
 /// The longest label accepted (characters).
-pub const MAX_LABEL_CHARS: usize = 200;
+pub const MAX_LABEL_CHARS: usize = 1000;
 
 /// A label or note made safe to print: control characters and the bidirectional-override
 /// characters (which can reorder or hide what a terminal shows) written as `\u{..}` escapes.

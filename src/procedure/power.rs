@@ -384,7 +384,8 @@ pub const RATE_RANGE_HZ: (u32, u32) = (8_000, 384_000);
 impl StaircaseSettings {
     /// Every setting finite and in range, checked before anything is opened or played: the power
     /// limit a positive number of watts (at most 10 kW), the THD stop above 0 and at most 100 %,
-    /// the first drive at most 0 dBFS (full scale) and above -140 dBFS, the step in (0, 6] dB,
+    /// the first drive at most 0 dBFS (full scale) and above -140 dBFS, the step 0.05-6 dB (at
+    /// most 2800 steps from -140 dBFS to full scale),
     /// dwell 0.05-60 s, settle 0-60 s, the rate 8-384 kHz and the frequency 10 Hz to 0.45 x the
     /// rate.
     pub fn validated(self) -> Result<Self> {
@@ -393,7 +394,7 @@ impl StaircaseSettings {
         if !(self.max_w.is_finite() && self.max_w > 0.0 && self.max_w <= 10_000.0) {
             return bad(format!(
                 "--max-w is the power limit no step may pass: a number of watts above 0 and at most 10000, got {}",
-                self.max_w
+                crate::error::shown(self.max_w)
             ));
         }
         if !(self.stop_thd_percent.is_finite()
@@ -402,31 +403,31 @@ impl StaircaseSettings {
         {
             return bad(format!(
                 "--stop-thd must lie above 0 and at most 100 %, got {}",
-                self.stop_thd_percent
+                crate::error::shown(self.stop_thd_percent)
             ));
         }
         if !within(self.from_dbfs, -140.0, 0.0) {
             return bad(format!(
                 "--from is the first drive in dBFS: between -140 and 0 (full scale), got {}",
-                self.from_dbfs
+                crate::error::shown(self.from_dbfs)
             ));
         }
-        if !(self.step_db.is_finite() && self.step_db > 0.0 && self.step_db <= 6.0) {
+        if !within(self.step_db, 0.05, 6.0) {
             return bad(format!(
-                "--step must lie in (0, 6] dB, got {}",
-                self.step_db
+                "--step must lie between 0.05 and 6 dB, got {}",
+                crate::error::shown(self.step_db)
             ));
         }
         if !within(self.dwell_s, 0.05, 60.0) {
             return bad(format!(
                 "--dwell must lie between 0.05 and 60 s, got {}",
-                self.dwell_s
+                crate::error::shown(self.dwell_s)
             ));
         }
         if !within(self.settle_s, 0.0, 60.0) {
             return bad(format!(
                 "--settle must lie between 0 and 60 s, got {}",
-                self.settle_s
+                crate::error::shown(self.settle_s)
             ));
         }
         let (lo, hi) = RATE_RANGE_HZ;
@@ -440,7 +441,7 @@ impl StaircaseSettings {
         if !within(self.frequency_hz, 10.0, top) {
             return bad(format!(
                 "--freq must lie between 10 Hz and 0.45 x the rate ({top} Hz), got {}",
-                self.frequency_hz
+                crate::error::shown(self.frequency_hz)
             ));
         }
         Ok(self)
@@ -558,6 +559,12 @@ pub fn run_staircase(
             break;
         }
         let next = drive + s.step_db;
+        // A safety net under the validated settings: a staircase never runs past this many
+        // steps (from -140 dBFS at the smallest step, refinements included, it needs under 4000).
+        if steps.len() >= 4000 {
+            stopped = Some("the staircase reached 4000 steps".to_string());
+            break;
+        }
         if next > 0.0 {
             stopped = Some("the drive reached full scale".to_string());
             break;

@@ -69,13 +69,19 @@ pub fn run(args: &WatchArgs) -> Result<ExitCode, String> {
             args.refresh
         ));
     }
-    if args.level > 0.0 {
+    if !(args.level.is_finite() && (-140.0..=0.0).contains(&args.level)) {
         return Err(format!(
-            "--level is the tone's RMS in dBFS and must be at most 0, got {}",
+            "--level is the tone's RMS in dBFS: between -140 and 0 (full scale), got {}",
             args.level
         ));
     }
     let rate = args.rate;
+    let (lo, hi) = ampnote::procedure::power::RATE_RANGE_HZ;
+    if !(lo..=hi).contains(&rate) {
+        return Err(format!(
+            "--rate must lie between {lo} and {hi} Hz, got {rate}"
+        ));
+    }
     let freq = args.freq.round();
     if !(freq >= 10.0 && freq < 0.45 * rate as f64) {
         return Err(format!(

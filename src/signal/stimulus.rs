@@ -467,7 +467,7 @@ fn check_common(c: &Common) -> Result<()> {
             c.sample_rate_hz
         ));
     }
-    if !(c.level_dbfs.is_finite() && c.level_dbfs <= 0.0) {
+    if !(c.level_dbfs.is_finite() && (-200.0..=0.0).contains(&c.level_dbfs)) {
         return bad(format!(
             "--level {} dBFS: the level must be 0 dBFS or below (0 dBFS is a full-scale sine)",
             c.level_dbfs
@@ -511,9 +511,10 @@ fn check_seconds(c: &Common, name: &str, seconds: f64) -> Result<()> {
 
 fn check_freq(c: &Common, name: &str, f: f64) -> Result<()> {
     let nyquist = c.sample_rate_hz as f64 / 2.0;
-    if !(f.is_finite() && f > 0.0 && f < nyquist) {
+    if !(f.is_finite() && f >= 1.0 && f < nyquist) {
         return Err(Error::InvalidSetting(format!(
-            "{name} {f} Hz must lie between 0 and the Nyquist frequency {nyquist} Hz"
+            "{name} {} Hz must lie between 1 Hz and the Nyquist frequency {nyquist} Hz",
+            crate::error::shown(f)
         )));
     }
     Ok(())
@@ -678,9 +679,17 @@ pub fn sweep(c: &Common, start_hz: f64, stop_hz: f64, seconds: f64) -> Result<St
         )));
     }
     check_seconds(c, "--seconds", seconds)?;
+    if start_hz < 1.0 {
+        return Err(Error::InvalidSetting(format!(
+            "--from {} Hz: a sweep starts at 1 Hz or above",
+            crate::error::shown(start_hz)
+        )));
+    }
     let ln = (stop_hz / start_hz).ln();
     let rate_s = (start_hz * seconds / ln).round().max(1.0) / start_hz;
     let duration_s = rate_s * ln;
+    // Synchronising rounds the length; it must still fit what a stimulus may last.
+    check_seconds(c, "the synchronised sweep's length", duration_s)?;
     let fs = c.sample_rate_hz as f64;
     let n = (duration_s * fs).floor() as usize;
     if n < 1024 {

@@ -62,7 +62,7 @@ proptest! {
         let safe = s.max_w.is_finite() && s.max_w > 0.0 && s.max_w <= 10_000.0
             && s.stop_thd_percent.is_finite() && s.stop_thd_percent > 0.0 && s.stop_thd_percent <= 100.0
             && s.from_dbfs.is_finite() && s.from_dbfs <= 0.0 && s.from_dbfs >= -140.0
-            && s.step_db.is_finite() && s.step_db > 0.0 && s.step_db <= 6.0
+            && (0.05..=6.0).contains(&s.step_db)
             && (0.05..=60.0).contains(&s.dwell_s) && (0.0..=60.0).contains(&s.settle_s)
             && (8_000..=384_000).contains(&s.sample_rate_hz)
             && s.frequency_hz.is_finite() && s.frequency_hz >= 10.0
