@@ -292,7 +292,7 @@ fn curves_for(runs: &[Run], procedure: &str, f: impl Fn(&Value) -> Vec<(f64, f64
             Curve {
                 name: format!(
                     "{}, {}",
-                    r.meta.label,
+                    crate::notebook::printable(&r.meta.label),
                     if r.meta.channel == 1 {
                         "left".to_string()
                     } else if r.meta.channel == 2 {
@@ -367,7 +367,11 @@ fn draw_profile<DB: DrawingBackend>(
         chart
             .draw_series(bars)
             .map_err(draw_err)?
-            .label(format!("{}, ch{}", r.meta.label, r.meta.channel))
+            .label(format!(
+                "{}, ch{}",
+                crate::notebook::printable(&r.meta.label),
+                r.meta.channel
+            ))
             .legend(move |(x, y)| Rectangle::new([(x, y - 5), (x + 14, y + 5)], fill));
     }
     chart
@@ -532,8 +536,8 @@ pub fn write_report(nb: &Notebook, out: &Path) -> Result<ReportFiles> {
             .map(|d| Curve {
                 name: format!(
                     "{} minus {}, {}",
-                    labels[1],
-                    labels[0],
+                    crate::notebook::printable(&labels[1]),
+                    crate::notebook::printable(&labels[0]),
                     if d.channel == 1 { "left" } else { "right" }
                 ),
                 color: PALETTE[1],
@@ -660,13 +664,13 @@ pub fn write_report(nb: &Notebook, out: &Path) -> Result<ReportFiles> {
             notes.push((f0 * 1.03, level + 4.0, "fundamental".to_string()));
         }
         spectra.push(Curve {
-            name: format!("{label}, left"),
+            name: format!("{}, left", crate::notebook::printable(label)),
             color,
             dashed: false,
             points: spec,
         });
         residuals.push(Curve {
-            name: format!("{label}, left"),
+            name: format!("{}, left", crate::notebook::printable(label)),
             color,
             dashed: false,
             points: res,

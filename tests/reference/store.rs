@@ -226,6 +226,26 @@ fn damaged_and_hostile_contents_are_listed_not_hidden() {
             "{err:?}"
         );
     }
+    // A label edited into run.json by hand: the log and the report show it escaped.
+    let good_dir = Notebook::open(Path::new(&nb)).unwrap().runs().unwrap()[0]
+        .dir
+        .clone();
+    let meta_path = good_dir.join("run.json");
+    let mut meta: ampnote::notebook::RunMeta =
+        serde_json::from_str(&std::fs::read_to_string(&meta_path).unwrap()).unwrap();
+    meta.label = "good\x1b[2J\u{202e}".into();
+    std::fs::write(&meta_path, serde_json::to_string(&meta).unwrap()).unwrap();
+    let (_, out, _) = run(&["notebook", "log", &nb]);
+    assert!(
+        !out.contains('\x1b') && !out.contains('\u{202e}'),
+        "{out:?}"
+    );
+    assert!(out.contains("\\u{1b}"), "{out}");
+    let report_dir = d.join("report");
+    let (code, _, err) = run(&["report", &nb, "--out", &report_dir.display().to_string()]);
+    assert_eq!(code, 0, "{err}");
+    let html = std::fs::read_to_string(report_dir.join("report.html")).unwrap();
+    assert!(!html.contains('\x1b') && !html.contains('\u{202e}'));
     let long = "a".repeat(150) + " after the driver rework";
     let (code, _, err) = run(&[
         "analyze",
