@@ -111,6 +111,9 @@ pub enum Error {
     #[error("live rig: {0}")]
     Rig(String),
 
+    #[error("report: {0}")]
+    Report(String),
+
     #[error("stopped by Ctrl-C (the output was silenced first){0}")]
     Interrupted(String),
 }

@@ -93,9 +93,21 @@ macro_rules! render {
 }
 
 fn draw_err<E: std::fmt::Display>(e: E) -> Error {
-    Error::InvalidSetting(format!(
-        "could not draw or write a chart ({e}); if the disk is full, free space and run `ampnote report` again"
-    ))
+    // The plotting library's message nests its own debug text; say what it means instead.
+    let text = e.to_string();
+    let full = [
+        "os error 28",
+        "os error 27",
+        "No space left",
+        "File too large",
+    ]
+    .iter()
+    .any(|k| text.contains(k));
+    Error::Report(if full {
+        "the disk is full (or a file-size limit was reached) while writing a chart. Free some space and run `ampnote report` again; the notebook itself is untouched.".into()
+    } else {
+        "a chart could not be drawn or written. Check that the report folder is writable and run `ampnote report` again; the notebook itself is untouched.".into()
+    })
 }
 
 /// What a line chart shows.
