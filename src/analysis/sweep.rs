@@ -546,6 +546,12 @@ impl ResponseAnalyzer {
                 ));
             }
         }
+        if reference_hz != self.config.reference_hz {
+            warnings.push(format!(
+                "the reference frequency {} Hz lies outside the sweep ({f_lo:.0}-{f_hi:.0} Hz): magnitudes are relative to {reference_hz:.0} Hz, the sweep's geometric centre, instead. Give --reference inside the sweep.",
+                crate::error::shown(self.config.reference_hz)
+            ));
+        }
         if dlo < f_lo || dhi > f_hi {
             warnings.push(format!(
                 "the sweep covers {f_lo:.0}-{f_hi:.0} Hz, less than the {dlo:.0}-{dhi:.0} Hz deviation band; figures outside the sweep are not reported."
