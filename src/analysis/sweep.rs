@@ -644,24 +644,38 @@ fn explained_by_response(
     inv.process(&mut spec, &mut predicted)
         .expect("sizes match the plan");
     let block = ((0.01 * x.fs) as usize).max(1);
-    let blocks: Vec<(f64, f64)> = x
+    // Per 10 ms block: the capture's energy, the residual's, the prediction's.
+    let blocks: Vec<(f64, f64, f64)> = x
         .capture
         .chunks(block)
         .zip(predicted.chunks(block))
         .map(|(c, p)| {
-            c.iter().zip(p).fold((0.0, 0.0), |(ec, er), (&c, &p)| {
-                (ec + c * c, er + (c - p) * (c - p))
-            })
+            c.iter()
+                .zip(p)
+                .fold((0.0, 0.0, 0.0), |(ec, er, ep), (&c, &p)| {
+                    (ec + c * c, er + (c - p) * (c - p), ep + p * p)
+                })
         })
         .collect();
     let (e_cap, e_res) = blocks
         .iter()
         .fold((0.0, 0.0), |a, b| (a.0 + b.0, a.1 + b.1));
     let loudest = blocks.iter().map(|b| b.0).fold(0.0, f64::max);
+    // What the amplifier adds of its own while the sweep plays (distortion, hum, noise): the
+    // median residual over the blocks where the prediction is active. Signal outside the sweep
+    // at that level is the same hum and noise, not another signal.
+    let predicted_top = blocks.iter().map(|b| b.2).fold(0.0, f64::max);
+    let mut own: Vec<f64> = blocks
+        .iter()
+        .filter(|b| b.2 >= 0.01 * predicted_top)
+        .map(|b| b.1)
+        .collect();
+    own.sort_by(f64::total_cmp);
+    let own_level = own.get(own.len() / 2).copied().unwrap_or(0.0);
     let bad: Vec<usize> = blocks
         .iter()
         .enumerate()
-        .filter(|(_, b)| b.0 >= 0.01 * loudest && b.1 > 0.5 * b.0)
+        .filter(|(_, b)| b.0 >= 0.01 * loudest && b.1 > 0.5 * b.0 && b.1 > 10.0 * own_level)
         .map(|(i, _)| i)
         .collect();
     let secs = |i: usize| (i * block) as f64 / x.fs;
@@ -674,8 +688,10 @@ fn explained_by_response(
 }
 
 /// A capture the response leaves more than half unexplained (residual within 3 dB of the
-/// capture), or with more than 50 ms of loud signal it does not explain, is not a recording of
-/// this sweep. Harmonic distortion stays far under that: 30 % THD leaves a residual of -10 dB.
+/// capture), or with more than 50 ms of loud signal it does not explain (10 dB above what the
+/// amplifier adds of its own while the sweep plays, so hum and noise before and after the sweep
+/// do not count), is not a recording of this sweep. Harmonic distortion stays far under that:
+/// 30 % THD leaves a residual of -10 dB.
 const MAX_RESIDUAL_SHARE: f64 = 0.5;
 const MAX_UNEXPLAINED_S: f64 = 0.05;
 

@@ -257,6 +257,25 @@ fn response_refuses_another_sweep_but_not_distortion() {
         "gain {}",
         r.reference_gain_db
     );
+    // Heavy hum (50 and 100 Hz, 15 dB under the sweep) before, during and after the sweep: the
+    // amplifier's own, not another signal; the gain stays the straight wire's 0 dB.
+    let rms = (x.iter().map(|v| v * v).sum::<f64>() / x.len() as f64).sqrt();
+    let a = rms * 2f64.sqrt() * 10f64.powf(-15.0 / 20.0);
+    let hummed: Vec<f64> = x
+        .iter()
+        .enumerate()
+        .map(|(i, v)| {
+            let t = i as f64 / FS;
+            v + a * (2.0 * std::f64::consts::PI * 50.0 * t).sin()
+                + 0.5 * a * (2.0 * std::f64::consts::PI * 100.0 * t).sin()
+        })
+        .collect();
+    let r = analyzer.analyze(1, &x, sp, &hummed, FS, 1.0).unwrap();
+    assert!(
+        r.reference_gain_db.abs() < 0.1,
+        "gain {}",
+        r.reference_gain_db
+    );
     // Another length, and another start frequency (the same rate, so the sweep shifted in time
     // with another end): refused.
     for (from, secs) in [(20.0, 3.0), (40.0, 2.0), (10.0, 2.0)] {
