@@ -88,6 +88,15 @@ impl NoiseAnalyzer {
                 why: String::new(),
             });
         }
+        if let Some((from, to)) = moving_line(&self.planner, input, band_hz, mains) {
+            return Err(Error::WrongKind {
+                channel: input.channel,
+                found: format!(
+                    "a line stands out of the noise in each part of the capture and moves from {from:.0} Hz to {to:.0} Hz across it: the capture holds a sweep, so it is not a noise measurement"
+                ),
+                next: "Short the amplifier's input (or stop the source) and record again; measure a sweep with `ampnote response CAPTURE.wav --stimulus SWEEP.wav`.".into(),
+            });
+        }
         let (stats, plan, buffers) = measure_spectrum(&self.planner, input)?;
         let out = analyze_spectrum(
             input,
@@ -311,4 +320,70 @@ fn signal_line(
         power,
         above_noise,
     })
+}
+
+/// A line moving across the capture: eight parts, each Hann-windowed; when at least six hold a
+/// line 30 dB over their median bin (no bin of noise reaches that: chi-square, 2 degrees of
+/// freedom) that is not a mains line, and those lines climb or fall steadily over more than an
+/// octave, the capture holds a sweep. Returns the first and last line's frequency.
+fn moving_line(
+    planner: &SpectrumPlanner,
+    input: &ChannelInput,
+    band_hz: (f64, f64),
+    mains: Mains,
+) -> Option<(f64, f64)> {
+    const PARTS: usize = 8;
+    let len = input.samples.len() / PARTS;
+    if len < 2048 {
+        return None;
+    }
+    let fs = input.sample_rate_hz;
+    let bin = fs / len as f64;
+    let fft = planner.forward(len);
+    let window = super::window::HANN.samples(len);
+    let families: Vec<f64> = match mains {
+        Mains::Hz(f) => vec![f],
+        Mains::Auto => vec![50.0, 60.0],
+    };
+    let is_mains = |f: f64| {
+        families.iter().any(|&m| {
+            let o = (f / m).round();
+            (1.0..=40.0).contains(&o) && (f - o * m).abs() <= 3.0 * bin
+        })
+    };
+    let k_lo = ((band_hz.0 / bin).ceil() as usize).max(2);
+    let k_hi = ((band_hz.1.min(fs / 2.0) / bin).floor() as usize).min(len / 2 - 1);
+    if k_hi <= k_lo + 16 {
+        return None;
+    }
+    let mut buf = vec![0.0; len];
+    let mut out = fft.make_output_vec();
+    let mut lines = Vec::new();
+    for part in input.samples.chunks_exact(len).take(PARTS) {
+        let mean = part.iter().sum::<f64>() / len as f64;
+        for ((b, &x), &w) in buf.iter_mut().zip(part).zip(&window) {
+            *b = (x - mean) * w;
+        }
+        fft.process(&mut buf, &mut out).ok()?;
+        let mut power: Vec<(usize, f64)> = (k_lo..=k_hi).map(|k| (k, out[k].norm_sqr())).collect();
+        let Some(&(k, p)) = power
+            .iter()
+            .filter(|(k, _)| !is_mains(*k as f64 * bin))
+            .max_by(|a, b| a.1.total_cmp(&b.1))
+        else {
+            continue;
+        };
+        power.sort_by(|a, b| a.1.total_cmp(&b.1));
+        let median = power[power.len() / 2].1;
+        if p > 1e3 * median {
+            lines.push(k as f64 * bin);
+        }
+    }
+    if lines.len() < 6 {
+        return None;
+    }
+    let rising = lines.windows(2).all(|w| w[1] > w[0]);
+    let falling = lines.windows(2).all(|w| w[1] < w[0]);
+    let (first, last) = (lines[0], lines[lines.len() - 1]);
+    ((rising || falling) && first.max(last) > 2.0 * first.min(last)).then_some((first, last))
 }

@@ -87,6 +87,23 @@ fn noise_refuses_a_tone_and_names_a_weaker_line() {
         r.warnings
     );
     assert!((r.noise_dbfs + 99.40).abs() < 0.3, "{}", r.noise_dbfs);
+    // A sweep over the noise: a line in every part, climbing: refused as a sweep.
+    let c = ampnote::signal::stimulus::Common::mono(48_000, -20.0);
+    let sw = ampnote::signal::stimulus::sweep(&c, 20.0, 20_000.0, 2.0).unwrap();
+    let swept = plus(&floor(sw.signal.len(), 9), &sw.signal);
+    let msg = wrong_kind(a.analyze(&input(&swept), band, Mains::Auto, &cal));
+    assert!(msg.contains("sweep"), "{msg}");
+    // Brown noise (integrated white noise, 1/f^2): its strongest bins sit at the band's bottom
+    // in every part and do not move, so it reads as noise.
+    let mut acc = 0.0;
+    let brown: Vec<f64> = floor(96_000, 10)
+        .iter()
+        .map(|v| {
+            acc = 0.999 * acc + v;
+            acc
+        })
+        .collect();
+    assert!(a.analyze(&input(&brown), band, Mains::Auto, &cal).is_ok());
 }
 
 #[test]
