@@ -79,7 +79,6 @@ pub fn run(args: &AnalyzeArgs) -> Result<ExitCode, String> {
             r,
         );
     }
-    keeper.commit()?;
     let report = AnalyzeReport {
         schema_version: SCHEMA_VERSION,
         file: capture_path.display().to_string(),
@@ -113,6 +112,8 @@ pub fn run(args: &AnalyzeArgs) -> Result<ExitCode, String> {
         report.to_table()
     };
     super::print_stdout(&text);
+    // The figures are printed first, so a failed keep never hides what was measured.
+    keeper.commit()?;
     Ok(if report.channel_errors.is_empty() {
         ExitCode::SUCCESS
     } else {

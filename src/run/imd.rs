@@ -92,7 +92,6 @@ pub fn run(args: &ImdArgs) -> Result<ExitCode, String> {
         }
         keeper.add("imd", r.channel, recorded_cal, None, files, r);
     }
-    keeper.commit()?;
     let report = ImdReport {
         schema_version: SCHEMA_VERSION,
         file: capture_path.display().to_string(),
@@ -101,11 +100,14 @@ pub fn run(args: &ImdArgs) -> Result<ExitCode, String> {
         channels,
         channel_errors,
     };
-    Ok(super::finish(
+    // The figures are printed first, so a failed keep never hides what was measured.
+    let code = super::finish(
         args.json,
         &report.channels,
         &report.channel_errors,
         || report.to_json(),
         || report.to_table(),
-    ))
+    );
+    keeper.commit()?;
+    Ok(code)
 }

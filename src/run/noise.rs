@@ -166,7 +166,6 @@ pub fn run(args: &NoiseArgs) -> Result<ExitCode, String> {
             }),
         }
     }
-    keeper.commit()?;
     let report = NoiseReport {
         schema_version: ampnote::report::SCHEMA_VERSION,
         file: capture_path.display().to_string(),
@@ -174,11 +173,14 @@ pub fn run(args: &NoiseArgs) -> Result<ExitCode, String> {
         channels,
         channel_errors,
     };
-    Ok(super::finish(
+    // The figures are printed first, so a failed keep never hides what was measured.
+    let code = super::finish(
         args.json,
         &report.channels,
         &report.channel_errors,
         || serde_json::to_string_pretty(&report).expect("serializes") + "\n",
         || table(&report),
-    ))
+    );
+    keeper.commit()?;
+    Ok(code)
 }

@@ -148,7 +148,6 @@ pub fn run(args: &PowerArgs) -> Result<ExitCode, String> {
         }
         keeper.add("power", r.channel, used, None, files, r);
     }
-    keeper.commit()?;
     let report = PowerReport {
         schema_version: SCHEMA_VERSION,
         source,
@@ -156,11 +155,14 @@ pub fn run(args: &PowerArgs) -> Result<ExitCode, String> {
         results,
         channel_errors,
     };
-    Ok(super::finish(
+    // The figures are printed first, so a failed keep never hides what was measured.
+    let code = super::finish(
         args.json,
         &report.results,
         &report.channel_errors,
         || report.to_json(),
         || report.to_table(),
-    ))
+    );
+    keeper.commit()?;
+    Ok(code)
 }

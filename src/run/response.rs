@@ -135,7 +135,6 @@ pub fn run(args: &ResponseArgs) -> Result<ExitCode, String> {
             r,
         );
     }
-    keeper.commit()?;
     let report = ResponseReport {
         schema_version: SCHEMA_VERSION,
         file: capture_path.display().to_string(),
@@ -154,11 +153,14 @@ pub fn run(args: &ResponseArgs) -> Result<ExitCode, String> {
     if let Some(path) = &args.csv {
         ampnote::files::write_whole(path, report.to_csv().as_bytes()).map_err(e)?;
     }
-    Ok(super::finish(
+    // The figures are printed first, so a failed keep never hides what was measured.
+    let code = super::finish(
         args.json,
         &report.channels,
         &report.channel_errors,
         || report.to_json(),
         || report.to_table(),
-    ))
+    );
+    keeper.commit()?;
+    Ok(code)
 }

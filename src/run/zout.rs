@@ -290,18 +290,20 @@ pub fn run(args: &ZoutArgs) -> Result<ExitCode, String> {
         };
         keeper.add("zout", r.channel, cal, None, files, r);
     }
-    keeper.commit()?;
     let report = ZoutReport {
         schema_version: SCHEMA_VERSION,
         source,
         first: results.first().cloned(),
         results,
     };
-    Ok(super::finish(
+    // The figures are printed first, so a failed keep never hides what was measured.
+    let code = super::finish(
         args.json,
         &report.results,
         &[],
         || report.to_json(),
         || report.to_table(),
-    ))
+    );
+    keeper.commit()?;
+    Ok(code)
 }
