@@ -395,9 +395,10 @@ pub struct GenerateCommon {
     /// Sample format: 16 or 24-bit integer (TPDF dither) or 32-bit float.
     #[arg(long, default_value = "24", value_name = "16|24|32f")]
     pub bits: String,
-    /// RMS level in dBFS (0 dBFS = a full-scale sine).
-    #[arg(long, default_value_t = -12.0, value_name = "DBFS", allow_negative_numbers = true)]
-    pub level: f64,
+    /// RMS level in dBFS (0 dBFS = a full-scale sine) [default: -12; a staircase takes --from
+    /// and --to instead]
+    #[arg(long, value_name = "DBFS", allow_negative_numbers = true)]
+    pub level: Option<f64>,
     /// Channels in the file.
     #[arg(long, default_value_t = 1, value_name = "N")]
     pub channels: usize,
@@ -783,7 +784,7 @@ impl GenerateCommon {
         };
         Ok(Common {
             sample_rate_hz: self.rate,
-            level_dbfs: self.level,
+            level_dbfs: self.level.unwrap_or(-12.0),
             channels: self.channels,
             signal_channels,
             lead_s: self.lead,

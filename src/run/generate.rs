@@ -26,7 +26,12 @@ pub fn run(kind: &GenerateKind) -> Result<ExitCode, String> {
             common,
         } => (
             stimulus::steps(
-                &common.common(0.01)?,
+                &{
+                    if common.level.is_some() {
+                        return Err("--level does not apply to a staircase: its levels run from --from to --to (dBFS)".into());
+                    }
+                    common.common(0.01)?
+                },
                 *freq,
                 *start,
                 *stop,

@@ -331,3 +331,23 @@ fn calibrate_measures_the_interface_not_an_amplifier() {
         "a profile was written from the simulated amplifier"
     );
 }
+
+#[test]
+fn a_flag_that_would_be_ignored_is_refused() {
+    // A staircase's levels are --from and --to; a --level given to it would be silently dropped.
+    let d = tmpdir("ignored-flag");
+    let out = d.join("steps.wav");
+    expect_error(
+        &[
+            "generate",
+            "steps",
+            "--level",
+            "-3",
+            "--out",
+            out.to_str().unwrap(),
+        ],
+        &["--level does not apply to a staircase", "--from"],
+    );
+    assert!(!out.exists());
+    std::fs::remove_dir_all(&d).ok();
+}
