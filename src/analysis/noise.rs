@@ -9,7 +9,7 @@
 use super::fit::fit_lines;
 use super::spectrum::SpectrumPlanner;
 use super::tone::{
-    local_density, measure_spectrum, residuals, ChannelInput, Mains, GUARD_BINS,
+    local_density, measure_spectrum, near_multiple, residuals, ChannelInput, Mains, GUARD_BINS,
     NOISE_FLOOR_FACTOR, TONE_WINDOW,
 };
 use super::weighting::a_weighting_power;
@@ -293,11 +293,7 @@ fn signal_line(
 ) -> Option<SignalLine> {
     let half = TONE_WINDOW.main_lobe_half_width() + 1;
     let tol = half as f64 * bin;
-    let is_mains = |k: usize| {
-        let f = k as f64 * bin;
-        let o = (f / mains_hz).round();
-        (1.0..=40.0).contains(&o) && (f - o * mains_hz).abs() <= tol
-    };
+    let is_mains = |k: usize| near_multiple(k as f64 * bin, mains_hz, 40.0, tol);
     let (k, p) = residuals(spec, model, k_lo, k_hi)
         .filter(|&(k, _)| !is_mains(k))
         .map(|(k, r)| (k, r.norm_sqr()))
@@ -346,10 +342,9 @@ fn moving_line(
         Mains::Auto => vec![50.0, 60.0],
     };
     let is_mains = |f: f64| {
-        families.iter().any(|&m| {
-            let o = (f / m).round();
-            (1.0..=40.0).contains(&o) && (f - o * m).abs() <= 3.0 * bin
-        })
+        families
+            .iter()
+            .any(|&m| near_multiple(f, m, 40.0, 3.0 * bin))
     };
     let k_lo = ((band_hz.0 / bin).ceil() as usize).max(2);
     let k_hi = ((band_hz.1.min(fs / 2.0) / bin).floor() as usize).min(len / 2 - 1);

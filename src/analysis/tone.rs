@@ -1238,11 +1238,7 @@ fn steady_warnings(s: &Steadiness, fs: f64) -> Vec<String> {
 /// order (1 or 1.2 kHz) are not expected as distinct lines (common practice).
 fn explained(f: f64, ratio: f64, f0: f64, mains: f64, fs: f64, tol: f64) -> bool {
     let max_order = (1.3 / ratio.max(1e-12).sqrt()).min(400.0);
-    let near_multiple = |f: f64, of: f64, orders: f64| {
-        let k = (f / of).round();
-        k >= 1.0 && k <= orders && (f - k * of).abs() <= tol
-    };
-    if near_multiple(f, mains, 20.0) || near_multiple(f, f0, max_order) {
+    if near_multiple(f, mains, 20.0, tol) || near_multiple(f, f0, max_order, tol) {
         return true;
     }
     // Hum sidebands: the tone modulated by the supply's ripple.
@@ -1256,6 +1252,13 @@ fn explained(f: f64, ratio: f64, f0: f64, mains: f64, fs: f64, tol: f64) -> bool
         let folded = (h - (h / fs).round() * fs).abs();
         h > fs / 2.0 && (folded - f).abs() <= tol
     })
+}
+
+/// Whether `f` lies within `tol` of a multiple of `of` from the first to the `orders`-th (all in
+/// Hz): a harmonic of a tone, or a line of the mains family.
+pub(crate) fn near_multiple(f: f64, of: f64, orders: f64, tol: f64) -> bool {
+    let k = (f / of).round();
+    k >= 1.0 && k <= orders && (f - k * of).abs() <= tol
 }
 
 /// The strongest residual bin (spectrum minus every fitted line) in `k_lo..=k_hi` that

@@ -5,9 +5,9 @@
 //! the target follows from it (power goes as the square of the drive while the amplifier is
 //! linear), and one confirming tone at that drive corrects for any compression on the way up.
 
-use crate::analysis::tone::{ChannelInput, ToneAnalyzer, ToneConfig};
+use crate::analysis::tone::{ToneAnalyzer, ToneConfig};
 use crate::error::{Error, Result};
-use crate::procedure::power::check_input_headroom;
+use crate::procedure::power::{check_input_headroom, tone_on_rig};
 use crate::rig::Rig;
 
 /// The probe's drive: far below where any power amplifier with a line-level input clips.
@@ -57,27 +57,21 @@ pub fn drive_for_power(
         ));
     }
     check_input_headroom(&cal, watts)?;
-    let fs = rate as f64;
     let analyzer = ToneAnalyzer::new(ToneConfig {
         fundamental_hint_hz: Some(frequency_hz),
         ..ToneConfig::default()
     })?;
+    // A quarter second to settle, a quarter second analysed.
+    let quarter = (0.25 * rate as f64) as usize;
     let power_at = |rig: &mut dyn Rig, drive: f64| -> Result<f64> {
-        let a = 10f64.powf(drive / 20.0);
-        let w = 2.0 * std::f64::consts::PI * frequency_hz / fs;
-        let n = (0.5 * fs) as usize;
-        let tone: Vec<f64> = (0..n).map(|i| a * (w * i as f64).sin()).collect();
-        let cap = rig.play_and_record(channel, &tone, rate)?;
-        let settle = n / 2;
-        let r = analyzer.analyze(
-            &ChannelInput {
-                channel,
-                samples: &cap[settle..],
-                sample_rate_hz: fs,
-                overload_threshold: rig.overload_threshold(),
-                resolution_bits: rig.resolution_bits(),
-            },
+        let r = tone_on_rig(
+            rig,
+            channel,
+            &analyzer,
             &cal,
+            (frequency_hz, rate),
+            drive,
+            (quarter, quarter),
         )?;
         Ok(r.output_w.expect("calibrated with a load"))
     };
@@ -106,4 +100,11 @@ pub fn drive_for_power(
         probe_w,
         confirmed_w,
     })
+}
+
+/// `signal` made at `from_dbfs` brought to `to_dbfs` (a plain gain: every stimulus is linear in
+/// its amplitude).
+pub fn rescaled(signal: &[f64], from_dbfs: f64, to_dbfs: f64) -> Vec<f64> {
+    let g = 10f64.powf((to_dbfs - from_dbfs) / 20.0);
+    signal.iter().map(|v| v * g).collect()
 }

@@ -473,6 +473,36 @@ pub fn check_input_headroom(cal: &Calibration, max_w: f64) -> Result<()> {
     Ok(())
 }
 
+/// Play a tone at `frequency_hz` and `drive_dbfs` on `rig` for `settle + dwell` samples and
+/// analyse the `dwell` after the settling part: one step of a staircase, or a probe.
+pub fn tone_on_rig(
+    rig: &mut dyn Rig,
+    channel: usize,
+    analyzer: &ToneAnalyzer,
+    cal: &Calibration,
+    (frequency_hz, rate): (f64, u32),
+    drive_dbfs: f64,
+    (settle, dwell): (usize, usize),
+) -> Result<ToneResult> {
+    let fs = rate as f64;
+    let a = 10f64.powf(drive_dbfs / 20.0);
+    let w = 2.0 * std::f64::consts::PI * frequency_hz / fs;
+    let tone: Vec<f64> = (0..settle + dwell)
+        .map(|i| a * (w * i as f64).sin())
+        .collect();
+    let cap = rig.play_and_record(channel, &tone, rate)?;
+    analyzer.analyze(
+        &ChannelInput {
+            channel,
+            samples: &cap[settle.min(cap.len())..],
+            sample_rate_hz: fs,
+            overload_threshold: rig.overload_threshold(),
+            resolution_bits: rig.resolution_bits(),
+        },
+        cal,
+    )
+}
+
 /// Run the staircase on `rig` for one channel: coarse steps, finer steps (a fifth) across each THD
 /// target the coarse ones jump over, until THD passes the stop limit, the next step's predicted
 /// power passes the power limit, or the drive reaches 0 dBFS.
@@ -489,20 +519,16 @@ pub fn run_staircase(
     let settle = (s.settle_s * fs) as usize;
     let dwell = (s.dwell_s * fs) as usize;
     let measure = |rig: &mut dyn Rig, drive: f64| -> Result<PowerStep> {
-        let a = 10f64.powf(drive / 20.0);
-        let w = 2.0 * std::f64::consts::PI * s.frequency_hz / fs;
-        let tone: Vec<f64> = (0..settle + dwell)
-            .map(|i| a * (w * i as f64).sin())
-            .collect();
-        let cap = rig.play_and_record(channel, &tone, s.sample_rate_hz)?;
-        let input = ChannelInput {
+        let r = tone_on_rig(
+            rig,
             channel,
-            samples: &cap[settle..],
-            sample_rate_hz: fs,
-            overload_threshold: rig.overload_threshold(),
-            resolution_bits: rig.resolution_bits(),
-        };
-        Ok(step_from(drive, &analyzer.analyze(&input, &cal)?))
+            &analyzer,
+            &cal,
+            (s.frequency_hz, s.sample_rate_hz),
+            drive,
+            (settle, dwell),
+        )?;
+        Ok(step_from(drive, &r))
     };
     // The first step's power, predicted from a low probe (the gain holds while the amplifier is
     // linear; compression only lowers the real figure): refused before it is played when it

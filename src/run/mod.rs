@@ -345,8 +345,7 @@ pub fn capture_or_record(
                         found.confirmed_w
                     )));
                 }
-                let g = 10f64.powf((found.drive_dbfs - level) / 20.0);
-                scaled = stim.signal.iter().map(|v| v * g).collect::<Vec<f64>>();
+                scaled = ampnote::procedure::drive::rescaled(&stim.signal, level, found.drive_dbfs);
                 &scaled
             }
         };

@@ -149,8 +149,11 @@ pub fn run(args: &ZoutArgs) -> Result<ExitCode, String> {
                         w,
                     )
                     .map_err(e)?;
-                    let g = 10f64.powf((found.drive_dbfs - args.level) / 20.0);
-                    Some(stim.signal.iter().map(|v| v * g).collect())
+                    Some(ampnote::procedure::drive::rescaled(
+                        &stim.signal,
+                        args.level,
+                        found.drive_dbfs,
+                    ))
                 }
                 None => None,
             };
