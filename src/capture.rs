@@ -52,6 +52,17 @@ impl Encoding {
 pub const MIN_RATE_HZ: u32 = 8_000;
 pub const MAX_RATE_HZ: u32 = 384_000;
 
+/// A rate a rig run or a stimulus may use: the range ampnote reads.
+pub fn check_rate(rate_hz: u32) -> crate::error::Result<()> {
+    if (MIN_RATE_HZ..=MAX_RATE_HZ).contains(&rate_hz) {
+        Ok(())
+    } else {
+        Err(crate::error::Error::InvalidSetting(format!(
+            "--rate must lie between {MIN_RATE_HZ} and {MAX_RATE_HZ} Hz, got {rate_hz}"
+        )))
+    }
+}
+
 /// RIFF chunk id under which ampnote stores a stimulus description (JSON) in the WAVs it makes.
 /// Players and recorders skip chunks they do not know.
 pub const DESCRIPTION_CHUNK: &[u8; 4] = b"ampn";

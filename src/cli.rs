@@ -854,19 +854,9 @@ impl CalibrationArgs {
     /// and load, copied in at `notebook init`) under the profile given here, under the flags.
     pub fn resolve(&self, save: &SaveArgs) -> Result<Calibration, String> {
         let base = match &save.notebook {
-            Some(dir) => {
-                let nb = ampnote::notebook::Notebook::open(dir).map_err(|e| e.to_string())?;
-                let cal = match &nb.info.calibration {
-                    Some(p) => p
-                        .calibration()
-                        .map_err(|e| format!("the calibration kept in {}: {e}", dir.display()))?,
-                    None => Calibration::default(),
-                };
-                Calibration {
-                    load_ohms: cal.load_ohms.or(nb.info.load_ohms),
-                    ..cal
-                }
-            }
+            Some(dir) => ampnote::notebook::Notebook::open(dir)
+                .and_then(|nb| nb.calibration())
+                .map_err(|e| e.to_string())?,
             None => Calibration::default(),
         };
         self.over(base)

@@ -109,7 +109,7 @@ pub fn run(out: &Path, mut progress: impl FnMut(&str)) -> Result<DemoOutcome> {
         path: work.clone(),
         source,
     })?;
-    let cal: Calibration = nb.calibration();
+    let cal: Calibration = nb.calibration()?;
 
     // Stimuli, written once, as a user would.
     let base = Common {

@@ -248,18 +248,22 @@ impl Notebook {
         })
     }
 
-    /// The calibration recorded in the notebook (empty when none).
-    pub fn calibration(&self) -> Calibration {
-        let mut c = self
-            .info
-            .calibration
-            .as_ref()
-            .and_then(|p| p.calibration().ok())
-            .unwrap_or_default();
+    /// The calibration recorded in the notebook, with its load when the profile gives none
+    /// (empty when none); a profile kept in it that no longer checks is an error naming it.
+    pub fn calibration(&self) -> Result<Calibration> {
+        let mut c = match &self.info.calibration {
+            Some(p) => p.calibration().map_err(|e| {
+                Error::InvalidSetting(format!(
+                    "the calibration kept in {}: {e}",
+                    self.dir.join("notebook.toml").display()
+                ))
+            })?,
+            None => Calibration::default(),
+        };
         if c.load_ohms.is_none() {
             c.load_ohms = self.info.load_ohms;
         }
-        c
+        Ok(c)
     }
 
     /// Keep a run: assembled under a temporary name, renamed into place when whole.
@@ -505,18 +509,26 @@ impl Notebook {
             all.push(Run { dir, meta, result });
         }
         // A measurement is whole when all its runs are there.
-        let whole = |r: &Run| -> bool {
-            r.meta.measurement.as_ref().is_none_or(|m| {
-                all.iter()
-                    .filter(|o| o.meta.measurement.as_ref().is_some_and(|om| om.id == m.id))
-                    .count()
-                    >= m.runs
+        let mut count: BTreeMap<&str, usize> = BTreeMap::new();
+        for m in all.iter().filter_map(|r| r.meta.measurement.as_ref()) {
+            *count.entry(m.id.as_str()).or_default() += 1;
+        }
+        let whole: Vec<bool> = all
+            .iter()
+            .map(|r| {
+                r.meta
+                    .measurement
+                    .as_ref()
+                    .is_none_or(|m| count[m.id.as_str()] >= m.runs)
             })
-        };
-        let (complete, incomplete): (Vec<Run>, Vec<Run>) =
-            all.clone().into_iter().partition(|r| whole(r));
-        scan.runs = complete;
-        scan.incomplete = incomplete;
+            .collect();
+        for (run, whole) in all.into_iter().zip(whole) {
+            if whole {
+                scan.runs.push(run);
+            } else {
+                scan.incomplete.push(run);
+            }
+        }
         scan.runs.sort_by(|a, b| a.meta.id.cmp(&b.meta.id));
         scan.incomplete.sort_by(|a, b| a.meta.id.cmp(&b.meta.id));
         scan.damaged.sort_by(|a, b| a.dir.cmp(&b.dir));

@@ -378,9 +378,6 @@ pub struct StaircaseSettings {
     pub dwell_s: f64,
 }
 
-/// Rates a rig run may use (the range ampnote reads from files).
-pub const RATE_RANGE_HZ: (u32, u32) = (8_000, 384_000);
-
 impl StaircaseSettings {
     /// Every setting finite and in range, checked before anything is opened or played: the power
     /// limit a positive number of watts (at most 10 kW), the THD stop above 0 and at most 100 %,
@@ -430,13 +427,7 @@ impl StaircaseSettings {
                 crate::error::shown(self.settle_s)
             ));
         }
-        let (lo, hi) = RATE_RANGE_HZ;
-        if !(lo..=hi).contains(&self.sample_rate_hz) {
-            return bad(format!(
-                "--rate must lie between {lo} and {hi} Hz, got {}",
-                self.sample_rate_hz
-            ));
-        }
+        crate::capture::check_rate(self.sample_rate_hz)?;
         let top = 0.45 * self.sample_rate_hz as f64;
         if !within(self.frequency_hz, 10.0, top) {
             return bad(format!(

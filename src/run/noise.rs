@@ -109,13 +109,7 @@ pub fn run(args: &NoiseArgs) -> Result<ExitCode, String> {
         channel_choice(&args.channel)?,
         None,
         || {
-            let (lo, hi) = ampnote::procedure::power::RATE_RANGE_HZ;
-            if !(lo..=hi).contains(&args.rate) {
-                return Err(format!(
-                    "--rate must lie between {lo} and {hi} Hz, got {}",
-                    args.rate
-                ));
-            }
+            ampnote::capture::check_rate(args.rate).map_err(|e| e.to_string())?;
             if !(args.seconds >= 0.5 && args.seconds <= 600.0) {
                 return Err(format!(
                     "--seconds takes 0.5 to 600 s of listening, got {}",

@@ -76,12 +76,7 @@ pub fn run(args: &WatchArgs) -> Result<ExitCode, String> {
         ));
     }
     let rate = args.rate;
-    let (lo, hi) = ampnote::procedure::power::RATE_RANGE_HZ;
-    if !(lo..=hi).contains(&rate) {
-        return Err(format!(
-            "--rate must lie between {lo} and {hi} Hz, got {rate}"
-        ));
-    }
+    ampnote::capture::check_rate(rate).map_err(|e| e.to_string())?;
     let freq = args.freq.round();
     if !(freq >= 10.0 && freq < 0.45 * rate as f64) {
         return Err(format!(

@@ -464,12 +464,7 @@ fn amplitude_of(level_dbfs: f64) -> f64 {
 
 fn check_common(c: &Common) -> Result<()> {
     let bad = |m: String| Err(Error::InvalidSetting(m));
-    if !(crate::capture::MIN_RATE_HZ..=crate::capture::MAX_RATE_HZ).contains(&c.sample_rate_hz) {
-        return bad(format!(
-            "--rate {} Hz is outside 8000..384000 Hz",
-            c.sample_rate_hz
-        ));
-    }
+    crate::capture::check_rate(c.sample_rate_hz)?;
     if !(c.level_dbfs.is_finite() && (-200.0..=0.0).contains(&c.level_dbfs)) {
         return bad(format!(
             "--level {} dBFS: the level must be 0 dBFS or below (0 dBFS is a full-scale sine)",
