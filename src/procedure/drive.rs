@@ -33,6 +33,18 @@ pub struct DriveForPower {
     pub probe_w: f64,
     /// Watts the confirming tone read at `drive_dbfs`.
     pub confirmed_w: f64,
+    /// The load the watts are into.
+    pub load_ohms: f64,
+}
+
+impl DriveForPower {
+    /// One line for the user: the drive found, the power it gives, and into what.
+    pub fn describe(&self, asked_w: f64) -> String {
+        format!(
+            "{:.2} dBFS of drive gives {:.3} W into {} ohm (asked {asked_w} W; the {PROBE_DBFS} dBFS probe read {:.3e} W)",
+            self.drive_dbfs, self.confirmed_w, self.load_ohms, self.probe_w
+        )
+    }
 }
 
 /// Find the drive (dBFS at the interface output) that gives `watts` into the rig's load from
@@ -99,6 +111,7 @@ pub fn drive_for_power(
         drive_dbfs: drive,
         probe_w,
         confirmed_w,
+        load_ohms: cal.load_ohms.expect("checked above"),
     })
 }
 

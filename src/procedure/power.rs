@@ -531,8 +531,10 @@ pub fn run_staircase(
         if predicted > s.max_w {
             let start = probe_at + 10.0 * (s.max_w / w).log10() - s.step_db;
             return Err(Error::InvalidSetting(format!(
-                "the first step ({:.1} dBFS) would give about {predicted:.3} W, over the power limit of {} W (--max-w): start lower, at {start:.1} dBFS or below (--from)",
-                s.from_dbfs, s.max_w
+                "the first step ({:.1} dBFS) would give about {predicted:.3} W into {} ohm, over the power limit of {} W (--max-w): start lower, at {start:.1} dBFS or below (--from)",
+                s.from_dbfs,
+                cal.load_ohms.unwrap_or(f64::NAN),
+                s.max_w
             )));
         }
     }

@@ -331,13 +331,7 @@ pub fn capture_or_record(
             (Some(w), Some(f)) => {
                 let found = ampnote::procedure::drive::drive_for_power(&mut *rig, ch, f, rate, w)
                     .map_err(|e| e.to_string())?;
-                eprintln!(
-                    "channel {ch}: {:.2} dBFS of drive gives {:.3} W (asked {w} W; the {} dBFS probe read {:.3e} W)",
-                    found.drive_dbfs,
-                    found.confirmed_w,
-                    ampnote::procedure::drive::PROBE_DBFS,
-                    found.probe_w
-                );
+                eprintln!("channel {ch}: {}", found.describe(w));
                 let miss = 10.0 * (found.confirmed_w / w).log10();
                 if miss.abs() > ampnote::procedure::drive::TOLERANCE_DB {
                     notes.push((ch, format!(

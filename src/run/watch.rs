@@ -107,10 +107,7 @@ pub fn run(args: &WatchArgs) -> Result<ExitCode, String> {
                 w,
             )
             .map_err(|e| e.to_string())?;
-            eprintln!(
-                "{:.2} dBFS of drive gives {:.3} W (asked {w} W)",
-                found.drive_dbfs, found.confirmed_w
-            );
+            eprintln!("{}", found.describe(w));
             found.drive_dbfs
         }
         None => args.level,
