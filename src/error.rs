@@ -19,10 +19,20 @@ pub enum Error {
         source: std::io::Error,
     },
 
-    #[error("{path} is not a WAV file ({detail}). Export the recording as WAV (RIFF/WAVE, PCM or 32-bit float) and try again.")]
+    #[error("{path} is not an audio file ampnote reads ({detail}). ampnote reads WAV (also BWF, RF64 and BW64), FLAC and AIFF: export the recording as WAV or FLAC and try again.")]
+    NotAudio { path: PathBuf, detail: String },
+
+    #[error("{path} is not a WAV file ({detail}). Export the recording as WAV (RIFF/WAVE, PCM or float) or FLAC and try again.")]
     NotWav { path: PathBuf, detail: String },
 
-    #[error("{path} is a WAV file in a format ampnote does not read ({detail}). Supported: 16-, 24- and 32-bit integer PCM and 32-bit float; convert it, for example with `sox in.wav -b 24 out.wav`.")]
+    #[error("{path}: its {format} data cannot be decoded ({detail}); the file is damaged. Export it again from the recorder, or as WAV.")]
+    Undecodable {
+        path: PathBuf,
+        format: &'static str,
+        detail: String,
+    },
+
+    #[error("{path} is in a format ampnote does not read ({detail}). Supported: 8- to 32-bit integer PCM and 32- or 64-bit float, in WAV, RF64, FLAC or AIFF; convert it, for example with `sox in.wav -b 24 out.wav`.")]
     UnsupportedFormat { path: PathBuf, detail: String },
 
     #[error("{path} has a sample rate of {rate_hz} Hz; ampnote reads 8000 Hz to 384000 Hz. Resample the file or record at a common rate such as 48000 or 96000 Hz.")]

@@ -404,14 +404,14 @@ fn draw_profile<DB: DrawingBackend>(
 fn tone_views(run: &Run) -> Option<(Points, Points)> {
     use crate::analysis::spectrum::{fast_length, SpectrumPlanner};
     use crate::analysis::tone::TONE_WINDOW;
-    let info = crate::capture::Capture::probe_wav(&run.dir.join("capture.wav")).ok()?;
+    let info = crate::capture::Capture::probe(&run.dir.join("capture.wav")).ok()?;
     let ch = if run.meta.channel <= info.channel_count {
         run.meta.channel
     } else {
         1
     };
     let cap =
-        crate::capture::Capture::read_wav_channels(&run.dir.join("capture.wav"), true, Some(&[ch]))
+        crate::capture::Capture::read_channels(&run.dir.join("capture.wav"), true, Some(&[ch]))
             .ok()?;
     let x = &cap.channels[0];
     let fs = cap.sample_rate_hz as f64;

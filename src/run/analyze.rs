@@ -28,7 +28,7 @@ pub fn run(args: &AnalyzeArgs) -> Result<ExitCode, String> {
     let cal = recorded.calibration_or(cal);
     let notes = recorded.notes;
     let capture_path = recorded.capture.as_path();
-    let info = Capture::probe_wav(capture_path).map_err(|e| e.to_string())?;
+    let info = Capture::probe(capture_path).map_err(|e| e.to_string())?;
     let chosen = select_channels(info.channel_count, channel).map_err(|e| e.to_string())?;
 
     // One channel decoded at a time: memory stays at one channel's samples plus the analysis.
@@ -36,7 +36,7 @@ pub fn run(args: &AnalyzeArgs) -> Result<ExitCode, String> {
     let mut channel_errors = Vec::new();
     let (mut frames, mut truncated) = (0, false);
     for &ch in &chosen {
-        let capture = Capture::read_wav_channels(capture_path, args.accept_truncated, Some(&[ch]))
+        let capture = Capture::read_channels(capture_path, args.accept_truncated, Some(&[ch]))
             .map_err(|e| e.to_string())?;
         frames = capture.frames();
         truncated = capture.truncated;

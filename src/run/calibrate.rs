@@ -239,8 +239,7 @@ pub fn run(args: &CalibrateArgs) -> Result<ExitCode, String> {
         (Some(_), Some(_)) => return Err("give --loopback FILE or --rig card, not both".into()),
         (Some(_), None) => Some(live_loopback(args, meter.is_none() && interactive)?),
         (None, Some(path)) => {
-            let cap =
-                Capture::read_wav_channels(path, false, Some(&[1])).map_err(|e| e.to_string())?;
+            let cap = Capture::read_channels(path, false, Some(&[1])).map_err(|e| e.to_string())?;
             let r = tone_reading(
                 &cap.channels[0],
                 cap.sample_rate_hz as f64,

@@ -60,14 +60,14 @@ pub fn run(args: &ImdArgs) -> Result<ExitCode, String> {
         }
         None => None,
     };
-    let info = Capture::probe_wav(capture_path).map_err(e)?;
+    let info = Capture::probe(capture_path).map_err(e)?;
     let chosen = select_channels(info.channel_count, channel_choice(&args.channel)?).map_err(e)?;
     let analyzer = ImdAnalyzer::new();
     let mut channels = Vec::new();
     let mut channel_errors = Vec::new();
     for &ch in &chosen {
-        let cap = Capture::read_wav_channels(capture_path, args.accept_truncated, Some(&[ch]))
-            .map_err(e)?;
+        let cap =
+            Capture::read_channels(capture_path, args.accept_truncated, Some(&[ch])).map_err(e)?;
         let input = ChannelInput {
             channel: ch,
             samples: &cap.channels[0],

@@ -80,7 +80,7 @@ pub fn finish<T: ampnote::report::ChannelResult>(
 /// A stimulus file `ampnote generate` wrote: its samples and its description, which must be of
 /// the `wanted` kind (`tone`, `steps`, `sweep`, `twotone`).
 pub fn read_stimulus(path: &Path, wanted: &'static str) -> Result<(Capture, Description), String> {
-    let cap = Capture::read_wav(path, false).map_err(|e| e.to_string())?;
+    let cap = Capture::read(path, false).map_err(|e| e.to_string())?;
     let not = |why: String| {
         Error::NotAStimulus {
             path: path.to_path_buf(),

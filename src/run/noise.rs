@@ -126,14 +126,14 @@ pub fn run(args: &NoiseArgs) -> Result<ExitCode, String> {
     let cal = recorded.calibration_or(cal);
     let notes = recorded.notes;
     let capture_path = recorded.capture.as_path();
-    let info = Capture::probe_wav(capture_path).map_err(e)?;
+    let info = Capture::probe(capture_path).map_err(e)?;
     let chosen = select_channels(info.channel_count, channel_choice(&args.channel)?).map_err(e)?;
     let analyzer = NoiseAnalyzer::new();
     let mut channels = Vec::new();
     let mut channel_errors = Vec::new();
     let mut keeper = super::Keeper::new(&args.save);
     for &ch in &chosen {
-        let cap = Capture::read_wav_channels(capture_path, false, Some(&[ch])).map_err(e)?;
+        let cap = Capture::read_channels(capture_path, false, Some(&[ch])).map_err(e)?;
         let input = ChannelInput {
             channel: ch,
             samples: &cap.channels[0],

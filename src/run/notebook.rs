@@ -233,7 +233,7 @@ fn runs_from_file(
     use ampnote::capture::Capture;
     use ampnote::signal::stimulus::Description;
     let stim = match stimulus {
-        Some(p) => Some(Capture::read_wav(p, false).map_err(e)?),
+        Some(p) => Some(Capture::read(p, false).map_err(e)?),
         None => None,
     };
     let desc = match &stim {
@@ -245,10 +245,10 @@ fn runs_from_file(
         })?),
         None => None,
     };
-    let info = Capture::probe_wav(path).map_err(e)?;
+    let info = Capture::probe(path).map_err(e)?;
     let mut out = Vec::new();
     for ch in 1..=info.channel_count {
-        let cap = Capture::read_wav_channels(path, false, Some(&[ch])).map_err(e)?;
+        let cap = Capture::read_channels(path, false, Some(&[ch])).map_err(e)?;
         let (procedure, result) =
             analyze_capture(&cap, ch, stim.as_ref().zip(desc.as_ref()), cal, None)?;
         out.push(Run {
@@ -515,14 +515,14 @@ fn reanalyze(dir: &Path, only: &[String]) -> Result<ExitCode, String> {
             ));
             continue;
         }
-        let info = Capture::probe_wav(&cap_path).map_err(e)?;
+        let info = Capture::probe(&cap_path).map_err(e)?;
         let ch = if run.meta.channel <= info.channel_count {
             run.meta.channel
         } else {
             1
         };
-        let cap = Capture::read_wav_channels(&cap_path, true, Some(&[ch])).map_err(e)?;
-        let stim = Capture::read_wav(&run.dir.join("stimulus.wav"), false).ok();
+        let cap = Capture::read_channels(&cap_path, true, Some(&[ch])).map_err(e)?;
+        let stim = Capture::read(&run.dir.join("stimulus.wav"), false).ok();
         let desc = stim.as_ref().and_then(|s| Description::of_capture(s).ok());
         let pair = stim.as_ref().zip(desc.as_ref());
         let (procedure, v) = analyze_capture(

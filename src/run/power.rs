@@ -92,7 +92,7 @@ pub fn run(args: &PowerArgs) -> Result<ExitCode, String> {
             else {
                 unreachable!("read_stimulus checked the kind");
             };
-            let info = Capture::probe_wav(path).map_err(e)?;
+            let info = Capture::probe(path).map_err(e)?;
             if info.sample_rate_hz != desc.sample_rate_hz {
                 return Err(e(Error::SampleRateMismatch {
                     stimulus_hz: desc.sample_rate_hz,
@@ -103,7 +103,7 @@ pub fn run(args: &PowerArgs) -> Result<ExitCode, String> {
             let x = stim.channel(desc.signal_channels[0]).ok_or("the stimulus's signal channel is missing from it")?;
             let chosen = select_channels(info.channel_count, channel_choice(&args.channel)?).map_err(e)?;
             for &ch in &chosen {
-                let cap = Capture::read_wav_channels(path, args.accept_truncated, Some(&[ch])).map_err(e)?;
+                let cap = Capture::read_channels(path, args.accept_truncated, Some(&[ch])).map_err(e)?;
                 let fs = cap.sample_rate_hz as f64;
                 // Where the staircase starts in the capture: its level envelope (10 ms blocks)
                 // against the stimulus's, searched up to 2 s either way. Each step's window has

@@ -90,7 +90,7 @@ pub fn run(args: &ResponseArgs) -> Result<ExitCode, String> {
         .channel(signal_ch)
         .ok_or("the stimulus's signal channel is missing from it")?;
 
-    let info = Capture::probe_wav(capture_path).map_err(e)?;
+    let info = Capture::probe(capture_path).map_err(e)?;
     if info.sample_rate_hz != desc.sample_rate_hz {
         return Err(e(Error::SampleRateMismatch {
             stimulus_hz: desc.sample_rate_hz,
@@ -101,8 +101,8 @@ pub fn run(args: &ResponseArgs) -> Result<ExitCode, String> {
     let mut channels = Vec::new();
     let mut channel_errors = Vec::new();
     for &ch in &chosen {
-        let cap = Capture::read_wav_channels(capture_path, args.accept_truncated, Some(&[ch]))
-            .map_err(e)?;
+        let cap =
+            Capture::read_channels(capture_path, args.accept_truncated, Some(&[ch])).map_err(e)?;
         match analyzer.analyze(
             ch,
             x,

@@ -203,7 +203,7 @@ pub fn run(args: &ZoutArgs) -> Result<ExitCode, String> {
             a_path.display(),
             b_path.display()
         );
-        let info = Capture::probe_wav(a_path).map_err(e)?;
+        let info = Capture::probe(a_path).map_err(e)?;
         let chosen =
             select_channels(info.channel_count, channel_choice(&args.channel)?).map_err(e)?;
         let sweep = match &args.stimulus {
@@ -219,8 +219,8 @@ pub fn run(args: &ZoutArgs) -> Result<ExitCode, String> {
             None => None,
         };
         for &ch in &chosen {
-            let ca = Capture::read_wav_channels(a_path, false, Some(&[ch])).map_err(e)?;
-            let cb = Capture::read_wav_channels(b_path, false, Some(&[ch])).map_err(e)?;
+            let ca = Capture::read_channels(a_path, false, Some(&[ch])).map_err(e)?;
+            let cb = Capture::read_channels(b_path, false, Some(&[ch])).map_err(e)?;
             if ca.sample_rate_hz != cb.sample_rate_hz {
                 return Err(
                     "the two captures have different sample rates; record both the same way".into(),

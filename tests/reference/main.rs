@@ -5,6 +5,7 @@ mod bad_input;
 mod bench_calibration;
 mod closed_form;
 mod common;
+mod formats;
 mod framing;
 mod honest_compare;
 mod imd;

@@ -415,7 +415,7 @@ fn fixture_wav(name: &str) -> Vec<f64> {
     let path = std::path::Path::new(env!("CARGO_MANIFEST_DIR"))
         .join("fixtures/drift")
         .join(name);
-    ampnote::capture::Capture::read_wav(&path, false)
+    ampnote::capture::Capture::read(&path, false)
         .unwrap()
         .channels
         .remove(0)
@@ -430,7 +430,7 @@ fn clock_offset_is_timed_from_the_harmonics_not_the_amplifier() {
     use ampnote::signal::stimulus::Description;
     let stim_path = std::path::Path::new(env!("CARGO_MANIFEST_DIR"))
         .join("fixtures/drift/sweep-20hz-22khz-2s-48k.wav");
-    let stim = ampnote::capture::Capture::read_wav(&stim_path, false).unwrap();
+    let stim = ampnote::capture::Capture::read(&stim_path, false).unwrap();
     let desc = Description::from_json(stim.description_json.as_deref().unwrap()).unwrap();
     let sp = SweepParams::from_description(&desc).unwrap();
     let analyzer = ResponseAnalyzer::new(ResponseConfig::default()).unwrap();

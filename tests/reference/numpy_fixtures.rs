@@ -42,7 +42,7 @@ fn f(v: &Value) -> f64 {
 fn numpy_fixtures_agree() {
     let dir = Path::new(env!("CARGO_MANIFEST_DIR")).join("fixtures/tone");
     for (name, exp) in fixture_cases() {
-        let cap = Capture::read_wav(&dir.join(exp["file"].as_str().unwrap()), false).unwrap();
+        let cap = Capture::read(&dir.join(exp["file"].as_str().unwrap()), false).unwrap();
         for weighting in [Weighting::None, Weighting::A] {
             // Mains is detected: the fixtures hold 50 Hz or 60 Hz families, or none.
             let analyzer = ToneAnalyzer::new(ToneConfig {

@@ -19,7 +19,7 @@ fn quantized_sinad(bits: u16, fs: u32) -> (f64, f64) {
     std::fs::create_dir_all(&dir).unwrap();
     let path = dir.join(format!("sine-{bits}bit.wav"));
     write_wav(&path, fs, &[x], WavFormat::Int { bits }, 11).unwrap();
-    let cap = Capture::read_wav(&path, false).unwrap();
+    let cap = Capture::read(&path, false).unwrap();
     std::fs::remove_dir_all(&dir).ok();
     let analyzer = ToneAnalyzer::new(ToneConfig::default()).unwrap();
     let r = analyzer

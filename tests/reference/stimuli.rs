@@ -13,7 +13,7 @@ fn ok(args: &[&str]) -> String {
 }
 
 fn description(path: &Path) -> (Capture, Description) {
-    let cap = Capture::read_wav(path, false).unwrap();
+    let cap = Capture::read(path, false).unwrap();
     let d = Description::from_json(cap.description_json.as_deref().expect("description chunk"))
         .unwrap();
     (cap, d)
@@ -275,7 +275,7 @@ fn response_command_and_its_bad_input() {
         "{err}"
     );
     // A capture cut short.
-    let cap = Capture::read_wav(Path::new(&sw), false).unwrap();
+    let cap = Capture::read(Path::new(&sw), false).unwrap();
     let short = p(&d, "short.wav");
     let n = cap.channels[0].len() / 2;
     ampnote::signal::wav::write_wav(

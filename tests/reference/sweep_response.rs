@@ -112,8 +112,7 @@ fn fixture(name: &str) -> std::path::PathBuf {
 /// The committed sweep (ampnote's own) and its parameters from its embedded description.
 fn committed_sweep() -> (Vec<f64>, SweepParams) {
     let cap =
-        ampnote::capture::Capture::read_wav(&fixture("sweep-10hz-40khz-96k-24bit.wav"), false)
-            .unwrap();
+        ampnote::capture::Capture::read(&fixture("sweep-10hz-40khz-96k-24bit.wav"), false).unwrap();
     let d =
         ampnote::signal::stimulus::Description::from_json(cap.description_json.as_deref().unwrap())
             .unwrap();
@@ -125,7 +124,7 @@ fn committed_sweep() -> (Vec<f64>, SweepParams) {
 
 fn analyze_fixture(name: &str) -> ampnote::analysis::sweep::ResponseResult {
     let (x, sp) = committed_sweep();
-    let y = ampnote::capture::Capture::read_wav(&fixture(name), false).unwrap();
+    let y = ampnote::capture::Capture::read(&fixture(name), false).unwrap();
     ResponseAnalyzer::new(ResponseConfig::default())
         .unwrap()
         .analyze(1, &x, sp, &y.channels[0], 96_000.0, 1.0)

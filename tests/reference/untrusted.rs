@@ -116,7 +116,7 @@ fn exercise(kind: usize, s: &Spoil, path: &std::path::Path) {
         Some(&d.to_json()),
     )
     .unwrap();
-    let cap = Capture::read_wav(path, false).unwrap();
+    let cap = Capture::read(path, false).unwrap();
     let Ok(desc) = Description::of_capture(&cap) else {
         return; // refused, as it should be for a spoiled field
     };
@@ -227,7 +227,7 @@ fn a_spoiled_description_names_the_field() {
         Some(&base.description.to_json()),
     )
     .unwrap();
-    let why = Description::of_capture(&Capture::read_wav(&path, false).unwrap()).unwrap_err();
+    let why = Description::of_capture(&Capture::read(&path, false).unwrap()).unwrap_err();
     assert!(why.contains("dBFS"), "{why}");
     std::fs::remove_dir_all(&d).ok();
 }
