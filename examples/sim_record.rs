@@ -11,7 +11,7 @@ use std::path::Path;
 
 fn main() {
     let a: Vec<String> = std::env::args().collect();
-    let stim = Capture::read_wav(Path::new(&a[1]), false).expect("stimulus");
+    let stim = Capture::read(Path::new(&a[1]), false).expect("stimulus");
     let model = Model::load(a.get(3).map_or("stock", |s| s.as_str())).expect("model");
     let ch = a.get(4).map_or(1, |s| s.parse().expect("channel"));
     let delay: usize = a.get(5).map_or(0, |s| s.parse().expect("delay"));
