@@ -1,5 +1,6 @@
 //! Pure computation on samples: no I/O, no printing.
 
+pub mod blocks;
 pub mod fit;
 pub mod imd;
 pub mod noise;

@@ -25,7 +25,11 @@
 //! 4. **Frequency.** Up-crossing rates in the first and last quarter of the span tell a steady
 //!    tone from a sweep (a change of more than 2 %).
 //!
+//! Generic over the sample storage, so a long capture kept as 32-bit float is judged in place.
+//!
 //! Nothing here decides; [`Steadiness`] says what was found and the callers refuse or warn.
+
+use crate::capture::Store;
 
 /// Envelope hop: about 1 ms (our choice: fine enough to place a fade or a dropout to a few ms).
 const HOP_S: f64 = 0.001;
@@ -108,19 +112,24 @@ impl Steadiness {
 }
 
 /// Find the steady span of the tone in `x` (sampled at `fs`) and what else the capture holds.
-pub fn find_steady(x: &[f64], fs: f64) -> Steadiness {
+pub fn find_steady<T: Store>(x: &[T], fs: f64) -> Steadiness {
     let n = x.len();
     let hop = ((HOP_S * fs).round() as usize).max(1);
     let hops = n / hop;
-    if hops < 100 || !x.iter().all(|v| v.is_finite()) {
+    if hops < 100 || !x.iter().all(|v| v.to_f64().is_finite()) {
         return Steadiness::whole(n);
     }
-    let mean = x.iter().sum::<f64>() / n as f64;
+    let mean = x.iter().map(|v| v.to_f64()).sum::<f64>() / n as f64;
     // Mean square per hop (the remainder after the last whole hop joins the last one's span
     // when the span reaches the end).
     let p: Vec<f64> = x[..hops * hop]
         .chunks_exact(hop)
-        .map(|c| c.iter().map(|v| (v - mean) * (v - mean)).sum::<f64>() / hop as f64)
+        .map(|c| {
+            c.iter()
+                .map(|v| (v.to_f64() - mean) * (v.to_f64() - mean))
+                .sum::<f64>()
+                / hop as f64
+        })
         .collect();
     let p_max = p.iter().copied().fold(0.0, f64::max);
     if p_max <= 0.0 {
@@ -329,14 +338,14 @@ struct Crossings {
     last: usize,
 }
 
-fn up_crossings(x: &[f64], mean: f64, threshold: f64) -> Crossings {
+fn up_crossings<T: Store>(x: &[T], mean: f64, threshold: f64) -> Crossings {
     let mut c = Crossings {
         count: 0,
         first: 0,
         last: 0,
     };
     let mut armed = false;
-    for (i, &v) in x.iter().enumerate() {
+    for (i, v) in x.iter().map(|v| v.to_f64()).enumerate() {
         let v = v - mean;
         if v < -threshold {
             armed = true;
@@ -354,9 +363,9 @@ fn up_crossings(x: &[f64], mean: f64, threshold: f64) -> Crossings {
 
 /// Relative change of the up-crossing rate (whole periods between the first and last crossing)
 /// from the first to the last quarter of `x`.
-fn frequency_change(x: &[f64], mean: f64, threshold: f64) -> Option<f64> {
+fn frequency_change<T: Store>(x: &[T], mean: f64, threshold: f64) -> Option<f64> {
     let q = x.len() / 4;
-    let rate = |part: &[f64]| -> Option<f64> {
+    let rate = |part: &[T]| -> Option<f64> {
         let c = up_crossings(part, mean, threshold);
         (c.count > 8 && c.last > c.first).then(|| (c.count - 1) as f64 / (c.last - c.first) as f64)
     };

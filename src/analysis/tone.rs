@@ -136,6 +136,9 @@ pub struct AnalysisInfo {
     pub fft_length: usize,
     pub enbw_bins: f64,
     pub bin_width_hz: f64,
+    /// Blocks of `fft_length` samples the figures combine (1 unless the capture was long; see
+    /// [`super::blocks`]).
+    pub blocks: usize,
 }
 
 /// Everything the steady-tone analysis says about one channel. Units are in the field names;
@@ -280,9 +283,8 @@ impl ToneAnalyzer {
         })
     }
 
-    /// Analyse one channel.
-    pub fn analyze(&self, input: &ChannelInput, cal: &Calibration) -> Result<ToneResult> {
-        let fs = input.sample_rate_hz;
+    /// The band's high edge at rate `fs`: as set, or 20 kHz or Nyquist, whichever is lower.
+    pub fn band_high(&self, fs: f64) -> Result<f64> {
         let nyquist = fs / 2.0;
         let band_hi = self.config.band_high_hz.unwrap_or(20_000f64.min(nyquist));
         if band_hi > nyquist + 1e-9 {
@@ -291,6 +293,13 @@ impl ToneAnalyzer {
                 self.config.band_low_hz
             )));
         }
+        Ok(band_hi)
+    }
+
+    /// Analyse one channel.
+    pub fn analyze(&self, input: &ChannelInput, cal: &Calibration) -> Result<ToneResult> {
+        let fs = input.sample_rate_hz;
+        self.band_high(fs)?;
         if input.samples.len() < MIN_SAMPLES {
             // Invalid data is reported for what it is; anything else this short is too short.
             if let Err(e @ Error::NotFinite { .. }) = sample_stats(input.samples, input, None) {
@@ -299,7 +308,19 @@ impl ToneAnalyzer {
             return Err(too_short(input, MIN_SAMPLES, ""));
         }
         let steady = find_steady(input.samples, fs);
-        check_steady_kind(input.channel, &steady, fs)?;
+        self.analyze_steady(input, &steady, cal)
+    }
+
+    /// Analyse the steady span `steady` found in `input` (see [`find_steady`]): refuse what is
+    /// not one steady tone, analyse the span, and add what the envelope showed.
+    pub fn analyze_steady(
+        &self,
+        input: &ChannelInput,
+        steady: &Steadiness,
+        cal: &Calibration,
+    ) -> Result<ToneResult> {
+        let fs = input.sample_rate_hz;
+        check_steady_kind(input.channel, steady, fs)?;
         let span = ChannelInput {
             samples: &input.samples[steady.start..steady.end],
             ..*input
@@ -307,16 +328,26 @@ impl ToneAnalyzer {
         if span.samples.len() < MIN_SAMPLES {
             return Err(too_short(&span, MIN_SAMPLES, " of steady tone"));
         }
-        let (stats, plan, buffers) = measure_spectrum(&self.planner, &span)?;
-        let outcome = self.analyze_spectrum(&span, cal, &stats, &plan, &buffers.output, band_hi);
-        plan.give_back(buffers);
-        let mut result = outcome?;
+        let mut result = self.analyze_block(&span, cal)?;
         result.analysed_from_s = steady.start as f64 / fs;
         result.analysed_to_s = (steady.start + result.samples_analysed) as f64 / fs;
         result.level_drift_db = steady.drift_db;
-        let steady_warnings = steady_warnings(&steady, fs);
-        result.warnings.splice(0..0, steady_warnings);
+        result.warnings.splice(0..0, steady_warnings(steady, fs));
         Ok(result)
+    }
+
+    /// Analyse all of `input` as one steady stretch, with no judgement of its envelope (the
+    /// caller judged the whole capture; a long one is analysed in such blocks).
+    pub fn analyze_block(&self, input: &ChannelInput, cal: &Calibration) -> Result<ToneResult> {
+        let fs = input.sample_rate_hz;
+        let band_hi = self.band_high(fs)?;
+        if input.samples.len() < MIN_SAMPLES {
+            return Err(too_short(input, MIN_SAMPLES, ""));
+        }
+        let (stats, plan, buffers) = measure_spectrum(&self.planner, input)?;
+        let outcome = self.analyze_spectrum(input, cal, &stats, &plan, &buffers.output, band_hi);
+        plan.give_back(buffers);
+        outcome
     }
 
     /// Everything after the transform: fits, sums, figures, warnings.
@@ -598,6 +629,7 @@ impl ToneAnalyzer {
                 fft_length: n,
                 enbw_bins: enbw,
                 bin_width_hz: bin_hz,
+                blocks: 1,
             },
             warnings: Vec::new(),
         };
@@ -1152,7 +1184,7 @@ fn quality_warnings(
 const MAX_FREQUENCY_CHANGE: f64 = 0.02;
 
 /// Refuse a capture that is not one steady tone: a staircase of levels or a sweep.
-fn check_steady_kind(channel: usize, s: &Steadiness, fs: f64) -> Result<()> {
+pub(crate) fn check_steady_kind(channel: usize, s: &Steadiness, fs: f64) -> Result<()> {
     if s.levels_db.len() >= 3 {
         let (hi, lo) = (s.levels_db[0], s.levels_db[s.levels_db.len() - 1]);
         return Err(Error::WrongKind {
@@ -1183,7 +1215,7 @@ fn check_steady_kind(channel: usize, s: &Steadiness, fs: f64) -> Result<()> {
 
 /// What the steady-span search found that the user must know: the span analysed, jumps,
 /// dropouts, settling.
-fn steady_warnings(s: &Steadiness, fs: f64) -> Vec<String> {
+pub(crate) fn steady_warnings(s: &Steadiness, fs: f64) -> Vec<String> {
     let mut w = Vec::new();
     let secs = |i: usize| i as f64 / fs;
     if s.levels_db.len() == 2 {

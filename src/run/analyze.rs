@@ -1,7 +1,8 @@
 //! `ampnote analyze`: read a capture one channel at a time, analyse, render.
 
 use crate::cli::AnalyzeArgs;
-use ampnote::analysis::tone::{ChannelInput, ToneAnalyzer};
+use ampnote::analysis::blocks;
+use ampnote::analysis::tone::ToneAnalyzer;
 use ampnote::capture::{select_channels, Capture};
 use ampnote::report::tone::{AnalyzeReport, ChannelError};
 use ampnote::report::SCHEMA_VERSION;
@@ -31,32 +32,29 @@ pub fn run(args: &AnalyzeArgs) -> Result<ExitCode, String> {
     let info = Capture::probe(capture_path).map_err(|e| e.to_string())?;
     let chosen = select_channels(info.channel_count, channel).map_err(|e| e.to_string())?;
 
-    // One channel decoded at a time: memory stays at one channel's samples plus the analysis.
+    // Channels in parallel; a long capture one channel at a time in compact storage, its blocks
+    // in parallel (see ampnote::analysis::blocks).
+    let run = blocks::each_channel(
+        capture_path,
+        &info,
+        &chosen,
+        args.accept_truncated,
+        |input| analyzer.analyze(input, &cal),
+        |input| blocks::tone(&analyzer, input, &cal, blocks::BLOCK_SAMPLES),
+    )
+    .map_err(|e| e.to_string())?;
+    let (frames, truncated) = (run.frames, run.truncated);
     let mut channels = Vec::new();
     let mut channel_errors = Vec::new();
-    let (mut frames, mut truncated) = (0, false);
-    for &ch in &chosen {
-        let capture = Capture::read_channels(capture_path, args.accept_truncated, Some(&[ch]))
-            .map_err(|e| e.to_string())?;
-        frames = capture.frames();
-        truncated = capture.truncated;
-        let input = ChannelInput {
-            channel: ch,
-            samples: &capture.channels[0],
-            sample_rate_hz: capture.sample_rate_hz as f64,
-            overload_threshold: capture.encoding.overload_threshold(),
-            resolution_bits: capture.encoding.resolution_bits(),
-        };
-        match analyzer.analyze(&input, &cal) {
+    for (ch, result) in run.channels {
+        match result {
             Ok(mut r) => {
-                if capture.truncated {
+                if truncated {
                     r.warnings.push(
                         "the file was truncated: only the complete frames were analysed".into(),
                     );
                 }
-                if info.length_unknown {
-                    r.warnings.push("the WAV header left the data length open (a recorder that stopped abruptly?): the samples were read to the end of the file".into());
-                }
+                r.warnings.extend(info.length_warning());
                 channels.push(r)
             }
             Err(e) => channel_errors.push(ChannelError {

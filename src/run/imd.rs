@@ -1,8 +1,8 @@
 //! `ampnote imd`: intermodulation from a two-tone capture.
 
 use crate::cli::{channel_choice, ImdArgs};
+use ampnote::analysis::blocks;
 use ampnote::analysis::imd::{ImdAnalyzer, PairHint};
-use ampnote::analysis::tone::ChannelInput;
 use ampnote::capture::{select_channels, Capture};
 use ampnote::error::Error;
 use ampnote::report::imd::ImdReport;
@@ -65,17 +65,17 @@ pub fn run(args: &ImdArgs) -> Result<ExitCode, String> {
     let analyzer = ImdAnalyzer::new();
     let mut channels = Vec::new();
     let mut channel_errors = Vec::new();
-    for &ch in &chosen {
-        let cap =
-            Capture::read_channels(capture_path, args.accept_truncated, Some(&[ch])).map_err(e)?;
-        let input = ChannelInput {
-            channel: ch,
-            samples: &cap.channels[0],
-            sample_rate_hz: cap.sample_rate_hz as f64,
-            overload_threshold: cap.encoding.overload_threshold(),
-            resolution_bits: cap.encoding.resolution_bits(),
-        };
-        match analyzer.analyze(&input, hint) {
+    let run = blocks::each_channel(
+        capture_path,
+        &info,
+        &chosen,
+        args.accept_truncated,
+        |input| analyzer.analyze(input, hint),
+        |input| blocks::imd(&analyzer, input, hint, blocks::BLOCK_SAMPLES),
+    )
+    .map_err(e)?;
+    for (ch, result) in run.channels {
+        match result {
             Ok(r) => channels.push(r),
             Err(err) => channel_errors.push(ChannelError {
                 channel: ch,

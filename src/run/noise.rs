@@ -1,8 +1,9 @@
 //! `ampnote noise`: noise and hum with no signal.
 
 use crate::cli::{channel_choice, NoiseArgs};
+use ampnote::analysis::blocks;
 use ampnote::analysis::noise::{NoiseAnalyzer, NoiseResult};
-use ampnote::analysis::tone::{ChannelInput, Mains};
+use ampnote::analysis::tone::Mains;
 use ampnote::capture::{select_channels, Capture};
 use ampnote::report::tone::{fmt_volts, ChannelError};
 use serde::Serialize;
@@ -132,16 +133,26 @@ pub fn run(args: &NoiseArgs) -> Result<ExitCode, String> {
     let mut channels = Vec::new();
     let mut channel_errors = Vec::new();
     let mut keeper = super::Keeper::new(&args.save);
-    for &ch in &chosen {
-        let cap = Capture::read_channels(capture_path, false, Some(&[ch])).map_err(e)?;
-        let input = ChannelInput {
-            channel: ch,
-            samples: &cap.channels[0],
-            sample_rate_hz: cap.sample_rate_hz as f64,
-            overload_threshold: cap.encoding.overload_threshold(),
-            resolution_bits: cap.encoding.resolution_bits(),
-        };
-        match analyzer.analyze(&input, (lo, hi), mains, &cal) {
+    let run = blocks::each_channel(
+        capture_path,
+        &info,
+        &chosen,
+        false,
+        |input| analyzer.analyze(input, (lo, hi), mains, &cal),
+        |input| {
+            blocks::noise(
+                &analyzer,
+                input,
+                (lo, hi),
+                mains,
+                &cal,
+                blocks::BLOCK_SAMPLES,
+            )
+        },
+    )
+    .map_err(e)?;
+    for (ch, result) in run.channels {
+        match result {
             Ok(mut r) => {
                 ampnote::report::add_rig_notes(std::slice::from_mut(&mut r), &notes);
                 keeper.add(
