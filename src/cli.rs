@@ -35,6 +35,9 @@ pub enum Command {
     Response(ResponseArgs),
     /// Intermodulation distortion from a recorded two-tone pair (IEC 60268-3).
     Imd(ImdArgs),
+    /// Follow a steady tone over a long capture (a warm-up, a hum log): level, THD, THD+N, H2, H3
+    /// and the strongest hum line per block, with the drift of each.
+    Trend(TrendArgs),
     /// Noise and hum with no signal (input shorted or silent): flat and A-weighted, mains lines,
     /// and S/N re 1 W when calibrated.
     Noise(NoiseArgs),
@@ -470,6 +473,17 @@ pub struct ResponseArgs {
 
     #[command(flatten)]
     pub save: SaveArgs,
+}
+
+#[derive(Debug, Args)]
+pub struct TrendArgs {
+    /// Block length in seconds: one line of figures per block.
+    #[arg(long, default_value_t = 1.0, value_name = "S")]
+    pub every: f64,
+    /// The tone's settings, the rig (with --rig, --seconds is the length of the log), the
+    /// calibration and the notebook, as for `analyze`.
+    #[command(flatten)]
+    pub tone: AnalyzeArgs,
 }
 
 #[derive(Debug, Args)]

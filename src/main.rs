@@ -16,6 +16,7 @@ fn main() -> ExitCode {
         Command::Response(args) => run::response::run(args),
         Command::Imd(args) => run::imd::run(args),
         Command::Noise(args) => run::noise::run(args),
+        Command::Trend(args) => run::trend::run(args),
         Command::Power(args) => run::power::run(args),
         Command::Zout(args) => run::zout::run(args),
         Command::Calibrate(args) => run::calibrate::run(args),

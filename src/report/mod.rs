@@ -6,6 +6,7 @@ pub mod imd;
 pub mod power;
 pub mod response;
 pub mod tone;
+pub mod trend;
 pub mod views;
 
 /// Version of the JSON layout; bumped when a field changes meaning or disappears.
@@ -52,5 +53,6 @@ channel_result!(
     crate::analysis::imd::ImdResult,
     crate::analysis::noise::NoiseResult,
     crate::procedure::power::PowerResult,
-    crate::procedure::zout::ZoutResult
+    crate::procedure::zout::ZoutResult,
+    crate::analysis::blocks::TrendResult
 );

@@ -6,7 +6,7 @@ use serde::Serialize;
 use std::fmt::Write as _;
 
 /// A channel that could not be analysed, and why.
-#[derive(Debug, Clone, Serialize)]
+#[derive(Debug, Clone, Serialize, serde::Deserialize)]
 pub struct ChannelError {
     pub channel: usize,
     pub error: String,

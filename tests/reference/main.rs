@@ -9,6 +9,7 @@ mod formats;
 mod framing;
 mod honest_compare;
 mod imd;
+mod long_captures;
 mod messy;
 mod notebook;
 mod numpy_fixtures;

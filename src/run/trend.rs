@@ -1,0 +1,117 @@
+//! `ampnote trend`: a steady tone followed block by block over a long capture.
+
+use crate::cli::TrendArgs;
+use ampnote::analysis::blocks;
+use ampnote::analysis::tone::ToneAnalyzer;
+use ampnote::capture::{select_channels, Capture};
+use ampnote::report::tone::ChannelError;
+use ampnote::report::trend::TrendReport;
+use ampnote::report::SCHEMA_VERSION;
+use std::process::ExitCode;
+
+/// Shortest and longest block: a block must hold a resolvable tone, and a trend of one block
+/// is not a trend (our choice: 50 ms to an hour).
+const EVERY_RANGE_S: (f64, f64) = (0.05, 3600.0);
+
+pub fn run(args: &TrendArgs) -> Result<ExitCode, String> {
+    let a = &args.tone;
+    if !(args.every.is_finite() && (EVERY_RANGE_S.0..=EVERY_RANGE_S.1).contains(&args.every)) {
+        return Err(format!(
+            "--every takes a block length from {} to {} s, got {}",
+            EVERY_RANGE_S.0, EVERY_RANGE_S.1, args.every
+        ));
+    }
+    super::check_save(&a.save)?;
+    let config = a.tone_config()?;
+    let cal = a.calibration.resolve(&a.save)?;
+    let channel = a.channel_choice()?;
+    let analyzer = ToneAnalyzer::new(config).map_err(|e| e.to_string())?;
+    let recorded =
+        super::capture_or_record(&a.capture, &a.rig, cal, "trend", channel, a.watts, || {
+            let c = super::rig_common(a.rate, a.level, 0.01);
+            super::to_played(ampnote::signal::stimulus::tone(&c, a.freq, a.seconds))
+        })?;
+    let cal = recorded.calibration_or(cal);
+    let path = recorded.capture.as_path();
+    let info = Capture::probe(path).map_err(|e| e.to_string())?;
+    let chosen = select_channels(info.channel_count, channel).map_err(|e| e.to_string())?;
+    let mut channels = Vec::new();
+    let mut channel_errors = Vec::new();
+    // One channel at a time in compact storage; its blocks on every core.
+    for &ch in &chosen {
+        let stored = ampnote::capture::StoredChannel::read(path, a.accept_truncated, ch)
+            .map_err(|e| e.to_string())?;
+        let input = blocks::StoredInput {
+            channel: ch,
+            samples: &stored.samples,
+            sample_rate_hz: info.sample_rate_hz as f64,
+            overload_threshold: info.encoding.overload_threshold(),
+            resolution_bits: info.encoding.resolution_bits(),
+        };
+        match blocks::trend(&analyzer, &input, &cal, args.every) {
+            Ok(mut r) => {
+                if stored.truncated {
+                    r.warnings.push(
+                        "the file was truncated: only the complete frames were analysed".into(),
+                    );
+                }
+                r.warnings.extend(info.length_warning());
+                channels.push(r)
+            }
+            Err(e) => channel_errors.push(ChannelError {
+                channel: ch,
+                error: e.to_string(),
+            }),
+        }
+    }
+    ampnote::report::add_rig_notes(&mut channels, &recorded.notes);
+    let mut keeper = super::Keeper::new(&a.save);
+    for r in &channels {
+        keeper.add(
+            "trend",
+            r.channel,
+            cal,
+            Some(ampnote::notebook::AnalysisSettings::Tone(
+                analyzer.config.clone(),
+            )),
+            vec![("capture.wav", path)],
+            r,
+        );
+    }
+    let report = TrendReport {
+        schema_version: SCHEMA_VERSION,
+        file: path.display().to_string(),
+        sample_rate_hz: info.sample_rate_hz,
+        channels,
+        channel_errors,
+    };
+    let machine = a.json || a.csv.is_some();
+    super::report_to_stderr(
+        machine,
+        report
+            .channels
+            .iter()
+            .flat_map(|c| c.warnings.iter().map(move |w| (c.channel, w))),
+        report.channel_errors.iter().map(|c| &c.error),
+    );
+    let text = if a.json {
+        report.to_json()
+    } else if let Some(csv_path) = &a.csv {
+        let csv = report.to_csv();
+        if csv_path.as_os_str() != "-" {
+            ampnote::files::write_whole(csv_path, csv.as_bytes()).map_err(|e| e.to_string())?;
+            String::new()
+        } else {
+            csv
+        }
+    } else {
+        report.to_table()
+    };
+    super::print_stdout(&text);
+    keeper.commit()?;
+    Ok(if report.channel_errors.is_empty() {
+        ExitCode::SUCCESS
+    } else {
+        ExitCode::from(2)
+    })
+}
