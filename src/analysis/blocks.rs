@@ -122,11 +122,13 @@ pub fn tone(
     analyzer.band_high(fs)?;
     let steady = input.steadiness();
     check_steady_kind(input.channel, &steady, fs)?;
-    let blocks = if steady.end - steady.start > 2 * block {
-        split(steady.start, steady.end, block)
-    } else {
-        vec![steady.start..steady.end]
-    };
+    // A span of at most two blocks is one block.
+    let len = steady.end - steady.start;
+    let blocks = split(
+        steady.start,
+        steady.end,
+        if len > 2 * block { block } else { len.max(1) },
+    );
     let parts: Vec<ToneResult> = blocks
         .par_iter()
         .map(|r| input.with_block(r.clone(), |ci| analyzer.analyze_block(ci, cal)))
