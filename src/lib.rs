@@ -21,6 +21,7 @@ pub mod error;
 pub mod files;
 pub mod notebook;
 pub mod procedure;
+pub mod progress;
 pub mod report;
 pub mod rig;
 pub mod signal;

@@ -22,6 +22,7 @@ use super::tone::{
 use crate::calibration::Calibration;
 use crate::capture::StoredSamples;
 use crate::error::Result;
+use crate::progress::Progress;
 use rayon::prelude::*;
 use serde::{Deserialize, Serialize};
 use std::ops::Range;
@@ -43,19 +44,22 @@ const LEVEL_WANDER_DB: f64 = 0.75;
 const THD_WANDER_DB: f64 = 1.0;
 
 /// One channel of a long capture and how it was stored.
-#[derive(Debug, Clone, Copy)]
+#[derive(Clone)]
 pub struct StoredInput<'a> {
     pub channel: usize,
     pub samples: &'a StoredSamples,
     pub sample_rate_hz: f64,
     pub overload_threshold: f64,
     pub resolution_bits: u32,
+    /// Ticked once per block analysed (see [`Progress::hidden`] for none).
+    pub progress: Progress,
 }
 
 impl StoredInput<'_> {
     /// Run `f` on samples `range` widened to `f64`.
     fn with_block<R>(&self, range: Range<usize>, f: impl FnOnce(&ChannelInput) -> R) -> R {
         let samples = self.samples.block(range);
+        let _tick = Tick(&self.progress);
         f(&ChannelInput {
             channel: self.channel,
             samples: &samples,
@@ -70,6 +74,15 @@ impl StoredInput<'_> {
             StoredSamples::F32(v) => find_steady(v, self.sample_rate_hz),
             StoredSamples::F64(v) => find_steady(v, self.sample_rate_hz),
         }
+    }
+}
+
+/// Ticks the bar when a block's work ends, however it ends.
+struct Tick<'a>(&'a Progress);
+
+impl Drop for Tick<'_> {
+    fn drop(&mut self) {
+        self.0.inc(1);
     }
 }
 
@@ -129,6 +142,7 @@ pub fn tone(
         steady.end,
         if len > 2 * block { block } else { len.max(1) },
     );
+    input.progress.extend(blocks.len() as u64);
     let parts: Vec<ToneResult> = blocks
         .par_iter()
         .map(|r| input.with_block(r.clone(), |ci| analyzer.analyze_block(ci, cal)))
@@ -240,6 +254,7 @@ pub fn noise(
     block: usize,
 ) -> Result<NoiseResult> {
     let blocks = split(0, input.samples.len(), block);
+    input.progress.extend(blocks.len() as u64);
     let parts: Vec<NoiseResult> = blocks
         .par_iter()
         .map(|r| input.with_block(r.clone(), |ci| analyzer.analyze(ci, band_hz, mains, cal)))
@@ -291,6 +306,7 @@ pub fn imd(
     block: usize,
 ) -> Result<ImdResult> {
     let blocks = split(0, input.samples.len(), block);
+    input.progress.extend(blocks.len() as u64);
     let parts: Vec<ImdResult> = blocks
         .par_iter()
         .map(|r| input.with_block(r.clone(), |ci| analyzer.analyze(ci, hint)))
@@ -426,6 +442,7 @@ pub fn trend(
             why: format!(" for one block of --every {every_s} s"),
         });
     }
+    input.progress.extend(count as u64);
     let points: Vec<TrendPoint> = (0..count)
         .into_par_iter()
         .map(|i| {
@@ -545,6 +562,11 @@ pub fn each_channel<R: Send>(
     short: impl Fn(&ChannelInput) -> Result<R> + Sync,
     long: impl Fn(&StoredInput) -> Result<R> + Sync,
 ) -> Result<FileRun<R>> {
+    let progress = if is_long(info.frames_declared) {
+        Progress::new(0, "blocks")
+    } else {
+        Progress::hidden()
+    };
     use crate::capture::{Capture, StoredChannel};
     let fs = info.sample_rate_hz as f64;
     let (overload_threshold, resolution_bits) = (
@@ -554,13 +576,16 @@ pub fn each_channel<R: Send>(
     let runs: Vec<(usize, Result<R>, usize, bool)> = if is_long(info.frames_declared) {
         let mut out = Vec::new();
         for &ch in chosen {
+            progress.message(format!("channel {ch}: reading"));
             let stored = StoredChannel::read(path, accept_truncated, ch)?;
+            progress.message(format!("channel {ch}"));
             let input = StoredInput {
                 channel: ch,
                 samples: &stored.samples,
                 sample_rate_hz: fs,
                 overload_threshold,
                 resolution_bits,
+                progress: progress.clone(),
             };
             out.push((ch, long(&input), stored.samples.len(), stored.truncated));
         }
@@ -581,6 +606,7 @@ pub fn each_channel<R: Send>(
             })
             .collect::<Result<_>>()?
     };
+    progress.finish();
     Ok(FileRun {
         frames: runs.first().map_or(0, |r| r.2),
         truncated: runs.iter().any(|r| r.3),

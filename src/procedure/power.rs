@@ -277,29 +277,38 @@ pub fn power_from_capture(
     cal: &Calibration,
 ) -> Result<PowerResult> {
     let analyzer = step_analyzer(frequency_hz, sample_rate_hz)?;
+    // Every step analysed on its own core (rayon keeps the table's order, so the result is
+    // the serial one); then taken in order.
+    use rayon::prelude::*;
+    let analysed: Vec<Option<Result<ToneResult>>> = table
+        .par_iter()
+        .map(|s| {
+            let from = s.analyse_from_sample as isize + latency;
+            let to = s.analyse_to_sample as isize + latency;
+            if from < 0 || to as usize > capture.len() {
+                return None;
+            }
+            let input = ChannelInput {
+                channel,
+                samples: &capture[from as usize..to as usize],
+                sample_rate_hz,
+                overload_threshold,
+                resolution_bits,
+            };
+            Some(analyzer.analyze(&input, cal))
+        })
+        .collect();
     let mut steps = Vec::with_capacity(table.len());
     let mut missing = Vec::new();
-    for s in table {
-        let from = s.analyse_from_sample as isize + latency;
-        let to = s.analyse_to_sample as isize + latency;
-        if from < 0 || to as usize > capture.len() {
-            missing.push(s.level_dbfs);
-            continue;
-        }
-        let input = ChannelInput {
-            channel,
-            samples: &capture[from as usize..to as usize],
-            sample_rate_hz,
-            overload_threshold,
-            resolution_bits,
-        };
-        match analyzer.analyze(&input, cal) {
-            Ok(r) => steps.push(step_from(s.level_dbfs, &r)),
-            Err(Error::NoTone { .. })
-            | Err(Error::Silent { .. })
-            | Err(Error::DcOnly { .. })
-            | Err(Error::FarTooQuiet { .. }) => missing.push(s.level_dbfs),
-            Err(e) => return Err(e),
+    for (s, outcome) in table.iter().zip(analysed) {
+        match outcome {
+            None => missing.push(s.level_dbfs),
+            Some(Ok(r)) => steps.push(step_from(s.level_dbfs, &r)),
+            Some(Err(Error::NoTone { .. }))
+            | Some(Err(Error::Silent { .. }))
+            | Some(Err(Error::DcOnly { .. }))
+            | Some(Err(Error::FarTooQuiet { .. })) => missing.push(s.level_dbfs),
+            Some(Err(e)) => return Err(e),
         }
     }
     if steps.is_empty() {
@@ -494,13 +503,26 @@ pub fn tone_on_rig(
     )
 }
 
+/// Ticks the bar when a step ends, however it ends.
+struct StepTick<'a>(&'a crate::progress::Progress);
+
+impl Drop for StepTick<'_> {
+    fn drop(&mut self) {
+        self.0.inc(1);
+    }
+}
+
 /// Run the staircase on `rig` for one channel: coarse steps, finer steps (a fifth) across each THD
 /// target the coarse ones jump over, until THD passes the stop limit, the next step's predicted
 /// power passes the power limit, or the drive reaches 0 dBFS.
+///
+/// `progress` is ticked per step played (its length grows by the coarse steps up to full scale;
+/// the staircase usually stops before).
 pub fn run_staircase(
     rig: &mut dyn Rig,
     channel: usize,
     s: &StaircaseSettings,
+    progress: &crate::progress::Progress,
 ) -> Result<PowerResult> {
     let s = &(*s).validated()?;
     let cal = rig.calibration();
@@ -509,7 +531,13 @@ pub fn run_staircase(
     let fs = s.sample_rate_hz as f64;
     let settle = (s.settle_s * fs) as usize;
     let dwell = (s.dwell_s * fs) as usize;
+    progress.extend(1 + (-s.from_dbfs / s.step_db).ceil().max(0.0) as u64);
     let measure = |rig: &mut dyn Rig, drive: f64| -> Result<PowerStep> {
+        progress.message(format!(
+            "channel {channel}, {} Hz: {drive:.1} dBFS",
+            s.frequency_hz
+        ));
+        let _tick = StepTick(progress);
         let r = tone_on_rig(
             rig,
             channel,
@@ -558,6 +586,7 @@ pub fn run_staircase(
         if let (Some(pt), Some(pd)) = (prev_thd, prev_drive) {
             if THD_TARGETS.iter().any(|&t| pt < t && cur_thd >= t) {
                 let fine = s.step_db / 5.0;
+                progress.extend(4);
                 let mut d = pd + fine;
                 while d < drive - fine / 2.0 {
                     let st = measure(rig, d)?;
@@ -599,6 +628,7 @@ pub fn run_staircase(
         }
         drive = next;
     }
+    progress.settle();
     Ok(finish(
         channel,
         s.frequency_hz,

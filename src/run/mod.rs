@@ -324,7 +324,10 @@ pub fn capture_or_record(
         _ => None,
     };
     let level = stim.description.as_ref().map_or(0.0, |d| d.level_dbfs);
+    let progress = ampnote::progress::Progress::new(chosen.len() as u64, "channels");
+    let seconds = stim.signal.len() as f64 / rate as f64;
     for (done, &ch) in chosen.iter().enumerate() {
+        progress.message(format!("channel {ch}: playing {seconds:.1} s"));
         let scaled;
         let signal = match (watts, tone_hz) {
             (None, _) => &stim.signal,
@@ -344,7 +347,9 @@ pub fn capture_or_record(
                 &scaled
             }
         };
-        match rig.play_and_record(ch, signal, rate) {
+        let played = rig.play_and_record(ch, signal, rate);
+        progress.inc(1);
+        match played {
             Ok(y) => {
                 chans[ch - 1] = y;
                 notes.extend(rig.take_notes(ch).into_iter().map(|n| (ch, n)));
@@ -363,6 +368,7 @@ pub fn capture_or_record(
             }
         }
     }
+    progress.finish();
     write(&cap_path, &chans)?;
     eprintln!(
         "recorded {} (stimulus {})",

@@ -498,9 +498,11 @@ pub fn analyze_capture(
 fn reanalyze(dir: &Path, only: &[String]) -> Result<ExitCode, String> {
     use ampnote::capture::Capture;
     use ampnote::signal::stimulus::Description;
+    use rayon::prelude::*;
     let nb = Notebook::open(dir).map_err(e)?;
     let mut done = 0;
     let mut skipped = Vec::new();
+    let mut todo = Vec::new();
     for run in nb.runs().map_err(e)? {
         if !only.is_empty() && !only.contains(&run.meta.id) {
             continue;
@@ -515,23 +517,40 @@ fn reanalyze(dir: &Path, only: &[String]) -> Result<ExitCode, String> {
             ));
             continue;
         }
-        let info = Capture::probe(&cap_path).map_err(e)?;
-        let ch = if run.meta.channel <= info.channel_count {
-            run.meta.channel
-        } else {
-            1
-        };
-        let cap = Capture::read_channels(&cap_path, true, Some(&[ch])).map_err(e)?;
-        let stim = Capture::read(&run.dir.join("stimulus.wav"), false).ok();
-        let desc = stim.as_ref().and_then(|s| Description::of_capture(s).ok());
-        let pair = stim.as_ref().zip(desc.as_ref());
-        let (procedure, v) = analyze_capture(
-            &cap,
-            run.meta.channel,
-            pair,
-            &run.meta.calibration,
-            run.meta.analysis.as_ref(),
-        )?;
+        todo.push(run);
+    }
+    // Every run on its own core; the new results are written afterwards, in the notebook's
+    // order, so the outcome is the serial one.
+    let progress = ampnote::progress::Progress::new(todo.len() as u64, "runs");
+    let analysed: Vec<Result<(&str, serde_json::Value), String>> = todo
+        .par_iter()
+        .map(|run| {
+            progress.message(run.meta.id.clone());
+            let cap_path = run.dir.join("capture.wav");
+            let info = Capture::probe(&cap_path).map_err(e)?;
+            let ch = if run.meta.channel <= info.channel_count {
+                run.meta.channel
+            } else {
+                1
+            };
+            let cap = Capture::read_channels(&cap_path, true, Some(&[ch])).map_err(e)?;
+            let stim = Capture::read(&run.dir.join("stimulus.wav"), false).ok();
+            let desc = stim.as_ref().and_then(|s| Description::of_capture(s).ok());
+            let pair = stim.as_ref().zip(desc.as_ref());
+            let out = analyze_capture(
+                &cap,
+                run.meta.channel,
+                pair,
+                &run.meta.calibration,
+                run.meta.analysis.as_ref(),
+            );
+            progress.inc(1);
+            out
+        })
+        .collect();
+    progress.finish();
+    for (run, outcome) in todo.iter().zip(analysed) {
+        let (procedure, v) = outcome?;
         if procedure != run.meta.procedure {
             skipped.push(format!(
                 "{} (its stored stimulus no longer matches a {} run)",
@@ -539,7 +558,7 @@ fn reanalyze(dir: &Path, only: &[String]) -> Result<ExitCode, String> {
             ));
             continue;
         }
-        let path = nb.add_result(&run, &v).map_err(e)?;
+        let path = nb.add_result(run, &v).map_err(e)?;
         eprintln!("{}: new result {}", run.meta.id, path.display());
         done += 1;
     }

@@ -62,9 +62,10 @@ pub fn run(args: &PowerArgs) -> Result<ExitCode, String> {
             source = rig.describe();
             used = rig.calibration();
             let chosen = select_channels(rig.channels(), channel_choice(&args.channel)?).map_err(e)?;
+            let progress = ampnote::progress::Progress::new(0, "steps");
             for settings in &plans {
                 for &ch in &chosen {
-                    match run_staircase(rig.as_mut(), ch, settings) {
+                    match run_staircase(rig.as_mut(), ch, settings, &progress) {
                         Ok(mut r) => {
                             r.warnings.extend(rig.take_notes(ch));
                             results.push(r)

@@ -38,7 +38,9 @@ pub fn run(args: &TrendArgs) -> Result<ExitCode, String> {
     let mut channels = Vec::new();
     let mut channel_errors = Vec::new();
     // One channel at a time in compact storage; its blocks on every core.
+    let progress = ampnote::progress::Progress::new(0, "blocks");
     for &ch in &chosen {
+        progress.message(format!("channel {ch}: reading"));
         let stored = ampnote::capture::StoredChannel::read(path, a.accept_truncated, ch)
             .map_err(|e| e.to_string())?;
         let input = blocks::StoredInput {
@@ -47,7 +49,9 @@ pub fn run(args: &TrendArgs) -> Result<ExitCode, String> {
             sample_rate_hz: info.sample_rate_hz as f64,
             overload_threshold: info.encoding.overload_threshold(),
             resolution_bits: info.encoding.resolution_bits(),
+            progress: progress.clone(),
         };
+        progress.message(format!("channel {ch}"));
         match blocks::trend(&analyzer, &input, &cal, args.every) {
             Ok(mut r) => {
                 if stored.truncated {
@@ -64,6 +68,7 @@ pub fn run(args: &TrendArgs) -> Result<ExitCode, String> {
             }),
         }
     }
+    progress.finish();
     ampnote::report::add_rig_notes(&mut channels, &recorded.notes);
     let mut keeper = super::Keeper::new(&a.save);
     for r in &channels {

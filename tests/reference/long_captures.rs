@@ -53,6 +53,7 @@ fn input(s: &StoredSamples) -> StoredInput<'_> {
         sample_rate_hz: FS,
         overload_threshold: 1.0,
         resolution_bits: 24,
+        progress: ampnote::progress::Progress::hidden(),
     }
 }
 

@@ -113,7 +113,7 @@ proptest! {
             settle_s: 0.05,
             dwell_s: 0.15,
         };
-        match run_staircase(rig.as_mut(), 1, &s) {
+        match run_staircase(rig.as_mut(), 1, &s, &ampnote::progress::Progress::hidden()) {
             Ok(r) => {
                 for st in &r.steps {
                     let w = st.output_w.unwrap();
