@@ -704,6 +704,10 @@ pub struct WatchArgs {
     /// Stop after this many seconds (default: until Ctrl-C).
     #[arg(long, value_name = "S")]
     pub seconds: Option<f64>,
+    /// Keep every reading, with its time, in this CSV file (a new file; the columns of
+    /// `ampnote trend --csv`). Each line is written as it is read, so Ctrl-C loses nothing.
+    #[arg(long, value_name = "FILE.csv")]
+    pub log: Option<PathBuf>,
     #[command(flatten)]
     pub calibration: CalibrationArgs,
 }

@@ -363,6 +363,30 @@ pub struct TrendPoint {
     pub note: Option<String>,
 }
 
+impl TrendPoint {
+    /// The CSV columns of [`TrendPoint::csv_row`].
+    pub const CSV_HEADER: &'static str = "channel,at_s,level_dbfs,level_vrms,output_w,thd_percent,thdn_percent,h2_dbc,h3_dbc,hum_hz,hum_dbfs,note";
+
+    /// One CSV line (no newline): empty fields for figures not read, the note quoted.
+    pub fn csv_row(&self, channel: usize) -> String {
+        let f = |v: Option<f64>| v.map_or(String::new(), |x| format!("{x}"));
+        let note = self.note.as_deref().unwrap_or("").replace('"', "\"\"");
+        format!(
+            "{channel},{},{},{},{},{},{},{},{},{},{},\"{note}\"",
+            self.at_s,
+            f(self.level_dbfs),
+            f(self.level_vrms),
+            f(self.output_w),
+            f(self.thd_percent),
+            f(self.thdn_percent),
+            f(self.h2_dbc),
+            f(self.h3_dbc),
+            f(self.hum_hz),
+            f(self.hum_dbfs)
+        )
+    }
+}
+
 /// How far one figure moved over the trend: last block against first, and its range.
 #[derive(Debug, Clone, Serialize, Deserialize, PartialEq)]
 pub struct Drift {
@@ -504,7 +528,7 @@ pub fn trend(
 
 /// A trend point from one block's analysis; figures under the noise are left out (a bound is
 /// not a reading to follow) and named in the note.
-fn point_of(at_s: f64, r: &ToneResult) -> TrendPoint {
+pub fn point_of(at_s: f64, r: &ToneResult) -> TrendPoint {
     let harmonic = |order: usize| {
         r.harmonics
             .iter()

@@ -1,7 +1,7 @@
 //! `ampnote trend`: a long capture's figures block by block, as a table, JSON or CSV.
 
 use super::tone::{fmt_pct, fmt_volts, ChannelError};
-use crate::analysis::blocks::{Drift, TrendResult};
+use crate::analysis::blocks::{Drift, TrendPoint, TrendResult};
 use serde::{Deserialize, Serialize};
 use std::fmt::Write;
 
@@ -104,28 +104,11 @@ impl TrendReport {
 
     /// One row per block and channel.
     pub fn to_csv(&self) -> String {
-        let mut out = String::from(
-            "channel,at_s,level_dbfs,level_vrms,output_w,thd_percent,thdn_percent,h2_dbc,h3_dbc,hum_hz,hum_dbfs,note\n",
-        );
-        let f = |v: Option<f64>| v.map_or(String::new(), |x| format!("{x}"));
+        let mut out = format!("{}\n", TrendPoint::CSV_HEADER);
         for c in &self.channels {
             for p in &c.points {
-                let note = p.note.as_deref().unwrap_or("").replace('"', "\"\"");
-                let _ = writeln!(
-                    out,
-                    "{},{},{},{},{},{},{},{},{},{},{},\"{note}\"",
-                    c.channel,
-                    p.at_s,
-                    f(p.level_dbfs),
-                    f(p.level_vrms),
-                    f(p.output_w),
-                    f(p.thd_percent),
-                    f(p.thdn_percent),
-                    f(p.h2_dbc),
-                    f(p.h3_dbc),
-                    f(p.hum_hz),
-                    f(p.hum_dbfs)
-                );
+                out.push_str(&p.csv_row(c.channel));
+                out.push('\n');
             }
         }
         out

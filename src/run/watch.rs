@@ -86,6 +86,29 @@ pub fn run(args: &WatchArgs) -> Result<ExitCode, String> {
         ));
     }
     let cal = args.calibration.calibration()?;
+    // The log is opened before anything plays: a file already there is never overwritten.
+    let mut log = match &args.log {
+        Some(path) => {
+            let file = std::fs::OpenOptions::new()
+                .write(true)
+                .create_new(true)
+                .open(path)
+                .map_err(|err| match err.kind() {
+                    std::io::ErrorKind::AlreadyExists => format!(
+                        "--log {} exists already; give a new file name (a log is never overwritten)",
+                        path.display()
+                    ),
+                    _ => format!("cannot create the log {}: {err}", path.display()),
+                })?;
+            let mut w = std::io::BufWriter::new(file);
+            writeln!(w, "{}", ampnote::analysis::blocks::TrendPoint::CSV_HEADER)
+                .and_then(|_| w.flush())
+                .map_err(|err| format!("cannot write the log {}: {err}", path.display()))?;
+            Some((path.clone(), w))
+        }
+        None => None,
+    };
+    let mut log_error: Option<String> = None;
     let mut rig = args.rig.open(cal)?.ok_or(
         "give the rig to watch: --rig card (the audio interface) or --rig sim (the simulated bench)",
     )?;
@@ -152,14 +175,43 @@ pub fn run(args: &WatchArgs) -> Result<ExitCode, String> {
             overload_threshold: overload,
             resolution_bits: bits,
         };
-        let line = match analyzer.analyze(&input, &cal) {
-            Ok(r) => reading_line(&r),
+        let analysed = analyzer.analyze(&input, &cal);
+        let line = match &analysed {
+            Ok(r) => reading_line(r),
             Err(e) => format!("no reading: {e}"),
         };
         if readings == 0 {
             // Rates and CPU are counted from the first reading (the pre-flight comes before).
             start = Instant::now();
             cpu0 = cpu_seconds();
+        }
+        if let Some((path, w)) = &mut log {
+            let at_s = start.elapsed().as_secs_f64();
+            let point = match &analysed {
+                Ok(r) => ampnote::analysis::blocks::point_of(at_s, r),
+                Err(e) => ampnote::analysis::blocks::TrendPoint {
+                    at_s,
+                    level_dbfs: None,
+                    level_vrms: None,
+                    output_w: None,
+                    thd_percent: None,
+                    thdn_percent: None,
+                    h2_dbc: None,
+                    h3_dbc: None,
+                    hum_hz: None,
+                    hum_dbfs: None,
+                    note: Some(e.to_string()),
+                },
+            };
+            if let Err(err) = writeln!(w, "{}", point.csv_row(args.channel)).and_then(|_| w.flush())
+            {
+                // Stop rather than watch on without keeping: what was written stays.
+                log_error = Some(format!(
+                    "writing the log {} failed ({err}); the readings before this one are in it",
+                    path.display()
+                ));
+                return false;
+            }
         }
         let mut out = std::io::stdout().lock();
         let _ = if tty {
@@ -196,6 +248,12 @@ pub fn run(args: &WatchArgs) -> Result<ExitCode, String> {
             ""
         }
     );
+    if let Some((path, _)) = &log {
+        eprintln!("readings kept in {}", path.display());
+    }
     outcome.map_err(|e| e.to_string())?;
+    if let Some(err) = log_error {
+        return Err(err);
+    }
     Ok(ExitCode::SUCCESS)
 }

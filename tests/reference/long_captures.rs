@@ -288,3 +288,51 @@ fn trend_command_writes_table_json_and_csv() {
     assert_eq!(code, 2);
     assert!(err.contains("--every"), "{err}");
 }
+
+#[test]
+fn watch_keeps_every_reading_in_its_log() {
+    let d = super::common::tmpdir("watchlog");
+    let log = d.join("warmup.csv");
+    let _ = std::fs::remove_file(&log);
+    let (code, out, err) = super::common::run(&[
+        "watch",
+        "--rig",
+        "sim",
+        "--seconds",
+        "1",
+        "--log",
+        log.to_str().unwrap(),
+    ]);
+    assert_eq!(code, 0, "{err}");
+    let text = std::fs::read_to_string(&log).unwrap();
+    let mut lines = text.lines();
+    assert_eq!(
+        lines.next(),
+        Some(ampnote::analysis::blocks::TrendPoint::CSV_HEADER)
+    );
+    let rows: Vec<Vec<&str>> = lines.map(|l| l.split(',').collect()).collect();
+    // One row per reading the terminal showed (stdout is not a terminal here: a line each).
+    assert_eq!(rows.len(), out.lines().count(), "{text}\n{out}");
+    assert!(!rows.is_empty());
+    let mut last_t = -1.0;
+    for r in &rows {
+        let t: f64 = r[1].parse().unwrap();
+        assert!(t > last_t, "times rise: {t} after {last_t}");
+        last_t = t;
+        let level: f64 = r[2].parse().unwrap();
+        assert!(level.is_finite());
+    }
+    // A log already there is never overwritten.
+    let (code, _, err) = super::common::run(&[
+        "watch",
+        "--rig",
+        "sim",
+        "--seconds",
+        "1",
+        "--log",
+        log.to_str().unwrap(),
+    ]);
+    assert_eq!(code, 2);
+    assert!(err.contains("exists already"), "{err}");
+    assert_eq!(std::fs::read_to_string(&log).unwrap(), text);
+}
