@@ -273,6 +273,66 @@ pub fn run(out: &Path, mut progress: impl FnMut(&str)) -> Result<DemoOutcome> {
             runs += 5;
         }
     }
+    // The reworked amplifier switched on cold and logged for 20 s at 1 W (left channel): the
+    // trend of its warm-up.
+    progress("driver reworked, cold start");
+    let model = Model::load("reworked")?;
+    let drive = crate::procedure::drive::drive_for_power(
+        &mut SimRig::new(model.clone()),
+        1,
+        997.0,
+        RATE,
+        1.0,
+    )?
+    .drive_dbfs;
+    let mut cold = SimRig::cold(
+        model,
+        crate::rig::sim::Warmup {
+            cold_db: -2.0,
+            tau_s: 6.0,
+        },
+    );
+    let log = stimulus::tone(
+        &Common {
+            level_dbfs: drive.min(-1.0),
+            ..base.clone()
+        },
+        997.0,
+        20.0,
+    )?;
+    let log_path = write_stimulus(&work, "tone-20s.wav", &log)?;
+    let cap_path = work.join("capture.wav");
+    let y = record(&mut cold, 1, &log, &cap_path)?;
+    let samples = crate::capture::StoredSamples::F64(y);
+    let t = crate::analysis::blocks::trend(
+        &tone_cfg,
+        &crate::analysis::blocks::StoredInput {
+            channel: 1,
+            samples: &samples,
+            sample_rate_hz: RATE as f64,
+            overload_threshold: cold.overload_threshold(),
+            resolution_bits: cold.resolution_bits(),
+            progress: crate::progress::Progress::hidden(),
+        },
+        &cal,
+        1.0,
+    )?;
+    let mut settings = BTreeMap::new();
+    settings.insert("rig".to_string(), cold.describe());
+    settings.insert("start".to_string(), "cold (simulated warm-up)".to_string());
+    nb.save(NewRun {
+        label: "driver reworked",
+        channel: 1,
+        procedure: "trend",
+        notes: "warm-up from cold, 997 Hz at 1 W warm",
+        settings,
+        calibration: cal,
+        analysis: None,
+        files: vec![("stimulus.wav", &log_path), ("capture.wav", &cap_path)],
+        blobs: Vec::new(),
+        result: serde_json::to_value(&t).expect("serializes"),
+    })?;
+    runs += 1;
     let a = nb.select("stock", None)?;
     let b = nb.select("driver reworked", None)?;
     let comparison = compare("stock", &a, "driver reworked", &b);

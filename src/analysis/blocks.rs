@@ -423,6 +423,25 @@ pub struct TrendResult {
     pub warnings: Vec<String>,
 }
 
+impl TrendResult {
+    /// One line: how far the level and THD moved, over how long.
+    pub fn headline(&self) -> String {
+        let mut parts = vec![format!(
+            "{} blocks of {} s over {:.0} s",
+            self.points.len(),
+            self.every_s,
+            self.to_s - self.from_s
+        )];
+        if let Some(d) = &self.drift.level_db {
+            parts.push(format!("level {:+.2} dB", d.change));
+        }
+        if let Some(d) = &self.drift.thd_db {
+            parts.push(format!("THD {:+.2} dB", d.change));
+        }
+        parts.join(", ")
+    }
+}
+
 /// The drift of the figure `get` over the points that have it.
 fn drift_of(points: &[TrendPoint], get: impl Fn(&TrendPoint) -> Option<f64>) -> Option<Drift> {
     let v: Vec<f64> = points.iter().filter_map(get).collect();

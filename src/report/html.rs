@@ -647,6 +647,19 @@ pub fn write_report(nb: &Notebook, out: &Path) -> Result<ReportFiles> {
     let thd_f = curves_for(&runs, "response", |v| {
         xy(arr(v, "thd"), "frequency_hz", "level_dbc")
     });
+    // Trends (typed: the trend result is read back as itself).
+    let trend = |f: fn(&crate::analysis::blocks::TrendPoint) -> Option<f64>| {
+        curves_for(&runs, "trend", move |v| {
+            super::views::view::<crate::analysis::blocks::TrendResult>(v).map_or(Vec::new(), |t| {
+                t.points
+                    .iter()
+                    .filter_map(|p| Some((p.at_s, f(p)?)))
+                    .collect()
+            })
+        })
+    };
+    let trend_level = trend(|p| p.level_dbfs);
+    let trend_thd = trend(|p| p.thd_percent.or(p.thdn_percent));
     // Spectrum and residual of each label's left-channel tone run (the latest).
     let mut spectra = Vec::new();
     let mut residuals = Vec::new();
@@ -778,6 +791,38 @@ pub fn write_report(nb: &Notebook, out: &Path) -> Result<ReportFiles> {
                     &thd_f,
                     true,
                     false,
+                    None,
+                ),
+            )?,
+        ),
+        (
+            "trend-level",
+            "Level over time",
+            chart(
+                "trend-level",
+                spec(
+                    "Level over time (trend)",
+                    "Time (s)",
+                    "Level (dBFS)",
+                    &trend_level,
+                    false,
+                    false,
+                    None,
+                ),
+            )?,
+        ),
+        (
+            "trend-thd",
+            "THD over time",
+            chart(
+                "trend-thd",
+                spec(
+                    "THD over time (trend; THD+N where THD is under the noise)",
+                    "Time (s)",
+                    "THD (%)",
+                    &trend_thd,
+                    false,
+                    true,
                     None,
                 ),
             )?,

@@ -87,11 +87,23 @@ impl Biquad {
     }
 }
 
+/// A cold start: the driver's gain starts `cold_db` off its warm value and settles
+/// exponentially with time constant `tau_s` (the valves' emission coming up as the cathodes heat),
+/// counted over everything the rig has played since it was made. Invented, for the demo's trend.
+#[derive(Debug, Clone, Copy, PartialEq)]
+pub struct Warmup {
+    pub cold_db: f64,
+    pub tau_s: f64,
+}
+
 /// The simulated bench as a [`Rig`].
 pub struct SimRig {
     pub model: Model,
     load_ohms: f64,
     runs: u64,
+    warmup: Option<Warmup>,
+    /// Seconds played so far (the warm-up's clock).
+    clock_s: f64,
     /// Load-line tables already built, by channel and load: a staircase plays dozens of steps
     /// into the same load, and each table costs thousands of load-line solutions.
     transfers: Vec<((usize, u64), std::sync::Arc<Transfer>)>,
@@ -104,7 +116,17 @@ impl SimRig {
             model,
             load_ohms,
             runs: 0,
+            warmup: None,
+            clock_s: 0.0,
             transfers: Vec::new(),
+        }
+    }
+
+    /// The bench switched on cold: see [`Warmup`].
+    pub fn cold(model: Model, warmup: Warmup) -> Self {
+        SimRig {
+            warmup: Some(warmup),
+            ..SimRig::new(model)
         }
     }
 
@@ -176,13 +198,31 @@ impl Rig for SimRig {
                 t
             }
         };
+        let fs = sample_rate_hz as f64;
+        let warmed: Vec<f64>;
+        let stimulus = match self.warmup {
+            Some(w) => {
+                let t0 = self.clock_s;
+                warmed = stimulus
+                    .iter()
+                    .enumerate()
+                    .map(|(i, &s)| {
+                        let t = t0 + i as f64 / fs;
+                        s * 10f64.powf(w.cold_db * (-t / w.tau_s).exp() / 20.0)
+                    })
+                    .collect();
+                &warmed[..]
+            }
+            None => stimulus,
+        };
+        self.clock_s += stimulus.len() as f64 / fs;
         Ok(simulate_with(
             &transfer,
             &self.model.bench,
             &ch,
             self.load_ohms,
             stimulus,
-            sample_rate_hz as f64,
+            fs,
             seed,
         ))
     }

@@ -219,6 +219,8 @@ fn headline(r: &Run) -> String {
         }),
         "imd" => view::<ampnote::report::views::ImdView>(&r.result)
             .map_or_else(unreadable, |i| i.headline()),
+        "trend" => view::<ampnote::analysis::blocks::TrendResult>(&r.result)
+            .map_or_else(unreadable, |t| t.headline()),
         other => ampnote::notebook::printable(other),
     }
 }

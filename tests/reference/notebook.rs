@@ -154,10 +154,24 @@ fn demo_runs_end_to_end() {
     let out = d.join("demo");
     let (code, stdout, err) = run(&["demo", "--out", &out.to_string_lossy()]);
     assert_eq!(code, 0, "{err}");
-    assert!(stdout.contains("20 runs kept"), "{stdout}");
+    assert!(stdout.contains("21 runs kept"), "{stdout}");
     assert!(stdout.contains("power at 1 % THD"), "{stdout}");
     let nb = Notebook::open(&out.join("notebook")).unwrap();
-    assert_eq!(nb.runs().unwrap().len(), 20);
+    let runs = nb.runs().unwrap();
+    assert_eq!(runs.len(), 21);
+    // The cold start's trend: the simulated gain starts 2 dB low and settles as e^(-t / 6 s), so
+    // the level moves by 2 (e^(-t1/6) - e^(-t2/6)) dB between the first and last block's middles
+    // (closed form of the invented warm-up; 0.15 dB for the amplifier's own compression at 1 W).
+    let trend = runs.iter().find(|r| r.meta.procedure == "trend").unwrap();
+    let t: ampnote::analysis::blocks::TrendResult =
+        serde_json::from_value(trend.result.clone()).unwrap();
+    let (t1, t2) = (
+        t.points[0].at_s + 0.5,
+        t.points.last().unwrap().at_s + 0.5,
+    );
+    let expected = 2.0 * ((-t1 / 6.0f64).exp() - (-t2 / 6.0f64).exp());
+    let got = t.drift.level_db.as_ref().unwrap().change;
+    assert!((got - expected).abs() < 0.15, "{got} vs {expected}");
     // The rework lowers the second harmonic (its driver cancels part of it): power at 1 % rises.
     let (_, cmp, _) = run(&[
         "compare",
