@@ -548,7 +548,7 @@ pub struct ImdArgs {
 
 #[derive(Debug, Args)]
 pub struct AnalyzeArgs {
-    /// The recording (WAV: 16/24/32-bit integer or 32-bit float), or use --rig.
+    /// The recording (WAV, RF64, FLAC or AIFF; integer PCM or float), or use --rig.
     pub capture: Option<PathBuf>,
 
     #[command(flatten)]

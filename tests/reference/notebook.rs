@@ -165,10 +165,7 @@ fn demo_runs_end_to_end() {
     let trend = runs.iter().find(|r| r.meta.procedure == "trend").unwrap();
     let t: ampnote::analysis::blocks::TrendResult =
         serde_json::from_value(trend.result.clone()).unwrap();
-    let (t1, t2) = (
-        t.points[0].at_s + 0.5,
-        t.points.last().unwrap().at_s + 0.5,
-    );
+    let (t1, t2) = (t.points[0].at_s + 0.5, t.points.last().unwrap().at_s + 0.5);
     let expected = 2.0 * ((-t1 / 6.0f64).exp() - (-t2 / 6.0f64).exp());
     let got = t.drift.level_db.as_ref().unwrap().change;
     assert!((got - expected).abs() < 0.15, "{got} vs {expected}");
