@@ -1,6 +1,7 @@
 #!/usr/bin/env python3
-"""Fuzz ampnote's untrusted inputs through the real binary: the stimulus description chunk and
-the WAV header. Each case writes one spoiled file, runs the command that reads it under a time
+"""Fuzz ampnote's untrusted inputs through the real binary: the stimulus description chunk, the
+WAV header, and the other containers (FLAC, AIFF, RF64 from fixtures/formats: headers spoiled,
+frames garbled, files cut). Each case writes one spoiled file, runs the command that reads it under a time
 limit (20 s) and a memory limit (4 GiB of address space), and is counted as:
 
   ok      exit 0 (the spoiled value was harmless, or the field is not used)
@@ -139,6 +140,25 @@ def spoil_header(data, rng):
     return bytes(b)
 
 
+def spoil_coded(data, rng):
+    """A FLAC, AIFF or RF64 file with its header spoiled, a stretch garbled, or cut short."""
+    b = bytearray(data)
+    how = rng.randrange(4)
+    if how == 0:  # header bytes
+        for _ in range(rng.randint(1, 4)):
+            b[rng.randrange(min(120, len(b)))] = rng.randrange(256)
+    elif how == 1:  # a garbled stretch of audio
+        at = rng.randrange(len(b))
+        for k in range(at, min(len(b), at + rng.randint(1, 400))):
+            b[k] = rng.randrange(256)
+    elif how == 2:  # cut
+        b = b[: rng.randrange(len(b))]
+    else:  # a hostile 32-bit count somewhere in the header
+        at = rng.randrange(0, min(100, len(b) - 4))
+        b[at:at + 4] = struct.pack(">I", rng.choice(HOSTILE_COUNTS) & 0xFFFFFFFF)
+    return bytes(b)
+
+
 def main():
     ap = argparse.ArgumentParser()
     ap.add_argument("--cases", type=int, default=3000)
@@ -167,10 +187,22 @@ def main():
         "twotone": lambda s, c: ["imd", c, "--stimulus", s],
         "steps": lambda s, c: ["power", c, "--stimulus", s],
     }
-    counts = {"description": {}, "header": {}}
+    here = os.path.dirname(os.path.abspath(__file__))
+    coded = {}
+    for name in ["tone-24.flac", "tone-24.aiff", "tone-24.rf64", "tone-16.flac"]:
+        coded[name] = open(os.path.join(here, "..", "fixtures", "formats", name), "rb").read()
+    counts = {"description": {}, "header": {}, "formats": {}}
     examples = {}
     for i in range(a.cases):
-        if i % 2 == 0:
+        if i % 3 == 2:
+            name = rng.choice(list(coded))
+            spoiled = spoil_coded(coded[name], rng)
+            cap = os.path.join(tmp, "cap" + os.path.splitext(name)[1])
+            open(cap, "wb").write(spoiled)
+            sub = rng.choice([["analyze", cap], ["trend", cap, "--every", "0.1"], ["noise", cap]])
+            outcome, out = run([binary] + sub)
+            group = "formats"
+        elif i % 2 == 0:
             kind = rng.choice(list(command))
             data = base[kind]
             desc_off = next(c for c in read_chunks(data) if c[0] == b"ampn")
@@ -222,6 +254,7 @@ def main():
             (["generate", "steps", "--out", st + ".x"], ["--freq", "--from", "--to", "--step",
                                                          "--dwell", "--settle"]),
             (["generate", "twotone", "--out", tt + ".x"], ["--seconds", "--level"]),
+            (["trend", tone], ["--every", "--harmonics"]),
         ]
         for base_cmd, flags in plans:
             for flag in flags:

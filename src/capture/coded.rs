@@ -144,7 +144,13 @@ pub(super) fn decode<T: Store>(
     let mut decoder = symphonia::default::get_codecs()
         .make(&track.codec_params, &DecoderOptions { verify: true })
         .map_err(|e| damaged(path, kind, format!("no decoder for it: {e}")))?;
-    let reserve = info.frames_declared.min(1 << 24) as usize;
+    // Reserve what the header promises, but never more frames than the file has bytes per
+    // channel: a hostile header must not allocate gigabytes before the first frame.
+    let file_bytes = std::fs::metadata(path).map_or(1 << 20, |m| m.len());
+    let reserve = info
+        .frames_declared
+        .min(file_bytes / info.channel_count as u64)
+        .min(1 << 26) as usize;
     let mut out: Vec<Vec<T>> = numbers
         .iter()
         .map(|_| Vec::with_capacity(reserve))
