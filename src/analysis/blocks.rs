@@ -15,6 +15,7 @@
 
 use super::imd::{ImdAnalyzer, ImdResult, PairHint};
 use super::noise::{NoiseAnalyzer, NoiseResult};
+use super::oscillation::Oscillation;
 use super::steady::{find_steady, Steadiness};
 use super::tone::{
     check_steady_kind, steady_warnings, ChannelInput, Mains, ToneAnalyzer, ToneResult,
@@ -123,6 +124,22 @@ fn union_warnings<'a>(lists: impl Iterator<Item = &'a Vec<String>>) -> Vec<Strin
     out
 }
 
+/// An oscillation found in any block stands: the strongest reading of each (same kind,
+/// frequency within 1 %).
+fn merge_oscillations<'a>(all: impl Iterator<Item = &'a Oscillation>) -> Vec<Oscillation> {
+    let mut out: Vec<Oscillation> = Vec::new();
+    for o in all {
+        match out.iter_mut().find(|x| {
+            x.kind == o.kind && (x.frequency_hz - o.frequency_hz).abs() <= 0.01 * o.frequency_hz
+        }) {
+            Some(x) if x.level_dbfs >= o.level_dbfs => {}
+            Some(x) => *x = o.clone(),
+            None => out.push(o.clone()),
+        }
+    }
+    out
+}
+
 /// The steady-tone analysis of a long capture, block by block (see the module's docs). A span
 /// of at most two blocks is analysed whole, exactly as [`ToneAnalyzer::analyze`] does.
 pub fn tone(
@@ -218,6 +235,7 @@ fn combine_tone(parts: Vec<ToneResult>, fs: f64) -> ToneResult {
     r.frequency_drift_ppm = Some((last.fundamental_hz / first.fundamental_hz - 1.0) * 1e6);
     r.phase_wander_deg = rms_opt(parts.iter().map(|p| &p.phase_wander_deg));
     r.analysis.blocks = n;
+    r.oscillations = merge_oscillations(parts.iter().flat_map(|p| &p.oscillations));
     r.warnings = union_warnings(parts.iter().map(|p| &p.warnings));
     if !same_mains {
         r.warnings.push("the mains family detected differs between parts of the capture (50 and 60 Hz): the hum lines are upper bounds; give --mains".into());
@@ -291,6 +309,7 @@ pub fn noise(
     }
     r.dc_offset = parts.iter().map(|p| p.dc_offset).sum::<f64>() / n as f64;
     r.overload_samples = parts.iter().map(|p| p.overload_samples).sum();
+    r.oscillations = merge_oscillations(parts.iter().flat_map(|p| &p.oscillations));
     r.warnings = union_warnings(parts.iter().map(|p| &p.warnings));
     if !same_mains {
         r.warnings.push("the mains family detected differs between parts of the capture (50 and 60 Hz): give --mains".into());
@@ -565,6 +584,17 @@ pub fn point_of(at_s: f64, r: &ToneResult) -> TrendPoint {
     }
     if r.overload_samples > 0 {
         notes.push(format!("{} overloaded sample(s)", r.overload_samples));
+    }
+    for o in &r.oscillations {
+        notes.push(format!(
+            "{} at {:.2} Hz",
+            match o.kind {
+                super::oscillation::OscillationKind::Ultrasonic => "ultrasonic line",
+                super::oscillation::OscillationKind::SubAudio => "sub-audio line",
+                super::oscillation::OscillationKind::Motorboating => "level pumping",
+            },
+            o.frequency_hz
+        ));
     }
     TrendPoint {
         at_s,

@@ -4,6 +4,7 @@ pub mod blocks;
 pub mod fit;
 pub mod imd;
 pub mod noise;
+pub mod oscillation;
 pub mod spectrum;
 pub mod steady;
 pub mod sweep;

@@ -56,6 +56,10 @@ pub struct NoiseResult {
     pub hum: Vec<NoiseHumLine>,
     pub dc_offset: f64,
     pub overload_samples: usize,
+    /// Lines above the band or below 10 Hz that mains does not explain (see
+    /// [`super::oscillation`]); each also has a warning.
+    pub oscillations: Vec<super::oscillation::Oscillation>,
+    pub oscillation_search: super::oscillation::OscillationSearch,
     pub warnings: Vec<String>,
 }
 
@@ -232,6 +236,11 @@ fn analyze_spectrum(
             "input overload: {overload} sample(s) at or beyond full scale"
         ));
     }
+    // Oscillation checks: lines above the band and below 10 Hz. Mains and its rectifier buzz
+    // end well inside the band (40th order, common practice), so nothing there is explained.
+    let (oscillations, oscillation_search) =
+        super::tone::line_checks(spec, &model, n, fs, hi, input.resolution_bits, |_, _| false);
+    warnings.extend(oscillations.iter().map(|o| o.warning()));
     warnings.extend(super::tone::against_loopback(
         "noise",
         noise_dbfs,
@@ -256,6 +265,8 @@ fn analyze_spectrum(
         hum,
         dc_offset: dc,
         overload_samples: overload,
+        oscillations,
+        oscillation_search,
         warnings,
     })
 }

@@ -136,22 +136,46 @@ pub fn find_steady<T: Store>(x: &[T], fs: f64) -> Steadiness {
         return Steadiness::whole(n);
     }
     // --- the tone's period from up-crossings where it is loud ----------------------------------
-    let loud_hops: Vec<usize> = (0..hops).filter(|&j| p[j] >= 0.25 * p_max).collect();
+    // Loud where the mean square over 50 ms around the hop (a whole period down to 20 Hz) is:
+    // judged hop by hop, a low tone's hops near its zero crossings would break every period
+    // into pieces with no whole crossing in any.
+    let half_span = ((0.025 * fs / hop as f64).round() as usize).max(1);
+    let mut prefix = Vec::with_capacity(hops + 1);
+    prefix.push(0.0);
+    for &v in &p {
+        prefix.push(prefix.last().copied().unwrap_or(0.0) + v);
+    }
+    let smooth: Vec<f64> = (0..hops)
+        .map(|j| {
+            let (a, b) = (j.saturating_sub(half_span), (j + half_span + 1).min(hops));
+            (prefix[b] - prefix[a]) / (b - a) as f64
+        })
+        .collect();
+    let smooth_max = smooth.iter().copied().fold(0.0, f64::max);
+    let loud_hops: Vec<usize> = (0..hops)
+        .filter(|&j| smooth[j] >= 0.25 * smooth_max)
+        .collect();
     let loud_ms = loud_hops.iter().map(|&j| p[j]).sum::<f64>() / loud_hops.len() as f64;
     let threshold = 0.5 * (2.0 * loud_ms).sqrt();
     // Runs of consecutive loud hops, each counted on its own (no crossing across a gap).
-    let (mut crossings, mut span_samples) = (0usize, 0usize);
+    // Whole periods between the first and last crossing of each run: the run's ends hold
+    // partial periods, which a count over the run's length would spread over the whole ones
+    // (2 % at 20 Hz in one second, enough to leave the envelope rippling).
+    let (mut cycles, mut cycle_samples) = (0usize, 0usize);
     let mut run_start = 0;
     for i in 1..=loud_hops.len() {
         if i == loud_hops.len() || loud_hops[i] != loud_hops[i - 1] + 1 {
             let (from, to) = (loud_hops[run_start] * hop, (loud_hops[i - 1] + 1) * hop);
-            crossings += up_crossings(&x[from..to], mean, threshold).count;
-            span_samples += to - from;
+            let c = up_crossings(&x[from..to], mean, threshold);
+            if c.count >= 2 && c.last > c.first {
+                cycles += c.count - 1;
+                cycle_samples += c.last - c.first;
+            }
             run_start = i;
         }
     }
-    let period = if crossings >= 4 {
-        span_samples as f64 / crossings as f64
+    let period = if cycles >= 3 {
+        cycle_samples as f64 / cycles as f64
     } else {
         0.02 * fs
     };

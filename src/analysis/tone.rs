@@ -23,6 +23,7 @@
 //!    into the THD+N residual, so a large wander is flagged.
 
 use super::fit::{fit_lines, refine_frequency, LineFit};
+use super::oscillation::{Oscillation, OscillationKind, OscillationSearch};
 use super::spectrum::{fast_length, SpectrumPlan, SpectrumPlanner};
 use super::steady::{find_steady, Steadiness};
 use super::weighting::Weighting;
@@ -213,6 +214,11 @@ pub struct ToneResult {
     /// RMS phase wander of the fundamental around a steady frequency, degrees.
     #[serde(skip_serializing_if = "Option::is_none")]
     pub phase_wander_deg: Option<f64>,
+    /// Lines no stimulus, harmonic, mains or noise explains, above or below the audio band, and a
+    /// level pumping at a few hertz (see [`super::oscillation`]); each also has a warning.
+    pub oscillations: Vec<Oscillation>,
+    /// How far the oscillation checks could look at this rate and length.
+    pub oscillation_search: OscillationSearch,
     pub analysis: AnalysisInfo,
     pub warnings: Vec<String>,
 }
@@ -513,6 +519,32 @@ impl ToneAnalyzer {
                 other_line = Some((f_x, 10.0 * ratio.log10()));
             }
         }
+        let max_harmonic_ratio = fit.amplitudes[1..tone_lines.len()]
+            .iter()
+            .zip(&tone_lines[1..])
+            .filter(|(_, &f)| f * bin_hz <= band_hi)
+            .map(|(c, _)| (c.norm() / a1).powi(2))
+            .fold(0.0, f64::max);
+        let (oscillations, oscillation_search) = find_oscillations(
+            spec,
+            &all_model,
+            n,
+            fs,
+            f0_bins,
+            band_hi,
+            peak_power,
+            max_harmonic_ratio,
+            input.resolution_bits,
+        );
+        // A pumping level's sidebands are not a line of their own.
+        if let Some((f_x, _)) = other_line {
+            if oscillations.iter().any(|o| {
+                o.kind == OscillationKind::Motorboating
+                    && ((f_x - f0_hz).abs() - o.frequency_hz).abs() < 3.0 * bin_hz
+            }) {
+                other_line = None;
+            }
+        }
         let fundamental_dbfs = 20.0 * a1.log10();
         // sin-convention phase: Re(C e^{jwn}) = |C| sin(wn + arg C + pi/2)
         let phase_sin = |c: Complex64| c.arg() + PI / 2.0;
@@ -624,6 +656,8 @@ impl ToneAnalyzer {
             overload_samples: stats.overload,
             frequency_drift_ppm: drift.map(|d| d.drift_ppm),
             phase_wander_deg: drift.map(|d| d.wander_rad.to_degrees()),
+            oscillations,
+            oscillation_search,
             analysis: AnalysisInfo {
                 window: TONE_WINDOW.name,
                 fft_length: n,
@@ -634,6 +668,8 @@ impl ToneAnalyzer {
             warnings: Vec::new(),
         };
         result.warnings = quality_warnings(&result, input, cal, p_thdn, p1, drift);
+        let named: Vec<String> = result.oscillations.iter().map(|o| o.warning()).collect();
+        result.warnings.extend(named);
         if let Some((f_x, dbc)) = other_line {
             result.warnings.push(format!(
                 "a line at {f_x:.1} Hz ({dbc:.1} dBc) is neither a harmonic of the tone nor mains hum: an oscillation, interference or a second signal. THD+N and the noise include it; find its source before reading them as the amplifier's distortion."
@@ -1295,7 +1331,7 @@ pub(crate) fn near_multiple(f: f64, of: f64, orders: f64, tol: f64) -> bool {
 
 /// The strongest residual bin (spectrum minus every fitted line) in `k_lo..=k_hi` that
 /// `explained` does not account for: `(bin, |residual|^2)`.
-fn strongest_unexplained_line(
+pub(crate) fn strongest_unexplained_line(
     spec: &[Complex64],
     all: &[(usize, Complex64)],
     k_lo: usize,
@@ -1359,4 +1395,179 @@ pub(crate) fn against_loopback(
     } else {
         None
     }
+}
+
+/// The oscillation checks on a tone's spectrum (see [`super::oscillation`]): ultrasonic lines,
+/// sub-audio lines and a pumping level. `max_harmonic_ratio` is the strongest in-band harmonic's
+/// power over the fundamental's; `peak_power` the fundamental's peak bin power.
+#[allow(clippy::too_many_arguments)]
+fn find_oscillations(
+    spec: &[Complex64],
+    all: &[(usize, Complex64)],
+    n: usize,
+    fs: f64,
+    f0_bins: f64,
+    band_hi: f64,
+    peak_power: f64,
+    max_harmonic_ratio: f64,
+    resolution_bits: u32,
+) -> (Vec<Oscillation>, OscillationSearch) {
+    let bin_hz = fs / n as f64;
+    let half = TONE_WINDOW.main_lobe_half_width() as f64 + 1.0;
+    let tol = 3.0 * bin_hz * half;
+    let f0 = f0_bins * bin_hz;
+    let harmonic_like = |f: f64| {
+        near_multiple(f, f0, f64::INFINITY, tol)
+            || (2..=400usize).any(|h| {
+                let x = h as f64 * f0;
+                let folded = (x - (x / fs).round() * fs).abs();
+                x > fs / 2.0 && (folded - f).abs() <= tol
+            })
+    };
+    let (mut found, search) = line_checks(spec, all, n, fs, band_hi, resolution_bits, |f, p| {
+        harmonic_like(f) && p / peak_power <= 10.0 * max_harmonic_ratio
+    });
+    let a1 = fit_lines(spec, n, &TONE_WINDOW, &[f0_bins])
+        .map_or(1.0, |f| f.amplitudes[0].norm())
+        .max(1e-300);
+    for o in &mut found {
+        o.level_dbc = Some(o.level_dbfs - 20.0 * a1.log10());
+    }
+    found.extend(
+        pumping(spec, all, n, fs, f0_bins).filter(|o| {
+            o.level_dbfs > super::oscillation::quantisation_floor_dbfs(resolution_bits)
+        }),
+    );
+    (found, search)
+}
+
+/// Lines above the band (to Nyquist) and below 10 Hz that `explained(hz, peak power)` does not
+/// account for and that stand out of the noise (see [`super::oscillation`] for the threshold);
+/// levels from a fit at the refined frequency, in dBFS.
+///
+/// A line must also stand 10 dB above the quantisation noise of `resolution_bits` (all of it,
+/// over the whole band): the rounding of a coherent signal to the file's word length leaves
+/// periodic errors, which are real lines of the file but none of the amplifier.
+pub(crate) fn line_checks(
+    spec: &[Complex64],
+    all: &[(usize, Complex64)],
+    n: usize,
+    fs: f64,
+    band_hi: f64,
+    resolution_bits: u32,
+    explained: impl Fn(f64, f64) -> bool,
+) -> (Vec<Oscillation>, OscillationSearch) {
+    use super::oscillation::{search_factor, SUBAUDIO_TOP_HZ};
+    let bin_hz = fs / n as f64;
+    let half = TONE_WINDOW.main_lobe_half_width() as f64 + 1.0;
+    let mut found = Vec::new();
+    let mut search = OscillationSearch::default();
+    let line = |kind, k: usize| {
+        let f = refine_peak(spec, all, k);
+        let a = fit_lines(spec, n, &TONE_WINDOW, &[f]).map_or(0.0, |x| x.amplitudes[0].norm());
+        Oscillation {
+            kind,
+            frequency_hz: f * bin_hz,
+            level_dbfs: 20.0 * a.max(1e-300).log10(),
+            level_dbc: None,
+            modulation_percent: None,
+        }
+    };
+    let floor_dbfs = super::oscillation::quantisation_floor_dbfs(resolution_bits);
+    let mut keep = |o: Oscillation| {
+        if o.level_dbfs > floor_dbfs {
+            found.push(o);
+        }
+    };
+    let top = (n as f64 / 2.0 - half).floor() as usize;
+    let u_lo = (band_hi.max(20_000.0) / bin_hz + half).ceil() as usize;
+    if top > u_lo + 2 * half as usize {
+        search.ultrasonic_to_hz = Some(top as f64 * bin_hz);
+        let factor = search_factor(top - u_lo + 1);
+        let best = strongest_unexplained_line(spec, all, u_lo, top, |k, p| {
+            explained(k as f64 * bin_hz, p)
+        });
+        if let Some((k, p)) = best {
+            if p > factor * local_density(spec, all, k as f64, n) {
+                keep(line(OscillationKind::Ultrasonic, k));
+            }
+        }
+    }
+    let s_lo = (2.0 * half).ceil() as usize;
+    let s_hi = (SUBAUDIO_TOP_HZ / bin_hz).floor() as usize;
+    if s_hi > s_lo {
+        search.subaudio_from_hz = Some(s_lo as f64 * bin_hz);
+        let factor = search_factor(s_hi - s_lo + 1);
+        if let Some((k, p)) = strongest_unexplained_line(spec, all, s_lo, s_hi, |_, _| false) {
+            if p > factor * local_density(spec, all, k as f64, n) {
+                keep(line(OscillationKind::SubAudio, k));
+            }
+        }
+    }
+    (found, search)
+}
+
+/// A residual peak's position refined by parabolic interpolation of its dB levels, in bins.
+fn refine_peak(spec: &[Complex64], all: &[(usize, Complex64)], k: usize) -> f64 {
+    let db = |k: usize| {
+        10.0 * residuals(spec, all, k, k)
+            .next()
+            .map_or(0.0, |(_, r)| r.norm_sqr())
+            .max(1e-300)
+            .log10()
+    };
+    if k == 0 || k + 1 >= spec.len() {
+        return k as f64;
+    }
+    k as f64 + super::oscillation::parabolic_offset(db(k - 1), db(k), db(k + 1))
+}
+
+/// Sidebands at f0 +/- d for d from the resolution to 10 Hz, both standing out: the level
+/// pumping at d Hz (see [`super::oscillation`]).
+fn pumping(
+    spec: &[Complex64],
+    all: &[(usize, Complex64)],
+    n: usize,
+    fs: f64,
+    f0_bins: f64,
+) -> Option<Oscillation> {
+    use super::oscillation::{search_factor, SUBAUDIO_TOP_HZ};
+    let bin_hz = fs / n as f64;
+    let half = TONE_WINDOW.main_lobe_half_width() as f64 + 1.0;
+    let s_lo = (2.0 * half).ceil() as usize;
+    let s_hi = (SUBAUDIO_TOP_HZ / bin_hz).floor() as usize;
+    let k0 = f0_bins.round() as usize;
+    if s_hi <= s_lo || k0 <= s_hi + 1 || k0 + s_hi + 1 >= n / 2 {
+        return None;
+    }
+    let factor = search_factor(2 * (s_hi - s_lo + 1));
+    let residual_at = |k: usize| {
+        residuals(spec, all, k, k)
+            .next()
+            .map_or(0.0, |(_, r)| r.norm_sqr())
+    };
+    let stands = |k: usize, p: f64| p > factor * local_density(spec, all, k as f64, n);
+    let (ku, pu) = strongest_unexplained_line(spec, all, k0 + s_lo, k0 + s_hi, |_, _| false)?;
+    let fu = refine_peak(spec, all, ku);
+    let mirror = (2.0 * f0_bins - fu).round() as usize;
+    let (kl, pl) = (mirror - 1..=mirror + 1)
+        .map(|k| (k, residual_at(k)))
+        .max_by(|a, b| a.1.total_cmp(&b.1))?;
+    if !(stands(ku, pu) && stands(kl, pl)) {
+        return None;
+    }
+    let fl = refine_peak(spec, all, kl);
+    let d = 0.5 * ((fu - f0_bins) + (f0_bins - fl));
+    // The sidebands' amplitudes from a joint fit with the fundamental.
+    let fit = fit_lines(spec, n, &TONE_WINDOW, &[f0_bins, fu, fl])?;
+    let a1 = fit.amplitudes[0].norm().max(1e-300);
+    let (ru, rl) = (fit.amplitudes[1].norm() / a1, fit.amplitudes[2].norm() / a1);
+    let dbc = 20.0 * ru.max(rl).max(1e-300).log10();
+    Some(Oscillation {
+        kind: OscillationKind::Motorboating,
+        frequency_hz: d * bin_hz,
+        level_dbfs: 20.0 * a1.log10() + dbc,
+        level_dbc: Some(dbc),
+        modulation_percent: Some(100.0 * (ru + rl)),
+    })
 }

@@ -205,6 +205,7 @@ fn channel_table(s: &mut String, c: &ToneResult) {
         c.crest_factor,
         c.overload_samples
     );
+    s.push_str(&oscillation_lines(&c.oscillations, &c.oscillation_search));
     if let Some(d) = c.frequency_drift_ppm {
         let _ = writeln!(
             s,
@@ -288,6 +289,54 @@ fn fmt_num(v: f64) -> String {
 
 fn fmt_hz(v: f64) -> String {
     fmt_num(v)
+}
+
+/// The oscillation checks for a table: what was found, or where nothing was, and what the
+/// rate or length kept from view.
+pub fn oscillation_lines(
+    found: &[crate::analysis::oscillation::Oscillation],
+    search: &crate::analysis::oscillation::OscillationSearch,
+) -> String {
+    use crate::analysis::oscillation::OscillationKind;
+    let mut s = String::new();
+    for o in found {
+        let what = match o.kind {
+            OscillationKind::Ultrasonic => {
+                format!("ultrasonic line at {:.2} kHz", o.frequency_hz / 1e3)
+            }
+            OscillationKind::SubAudio => format!("sub-audio line at {:.2} Hz", o.frequency_hz),
+            OscillationKind::Motorboating => format!(
+                "level pumping at {:.2} Hz, {:.2} % modulation",
+                o.frequency_hz,
+                o.modulation_percent.unwrap_or(0.0)
+            ),
+        };
+        let _ = writeln!(s, "  Oscillation {what}, {}", o.level_text());
+    }
+    if found.is_empty() {
+        let from = search
+            .subaudio_from_hz
+            .map_or("10 Hz".to_string(), |f| format!("{f:.1} Hz"));
+        let to = search
+            .ultrasonic_to_hz
+            .map_or("the band's top".to_string(), |f| {
+                format!("{:.1} kHz", f / 1e3)
+            });
+        let _ = writeln!(s, "  Oscillation none found from {from} to {to}");
+    }
+    if search.ultrasonic_to_hz.is_none_or(|f| f < 30_000.0) {
+        let _ = writeln!(
+            s,
+            "              (ultrasonic oscillation shows only at 96 kHz or more)"
+        );
+    }
+    if search.subaudio_from_hz.is_none() {
+        let _ = writeln!(
+            s,
+            "              (too short to see below 10 Hz: record 5 s or more)"
+        );
+    }
+    s
 }
 
 /// Percent with enough significant digits for small values.

@@ -70,6 +70,10 @@ fn table(r: &NoiseReport) -> String {
                 }
             );
         }
+        s.push_str(&ampnote::report::tone::oscillation_lines(
+            &c.oscillations,
+            &c.oscillation_search,
+        ));
         for w in &c.warnings {
             let _ = writeln!(s, "  warning: {w}");
         }

@@ -63,3 +63,19 @@ pub fn run(args: &[&str]) -> (i32, String, String) {
         String::from_utf8_lossy(&out.stderr).into(),
     )
 }
+
+/// White noise of RMS `dbfs` (re a full-scale sine: sigma = 10^(dbfs/20) / sqrt 2), from a fixed
+/// 64-bit LCG (the sum of 12 uniforms: near-Gaussian), the same for the same `seed`.
+pub fn noise(n: usize, dbfs: f64, seed: u64) -> Vec<f64> {
+    let mut state = seed ^ 0x2545_f491_4f6c_dd1d;
+    let mut uniform = move || {
+        state = state
+            .wrapping_mul(6_364_136_223_846_793_005)
+            .wrapping_add(1_442_695_040_888_963_407);
+        (state >> 11) as f64 / (1u64 << 53) as f64
+    };
+    let sigma = 10f64.powf(dbfs / 20.0) / 2f64.sqrt();
+    (0..n)
+        .map(|_| sigma * ((0..12).map(|_| uniform()).sum::<f64>() - 6.0))
+        .collect()
+}

@@ -18,26 +18,18 @@ fn q24(x: f64) -> f32 {
 }
 
 /// A 997 Hz tone with H2 -50 dBc and H3 -60 dBc, whose level follows `level_db(t)`, plus
-/// Gaussian-like noise at `noise_dbfs` (a fixed LCG, sum of 12 uniforms).
+/// noise at `noise_dbfs` (see `common::noise`).
 fn tone(n: usize, level_db: impl Fn(f64) -> f64, noise_dbfs: f64) -> Vec<f64> {
-    let mut seed = 0x2545_f491_4f6c_dd1du64;
-    let mut uniform = move || {
-        seed = seed
-            .wrapping_mul(6_364_136_223_846_793_005)
-            .wrapping_add(1_442_695_040_888_963_407);
-        (seed >> 11) as f64 / (1u64 << 53) as f64
-    };
-    let sigma = 10f64.powf(noise_dbfs / 20.0) / 2f64.sqrt();
+    let noise = super::common::noise(n, noise_dbfs, 0);
     (0..n)
         .map(|i| {
             let t = i as f64 / FS;
             let a = 10f64.powf(level_db(t) / 20.0);
             let w = 2.0 * PI * 997.0 * t;
-            let g: f64 = (0..12).map(|_| uniform()).sum::<f64>() - 6.0;
             a * (w.sin()
                 + 10f64.powf(-50.0 / 20.0) * (2.0 * w).sin()
                 + 10f64.powf(-60.0 / 20.0) * (3.0 * w).sin())
-                + sigma * g
+                + noise[i]
         })
         .collect()
 }

@@ -13,6 +13,7 @@ mod long_captures;
 mod messy;
 mod notebook;
 mod numpy_fixtures;
+mod oscillation;
 mod power;
 mod properties;
 mod quantization;

@@ -169,6 +169,24 @@ fn demo_runs_end_to_end() {
     let expected = 2.0 * ((-t1 / 6.0f64).exp() - (-t2 / 6.0f64).exp());
     let got = t.drift.level_db.as_ref().unwrap().change;
     assert!((got - expected).abs() < 0.15, "{got} vs {expected}");
+    // The invented amplifier is stable: no tone or noise run reports an oscillation.
+    #[derive(serde::Deserialize)]
+    struct Checked {
+        #[serde(default)]
+        oscillations: Vec<ampnote::analysis::oscillation::Oscillation>,
+    }
+    for r in runs
+        .iter()
+        .filter(|r| matches!(r.meta.procedure.as_str(), "tone" | "noise"))
+    {
+        let c: Checked = serde_json::from_value(r.result.clone()).unwrap();
+        assert!(
+            c.oscillations.is_empty(),
+            "{}: {:?}",
+            r.meta.id,
+            c.oscillations
+        );
+    }
     // The rework lowers the second harmonic (its driver cancels part of it): power at 1 % rises.
     let (_, cmp, _) = run(&[
         "compare",
