@@ -48,6 +48,10 @@ pub struct PowerStep {
     /// Samples at or beyond the interface's full scale: such a step is left out of every figure.
     pub overload_samples: usize,
     pub excluded: bool,
+    /// Oscillations the step's analysis found (see [`crate::analysis::oscillation`]): a
+    /// parasitic oscillation often starts only near clipping.
+    #[serde(default, skip_serializing_if = "Vec::is_empty")]
+    pub oscillations: Vec<crate::analysis::oscillation::Oscillation>,
 }
 
 /// Power at one THD level.
@@ -153,6 +157,7 @@ pub fn step_from(drive_dbfs: f64, r: &ToneResult) -> PowerStep {
         h3_dbc: h(3),
         overload_samples: r.overload_samples,
         excluded: r.overload_samples > 0,
+        oscillations: r.oscillations.clone(),
     }
 }
 
@@ -229,6 +234,29 @@ pub fn finish(
         warnings.push(format!(
             "the interface input overloaded at drive {} dBFS: those steps are left out (their distortion is the interface's, not the amplifier's); add attenuation",
             excluded.join(", ")
+        ));
+    }
+    // Oscillations, each once, with the drives where it showed.
+    let mut seen: Vec<(&crate::analysis::oscillation::Oscillation, Vec<f64>)> = Vec::new();
+    for st in &steps {
+        for o in &st.oscillations {
+            match seen.iter_mut().find(|(x, _)| {
+                x.kind == o.kind && (x.frequency_hz - o.frequency_hz).abs() <= 0.01 * o.frequency_hz
+            }) {
+                Some((_, drives)) => drives.push(st.drive_dbfs),
+                None => seen.push((o, vec![st.drive_dbfs])),
+            }
+        }
+    }
+    for (o, drives) in seen {
+        warnings.push(format!(
+            "at drive {} dBFS: {}",
+            drives
+                .iter()
+                .map(|d| format!("{d:.1}"))
+                .collect::<Vec<_>>()
+                .join(", "),
+            o.warning()
         ));
     }
     if !cal.has_volts() {

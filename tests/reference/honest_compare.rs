@@ -39,6 +39,7 @@ fn staircase(f: f64, scale: f64) -> serde_json::Value {
         h3_dbc: None,
         overload_samples: 0,
         excluded: false,
+        oscillations: Vec::new(),
     };
     let cal = Calibration {
         input_fs_vrms: Some(2.0),

@@ -192,3 +192,58 @@ fn a_noise_capture_shows_its_oscillation_and_what_the_rate_hides() {
     assert!(text.contains("96 kHz or more"), "{text}");
     assert!(text.contains("too short"), "{text}");
 }
+
+#[test]
+fn a_staircase_names_the_drives_where_an_oscillation_starts() {
+    use ampnote::procedure::power::power_from_capture;
+    use ampnote::signal::stimulus::{self, Common, Kind};
+    // A linear amplifier (x 0.5) that breaks into a 33 kHz oscillation at -40 dBc once the drive
+    // passes -12 dBFS: closed form, the line added where the stimulus is that loud.
+    let fs = 96_000u32;
+    let st = stimulus::steps(
+        &Common::mono(fs, -20.0),
+        1000.0,
+        -24.0,
+        -6.0,
+        3.0,
+        0.3,
+        0.05,
+    )
+    .unwrap();
+    let Kind::Steps { steps, .. } = &st.description.kind else {
+        unreachable!()
+    };
+    let mut y: Vec<f64> = st.signal.iter().map(|v| 0.5 * v).collect();
+    for s in steps.iter().filter(|s| s.level_dbfs > -12.5) {
+        let a = 0.5 * 10f64.powf(s.level_dbfs / 20.0) * 0.01;
+        for i in s.start_sample..s.analyse_to_sample.min(y.len()) {
+            y[i] += a * (2.0 * PI * 33_000.0 * i as f64 / fs as f64).sin();
+        }
+    }
+    let n = noise(y.len(), -120.0, 8);
+    for (v, e) in y.iter_mut().zip(n) {
+        *v += e;
+    }
+    let r = power_from_capture(
+        1,
+        &y,
+        fs as f64,
+        1.0,
+        24,
+        1000.0,
+        steps,
+        0,
+        &Calibration::default(),
+    )
+    .unwrap();
+    for s in &r.steps {
+        let oscillating = s.drive_dbfs > -12.5;
+        assert_eq!(!s.oscillations.is_empty(), oscillating, "step {:?}", s);
+    }
+    let w = r
+        .warnings
+        .iter()
+        .find(|w| w.contains("ultrasonic"))
+        .unwrap_or_else(|| panic!("{:?}", r.warnings));
+    assert!(w.contains("-12.0, -9.0, -6.0"), "{w}");
+}
