@@ -68,8 +68,23 @@ pub enum Command {
     Compare(CompareArgs),
     /// Check that two channels match within tolerances (exit code 1 when not).
     Match(MatchArgs),
+    /// Print a shell completion script (bash, zsh, fish, elvish, powershell), e.g.
+    /// `ampnote completions bash > ~/.local/share/bash-completion/completions/ampnote`.
+    Completions {
+        /// The shell.
+        #[arg(value_enum)]
+        shell: clap_complete::Shell,
+    },
+    /// Print the manual page (roff), or with --out write one page per command into a folder,
+    /// e.g. `ampnote man | man -l -`.
+    Man {
+        /// Folder for ampnote.1 and a page per command (ampnote-analyze.1, ...).
+        #[arg(long, value_name = "DIR")]
+        out: Option<PathBuf>,
+    },
     /// Write the notebook's report: one HTML page with its charts, and each chart as SVG.
     Report {
+        /// The notebook folder.
         notebook: PathBuf,
         /// Folder for the report (default: NOTEBOOK/report).
         #[arg(long, value_name = "DIR")]
@@ -81,12 +96,15 @@ pub enum Command {
 pub enum NotebookAction {
     /// Create a notebook folder.
     Init {
+        /// Folder to create for the notebook (one per amplifier).
         dir: PathBuf,
         /// What the amplifier is.
         #[arg(long, value_name = "NAME")]
         amplifier: String,
+        /// Channels of the amplifier.
         #[arg(long, default_value_t = 2, value_name = "N")]
         channels: usize,
+        /// The dummy load in ohm, kept as the notebook's default.
         #[arg(long, value_name = "OHMS")]
         load_ohms: Option<f64>,
         /// Calibration profile to keep with the notebook.
@@ -95,13 +113,16 @@ pub enum NotebookAction {
     },
     /// List the runs.
     Log {
+        /// The notebook folder.
         dir: PathBuf,
+        /// Print JSON instead of the table.
         #[arg(long)]
         json: bool,
     },
     /// Analyse stored captures again with this version's engine; the new result is kept beside
     /// the old one.
     Reanalyze {
+        /// The notebook folder.
         dir: PathBuf,
         /// Only these runs (ids); default every run with a stored capture.
         runs: Vec<String>,
@@ -122,6 +143,7 @@ pub struct CompareArgs {
     pub stimulus: Option<PathBuf>,
     #[command(flatten)]
     pub calibration: CalibrationArgs,
+    /// Print JSON instead of the sentences.
     #[arg(long)]
     pub json: bool,
 }
@@ -131,6 +153,7 @@ pub struct MatchArgs {
     /// A label (its channels 1 and 2 are matched), or LABEL:CH / a run id, with B; or capture
     /// files (one stereo file, or two files).
     pub a: String,
+    /// With A as LABEL:CH or a run id: the other channel's; with A a capture file: the second file.
     pub b: Option<String>,
     /// The notebook the labels live in; without it A (and B) are capture files.
     #[arg(long, value_name = "DIR")]
@@ -138,19 +161,25 @@ pub struct MatchArgs {
     /// With capture files: the stimulus they recorded.
     #[arg(long, value_name = "FILE.wav")]
     pub stimulus: Option<PathBuf>,
-    /// Tolerances.
+    /// Largest gain difference between the channels, dB.
     #[arg(long, default_value_t = 0.5, value_name = "DB")]
     pub gain_tolerance: f64,
+    /// Largest response deviation between the channels, 20 Hz-20 kHz, dB.
     #[arg(long, default_value_t = 0.5, value_name = "DB")]
     pub response_tolerance: f64,
+    /// Largest phase difference between the channels, 20 Hz-20 kHz, degrees.
     #[arg(long, default_value_t = 10.0, value_name = "DEG")]
     pub phase_tolerance: f64,
+    /// Largest THD difference at the same power, dB.
     #[arg(long, default_value_t = 3.0, value_name = "DB")]
     pub thd_tolerance: f64,
+    /// Largest difference of power at 1 % THD, dB.
     #[arg(long, default_value_t = 1.0, value_name = "DB")]
     pub power_tolerance: f64,
+    /// Largest noise difference, dB.
     #[arg(long, default_value_t = 3.0, value_name = "DB")]
     pub noise_tolerance: f64,
+    /// Print JSON instead of the verdict table.
     #[arg(long)]
     pub json: bool,
 }
@@ -167,8 +196,8 @@ pub struct PowerArgs {
     /// Amplifier channel(s): a number from 1, or `all`.
     #[arg(long, default_value = "all", value_name = "N|all")]
     pub channel: String,
-    /// Frequencies for a rig run, e.g. 1000 or 40,1000,10000 (power bandwidth).
-    #[arg(long, default_value = "1000", value_name = "HZ[,HZ...]")]
+    /// Frequencies for a rig run, e.g. 997 or 40,997,10000 (power bandwidth); 997 Hz is the AES17 test tone.
+    #[arg(long, default_value = "997", value_name = "HZ[,HZ...]")]
     pub freq: String,
     /// First drive level of a rig run, dBFS.
     #[arg(long = "from", default_value_t = -30.0, value_name = "DBFS", allow_negative_numbers = true)]
@@ -203,6 +232,7 @@ pub struct PowerArgs {
     /// Time analysed per step, and time left before it to settle.
     #[arg(long, default_value_t = 0.5, value_name = "S")]
     pub dwell: f64,
+    /// Seconds each step plays before it is analysed (the amplifier and coupling settle).
     #[arg(long, default_value_t = 0.25, value_name = "S")]
     pub settle: f64,
     #[command(flatten)]
@@ -210,6 +240,7 @@ pub struct PowerArgs {
     /// Print JSON instead of the table.
     #[arg(long)]
     pub json: bool,
+    /// Analyse what a truncated file holds instead of refusing it.
     #[arg(long)]
     pub accept_truncated: bool,
 
@@ -239,16 +270,19 @@ pub struct ZoutArgs {
     #[arg(long)]
     pub sweep: bool,
     /// With --rig: tone frequency and level.
-    #[arg(long, default_value_t = 1000.0, value_name = "HZ")]
+    #[arg(long, default_value_t = 997.0, value_name = "HZ")]
     pub freq: f64,
+    /// The tone's RMS level at the interface output, dBFS.
     #[arg(long, default_value_t = -20.0, value_name = "DBFS", allow_negative_numbers = true)]
     pub level: f64,
     /// Instead of --level: the power the tone should give into the first load; the drive is found
     /// from a short -40 dBFS probe. Needs the calibration with a load.
     #[arg(long, value_name = "W", conflicts_with = "level")]
     pub watts: Option<f64>,
+    /// Channel to measure: a number from 1, or `all`.
     #[arg(long, default_value = "all", value_name = "N|all")]
     pub channel: String,
+    /// Print JSON instead of the table.
     #[arg(long)]
     pub json: bool,
 
@@ -281,8 +315,10 @@ pub struct CalibrateArgs {
     /// ... or the divider's resistors and the interface's input impedance.
     #[arg(long, value_name = "OHMS")]
     pub r_top: Option<f64>,
+    /// Divider: the bottom resistor (to ground), ohm.
     #[arg(long, value_name = "OHMS")]
     pub r_bottom: Option<f64>,
+    /// The interface input's own impedance, ohm (it loads the divider's bottom resistor).
     #[arg(long, value_name = "OHMS")]
     pub input_impedance: Option<f64>,
     /// Dummy-load resistance.
@@ -291,6 +327,7 @@ pub struct CalibrateArgs {
     /// Output and input full scales when already known (instead of the meter and the loopback).
     #[arg(long, value_name = "V")]
     pub output_fs_vrms: Option<f64>,
+    /// RMS voltage at the interface input that reads as a full-scale sine (0 dBFS), if known.
     #[arg(long, value_name = "V")]
     pub input_fs_vrms: Option<f64>,
     /// Never ask: fail when a value is missing (for scripts).
@@ -317,6 +354,7 @@ pub enum GenerateKind {
     },
     /// A staircase of tone levels for the output-power procedure.
     Steps {
+        /// The staircase's tone, Hz.
         #[arg(long, default_value_t = 997.0, value_name = "HZ")]
         freq: f64,
         /// First (lowest) step, dBFS.
@@ -354,6 +392,7 @@ pub enum GenerateKind {
     /// A two-tone pair for intermodulation: the modulation pair (default 60 Hz + 7 kHz, 4:1) or
     /// the difference-frequency pair (default 19 + 20 kHz, 1:1).
     Twotone {
+        /// IMD method: modulation (SMPTE-like, low and high tone 4:1) or difference frequency (two high tones 1:1).
         #[arg(long, value_enum, default_value_t = TwoToneArg::Modulation)]
         method: TwoToneArg,
         /// Low tone in Hz.
@@ -365,6 +404,7 @@ pub enum GenerateKind {
         /// Amplitude of the low tone over the high tone.
         #[arg(long, value_name = "R")]
         ratio: Option<f64>,
+        /// Length of the pair, seconds.
         #[arg(long, default_value_t = 5.0, value_name = "S")]
         seconds: f64,
         #[command(flatten)]
@@ -437,12 +477,16 @@ pub struct ResponseArgs {
     /// With --rig: the sweep played.
     #[arg(long = "from", default_value_t = 10.0, value_name = "HZ")]
     pub from_hz: f64,
+    /// Highest sweep frequency, Hz (default: 20 kHz, or 0.45 x the rate when lower).
     #[arg(long = "to", value_name = "HZ")]
     pub to_hz: Option<f64>,
+    /// With --rig: the sweep's RMS level, dBFS.
     #[arg(long, default_value_t = -20.0, value_name = "DBFS", allow_negative_numbers = true)]
     pub level: f64,
+    /// With --rig: the sweep's length, seconds.
     #[arg(long, default_value_t = 3.0, value_name = "S")]
     pub seconds: f64,
+    /// With --rig: the sample rate, Hz.
     #[arg(long, default_value_t = 48_000, value_name = "HZ")]
     pub rate: u32,
     /// Channel of the capture to analyse: a number from 1, or `all`.
@@ -468,6 +512,7 @@ pub struct ResponseArgs {
     /// Also write every point (response and harmonics) as CSV to FILE.
     #[arg(long, value_name = "FILE")]
     pub csv: Option<PathBuf>,
+    /// Analyse what a truncated file holds instead of refusing it.
     #[arg(long)]
     pub accept_truncated: bool,
 
@@ -495,17 +540,21 @@ pub struct NoiseArgs {
     /// With --rig: how long to listen.
     #[arg(long, default_value_t = 3.0, value_name = "S")]
     pub seconds: f64,
+    /// With --rig: the sample rate, Hz.
     #[arg(long, default_value_t = 48_000, value_name = "HZ")]
     pub rate: u32,
+    /// Channel to analyse: a number from 1, or `all`.
     #[arg(long, default_value = "all", value_name = "N|all")]
     pub channel: String,
     /// Measurement band in Hz.
     #[arg(long, default_value = "20:20000", value_name = "LO:HI")]
     pub band: String,
+    /// Mains frequency for the hum lines: auto (50 or 60, whichever is present), or a value in Hz.
     #[arg(long, default_value = "auto", value_name = "auto|50|60|HZ")]
     pub mains: String,
     #[command(flatten)]
     pub calibration: CalibrationArgs,
+    /// Print JSON instead of the table.
     #[arg(long)]
     pub json: bool,
 
@@ -522,10 +571,13 @@ pub struct ImdArgs {
     /// With --rig: the pair played (the method's standard frequencies and ratio).
     #[arg(long, value_enum, default_value_t = TwoToneArg::Modulation)]
     pub method: TwoToneArg,
+    /// With --rig: the pair's RMS level, dBFS.
     #[arg(long, default_value_t = -20.0, value_name = "DBFS", allow_negative_numbers = true)]
     pub level: f64,
+    /// With --rig: the pair's length, seconds.
     #[arg(long, default_value_t = 2.0, value_name = "S")]
     pub seconds: f64,
+    /// With --rig: the sample rate, Hz.
     #[arg(long, default_value_t = 48_000, value_name = "HZ")]
     pub rate: u32,
     #[command(flatten)]
@@ -539,6 +591,7 @@ pub struct ImdArgs {
     /// Print JSON instead of the table.
     #[arg(long)]
     pub json: bool,
+    /// Analyse what a truncated file holds instead of refusing it.
     #[arg(long)]
     pub accept_truncated: bool,
 
@@ -557,14 +610,17 @@ pub struct AnalyzeArgs {
     /// With --rig: the tone played.
     #[arg(long, default_value_t = 997.0, value_name = "HZ")]
     pub freq: f64,
+    /// With --rig: the tone's RMS level, dBFS.
     #[arg(long, default_value_t = -20.0, value_name = "DBFS", allow_negative_numbers = true)]
     pub level: f64,
     /// With --rig, instead of --level: the power into the load the tone should give ("THD at
     /// 1 W"); the drive is found from a short -40 dBFS probe. Needs the calibration with a load.
     #[arg(long, value_name = "W", conflicts_with = "level")]
     pub watts: Option<f64>,
+    /// With --rig: the tone's length, seconds.
     #[arg(long, default_value_t = 2.0, value_name = "S")]
     pub seconds: f64,
+    /// With --rig: the sample rate, Hz.
     #[arg(long, default_value_t = 48_000, value_name = "HZ")]
     pub rate: u32,
 
@@ -688,14 +744,17 @@ pub struct WatchArgs {
     /// Amplifier channel to watch.
     #[arg(long, default_value_t = 1, value_name = "N")]
     pub channel: usize,
-    #[arg(long, default_value_t = 1000.0, value_name = "HZ")]
+    /// The tone played, Hz.
+    #[arg(long, default_value_t = 997.0, value_name = "HZ")]
     pub freq: f64,
+    /// The tone's RMS level at the interface output, dBFS.
     #[arg(long, default_value_t = -20.0, value_name = "DBFS", allow_negative_numbers = true)]
     pub level: f64,
     /// Instead of --level: the power into the load the tone should give; the drive is found
     /// from a short -40 dBFS probe. Needs the calibration with a load.
     #[arg(long, value_name = "W", conflicts_with = "level")]
     pub watts: Option<f64>,
+    /// Sample rate, Hz.
     #[arg(long, default_value_t = 48_000, value_name = "HZ")]
     pub rate: u32,
     /// Readings per second (5 to 50).
@@ -704,6 +763,10 @@ pub struct WatchArgs {
     /// Stop after this many seconds (default: until Ctrl-C).
     #[arg(long, value_name = "S")]
     pub seconds: Option<f64>,
+    /// Print each reading as one JSON object per line (JSON Lines: the trend's point with its
+    /// time) instead of the redrawn line.
+    #[arg(long)]
+    pub json: bool,
     /// Keep every reading, with its time, in this CSV file (a new file; the columns of
     /// `ampnote trend --csv`). Each line is written as it is read, so Ctrl-C loses nothing.
     #[arg(long, value_name = "FILE.csv")]

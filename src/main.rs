@@ -27,6 +27,16 @@ fn main() -> ExitCode {
         Command::Compare(args) => run::notebook::compare(args),
         Command::Match(args) => run::notebook::match_(args),
         Command::Report { notebook, out } => run::notebook::report(notebook, out.as_deref()),
+        Command::Completions { shell } => {
+            use clap::CommandFactory;
+            // clap_complete writes the script for the very parser the binary uses; into a buffer
+            // first, so a closed pipe (`| head`) is no panic.
+            let mut buf = Vec::new();
+            clap_complete::generate(*shell, &mut Cli::command(), "ampnote", &mut buf);
+            run::print_stdout(&String::from_utf8_lossy(&buf));
+            Ok(ExitCode::SUCCESS)
+        }
+        Command::Man { out } => run::man(out.as_deref()),
     };
     match outcome {
         Ok(code) => code,

@@ -383,6 +383,23 @@ pub struct TrendPoint {
 }
 
 impl TrendPoint {
+    /// A block (or reading) with no figures, and why.
+    pub fn failed(at_s: f64, why: String) -> TrendPoint {
+        TrendPoint {
+            at_s,
+            level_dbfs: None,
+            level_vrms: None,
+            output_w: None,
+            thd_percent: None,
+            thdn_percent: None,
+            h2_dbc: None,
+            h3_dbc: None,
+            hum_hz: None,
+            hum_dbfs: None,
+            note: Some(why),
+        }
+    }
+
     /// The CSV columns of [`TrendPoint::csv_row`].
     pub const CSV_HEADER: &'static str = "channel,at_s,level_dbfs,level_vrms,output_w,thd_percent,thdn_percent,h2_dbc,h3_dbc,hum_hz,hum_dbfs,note";
 
@@ -512,19 +529,7 @@ pub fn trend(
             let at_s = from as f64 / fs;
             match input.with_block(from..from + len, |ci| analyzer.analyze(ci, cal)) {
                 Ok(r) => point_of(at_s, &r),
-                Err(e) => TrendPoint {
-                    at_s,
-                    level_dbfs: None,
-                    level_vrms: None,
-                    output_w: None,
-                    thd_percent: None,
-                    thdn_percent: None,
-                    h2_dbc: None,
-                    h3_dbc: None,
-                    hum_hz: None,
-                    hum_dbfs: None,
-                    note: Some(e.to_string()),
-                },
+                Err(e) => TrendPoint::failed(at_s, e.to_string()),
             }
         })
         .collect();

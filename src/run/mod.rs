@@ -31,6 +31,31 @@ pub fn devices() -> Result<ExitCode, String> {
     Err("this build has no live audio: install with `cargo install --path . --features live` (needs ALSA and JACK headers, see README, Live rig)".into())
 }
 
+/// `ampnote man`: the manual page from the parser itself (clap_mangen), to stdout or, with
+/// `out`, one page per command into that folder.
+pub fn man(out: Option<&Path>) -> Result<ExitCode, String> {
+    use clap::CommandFactory;
+    let cmd = crate::cli::Cli::command();
+    match out {
+        None => {
+            let mut buf = Vec::new();
+            clap_mangen::Man::new(cmd)
+                .render(&mut buf)
+                .map_err(|e| format!("cannot render the manual: {e}"))?;
+            print_stdout(&String::from_utf8_lossy(&buf));
+        }
+        Some(dir) => {
+            std::fs::create_dir_all(dir)
+                .map_err(|e| format!("cannot create {}: {e}", dir.display()))?;
+            clap_mangen::generate_to(cmd, dir).map_err(|e| {
+                format!("cannot write the manual pages into {}: {e}", dir.display())
+            })?;
+            eprintln!("manual pages written to {}", dir.display());
+        }
+    }
+    Ok(ExitCode::SUCCESS)
+}
+
 /// Print to stdout; a closed pipe (`| head`) is not an error.
 pub fn print_stdout(text: &str) {
     let mut out = std::io::stdout().lock();

@@ -18,18 +18,20 @@ pub fn cpu_seconds() -> Option<f64> {
     Some(ticks / 100.0) // USER_HZ is 100 on Linux
 }
 
-/// One reading as a line.
-pub fn reading_line(r: &ToneResult) -> String {
-    let mut s = format!(
+/// One reading in two parts: the level (frequency, dBFS, volts, watts) and the distortion
+/// (THD, THD+N, H2, H3, hum), so a narrow terminal can show them on two lines.
+pub fn reading_parts(r: &ToneResult) -> (String, String) {
+    let mut level = format!(
         "{:8.2} Hz  {:7.2} dBFS",
         r.fundamental_hz, r.fundamental_dbfs
     );
     if let Some(v) = r.fundamental_vrms {
-        s.push_str(&format!("  {v:8.4} V rms"));
+        level.push_str(&format!("  {v:8.4} V rms"));
     }
     if let (Some(w), Some(load)) = (r.output_w, r.load_ohms) {
-        s.push_str(&format!("  {w:8.4} W into {load} ohm"));
+        level.push_str(&format!("  {w:8.4} W into {load} ohm"));
     }
+    let mut s = String::new();
     match r.thd_percent {
         Some(t) => s.push_str(&format!(
             "  THD {}{t:7.4} %",
@@ -59,7 +61,44 @@ pub fn reading_line(r: &ToneResult) -> String {
             h.level_dbc
         ));
     }
-    s
+    (level, s)
+}
+
+/// Redraws one reading in place on a terminal: on one line when it fits the terminal's width,
+/// else on two (level, then distortion), each cut to the width so a wrap never breaks the
+/// redraw.
+struct Redraw {
+    two_lines_drawn: bool,
+}
+
+impl Redraw {
+    fn draw(&mut self, out: &mut impl Write, level: &str, distortion: &str) -> std::io::Result<()> {
+        let width = console::Term::stdout()
+            .size_checked()
+            .map_or(80, |(_, w)| w as usize)
+            .max(20);
+        let fit = |t: &str| t.chars().take(width - 1).collect::<String>();
+        if self.two_lines_drawn {
+            write!(out, "\x1b[1A")?;
+        }
+        if level.chars().count() + distortion.chars().count() < width {
+            write!(out, "\r\x1b[K{level}{distortion}")?;
+            if self.two_lines_drawn {
+                // Clear the second line left from before, and come back up.
+                write!(out, "\n\x1b[K\x1b[1A")?;
+            }
+            self.two_lines_drawn = false;
+        } else {
+            write!(
+                out,
+                "\r\x1b[K{}\n\x1b[K{}",
+                fit(level),
+                fit(distortion.trim_start())
+            )?;
+            self.two_lines_drawn = true;
+        }
+        out.flush()
+    }
 }
 
 pub fn run(args: &WatchArgs) -> Result<ExitCode, String> {
@@ -159,6 +198,9 @@ pub fn run(args: &WatchArgs) -> Result<ExitCode, String> {
     );
     eprintln!("Inside a tube amplifier are lethal voltages, also with the power off (charged capacitors): adjust with one hand, insulated tools, and keep the dummy load connected.");
     let tty = std::io::stdout().is_terminal();
+    let mut redraw = Redraw {
+        two_lines_drawn: false,
+    };
     let window = rate as usize / 2;
     let hop = (rate as f64 / args.refresh) as usize;
     let begun = Instant::now();
@@ -176,9 +218,9 @@ pub fn run(args: &WatchArgs) -> Result<ExitCode, String> {
             resolution_bits: bits,
         };
         let analysed = analyzer.analyze(&input, &cal);
-        let line = match &analysed {
-            Ok(r) => reading_line(r),
-            Err(e) => format!("no reading: {e}"),
+        let (level_part, distortion_part) = match &analysed {
+            Ok(r) => reading_parts(r),
+            Err(e) => (format!("no reading: {e}"), String::new()),
         };
         if readings == 0 {
             // Rates and CPU are counted from the first reading (the pre-flight comes before).
@@ -189,19 +231,7 @@ pub fn run(args: &WatchArgs) -> Result<ExitCode, String> {
             let at_s = start.elapsed().as_secs_f64();
             let point = match &analysed {
                 Ok(r) => ampnote::analysis::blocks::point_of(at_s, r),
-                Err(e) => ampnote::analysis::blocks::TrendPoint {
-                    at_s,
-                    level_dbfs: None,
-                    level_vrms: None,
-                    output_w: None,
-                    thd_percent: None,
-                    thdn_percent: None,
-                    h2_dbc: None,
-                    h3_dbc: None,
-                    hum_hz: None,
-                    hum_dbfs: None,
-                    note: Some(e.to_string()),
-                },
+                Err(e) => ampnote::analysis::blocks::TrendPoint::failed(at_s, e.to_string()),
             };
             if let Err(err) = writeln!(w, "{}", point.csv_row(args.channel)).and_then(|_| w.flush())
             {
@@ -214,17 +244,31 @@ pub fn run(args: &WatchArgs) -> Result<ExitCode, String> {
             }
         }
         let mut out = std::io::stdout().lock();
-        let _ = if tty {
-            write!(out, "\r\x1b[K{line}")
+        let _ = if args.json {
+            // One JSON object per reading (JSON Lines), the trend's point with its time.
+            let point = match &analysed {
+                Ok(r) => ampnote::analysis::blocks::point_of(begun.elapsed().as_secs_f64(), r),
+                Err(e) => ampnote::analysis::blocks::TrendPoint::failed(
+                    begun.elapsed().as_secs_f64(),
+                    e.to_string(),
+                ),
+            };
+            writeln!(
+                out,
+                "{}",
+                serde_json::to_string(&point).expect("a point serializes")
+            )
+            .and_then(|_| out.flush())
+        } else if tty {
+            redraw.draw(&mut out, &level_part, &distortion_part)
         } else {
-            writeln!(out, "{line}")
+            writeln!(out, "{level_part}{distortion_part}").and_then(|_| out.flush())
         };
-        let _ = out.flush();
         readings += 1;
         last = Instant::now();
         limit.is_none_or(|l| begun.elapsed() < l)
     });
-    if tty {
+    if tty && !args.json {
         println!();
     }
     let secs = last.duration_since(start).as_secs_f64();

@@ -4,6 +4,7 @@
 mod bad_input;
 mod bench_calibration;
 mod closed_form;
+mod command_line;
 mod common;
 mod formats;
 mod framing;

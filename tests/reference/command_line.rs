@@ -1,0 +1,126 @@
+//! The command line as a bench user meets it: every option explains itself, the shells complete
+//! it, the manual exists, and the version is the changelog's (source: the README's changelog and
+//! Cargo.toml, and clap's own help layout).
+
+use super::common::run;
+
+const COMMANDS: &[&[&str]] = &[
+    &["analyze"],
+    &["trend"],
+    &["response"],
+    &["imd"],
+    &["noise"],
+    &["power"],
+    &["zout"],
+    &["calibrate"],
+    &["watch"],
+    &["compare"],
+    &["match"],
+    &["report"],
+    &["demo"],
+    &["completions"],
+    &["man"],
+    &["notebook", "init"],
+    &["notebook", "log"],
+    &["notebook", "reanalyze"],
+    &["generate", "tone"],
+    &["generate", "steps"],
+    &["generate", "sweep"],
+    &["generate", "twotone"],
+];
+
+#[test]
+fn every_option_and_argument_has_help() {
+    for cmd in COMMANDS {
+        let mut args = cmd.to_vec();
+        args.push("--help");
+        let (code, out, err) = run(&args);
+        assert_eq!(code, 0, "{cmd:?}: {err}");
+        let mut section = "";
+        for line in out.lines() {
+            if line.ends_with(':') && !line.starts_with(' ') {
+                section = line;
+                continue;
+            }
+            if section != "Options:" && section != "Arguments:" {
+                continue;
+            }
+            let t = line.trim_start();
+            if !(t.starts_with('-') || t.starts_with('<') || t.starts_with('[')) {
+                continue; // a wrapped description
+            }
+            // "  --flag <V>   Description [default: x]": something besides the name and defaults.
+            let words: Vec<&str> = t.split("  ").filter(|w| !w.trim().is_empty()).collect();
+            let described = words
+                .iter()
+                .skip(1)
+                .any(|w| !w.trim_start().starts_with('['));
+            assert!(described, "{cmd:?}: no help for `{}`", t.trim());
+        }
+    }
+}
+
+#[test]
+fn version_agrees_with_the_changelog() {
+    let (code, out, _) = run(&["--version"]);
+    assert_eq!(code, 0);
+    let version = out.split_whitespace().nth(1).unwrap().to_string();
+    let readme =
+        std::fs::read_to_string(concat!(env!("CARGO_MANIFEST_DIR"), "/README.md")).unwrap();
+    let changelog = &readme[readme.find("## Changelog").unwrap()..];
+    let newest = changelog
+        .lines()
+        .filter_map(|l| l.strip_prefix("- "))
+        .filter_map(|l| l.split([':', ' ']).next())
+        .filter(|v| v.chars().next().is_some_and(|c| c.is_ascii_digit()))
+        .max_by_key(|v| {
+            v.split('.')
+                .map(|p| p.parse::<u32>().unwrap_or(0))
+                .collect::<Vec<_>>()
+        })
+        .unwrap();
+    assert_eq!(
+        version, newest,
+        "--version against the changelog's newest entry"
+    );
+}
+
+#[test]
+fn completions_and_manual_cover_every_command() {
+    for shell in ["bash", "zsh", "fish"] {
+        let (code, out, err) = run(&["completions", shell]);
+        assert_eq!(code, 0, "{shell}: {err}");
+        for cmd in ["analyze", "trend", "power", "notebook"] {
+            assert!(out.contains(cmd), "{shell} completion lacks {cmd}");
+        }
+    }
+    let (code, _, err) = run(&["completions", "tcsh-like"]);
+    assert_eq!(code, 2, "{err}");
+    let (code, out, _) = run(&["man"]);
+    assert_eq!(code, 0);
+    assert!(
+        out.contains(".TH ampnote 1"),
+        "{}",
+        &out[..200.min(out.len())]
+    );
+    let d = super::common::tmpdir("man");
+    let (code, _, err) = run(&["man", "--out", d.to_str().unwrap()]);
+    assert_eq!(code, 0, "{err}");
+    assert!(d.join("ampnote-trend.1").exists());
+}
+
+#[test]
+fn watch_prints_json_lines() {
+    let (code, out, err) = run(&["watch", "--rig", "sim", "--seconds", "0.6", "--json"]);
+    assert_eq!(code, 0, "{err}");
+    let points: Vec<ampnote::analysis::blocks::TrendPoint> = out
+        .lines()
+        .map(|l| serde_json::from_str(l).unwrap())
+        .collect();
+    assert!(!points.is_empty());
+    // The simulated bench's tone, -20 dBFS drive through its gain: the same level each time.
+    let first = points[0].level_dbfs.unwrap();
+    assert!(points
+        .iter()
+        .all(|p| (p.level_dbfs.unwrap() - first).abs() < 0.05));
+}
