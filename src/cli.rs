@@ -240,6 +240,9 @@ pub struct PowerArgs {
     /// Print JSON instead of the table.
     #[arg(long)]
     pub json: bool,
+    /// Print CSV instead (one row per channel; power: per step), to stdout or to FILE.
+    #[arg(long, value_name = "FILE", num_args = 0..=1, default_missing_value = "-", conflicts_with = "json")]
+    pub csv: Option<PathBuf>,
     /// Analyse what a truncated file holds instead of refusing it.
     #[arg(long)]
     pub accept_truncated: bool,
@@ -285,6 +288,9 @@ pub struct ZoutArgs {
     /// Print JSON instead of the table.
     #[arg(long)]
     pub json: bool,
+    /// Print CSV instead (one row per channel; power: per step), to stdout or to FILE.
+    #[arg(long, value_name = "FILE", num_args = 0..=1, default_missing_value = "-", conflicts_with = "json")]
+    pub csv: Option<PathBuf>,
 
     #[command(flatten)]
     pub save: SaveArgs,
@@ -557,6 +563,9 @@ pub struct NoiseArgs {
     /// Print JSON instead of the table.
     #[arg(long)]
     pub json: bool,
+    /// Print CSV instead (one row per channel; power: per step), to stdout or to FILE.
+    #[arg(long, value_name = "FILE", num_args = 0..=1, default_missing_value = "-", conflicts_with = "json")]
+    pub csv: Option<PathBuf>,
 
     #[command(flatten)]
     pub save: SaveArgs,
@@ -591,6 +600,9 @@ pub struct ImdArgs {
     /// Print JSON instead of the table.
     #[arg(long)]
     pub json: bool,
+    /// Print CSV instead (one row per channel; power: per step), to stdout or to FILE.
+    #[arg(long, value_name = "FILE", num_args = 0..=1, default_missing_value = "-", conflicts_with = "json")]
+    pub csv: Option<PathBuf>,
     /// Analyse what a truncated file holds instead of refusing it.
     #[arg(long)]
     pub accept_truncated: bool,

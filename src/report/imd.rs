@@ -24,6 +24,33 @@ impl ImdReport {
         serde_json::to_string_pretty(self).expect("report serializes") + "\n"
     }
 
+    /// One row per channel.
+    pub fn to_csv(&self) -> String {
+        let mut s = String::from("channel,method,pair_source,low_hz,high_hz,measured_ratio,dm2_percent,dm3_percent,imd_percent,dd2_percent,dd3_percent\n");
+        for c in &self.channels {
+            let method = serde_json::to_value(c.method)
+                .ok()
+                .and_then(|v| v.as_str().map(str::to_string))
+                .unwrap_or_default();
+            let _ = writeln!(
+                s,
+                "{},{},{},{},{},{},{},{},{},{},{}",
+                c.channel,
+                method,
+                super::csv_text(c.pair_source),
+                c.low_hz,
+                c.high_hz,
+                c.measured_ratio,
+                super::csv_num(c.dm2_percent),
+                super::csv_num(c.dm3_percent),
+                super::csv_num(c.imd_percent),
+                super::csv_num(c.dd2_percent),
+                super::csv_num(c.dd3_percent)
+            );
+        }
+        s
+    }
+
     pub fn to_table(&self) -> String {
         let mut s = String::new();
         let _ = writeln!(s, "{}: {} Hz", self.file, self.sample_rate_hz);

@@ -12,6 +12,16 @@ pub mod views;
 /// Version of the JSON layout; bumped when a field changes meaning or disappears.
 pub const SCHEMA_VERSION: u32 = 3;
 
+/// A CSV field for a figure that may be missing (empty when it is).
+pub fn csv_num(v: Option<f64>) -> String {
+    v.map_or(String::new(), |x| format!("{x}"))
+}
+
+/// A CSV text field, quoted.
+pub fn csv_text(t: &str) -> String {
+    format!("\"{}\"", t.replace('"', "\"\""))
+}
+
 /// A per-channel result: which channel, and its measurement-quality warnings.
 pub trait ChannelResult {
     fn channel(&self) -> usize;

@@ -25,6 +25,33 @@ impl PowerReport {
         serde_json::to_string_pretty(self).expect("report serializes") + "\n"
     }
 
+    /// One row per step (channel and frequency in each row).
+    pub fn to_csv(&self) -> String {
+        use super::csv_num as n;
+        let mut s = String::from("channel,frequency_hz,drive_dbfs,output_dbfs,output_vrms,output_w,thd_percent,thd_upper_bound,thdn_percent,h2_dbc,h3_dbc,excluded\n");
+        for r in &self.results {
+            for st in &r.steps {
+                let _ = writeln!(
+                    s,
+                    "{},{},{},{},{},{},{},{},{},{},{},{}",
+                    r.channel,
+                    r.frequency_hz,
+                    st.drive_dbfs,
+                    st.output_dbfs,
+                    n(st.output_vrms),
+                    n(st.output_w),
+                    n(st.thd_percent),
+                    st.thd_upper_bound,
+                    st.thdn_percent,
+                    n(st.h2_dbc),
+                    n(st.h3_dbc),
+                    st.excluded
+                );
+            }
+        }
+        s
+    }
+
     pub fn to_table(&self) -> String {
         let mut s = String::new();
         let _ = writeln!(s, "{}", self.source);
@@ -99,6 +126,26 @@ pub struct ZoutReport {
 impl ZoutReport {
     pub fn to_json(&self) -> String {
         serde_json::to_string_pretty(self).expect("report serializes") + "\n"
+    }
+
+    /// One row per channel.
+    pub fn to_csv(&self) -> String {
+        let mut s = String::from("channel,frequency_hz,zout_ohms,zout_sigma_ohms,damping_factor,nominal_load_ohms,load_a_ohms,load_b_ohms\n");
+        for r in &self.results {
+            let _ = writeln!(
+                s,
+                "{},{},{},{},{},{},{},{}",
+                r.channel,
+                r.frequency_hz,
+                r.zout_ohms,
+                super::csv_num(r.zout_sigma_ohms),
+                r.damping_factor,
+                r.nominal_load_ohms,
+                r.load_a_ohms,
+                r.load_b_ohms
+            );
+        }
+        s
     }
 
     pub fn to_table(&self) -> String {

@@ -102,12 +102,16 @@ pub fn run(args: &ImdArgs) -> Result<ExitCode, String> {
     };
     // The figures are printed first, so a failed keep never hides what was measured.
     let code = super::finish(
-        args.json,
+        super::Format {
+            json: args.json,
+            csv: args.csv.as_deref(),
+        },
         &report.channels,
         &report.channel_errors,
         || report.to_json(),
+        || report.to_csv(),
         || report.to_table(),
     );
     keeper.commit()?;
-    Ok(code)
+    code
 }

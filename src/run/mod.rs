@@ -79,28 +79,42 @@ pub fn report_to_stderr<'a>(
     }
 }
 
-/// The end of every analysing command: diagnostics to stderr, the report (JSON or table) to
-/// stdout, and exit code 2 when a channel could not be analysed.
+/// How a command prints its figures: a table, JSON, or CSV (to stdout with `-`, or a file).
+pub struct Format<'a> {
+    pub json: bool,
+    pub csv: Option<&'a Path>,
+}
+
+/// The end of every analysing command: diagnostics to stderr, the report (table, JSON or CSV) to
+/// stdout or the CSV file, and exit code 2 when a channel could not be analysed.
 pub fn finish<T: ampnote::report::ChannelResult>(
-    json: bool,
+    format: Format,
     results: &[T],
     errors: &[ampnote::report::tone::ChannelError],
     render_json: impl FnOnce() -> String,
+    render_csv: impl FnOnce() -> String,
     render_table: impl FnOnce() -> String,
-) -> ExitCode {
+) -> Result<ExitCode, String> {
     report_to_stderr(
-        json,
+        format.json || format.csv.is_some(),
         results
             .iter()
             .flat_map(|r| r.warnings().iter().map(move |w| (r.channel(), w))),
         errors.iter().map(|e| &e.error),
     );
-    print_stdout(&if json { render_json() } else { render_table() });
-    if errors.is_empty() {
+    match (format.json, format.csv) {
+        (true, _) => print_stdout(&render_json()),
+        (false, Some(path)) if path.as_os_str() != "-" => {
+            ampnote::files::write_whole(path, render_csv().as_bytes()).map_err(|e| e.to_string())?
+        }
+        (false, Some(_)) => print_stdout(&render_csv()),
+        (false, None) => print_stdout(&render_table()),
+    }
+    Ok(if errors.is_empty() {
         ExitCode::SUCCESS
     } else {
         ExitCode::from(2)
-    }
+    })
 }
 
 /// A stimulus file `ampnote generate` wrote: its samples and its description, which must be of

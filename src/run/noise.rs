@@ -22,6 +22,34 @@ struct NoiseReport {
     channel_errors: Vec<ChannelError>,
 }
 
+/// One row per channel.
+fn csv(r: &NoiseReport) -> String {
+    use ampnote::report::csv_num as n;
+    let mut s = String::from("channel,duration_s,band_low_hz,band_high_hz,noise_dbfs,noise_a_dbfs,hum_and_noise_dbfs,noise_vrms,noise_a_vrms,hum_and_noise_vrms,snr_re_1w_db,snr_a_re_1w_db,mains_hz,dc_offset,overload_samples\n");
+    for c in &r.channels {
+        let _ = writeln!(
+            s,
+            "{},{},{},{},{},{},{},{},{},{},{},{},{},{},{}",
+            c.channel,
+            c.duration_s,
+            c.band_hz[0],
+            c.band_hz[1],
+            c.noise_dbfs,
+            c.noise_a_dbfs,
+            c.hum_and_noise_dbfs,
+            n(c.noise_vrms),
+            n(c.noise_a_vrms),
+            n(c.hum_and_noise_vrms),
+            n(c.snr_re_1w_db),
+            n(c.snr_a_re_1w_db),
+            c.mains_hz,
+            c.dc_offset,
+            c.overload_samples
+        );
+    }
+    s
+}
+
 fn table(r: &NoiseReport) -> String {
     let mut s = format!("{}\n", r.file);
     for c in &r.channels {
@@ -184,12 +212,16 @@ pub fn run(args: &NoiseArgs) -> Result<ExitCode, String> {
     };
     // The figures are printed first, so a failed keep never hides what was measured.
     let code = super::finish(
-        args.json,
+        super::Format {
+            json: args.json,
+            csv: args.csv.as_deref(),
+        },
         &report.channels,
         &report.channel_errors,
         || serde_json::to_string_pretty(&report).expect("serializes") + "\n",
+        || csv(&report),
         || table(&report),
     );
     keeper.commit()?;
-    Ok(code)
+    code
 }

@@ -158,12 +158,16 @@ pub fn run(args: &PowerArgs) -> Result<ExitCode, String> {
     };
     // The figures are printed first, so a failed keep never hides what was measured.
     let code = super::finish(
-        args.json,
+        super::Format {
+            json: args.json,
+            csv: args.csv.as_deref(),
+        },
         &report.results,
         &report.channel_errors,
         || report.to_json(),
+        || report.to_csv(),
         || report.to_table(),
     );
     keeper.commit()?;
-    Ok(code)
+    code
 }

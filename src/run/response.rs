@@ -154,13 +154,18 @@ pub fn run(args: &ResponseArgs) -> Result<ExitCode, String> {
         ampnote::files::write_whole(path, report.to_csv().as_bytes()).map_err(e)?;
     }
     // The figures are printed first, so a failed keep never hides what was measured.
+    // (--csv here is a file written beside the table or JSON, see above.)
     let code = super::finish(
-        args.json,
+        super::Format {
+            json: args.json,
+            csv: None,
+        },
         &report.channels,
         &report.channel_errors,
         || report.to_json(),
+        || report.to_csv(),
         || report.to_table(),
     );
     keeper.commit()?;
-    Ok(code)
+    code
 }

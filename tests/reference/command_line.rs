@@ -124,3 +124,60 @@ fn watch_prints_json_lines() {
         .iter()
         .all(|p| (p.level_dbfs.unwrap() - first).abs() < 0.05));
 }
+
+#[test]
+fn every_measuring_command_writes_csv() {
+    let d = super::common::tmpdir("csv");
+    let caps = d.join("caps");
+    let caps = caps.to_str().unwrap();
+    let pair = d.join("pair.wav");
+    let (code, _, err) = run(&["generate", "twotone", "--out", pair.to_str().unwrap()]);
+    assert_eq!(code, 0, "{err}");
+    let runs: Vec<Vec<&str>> = vec![
+        vec![
+            "noise",
+            "--rig",
+            "sim",
+            "--seconds",
+            "1",
+            "--captures-dir",
+            caps,
+        ],
+        vec!["imd", pair.to_str().unwrap()],
+        vec!["power", "--rig", "sim", "--channel", "1", "--from", "-20"],
+        vec![
+            "zout",
+            "--rig",
+            "sim",
+            "--channel",
+            "1",
+            "--captures-dir",
+            caps,
+        ],
+        vec!["analyze", "--rig", "sim", "--captures-dir", caps],
+        vec![
+            "trend",
+            "--rig",
+            "sim",
+            "--seconds",
+            "3",
+            "--captures-dir",
+            caps,
+        ],
+    ];
+    for mut args in runs {
+        args.push("--csv");
+        let (code, out, err) = run(&args);
+        assert_eq!(code, 0, "{args:?}: {err}");
+        let mut lines = out.lines();
+        let header = lines.next().unwrap_or_else(|| panic!("{args:?}: no CSV"));
+        let columns = header.split(',').count();
+        assert!(columns >= 4 && header.starts_with("channel,"), "{header}");
+        let rows: Vec<&str> = lines.collect();
+        assert!(!rows.is_empty(), "{args:?}");
+        for r in rows {
+            // No quoted field here holds a comma, so a plain split counts the columns.
+            assert_eq!(r.split(',').count(), columns, "{args:?}: {r}");
+        }
+    }
+}
