@@ -88,33 +88,18 @@ pub fn run(args: &AnalyzeArgs) -> Result<ExitCode, String> {
         channels,
         channel_errors,
     };
-    super::report_to_stderr(
-        args.json || args.csv.is_some(),
-        report
-            .channels
-            .iter()
-            .flat_map(|c| c.warnings.iter().map(move |w| (c.channel, w))),
-        report.channel_errors.iter().map(|c| &c.error),
-    );
-    let text = if args.json {
-        report.to_json()
-    } else if let Some(path) = &args.csv {
-        let csv = report.to_csv();
-        if path.as_os_str() != "-" {
-            ampnote::files::write_whole(path, csv.as_bytes()).map_err(|e| e.to_string())?;
-            String::new()
-        } else {
-            csv
-        }
-    } else {
-        report.to_table()
-    };
-    super::print_stdout(&text);
     // The figures are printed first, so a failed keep never hides what was measured.
+    let code = super::finish(
+        super::Format {
+            json: args.json,
+            csv: args.csv.as_deref(),
+        },
+        &report.channels,
+        &report.channel_errors,
+        || report.to_json(),
+        || report.to_csv(),
+        || report.to_table(),
+    );
     keeper.commit()?;
-    Ok(if report.channel_errors.is_empty() {
-        ExitCode::SUCCESS
-    } else {
-        ExitCode::from(2)
-    })
+    code
 }

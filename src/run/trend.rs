@@ -90,33 +90,18 @@ pub fn run(args: &TrendArgs) -> Result<ExitCode, String> {
         channels,
         channel_errors,
     };
-    let machine = a.json || a.csv.is_some();
-    super::report_to_stderr(
-        machine,
-        report
-            .channels
-            .iter()
-            .flat_map(|c| c.warnings.iter().map(move |w| (c.channel, w))),
-        report.channel_errors.iter().map(|c| &c.error),
+    // The figures are printed first, so a failed keep never hides what was measured.
+    let code = super::finish(
+        super::Format {
+            json: a.json,
+            csv: a.csv.as_deref(),
+        },
+        &report.channels,
+        &report.channel_errors,
+        || report.to_json(),
+        || report.to_csv(),
+        || report.to_table(),
     );
-    let text = if a.json {
-        report.to_json()
-    } else if let Some(csv_path) = &a.csv {
-        let csv = report.to_csv();
-        if csv_path.as_os_str() != "-" {
-            ampnote::files::write_whole(csv_path, csv.as_bytes()).map_err(|e| e.to_string())?;
-            String::new()
-        } else {
-            csv
-        }
-    } else {
-        report.to_table()
-    };
-    super::print_stdout(&text);
     keeper.commit()?;
-    Ok(if report.channel_errors.is_empty() {
-        ExitCode::SUCCESS
-    } else {
-        ExitCode::from(2)
-    })
+    code
 }
