@@ -48,7 +48,11 @@ pub enum Command {
     /// Build a calibration profile: interface full scales, attenuator, load, loopback floor.
     Calibrate(CalibrateArgs),
     /// List the audio hosts and interfaces the live rig can use: channels, rates, formats.
-    Devices,
+    Devices {
+        /// Print JSON instead of the list.
+        #[arg(long)]
+        json: bool,
+    },
     /// Watch a steady tone live (level, THD, THD+N, H2, H3, hum) while trimming bias or hum
     /// balance; Ctrl-C stops it.
     Watch(WatchArgs),

@@ -20,7 +20,7 @@ fn main() -> ExitCode {
         Command::Power(args) => run::power::run(args),
         Command::Zout(args) => run::zout::run(args),
         Command::Calibrate(args) => run::calibrate::run(args),
-        Command::Devices => run::devices(),
+        Command::Devices { json } => run::devices(*json),
         Command::Watch(args) => run::watch::run(args),
         Command::Demo { out } => run::notebook::demo(out),
         Command::Notebook { action } => run::notebook::notebook(action),

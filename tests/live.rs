@@ -158,3 +158,24 @@ fn bad_requests_name_what_is_there() {
         assert!(!err.contains("panicked"), "{args:?}: {err}");
     }
 }
+
+#[test]
+fn devices_lists_the_running_server_as_json() {
+    JACK.ensure_running();
+    let out = Command::new(env!("CARGO_BIN_EXE_ampnote"))
+        .args(["devices", "--json"])
+        .output()
+        .unwrap();
+    assert!(out.status.success());
+    let list: ampnote::rig::card::DeviceList = serde_json::from_slice(&out.stdout).unwrap();
+    let jack = list
+        .hosts
+        .iter()
+        .find(|h| h.name == "JACK")
+        .expect("this build knows JACK");
+    assert!(jack.running, "{jack:?}");
+    assert!(
+        !jack.devices.is_empty(),
+        "the JACK server's device is listed: {jack:?}"
+    );
+}

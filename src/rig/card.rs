@@ -1004,74 +1004,138 @@ fn summarise(ranges: &[cpal::SupportedStreamConfigRange]) -> Vec<String> {
         .collect()
 }
 
-/// `ampnote devices`: every host this build has, its devices, channels, rates and formats.
-pub fn list_devices() -> String {
-    use std::fmt::Write;
-    let mut s = String::new();
+/// The audio hosts this build knows, and what each offers (`ampnote devices`).
+#[derive(Debug, Clone, serde::Serialize, serde::Deserialize)]
+pub struct DeviceList {
+    pub hosts: Vec<HostInfo>,
+}
+
+/// One audio host (ALSA, JACK, PulseAudio, ...).
+#[derive(Debug, Clone, serde::Serialize, serde::Deserialize)]
+pub struct HostInfo {
+    pub name: String,
+    /// Whether its server or library is running here.
+    pub running: bool,
+    /// Why it could not be opened or listed, if so.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub error: Option<String>,
+    pub devices: Vec<DeviceInfo>,
+}
+
+/// One device of a host, with its channel, rate and format ranges summarised.
+#[derive(Debug, Clone, serde::Serialize, serde::Deserialize)]
+pub struct DeviceInfo {
+    pub name: String,
+    pub default_output: bool,
+    pub default_input: bool,
+    /// Output configurations, each "channels, rates, format".
+    pub outputs: Vec<String>,
+    pub inputs: Vec<String>,
+}
+
+/// What `ampnote devices` lists.
+pub fn list_devices() -> DeviceList {
     let available = cpal::available_hosts();
+    let mut hosts = Vec::new();
     for id in cpal::ALL_HOSTS {
-        let name = id.name();
-        if !available.contains(id) {
-            let _ = writeln!(s, "host {name}: not running here");
+        let mut info = HostInfo {
+            name: id.name().to_string(),
+            running: available.contains(id),
+            error: None,
+            devices: Vec::new(),
+        };
+        if !info.running {
+            hosts.push(info);
             continue;
         }
         let host = match cpal::host_from_id(*id) {
             Ok(h) => h,
             Err(e) => {
-                let _ = writeln!(s, "host {name}: cannot open ({e})");
+                info.error = Some(format!("cannot open: {e}"));
+                hosts.push(info);
                 continue;
             }
         };
         let def_out = host.default_output_device().map(|d| device_label(&d));
         let def_in = host.default_input_device().map(|d| device_label(&d));
-        let _ = writeln!(s, "host {name}");
-        let devices = match host.devices() {
-            Ok(d) => d.collect::<Vec<_>>(),
-            Err(e) => {
-                let _ = writeln!(s, "  cannot list devices: {e}");
+        match host.devices() {
+            Ok(devices) => {
+                for d in devices {
+                    let name = device_label(&d);
+                    let summary =
+                        |r: std::result::Result<
+                            Vec<cpal::SupportedStreamConfigRange>,
+                            cpal::Error,
+                        >| { r.map(|r| summarise(&r)).unwrap_or_default() };
+                    info.devices.push(DeviceInfo {
+                        default_output: def_out.as_deref() == Some(name.as_str()),
+                        default_input: def_in.as_deref() == Some(name.as_str()),
+                        outputs: summary(
+                            d.supported_output_configs().map(|x| x.collect::<Vec<_>>()),
+                        ),
+                        inputs: summary(d.supported_input_configs().map(|x| x.collect::<Vec<_>>())),
+                        name,
+                    });
+                }
+            }
+            Err(e) => info.error = Some(format!("cannot list devices: {e}")),
+        }
+        hosts.push(info);
+    }
+    DeviceList { hosts }
+}
+
+impl DeviceList {
+    /// The list as text: hosts, their devices (defaults marked), and each device's ranges.
+    pub fn to_table(&self) -> String {
+        use std::fmt::Write;
+        let mut s = String::new();
+        for h in &self.hosts {
+            if !h.running {
+                let _ = writeln!(s, "host {}: not running here", h.name);
                 continue;
             }
-        };
-        if devices.is_empty() {
-            let _ = writeln!(s, "  no devices (is its server running?)");
-        }
-        for d in devices {
-            let label = device_label(&d);
-            let mut marks = Vec::new();
-            if def_out.as_deref() == Some(label.as_str()) {
-                marks.push("default output");
-            }
-            if def_in.as_deref() == Some(label.as_str()) {
-                marks.push("default input");
-            }
-            let _ = writeln!(
-                s,
-                "  {label}{}",
-                if marks.is_empty() {
-                    String::new()
-                } else {
-                    format!("  [{}]", marks.join(", "))
+            match &h.error {
+                Some(e) if h.devices.is_empty() => {
+                    let _ = writeln!(s, "host {}: {e}", h.name);
+                    continue;
                 }
-            );
-            for (dir, ranges) in [
-                (
-                    "out",
-                    d.supported_output_configs().map(|x| x.collect::<Vec<_>>()),
-                ),
-                (
-                    "in ",
-                    d.supported_input_configs().map(|x| x.collect::<Vec<_>>()),
-                ),
-            ] {
-                let Ok(ranges) = ranges else { continue };
-                for l in summarise(&ranges) {
-                    let _ = writeln!(s, "    {dir} {l}");
+                _ => {
+                    let _ = writeln!(s, "host {}", h.name);
                 }
             }
+            if h.devices.is_empty() {
+                let _ = writeln!(s, "  no devices (is its server running?)");
+            }
+            for d in &h.devices {
+                let mut marks = Vec::new();
+                if d.default_output {
+                    marks.push("default output");
+                }
+                if d.default_input {
+                    marks.push("default input");
+                }
+                let _ = writeln!(
+                    s,
+                    "  {}{}",
+                    d.name,
+                    if marks.is_empty() {
+                        String::new()
+                    } else {
+                        format!("  [{}]", marks.join(", "))
+                    }
+                );
+                for l in &d.outputs {
+                    let _ = writeln!(s, "    out {l}");
+                }
+                for l in &d.inputs {
+                    let _ = writeln!(s, "    in  {l}");
+                }
+            }
         }
+        if s.is_empty() {
+            s.push_str("no audio hosts in this build\n");
+        }
+        s
     }
-    if s.is_empty() {
-        s.push_str("no audio hosts in this build\n");
-    }
-    s
 }

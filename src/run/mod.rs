@@ -21,12 +21,19 @@ use std::path::Path;
 use std::process::ExitCode;
 
 /// `ampnote devices`: the audio hosts and interfaces the live rig can use.
-pub fn devices() -> Result<ExitCode, String> {
+pub fn devices(json: bool) -> Result<ExitCode, String> {
     #[cfg(feature = "live")]
     {
-        print_stdout(&ampnote::rig::card::list_devices());
+        let list = ampnote::rig::card::list_devices();
+        print_stdout(&if json {
+            serde_json::to_string_pretty(&list).expect("the list serializes") + "\n"
+        } else {
+            list.to_table()
+        });
         Ok(ExitCode::SUCCESS)
     }
+    #[cfg(not(feature = "live"))]
+    let _ = json;
     #[cfg(not(feature = "live"))]
     Err("this build has no live audio: install with `cargo install --path . --features live` (needs ALSA and JACK headers, see README, Live rig)".into())
 }
