@@ -33,6 +33,9 @@ pub enum Command {
     /// Frequency response, phase, polarity, latency and harmonic distortion vs frequency from a
     /// recorded sweep.
     Response(ResponseArgs),
+    /// Channel separation (IEC 60268-3 crosstalk) from a sweep played into one channel with every
+    /// channel recorded: each other channel's level below it, against frequency.
+    Separation(SeparationArgs),
     /// Intermodulation distortion from a recorded two-tone pair (IEC 60268-3).
     Imd(ImdArgs),
     /// Follow a steady tone over a long capture (a warm-up, a hum log): level, THD, THD+N, H2, H3
@@ -526,6 +529,31 @@ pub struct ResponseArgs {
     #[arg(long)]
     pub accept_truncated: bool,
 
+    #[command(flatten)]
+    pub save: SaveArgs,
+}
+
+#[derive(Debug, Args)]
+pub struct SeparationArgs {
+    /// The recording of every channel while the sweep played into one of them.
+    pub capture: PathBuf,
+    /// The sweep file `ampnote generate sweep` wrote.
+    #[arg(long, value_name = "SWEEP.wav")]
+    pub stimulus: PathBuf,
+    /// The channel the sweep was played into (1-based).
+    #[arg(long, value_name = "N")]
+    pub driven: usize,
+    #[command(flatten)]
+    pub calibration: CalibrationArgs,
+    /// Print JSON instead of the table.
+    #[arg(long)]
+    pub json: bool,
+    /// Print CSV instead (one row per channel and frequency), to stdout or to FILE.
+    #[arg(long, value_name = "FILE", num_args = 0..=1, default_missing_value = "-", conflicts_with = "json")]
+    pub csv: Option<PathBuf>,
+    /// Analyse what a truncated file holds instead of refusing it.
+    #[arg(long)]
+    pub accept_truncated: bool,
     #[command(flatten)]
     pub save: SaveArgs,
 }

@@ -15,6 +15,7 @@ fn main() -> ExitCode {
         Command::Generate { kind } => run::generate::run(kind),
         Command::Response(args) => run::response::run(args),
         Command::Imd(args) => run::imd::run(args),
+        Command::Separation(args) => run::separation::run(args),
         Command::Noise(args) => run::noise::run(args),
         Command::Trend(args) => run::trend::run(args),
         Command::Power(args) => run::power::run(args),

@@ -5,6 +5,7 @@ pub mod fit;
 pub mod imd;
 pub mod noise;
 pub mod oscillation;
+pub mod separation;
 pub mod spectrum;
 pub mod steady;
 pub mod sweep;

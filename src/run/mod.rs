@@ -9,6 +9,7 @@ pub mod noise;
 pub mod notebook;
 pub mod power;
 pub mod response;
+pub mod separation;
 pub mod trend;
 pub mod watch;
 pub mod zout;

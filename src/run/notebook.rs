@@ -219,6 +219,20 @@ fn headline(r: &Run) -> String {
         }),
         "imd" => view::<ampnote::report::views::ImdView>(&r.result)
             .map_or_else(unreadable, |i| i.headline()),
+        "separation" => view::<ampnote::analysis::separation::SeparationResult>(&r.result)
+            .map_or_else(unreadable, |s| {
+                s.channels
+                    .iter()
+                    .map(|c| match (c.at_least_db, c.at_1khz_db, c.worst_db) {
+                        (Some(b), _, _) => format!("ch{} > {b:.0} dB", c.channel),
+                        (None, Some(k), Some(w)) => {
+                            format!("ch{} {k:.1} dB at 1 kHz, worst {w:.1} dB", c.channel)
+                        }
+                        _ => format!("ch{} -", c.channel),
+                    })
+                    .collect::<Vec<_>>()
+                    .join("; ")
+            }),
         "trend" => view::<ampnote::analysis::blocks::TrendResult>(&r.result)
             .map_or_else(unreadable, |t| t.headline()),
         other => ampnote::notebook::printable(other),

@@ -19,6 +19,7 @@ mod power;
 mod properties;
 mod quantization;
 mod safety;
+mod separation;
 mod stimuli;
 mod store;
 mod sweep_response;
