@@ -186,6 +186,9 @@ pub struct MatchArgs {
     /// Largest noise difference, dB.
     #[arg(long, default_value_t = 3.0, value_name = "DB")]
     pub noise_tolerance: f64,
+    /// Least channel separation at 1 kHz, dB (from `ampnote separation` runs).
+    #[arg(long, default_value_t = 60.0, value_name = "DB")]
+    pub min_separation: f64,
     /// Print JSON instead of the verdict table.
     #[arg(long)]
     pub json: bool,

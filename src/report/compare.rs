@@ -587,6 +587,8 @@ pub struct MatchTolerances {
     pub thd_db: f64,
     pub power_db: f64,
     pub noise_db: f64,
+    /// Least channel separation at 1 kHz, dB.
+    pub separation_db: f64,
 }
 
 impl Default for MatchTolerances {
@@ -598,6 +600,8 @@ impl Default for MatchTolerances {
             thd_db: 3.0,
             power_db: 1.0,
             noise_db: 3.0,
+            // 60 dB at 1 kHz: common practice for a stereo power amplifier.
+            separation_db: 60.0,
         }
     }
 }
@@ -608,7 +612,21 @@ pub struct MatchCheck {
     pub value: f64,
     pub tolerance: f64,
     pub unit: String,
+    /// The value must reach the tolerance (a separation), not stay within it.
+    #[serde(default)]
+    pub minimum: bool,
     pub pass: bool,
+}
+
+impl MatchCheck {
+    /// "within 0.5 dB" or "at least 60 dB".
+    pub fn limit_text(&self) -> String {
+        if self.minimum {
+            format!("at least {} {}", self.tolerance, self.unit)
+        } else {
+            format!("within {} {}", self.tolerance, self.unit)
+        }
+    }
 }
 
 /// `ampnote match`'s result.
@@ -670,6 +688,7 @@ pub fn match_channels(
             value: v,
             tolerance,
             unit: unit.to_string(),
+            minimum: false,
             pass: v.abs() <= tolerance,
         });
         Some(v)
@@ -732,6 +751,36 @@ pub fn match_channels(
             "dB",
         );
     }
+    // Separation: each channel driven, the other's level below it at 1 kHz (a lower bound
+    // counts when it already reaches the limit).
+    for (runs, driven, other) in [(a, ca, cb), (b, cb, ca)] {
+        let Some(s) =
+            latest::<crate::analysis::separation::SeparationResult>(runs, "separation", driven)
+        else {
+            continue;
+        };
+        let Some(c) = s.channels.iter().find(|c| c.channel == other) else {
+            continue;
+        };
+        let value = c.at_1khz_db.or(c.at_least_db);
+        if let Some(v) = value {
+            checks.push(MatchCheck {
+                name: format!(
+                    "separation at 1 kHz, ch{other} below ch{driven}{}",
+                    if c.at_1khz_db.is_none() {
+                        " (bound)"
+                    } else {
+                        ""
+                    }
+                ),
+                value: v,
+                tolerance: tol.separation_db,
+                unit: "dB".into(),
+                minimum: true,
+                pass: v >= tol.separation_db,
+            });
+        }
+    }
     if checks.is_empty() {
         warnings.push(format!(
             "`{name_a}` and `{name_b}` share no measurement to match"
@@ -786,12 +835,11 @@ impl MatchResult {
         );
         for c in &self.checks {
             s += &format!(
-                "  {:<42} {:>8.2} {:<4} (within {} {})  {}\n",
+                "  {:<42} {:>8.2} {:<4} ({})  {}\n",
                 c.name,
                 c.value,
                 c.unit,
-                c.tolerance,
-                c.unit,
+                c.limit_text(),
                 if c.pass { "pass" } else { "FAIL" }
             );
         }

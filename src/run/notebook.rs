@@ -370,6 +370,7 @@ pub fn match_(args: &MatchArgs) -> Result<ExitCode, String> {
         thd_db: args.thd_tolerance,
         power_db: args.power_tolerance,
         noise_db: args.noise_tolerance,
+        separation_db: args.min_separation,
     };
     for (name, v) in [
         ("--gain-tolerance", tol.gain_db),
@@ -378,6 +379,7 @@ pub fn match_(args: &MatchArgs) -> Result<ExitCode, String> {
         ("--thd-tolerance", tol.thd_db),
         ("--power-tolerance", tol.power_db),
         ("--noise-tolerance", tol.noise_db),
+        ("--min-separation", tol.separation_db),
     ] {
         if !(v.is_finite() && (0.0..=1000.0).contains(&v)) {
             return Err(format!(

@@ -48,16 +48,18 @@ fn table(file: &str, r: &SeparationResult) -> String {
         if let (Some(w), Some(f)) = (c.worst_db, c.worst_hz) {
             let _ = writeln!(s, "  worst       {w:>7.1} dB at {f:.0} Hz (20 Hz - 20 kHz)");
         }
-        for p in c.points.iter().filter(|p| {
-            [20.0, 100.0, 1000.0, 10_000.0, 20_000.0]
-                .iter()
-                .any(|&f| (p.frequency_hz / f - 1.0).abs() < 0.03)
-        }) {
-            let _ = writeln!(
-                s,
-                "  {:>8.0} Hz {:>7.1} dB",
-                p.frequency_hz, p.separation_db
-            );
+        let pairs: Vec<(f64, f64)> = c
+            .points
+            .iter()
+            .map(|p| (p.frequency_hz, p.separation_db))
+            .collect();
+        if let (Some(lo), Some(hi)) = (pairs.first(), pairs.last()) {
+            for f in [20.0, 100.0, 1000.0, 10_000.0, 20_000.0] {
+                if f >= lo.0 && f <= hi.0 {
+                    let v = ampnote::analysis::sweep::interpolate_log(&pairs, f);
+                    let _ = writeln!(s, "  {f:>8.0} Hz {v:>7.1} dB");
+                }
+            }
         }
     }
     for w in &r.warnings {

@@ -77,14 +77,18 @@ fn crosstalk_through_a_coupling_capacitance_reads_its_closed_form() {
             .collect::<Vec<f64>>()
     };
     let cap = d.join("cap.wav");
+    let (c1, c2) = (add(ch1, 1), add(ch2, 2));
     write_wav(
         &cap,
         48_000,
-        &[add(ch1, 1), add(ch2, 2)],
+        &[c1.clone(), c2.clone()],
         WavFormat::Float32,
         1,
     )
     .unwrap();
+    // The same amplifier driven on its other channel (the crosstalk the same way round).
+    let swapped = d.join("swapped.wav");
+    write_wav(&swapped, 48_000, &[c2, c1], WavFormat::Float32, 1).unwrap();
     let (code, out, err) = run(&[
         "separation",
         cap.to_str().unwrap(),
@@ -117,6 +121,32 @@ fn crosstalk_through_a_coupling_capacitance_reads_its_closed_form() {
     // The worst is at the top of the band, where the high-pass passes most.
     assert!(c.worst_hz.unwrap() > 15_000.0, "{c:?}");
     assert!((c.worst_db.unwrap() - (60.0 - response_db(1000.0, c.worst_hz.unwrap()))).abs() < 0.2);
+
+    // In the notebook, both ways round: match checks each against 60 dB at 1 kHz (common
+    // practice), and against a stricter limit the same figure fails (exit 1).
+    let nb = d.join("nb");
+    let nb = nb.to_str().unwrap();
+    assert_eq!(run(&["notebook", "init", nb, "--amplifier", "test"]).0, 0);
+    for (file, driven) in [(&cap, "1"), (&swapped, "2")] {
+        let (code, _, err) = run(&[
+            "separation",
+            file.to_str().unwrap(),
+            "--stimulus",
+            sweep.to_str().unwrap(),
+            "--driven",
+            driven,
+            "--notebook",
+            nb,
+            "--label",
+            "stock",
+        ]);
+        assert_eq!(code, 0, "{err}");
+    }
+    let (code, out, err) = run(&["match", "stock", "--notebook", nb]);
+    assert_eq!(code, 0, "{out}{err}");
+    assert_eq!(out.matches("separation at 1 kHz").count(), 2, "{out}");
+    let (code, out, _) = run(&["match", "stock", "--notebook", nb, "--min-separation", "70"]);
+    assert_eq!(code, 1, "{out}");
 
     // Named the wrong channel as driven: refused, naming the likely one.
     let (code, _, err) = run(&[
