@@ -658,6 +658,20 @@ pub fn write_report(nb: &Notebook, out: &Path) -> Result<ReportFiles> {
         })
     };
     let trend_level = trend(|p| p.level_dbfs);
+    // Separation: the first undriven channel of each run (typed).
+    let separation = curves_for(&runs, "separation", |v| {
+        super::views::view::<crate::analysis::separation::SeparationResult>(v).map_or(
+            Vec::new(),
+            |s| {
+                s.channels.first().map_or(Vec::new(), |c| {
+                    c.points
+                        .iter()
+                        .map(|p| (p.frequency_hz, p.separation_db))
+                        .collect()
+                })
+            },
+        )
+    });
     let trend_thd = trend(|p| p.thd_percent.or(p.thdn_percent));
     // Spectrum and residual of each label's left-channel tone run (the latest).
     let mut spectra = Vec::new();
@@ -791,6 +805,22 @@ pub fn write_report(nb: &Notebook, out: &Path) -> Result<ReportFiles> {
                     true,
                     false,
                     None,
+                ),
+            )?,
+        ),
+        (
+            "separation",
+            "Channel separation",
+            chart(
+                "separation",
+                spec(
+                    "Channel separation (the undriven channel below the driven one)",
+                    "Frequency (Hz)",
+                    "Separation (dB)",
+                    &separation,
+                    true,
+                    false,
+                    Some(60.0),
                 ),
             )?,
         ),
