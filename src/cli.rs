@@ -134,6 +134,27 @@ pub enum NotebookAction {
         /// Only these runs (ids); default every run with a stored capture.
         runs: Vec<String>,
     },
+    /// Keep DC operating points with a label: volts at a node, or across a resistor (then the
+    /// current and the dissipation), checked against part ratings.
+    Dc {
+        /// The notebook folder.
+        dir: PathBuf,
+        /// The label they belong to, e.g. stock or "after driver rework".
+        #[arg(long, value_name = "LABEL")]
+        label: String,
+        /// A reading: NAME=VOLTS, or NAME=VOLTS@OHMS across a resistor (k and M allowed: 1k, 4.7k).
+        #[arg(long = "point", value_name = "NAME=VOLTS[@OHMS]", required = true)]
+        points: Vec<String>,
+        /// A part's power rating: NAME=WATTS (flags a point dissipating more).
+        #[arg(long = "max-w", value_name = "NAME=W")]
+        ratings: Vec<String>,
+        /// The channel they belong to (1 for shared parts such as B+).
+        #[arg(long, default_value_t = 1, value_name = "N")]
+        channel: usize,
+        /// A note kept with them.
+        #[arg(long, value_name = "TEXT", default_value = "")]
+        note: String,
+    },
 }
 
 #[derive(Debug, Args)]

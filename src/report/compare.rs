@@ -307,6 +307,43 @@ pub fn compare(name_a: &str, a: &[Run], name_b: &str, b: &[Run]) -> Comparison {
                     }
                 }
             };
+        // DC operating points, by name: volts as a difference, current in mA, dissipation.
+        if let (Some(da), Some(db)) = (
+            latest::<crate::procedure::dc::DcResult>(a, "dc", ch),
+            latest::<crate::procedure::dc::DcResult>(b, "dc", ch),
+        ) {
+            for p in &da.points {
+                let Some(q) = db.points.iter().find(|q| q.name == p.name) else {
+                    skipped.push(format!(
+                        "channel {ch}: DC point {} only on `{name_a}`: not compared",
+                        crate::notebook::printable(&p.name)
+                    ));
+                    continue;
+                };
+                let name = crate::notebook::printable(&p.name);
+                add(
+                    &format!("DC {name}"),
+                    measured(Some(p.volts)),
+                    measured(Some(q.volts)),
+                    "V DC",
+                    None,
+                );
+                add(
+                    &format!("DC {name} current"),
+                    measured(p.current_ma),
+                    measured(q.current_ma),
+                    "mA",
+                    None,
+                );
+                add(
+                    &format!("DC {name} dissipation"),
+                    measured(p.dissipation_w),
+                    measured(q.dissipation_w),
+                    "W",
+                    None,
+                );
+            }
+        }
         let (pa, pb) = (power_runs(a, ch), power_runs(b, ch));
         let several = pa.len() > 1 || pb.len() > 1;
         for p in &pa {

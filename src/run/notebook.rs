@@ -76,6 +76,14 @@ pub fn notebook(action: &NotebookAction) -> Result<ExitCode, String> {
             Ok(ExitCode::SUCCESS)
         }
         NotebookAction::Reanalyze { dir, runs } => reanalyze(dir, runs),
+        NotebookAction::Dc {
+            dir,
+            label,
+            points,
+            ratings,
+            channel,
+            note,
+        } => dc(dir, label, points, ratings, *channel, note),
         NotebookAction::Log { dir, json } => {
             let nb = Notebook::open(dir).map_err(e)?;
             let scan = nb.scan().map_err(e)?;
@@ -233,6 +241,8 @@ fn headline(r: &Run) -> String {
                     .collect::<Vec<_>>()
                     .join("; ")
             }),
+        "dc" => view::<ampnote::procedure::dc::DcResult>(&r.result)
+            .map_or_else(unreadable, |d| d.headline()),
         "trend" => view::<ampnote::analysis::blocks::TrendResult>(&r.result)
             .map_or_else(unreadable, |t| t.headline()),
         other => ampnote::notebook::printable(other),
@@ -585,4 +595,60 @@ fn reanalyze(dir: &Path, only: &[String]) -> Result<ExitCode, String> {
     }
     super::print_stdout(&format!("{done} run(s) re-analysed\n"));
     Ok(ExitCode::SUCCESS)
+}
+
+/// `ampnote notebook dc`: DC operating points kept with a label.
+fn dc(
+    dir: &Path,
+    label: &str,
+    points: &[String],
+    ratings: &[String],
+    channel: usize,
+    note: &str,
+) -> Result<ExitCode, String> {
+    use ampnote::procedure::dc;
+    let nb = Notebook::open(dir).map_err(e)?;
+    ampnote::notebook::check_label(label).map_err(e)?;
+    if channel == 0 || channel > nb.info.channels {
+        return Err(format!(
+            "--channel takes 1..{} (the notebook's channels), got {channel}",
+            nb.info.channels
+        ));
+    }
+    let parsed = points
+        .iter()
+        .map(|p| dc::parse_point(p))
+        .collect::<ampnote::Result<Vec<_>>>()
+        .map_err(e)?;
+    let rated = ratings
+        .iter()
+        .map(|r| dc::parse_rating(r))
+        .collect::<ampnote::Result<Vec<_>>>()
+        .map_err(e)?;
+    let result = dc::operating_points(parsed, rated).map_err(e)?;
+    eprintln!("{}", dc::CAUTION);
+    super::print_stdout(&format!("{}\n", result.headline()));
+    for w in &result.warnings {
+        eprintln!("warning: {w}");
+    }
+    let run = nb
+        .save(ampnote::notebook::NewRun {
+            label,
+            channel,
+            procedure: "dc",
+            notes: note,
+            settings: std::collections::BTreeMap::new(),
+            calibration: ampnote::calibration::Calibration::default(),
+            analysis: None,
+            files: Vec::new(),
+            blobs: Vec::new(),
+            result: serde_json::to_value(&result).expect("serializes"),
+        })
+        .map_err(e)?;
+    eprintln!("kept as {} in {}", run.meta.id, dir.display());
+    Ok(if result.points.iter().any(|p| p.overstressed) {
+        ExitCode::from(1)
+    } else {
+        ExitCode::SUCCESS
+    })
 }

@@ -6,6 +6,7 @@ mod bench_calibration;
 mod closed_form;
 mod command_line;
 mod common;
+mod dc_points;
 mod formats;
 mod framing;
 mod honest_compare;
