@@ -273,6 +273,40 @@ pub fn run(out: &Path, mut progress: impl FnMut(&str)) -> Result<DemoOutcome> {
             runs += 5;
         }
     }
+    // DC operating points read with a meter (invented values for the invented amplifier): B+,
+    // the output valve's cathode resistor, the driver's cathode resistor (changed by the rework).
+    for (label, points) in [
+        ("stock", ["B+=362", "Rk out=71.5@1.5k", "Rk drv=1.9@2.2k"]),
+        (
+            "driver reworked",
+            ["B+=360", "Rk out=71.8@1.5k", "Rk drv=1.45@1k"],
+        ),
+    ] {
+        let parsed = points
+            .iter()
+            .map(|p| crate::procedure::dc::parse_point(p))
+            .collect::<Result<Vec<_>>>()?;
+        let ratings = vec![("Rk out".to_string(), 10.0), ("Rk drv".to_string(), 0.5)];
+        let dc = crate::procedure::dc::operating_points(parsed, ratings)?;
+        let mut settings = BTreeMap::new();
+        settings.insert(
+            "meter".to_string(),
+            "DC volts, probes on with the power off".to_string(),
+        );
+        nb.save(NewRun {
+            label,
+            channel: 1,
+            procedure: "dc",
+            notes: "left channel and the shared B+",
+            settings,
+            calibration: cal,
+            analysis: None,
+            files: Vec::new(),
+            blobs: Vec::new(),
+            result: serde_json::to_value(&dc).expect("serializes"),
+        })?;
+        runs += 1;
+    }
     // The reworked amplifier switched on cold and logged for 20 s at 1 W (left channel): the
     // trend of its warm-up.
     progress("driver reworked, cold start");
