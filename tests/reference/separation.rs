@@ -40,6 +40,25 @@ fn filtered(x: &[f64], fc: f64) -> Vec<f64> {
         .collect()
 }
 
+/// `ampnote separation FILE --stimulus SWEEP --driven N [extra...]`: exit code, stdout, stderr.
+fn separation(
+    file: &std::path::Path,
+    sweep: &std::path::Path,
+    driven: &str,
+    extra: &[&str],
+) -> (i32, String, String) {
+    let mut args = vec![
+        "separation",
+        file.to_str().unwrap(),
+        "--stimulus",
+        sweep.to_str().unwrap(),
+        "--driven",
+        driven,
+    ];
+    args.extend_from_slice(extra);
+    run(&args)
+}
+
 #[test]
 fn crosstalk_through_a_coupling_capacitance_reads_its_closed_form() {
     let d = tmpdir("separation");
@@ -89,15 +108,7 @@ fn crosstalk_through_a_coupling_capacitance_reads_its_closed_form() {
     // The same amplifier driven on its other channel (the crosstalk the same way round).
     let swapped = d.join("swapped.wav");
     write_wav(&swapped, 48_000, &[c2, c1], WavFormat::Float32, 1).unwrap();
-    let (code, out, err) = run(&[
-        "separation",
-        cap.to_str().unwrap(),
-        "--stimulus",
-        sweep.to_str().unwrap(),
-        "--driven",
-        "1",
-        "--json",
-    ]);
+    let (code, out, err) = separation(&cap, &sweep, "1", &["--json"]);
     assert_eq!(code, 0, "{err}");
     let r: SeparationResult = serde_json::from_str(&out).unwrap();
     assert_eq!(r.driven_channel, 1);
@@ -128,18 +139,12 @@ fn crosstalk_through_a_coupling_capacitance_reads_its_closed_form() {
     let nb = nb.to_str().unwrap();
     assert_eq!(run(&["notebook", "init", nb, "--amplifier", "test"]).0, 0);
     for (file, driven) in [(&cap, "1"), (&swapped, "2")] {
-        let (code, _, err) = run(&[
-            "separation",
-            file.to_str().unwrap(),
-            "--stimulus",
-            sweep.to_str().unwrap(),
-            "--driven",
+        let (code, _, err) = separation(
+            file,
+            &sweep,
             driven,
-            "--notebook",
-            nb,
-            "--label",
-            "stock",
-        ]);
+            &["--notebook", nb, "--label", "stock"],
+        );
         assert_eq!(code, 0, "{err}");
     }
     let (code, out, err) = run(&["match", "stock", "--notebook", nb]);
@@ -149,14 +154,7 @@ fn crosstalk_through_a_coupling_capacitance_reads_its_closed_form() {
     assert_eq!(code, 1, "{out}");
 
     // Named the wrong channel as driven: refused, naming the likely one.
-    let (code, _, err) = run(&[
-        "separation",
-        cap.to_str().unwrap(),
-        "--stimulus",
-        sweep.to_str().unwrap(),
-        "--driven",
-        "2",
-    ]);
+    let (code, _, err) = separation(&cap, &sweep, "2", &[]);
     assert_eq!(code, 2, "{err}");
     assert!(err.contains("--driven"), "{err}");
 
@@ -171,15 +169,7 @@ fn crosstalk_through_a_coupling_capacitance_reads_its_closed_form() {
         1,
     )
     .unwrap();
-    let (code, out, err) = run(&[
-        "separation",
-        quiet.to_str().unwrap(),
-        "--stimulus",
-        sweep.to_str().unwrap(),
-        "--driven",
-        "1",
-        "--json",
-    ]);
+    let (code, out, err) = separation(&quiet, &sweep, "1", &["--json"]);
     assert_eq!(code, 0, "{err}");
     let r: SeparationResult = serde_json::from_str(&out).unwrap();
     let c = &r.channels[0];
@@ -189,14 +179,7 @@ fn crosstalk_through_a_coupling_capacitance_reads_its_closed_form() {
     assert!(bound > 90.0 && bound < 110.0, "{bound}");
 
     // A mono file cannot show separation.
-    let (code, _, err) = run(&[
-        "separation",
-        sweep.to_str().unwrap(),
-        "--stimulus",
-        sweep.to_str().unwrap(),
-        "--driven",
-        "1",
-    ]);
+    let (code, _, err) = separation(&sweep, &sweep, "1", &[]);
     assert_eq!(code, 2);
     assert!(err.contains("one channel"), "{err}");
 }
