@@ -117,7 +117,12 @@ pub fn run(args: &SeparationArgs) -> Result<ExitCode, String> {
             args.capture.display()
         ));
     }
-    ampnote::capture::select_channels(info.channel_count, Some(args.driven)).map_err(e)?;
+    if args.driven == 0 || args.driven > info.channel_count {
+        return Err(format!(
+            "--driven takes the channel the sweep was played into, 1..{}, got {}",
+            info.channel_count, args.driven
+        ));
+    }
     let capture = Capture::read(&args.capture, args.accept_truncated).map_err(e)?;
     let fs = capture.sample_rate_hz as f64;
     let analyzer = ResponseAnalyzer::new(ResponseConfig::default()).map_err(e)?;

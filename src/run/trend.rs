@@ -18,7 +18,9 @@ pub fn run(args: &TrendArgs) -> Result<ExitCode, String> {
     if !(args.every.is_finite() && (EVERY_RANGE_S.0..=EVERY_RANGE_S.1).contains(&args.every)) {
         return Err(format!(
             "--every takes a block length from {} to {} s, got {}",
-            EVERY_RANGE_S.0, EVERY_RANGE_S.1, args.every
+            EVERY_RANGE_S.0,
+            EVERY_RANGE_S.1,
+            ampnote::error::shown(args.every)
         ));
     }
     super::check_save(&a.save)?;
