@@ -255,6 +255,8 @@ def main():
                                                          "--dwell", "--settle"]),
             (["generate", "twotone", "--out", tt + ".x"], ["--seconds", "--level"]),
             (["trend", tone], ["--every", "--harmonics"]),
+            (["separation", tone, "--stimulus", sw], ["--driven"]),
+            (["watch", "--rig", "sim", "--seconds", "0.3", "--json"], ["--refresh"]),
         ]
         for base_cmd, flags in plans:
             for flag in flags:
