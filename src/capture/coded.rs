@@ -129,14 +129,41 @@ fn info_of(reader: &dyn FormatReader, path: &Path, kind: Kind) -> Result<SourceI
 }
 
 /// Decode the channels `numbers` (1-based) packet by packet, keeping only those.
-pub(super) fn decode<T: Store>(
+/// One reader opened once: the header's facts (checked against `numbers`, 1-based, `None` for
+/// every channel), then the chosen channels' samples.
+pub(super) fn read<T: Store>(
+    path: &Path,
+    kind: Kind,
+    numbers: Option<&[usize]>,
+    accept_truncated: bool,
+) -> Result<super::Selected<T>> {
+    let mut reader = open_reader(path, kind)?;
+    let info = info_of(reader.as_ref(), path, kind)?;
+    let numbers = super::chosen(&info, numbers)?;
+    let (channels, truncated) = decode(
+        reader.as_mut(),
+        path,
+        kind,
+        &info,
+        &numbers,
+        accept_truncated,
+    )?;
+    Ok(super::Selected {
+        info,
+        numbers,
+        channels,
+        truncated,
+    })
+}
+
+fn decode<T: Store>(
+    reader: &mut dyn FormatReader,
     path: &Path,
     kind: Kind,
     info: &SourceInfo,
     numbers: &[usize],
     accept_truncated: bool,
 ) -> Result<(Vec<Vec<T>>, bool)> {
-    let mut reader = open_reader(path, kind)?;
     let track = reader
         .default_track()
         .ok_or_else(|| damaged(path, kind, "it holds no audio track"))?;

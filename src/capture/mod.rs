@@ -206,13 +206,23 @@ pub struct StoredChannel {
 impl StoredChannel {
     /// Decode channel `number` (1-based) of the file at `path`.
     pub fn read(path: &Path, accept_truncated: bool, number: usize) -> Result<StoredChannel> {
-        let info = Capture::probe(path)?;
-        let (samples, truncated) = if info.encoding.fits_f32() {
-            let (mut v, t) = read_selected::<f32>(path, accept_truncated, &[number])?;
-            (StoredSamples::F32(v.remove(0)), t)
+        // The header first, for the storage the encoding needs.
+        let f32_fits = Capture::probe(path)?.encoding.fits_f32();
+        let one = Some(&[number][..]);
+        let (info, samples, truncated) = if f32_fits {
+            let mut s = read_selected::<f32>(path, accept_truncated, one)?;
+            (
+                s.info,
+                StoredSamples::F32(s.channels.remove(0)),
+                s.truncated,
+            )
         } else {
-            let (mut v, t) = read_selected::<f64>(path, accept_truncated, &[number])?;
-            (StoredSamples::F64(v.remove(0)), t)
+            let mut s = read_selected::<f64>(path, accept_truncated, one)?;
+            (
+                s.info,
+                StoredSamples::F64(s.channels.remove(0)),
+                s.truncated,
+            )
         };
         Ok(StoredChannel {
             info,
@@ -267,20 +277,15 @@ impl Capture {
         accept_truncated: bool,
         channels: Option<&[usize]>,
     ) -> Result<Capture> {
-        let info = Self::probe(path)?;
-        let numbers: Vec<usize> = match channels {
-            None => (1..=info.channel_count).collect(),
-            Some(list) => list.to_vec(),
-        };
-        let (out, truncated) = read_selected::<f64>(path, accept_truncated, &numbers)?;
+        let s = read_selected::<f64>(path, accept_truncated, channels)?;
         Ok(Capture {
-            sample_rate_hz: info.sample_rate_hz,
-            encoding: info.encoding,
-            channel_count: info.channel_count,
-            channel_numbers: numbers,
-            channels: out,
-            truncated,
-            description_json: info.description_json,
+            sample_rate_hz: s.info.sample_rate_hz,
+            encoding: s.info.encoding,
+            channel_count: s.info.channel_count,
+            channel_numbers: s.numbers,
+            channels: s.channels,
+            truncated: s.truncated,
+            description_json: s.info.description_json,
         })
     }
 
@@ -351,29 +356,54 @@ fn sniff<R: std::io::BufRead>(r: &mut R, path: &Path) -> Result<Sniffed> {
     }
 }
 
-/// Decode the channels `numbers` (1-based) of the file at `path` into storage `T`; also says
+/// What [`read_selected`] decoded: the header's facts, the channels' numbers and samples, and
 /// whether the file was cut short (accepted only with `accept_truncated`).
+struct Selected<T> {
+    info: SourceInfo,
+    numbers: Vec<usize>,
+    channels: Vec<Vec<T>>,
+    truncated: bool,
+}
+
+/// The channels `numbers` asks for (1-based; `None` for all), each checked against the file.
+fn chosen(info: &SourceInfo, numbers: Option<&[usize]>) -> Result<Vec<usize>> {
+    match numbers {
+        None => Ok((1..=info.channel_count).collect()),
+        Some(list) => {
+            for &c in list {
+                select_channels(info.channel_count, Some(c))?;
+            }
+            Ok(list.to_vec())
+        }
+    }
+}
+
+/// Decode the channels `numbers` (1-based; `None` for all) of the file at `path` into storage
+/// `T`, opening it and reading its header once.
 fn read_selected<T: Store>(
     path: &Path,
     accept_truncated: bool,
-    numbers: &[usize],
-) -> Result<(Vec<Vec<T>>, bool)> {
+    numbers: Option<&[usize]>,
+) -> Result<Selected<T>> {
     let file = open(path)?;
     let file_bytes = file.metadata().map(|m| m.len()).ok();
     let mut r = std::io::BufReader::with_capacity(1 << 16, file);
-    let kind = sniff(&mut r, path)?;
-    let info = match kind {
-        Sniffed::Riff => riff::read_header(&mut r, path)?,
-        Sniffed::Coded(kind) => coded::probe(path, kind)?,
-    };
-    for &c in numbers {
-        select_channels(info.channel_count, Some(c))?;
-    }
-    match kind {
-        Sniffed::Riff => riff_samples(&mut r, &info, path, accept_truncated, numbers, file_bytes),
+    match sniff(&mut r, path)? {
+        Sniffed::Riff => {
+            let info = riff::read_header(&mut r, path)?;
+            let numbers = chosen(&info, numbers)?;
+            let (channels, truncated) =
+                riff_samples(&mut r, &info, path, accept_truncated, &numbers, file_bytes)?;
+            Ok(Selected {
+                info,
+                numbers,
+                channels,
+                truncated,
+            })
+        }
         Sniffed::Coded(kind) => {
             drop(r);
-            coded::decode(path, kind, &info, numbers, accept_truncated)
+            coded::read(path, kind, numbers, accept_truncated)
         }
     }
 }
