@@ -78,6 +78,21 @@ impl StoredInput<'_> {
     }
 }
 
+impl StoredInput<'_> {
+    /// `f` on each of `blocks` (widened to `f64`), on every core, results in block order.
+    fn per_block<R: Send>(
+        &self,
+        blocks: &[Range<usize>],
+        f: impl Fn(&ChannelInput) -> Result<R> + Sync,
+    ) -> Result<Vec<R>> {
+        self.progress.extend(blocks.len() as u64);
+        blocks
+            .par_iter()
+            .map(|r| self.with_block(r.clone(), &f))
+            .collect()
+    }
+}
+
 /// Ticks the bar when a block's work ends, however it ends.
 struct Tick<'a>(&'a Progress);
 
@@ -159,11 +174,7 @@ pub fn tone(
         steady.end,
         if len > 2 * block { block } else { len.max(1) },
     );
-    input.progress.extend(blocks.len() as u64);
-    let parts: Vec<ToneResult> = blocks
-        .par_iter()
-        .map(|r| input.with_block(r.clone(), |ci| analyzer.analyze_block(ci, cal)))
-        .collect::<Result<_>>()?;
+    let parts = input.per_block(&blocks, |ci| analyzer.analyze_block(ci, cal))?;
     let mut result = if parts.len() == 1 {
         parts.into_iter().next().expect("one block")
     } else {
@@ -272,11 +283,7 @@ pub fn noise(
     block: usize,
 ) -> Result<NoiseResult> {
     let blocks = split(0, input.samples.len(), block);
-    input.progress.extend(blocks.len() as u64);
-    let parts: Vec<NoiseResult> = blocks
-        .par_iter()
-        .map(|r| input.with_block(r.clone(), |ci| analyzer.analyze(ci, band_hz, mains, cal)))
-        .collect::<Result<_>>()?;
+    let parts = input.per_block(&blocks, |ci| analyzer.analyze(ci, band_hz, mains, cal))?;
     if parts.len() == 1 {
         return Ok(parts.into_iter().next().expect("one block"));
     }
@@ -325,11 +332,7 @@ pub fn imd(
     block: usize,
 ) -> Result<ImdResult> {
     let blocks = split(0, input.samples.len(), block);
-    input.progress.extend(blocks.len() as u64);
-    let parts: Vec<ImdResult> = blocks
-        .par_iter()
-        .map(|r| input.with_block(r.clone(), |ci| analyzer.analyze(ci, hint)))
-        .collect::<Result<_>>()?;
+    let parts = input.per_block(&blocks, |ci| analyzer.analyze(ci, hint))?;
     if parts.len() == 1 {
         return Ok(parts.into_iter().next().expect("one block"));
     }
@@ -521,13 +524,17 @@ pub fn trend(
             why: format!(" for one block of --every {every_s} s"),
         });
     }
-    input.progress.extend(count as u64);
-    let points: Vec<TrendPoint> = (0..count)
-        .into_par_iter()
-        .map(|i| {
-            let from = start + i * len;
-            let at_s = from as f64 / fs;
-            match input.with_block(from..from + len, |ci| analyzer.analyze(ci, cal)) {
+    let blocks: Vec<Range<usize>> = (0..count)
+        .map(|i| start + i * len..start + (i + 1) * len)
+        .collect();
+    // A block that cannot be read keeps its place: its failure is its point.
+    let results = input.per_block(&blocks, |ci| Ok(analyzer.analyze(ci, cal)))?;
+    let points: Vec<TrendPoint> = blocks
+        .iter()
+        .zip(results)
+        .map(|(b, r)| {
+            let at_s = b.start as f64 / fs;
+            match r {
                 Ok(r) => point_of(at_s, &r),
                 Err(e) => TrendPoint::failed(at_s, e.to_string()),
             }
@@ -539,7 +546,11 @@ pub fn trend(
         thdn_db: drift_of(&points, |p| p.thdn_percent.map(pct_db)),
         h2_dbc: drift_of(&points, |p| p.h2_dbc),
         h3_dbc: drift_of(&points, |p| p.h3_dbc),
-        hum_dbfs: drift_of(&points, |p| p.hum_dbfs),
+        // The strongest hum line of the first block, followed where it stays the strongest.
+        hum_dbfs: {
+            let line = points.iter().find_map(|p| p.hum_hz);
+            drift_of(&points, |p| p.hum_dbfs.filter(|_| p.hum_hz == line))
+        },
     };
     let mut warnings = Vec::new();
     let failed = points.iter().filter(|p| p.level_dbfs.is_none()).count();
@@ -640,54 +651,76 @@ pub fn each_channel<R: Send>(
     short: impl Fn(&ChannelInput) -> Result<R> + Sync,
     long: impl Fn(&StoredInput) -> Result<R> + Sync,
 ) -> Result<FileRun<R>> {
-    let progress = if is_long(info.frames_declared) {
-        Progress::new(0, "blocks")
-    } else {
-        Progress::hidden()
-    };
-    use crate::capture::{Capture, StoredChannel};
-    let fs = info.sample_rate_hz as f64;
+    if is_long(info.frames_declared) {
+        return each_stored_channel(path, info, chosen, accept_truncated, long);
+    }
     let (overload_threshold, resolution_bits) = (
         info.encoding.overload_threshold(),
         info.encoding.resolution_bits(),
     );
-    let runs: Vec<(usize, Result<R>, usize, bool)> = if is_long(info.frames_declared) {
-        let mut out = Vec::new();
-        for &ch in chosen {
-            progress.message(format!("channel {ch}: reading"));
-            let stored = StoredChannel::read(path, accept_truncated, ch)?;
-            progress.message(format!("channel {ch}"));
-            let input = StoredInput {
+    let runs: Vec<(usize, Result<R>, usize, bool)> = chosen
+        .par_iter()
+        .map(|&ch| {
+            let cap = crate::capture::Capture::read_channels(path, accept_truncated, Some(&[ch]))?;
+            let input = ChannelInput {
                 channel: ch,
-                samples: &stored.samples,
-                sample_rate_hz: fs,
+                samples: &cap.channels[0],
+                sample_rate_hz: info.sample_rate_hz as f64,
                 overload_threshold,
                 resolution_bits,
-                progress: progress.clone(),
             };
-            out.push((ch, long(&input), stored.samples.len(), stored.truncated));
-        }
-        out
-    } else {
-        chosen
-            .par_iter()
-            .map(|&ch| {
-                let cap = Capture::read_channels(path, accept_truncated, Some(&[ch]))?;
-                let input = ChannelInput {
-                    channel: ch,
-                    samples: &cap.channels[0],
-                    sample_rate_hz: fs,
-                    overload_threshold,
-                    resolution_bits,
-                };
-                Ok((ch, short(&input), cap.frames(), cap.truncated))
-            })
-            .collect::<Result<_>>()?
-    };
+            Ok((ch, short(&input), cap.frames(), cap.truncated))
+        })
+        .collect::<Result<_>>()?;
+    Ok(FileRun::from_runs(runs))
+}
+
+/// Each chosen channel in compact storage, one at a time, given to `f` (which works its blocks
+/// in parallel), with a progress bar over the blocks: the long-capture half of [`each_channel`],
+/// and the whole of a trend.
+pub fn each_stored_channel<R>(
+    path: &std::path::Path,
+    info: &crate::capture::SourceInfo,
+    chosen: &[usize],
+    accept_truncated: bool,
+    f: impl Fn(&StoredInput) -> Result<R>,
+) -> Result<FileRun<R>> {
+    let progress = Progress::new(0, "blocks");
+    let mut runs = Vec::new();
+    for &ch in chosen {
+        progress.message(format!("channel {ch}: reading"));
+        let stored = crate::capture::StoredChannel::read(path, accept_truncated, ch)?;
+        progress.message(format!("channel {ch}"));
+        let input = StoredInput {
+            channel: ch,
+            samples: &stored.samples,
+            sample_rate_hz: info.sample_rate_hz as f64,
+            overload_threshold: info.encoding.overload_threshold(),
+            resolution_bits: info.encoding.resolution_bits(),
+            progress: progress.clone(),
+        };
+        runs.push((ch, f(&input), stored.samples.len(), stored.truncated));
+    }
     progress.finish();
-    Ok(FileRun {
-        frames: runs.first().map_or(0, |r| r.2),
-        truncated: runs.iter().any(|r| r.3),
-        channels: runs.into_iter().map(|(ch, r, _, _)| (ch, r)).collect(),
-    })
+    Ok(FileRun::from_runs(runs))
+}
+
+impl<R> FileRun<R> {
+    fn from_runs(runs: Vec<(usize, Result<R>, usize, bool)>) -> Self {
+        FileRun {
+            frames: runs.first().map_or(0, |r| r.2),
+            truncated: runs.iter().any(|r| r.3),
+            channels: runs.into_iter().map(|(ch, r, _, _)| (ch, r)).collect(),
+        }
+    }
+
+    /// What the reading itself leaves to say beside every channel's figures.
+    pub fn reading_warnings(&self, info: &crate::capture::SourceInfo) -> Vec<String> {
+        let mut w = Vec::new();
+        if self.truncated {
+            w.push("the file was truncated: only the complete frames were analysed".to_string());
+        }
+        w.extend(info.length_warning());
+        w
+    }
 }

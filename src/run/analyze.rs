@@ -44,17 +44,13 @@ pub fn run(args: &AnalyzeArgs) -> Result<ExitCode, String> {
     )
     .map_err(|e| e.to_string())?;
     let (frames, truncated) = (run.frames, run.truncated);
+    let reading = run.reading_warnings(&info);
     let mut channels = Vec::new();
     let mut channel_errors = Vec::new();
     for (ch, result) in run.channels {
         match result {
             Ok(mut r) => {
-                if truncated {
-                    r.warnings.push(
-                        "the file was truncated: only the complete frames were analysed".into(),
-                    );
-                }
-                r.warnings.extend(info.length_warning());
+                r.warnings.extend(reading.iter().cloned());
                 channels.push(r)
             }
             Err(e) => channel_errors.push(ChannelError {

@@ -74,9 +74,14 @@ pub fn run(args: &ImdArgs) -> Result<ExitCode, String> {
         |input| blocks::imd(&analyzer, input, hint, blocks::BLOCK_SAMPLES),
     )
     .map_err(e)?;
+    let reading = run.reading_warnings(&info);
     for (ch, result) in run.channels {
         match result {
-            Ok(r) => channels.push(r),
+            Ok(mut r) => {
+                // A truncated file (with --accept-truncated) says so beside its figures.
+                r.warnings.extend(reading.iter().cloned());
+                channels.push(r)
+            }
             Err(err) => channel_errors.push(ChannelError {
                 channel: ch,
                 error: err.to_string(),

@@ -183,9 +183,11 @@ pub fn run(args: &NoiseArgs) -> Result<ExitCode, String> {
         },
     )
     .map_err(e)?;
+    let reading = run.reading_warnings(&info);
     for (ch, result) in run.channels {
         match result {
             Ok(mut r) => {
+                r.warnings.extend(reading.iter().cloned());
                 ampnote::report::add_rig_notes(std::slice::from_mut(&mut r), &notes);
                 keeper.add(
                     "noise",

@@ -37,31 +37,18 @@ pub fn run(args: &TrendArgs) -> Result<ExitCode, String> {
     let path = recorded.capture.as_path();
     let info = Capture::probe(path).map_err(|e| e.to_string())?;
     let chosen = select_channels(info.channel_count, channel).map_err(|e| e.to_string())?;
+    // One channel at a time in compact storage; its blocks on every core.
+    let run = blocks::each_stored_channel(path, &info, &chosen, a.accept_truncated, |input| {
+        blocks::trend(&analyzer, input, &cal, args.every)
+    })
+    .map_err(|e| e.to_string())?;
+    let reading = run.reading_warnings(&info);
     let mut channels = Vec::new();
     let mut channel_errors = Vec::new();
-    // One channel at a time in compact storage; its blocks on every core.
-    let progress = ampnote::progress::Progress::new(0, "blocks");
-    for &ch in &chosen {
-        progress.message(format!("channel {ch}: reading"));
-        let stored = ampnote::capture::StoredChannel::read(path, a.accept_truncated, ch)
-            .map_err(|e| e.to_string())?;
-        let input = blocks::StoredInput {
-            channel: ch,
-            samples: &stored.samples,
-            sample_rate_hz: info.sample_rate_hz as f64,
-            overload_threshold: info.encoding.overload_threshold(),
-            resolution_bits: info.encoding.resolution_bits(),
-            progress: progress.clone(),
-        };
-        progress.message(format!("channel {ch}"));
-        match blocks::trend(&analyzer, &input, &cal, args.every) {
+    for (ch, result) in run.channels {
+        match result {
             Ok(mut r) => {
-                if stored.truncated {
-                    r.warnings.push(
-                        "the file was truncated: only the complete frames were analysed".into(),
-                    );
-                }
-                r.warnings.extend(info.length_warning());
+                r.warnings.extend(reading.iter().cloned());
                 channels.push(r)
             }
             Err(e) => channel_errors.push(ChannelError {
@@ -70,7 +57,6 @@ pub fn run(args: &TrendArgs) -> Result<ExitCode, String> {
             }),
         }
     }
-    progress.finish();
     ampnote::report::add_rig_notes(&mut channels, &recorded.notes);
     let mut keeper = super::Keeper::new(&a.save);
     for r in &channels {
