@@ -445,6 +445,7 @@ pub struct TrendDrift {
     pub thdn_db: Option<Drift>,
     pub h2_dbc: Option<Drift>,
     pub h3_dbc: Option<Drift>,
+    /// The first block's strongest hum line, over the blocks where it stays the strongest.
     pub hum_dbfs: Option<Drift>,
 }
 

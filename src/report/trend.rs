@@ -50,16 +50,17 @@ impl TrendReport {
                 c.to_s
             );
             let _ = writeln!(out, "  Drift, last block against first");
+            // Level in dBFS; THD and THD+N as 20 log10 of the ratio; H2, H3 in dBc; hum in dBFS.
             drift_line(&mut out, "level", &c.drift.level_db, "dB");
             drift_line(&mut out, "THD", &c.drift.thd_db, "dB");
             drift_line(&mut out, "THD+N", &c.drift.thdn_db, "dB");
             drift_line(&mut out, "H2", &c.drift.h2_dbc, "dB");
             drift_line(&mut out, "H3", &c.drift.h3_dbc, "dB");
-            drift_line(&mut out, "hum", &c.drift.hum_dbfs, "dB");
+            drift_line(&mut out, "hum line", &c.drift.hum_dbfs, "dB");
             let calibrated = c.points.iter().any(|p| p.level_vrms.is_some());
             let _ = writeln!(
                 out,
-                "\n  {:>8}  {:>8}  {}{:>10}  {:>10}  {:>7}  {:>7}  {:>14}  note",
+                "\n  {:>8}  {:>8}  {}{:>10}  {:>10}  {:>7}  {:>7}  {:>19}  note",
                 "at s",
                 "dBFS",
                 if calibrated { "      V rms  " } else { "" },
@@ -71,7 +72,7 @@ impl TrendReport {
             );
             for p in &c.points {
                 let hum = match (p.hum_hz, p.hum_dbfs) {
-                    (Some(f), Some(l)) => format!("{f:.0} Hz {l:.1}"),
+                    (Some(f), Some(l)) => format!("{f:.0} Hz {l:.1} dBFS"),
                     _ => "-".into(),
                 };
                 let volts = if calibrated {
@@ -81,7 +82,7 @@ impl TrendReport {
                 };
                 let _ = writeln!(
                     out,
-                    "  {:>8.1}  {:>8}  {volts}{:>10}  {:>10}  {:>7}  {:>7}  {:>14}  {}",
+                    "  {:>8.1}  {:>8}  {volts}{:>10}  {:>10}  {:>7}  {:>7}  {:>19}  {}",
                     p.at_s,
                     opt(p.level_dbfs, 2),
                     p.thd_percent.map_or("-".into(), fmt_pct),
