@@ -533,6 +533,7 @@ impl ToneAnalyzer {
             f0_bins,
             band_hi,
             peak_power,
+            a1,
             max_harmonic_ratio,
             input.resolution_bits,
         );
@@ -1314,8 +1315,13 @@ fn explained(f: f64, ratio: f64, f0: f64, mains: f64, fs: f64, tol: f64) -> bool
     if (1..=4).any(|k| (offset - k as f64 * mains).abs() <= tol) {
         return true;
     }
-    // Aliases of harmonics: |n f0 - m fs|.
-    (2..=(max_order as usize).min(40)).any(|n| {
+    harmonic_alias(f, f0, fs, (max_order as usize).min(40), tol)
+}
+
+/// Whether `f` lies within `tol` of a harmonic of `f0` (order 2 to `orders`) folded down from
+/// above Nyquist: |n f0 - m fs| (all in Hz).
+fn harmonic_alias(f: f64, f0: f64, fs: f64, orders: usize, tol: f64) -> bool {
+    (2..=orders).any(|n| {
         let h = n as f64 * f0;
         let folded = (h - (h / fs).round() * fs).abs();
         h > fs / 2.0 && (folded - f).abs() <= tol
@@ -1399,7 +1405,8 @@ pub(crate) fn against_loopback(
 
 /// The oscillation checks on a tone's spectrum (see [`super::oscillation`]): ultrasonic lines,
 /// sub-audio lines and a pumping level. `max_harmonic_ratio` is the strongest in-band harmonic's
-/// power over the fundamental's; `peak_power` the fundamental's peak bin power.
+/// power over the fundamental's; `peak_power` the fundamental's peak bin power and `a1` its
+/// fitted amplitude.
 #[allow(clippy::too_many_arguments)]
 fn find_oscillations(
     spec: &[Complex64],
@@ -1409,6 +1416,7 @@ fn find_oscillations(
     f0_bins: f64,
     band_hi: f64,
     peak_power: f64,
+    a1: f64,
     max_harmonic_ratio: f64,
     resolution_bits: u32,
 ) -> (Vec<Oscillation>, OscillationSearch) {
@@ -1416,22 +1424,13 @@ fn find_oscillations(
     let half = TONE_WINDOW.main_lobe_half_width() as f64 + 1.0;
     let tol = 3.0 * bin_hz * half;
     let f0 = f0_bins * bin_hz;
-    let harmonic_like = |f: f64| {
-        near_multiple(f, f0, f64::INFINITY, tol)
-            || (2..=400usize).any(|h| {
-                let x = h as f64 * f0;
-                let folded = (x - (x / fs).round() * fs).abs();
-                x > fs / 2.0 && (folded - f).abs() <= tol
-            })
-    };
+    let harmonic_like =
+        |f: f64| near_multiple(f, f0, f64::INFINITY, tol) || harmonic_alias(f, f0, fs, 400, tol);
     let (mut found, search) = line_checks(spec, all, n, fs, band_hi, resolution_bits, |f, p| {
         harmonic_like(f) && p / peak_power <= 10.0 * max_harmonic_ratio
     });
-    let a1 = fit_lines(spec, n, &TONE_WINDOW, &[f0_bins])
-        .map_or(1.0, |f| f.amplitudes[0].norm())
-        .max(1e-300);
     for o in &mut found {
-        o.level_dbc = Some(o.level_dbfs - 20.0 * a1.log10());
+        o.level_dbc = Some(o.level_dbfs - 20.0 * a1.max(1e-300).log10());
     }
     found.extend(
         pumping(spec, all, n, fs, f0_bins).filter(|o| {
