@@ -93,6 +93,25 @@ pub struct Format<'a> {
     pub csv: Option<&'a Path>,
 }
 
+/// Print the report in the chosen format: JSON or the table to stdout, CSV to stdout (`-`) or
+/// written whole to its file.
+pub fn emit(
+    format: &Format,
+    render_json: impl FnOnce() -> String,
+    render_csv: impl FnOnce() -> String,
+    render_table: impl FnOnce() -> String,
+) -> Result<(), String> {
+    match (format.json, format.csv) {
+        (true, _) => print_stdout(&render_json()),
+        (false, Some(path)) if path.as_os_str() != "-" => {
+            ampnote::files::write_whole(path, render_csv().as_bytes()).map_err(|e| e.to_string())?
+        }
+        (false, Some(_)) => print_stdout(&render_csv()),
+        (false, None) => print_stdout(&render_table()),
+    }
+    Ok(())
+}
+
 /// The end of every analysing command: diagnostics to stderr, the report (table, JSON or CSV) to
 /// stdout or the CSV file, and exit code 2 when a channel could not be analysed.
 pub fn finish<T: ampnote::report::ChannelResult>(
@@ -110,14 +129,7 @@ pub fn finish<T: ampnote::report::ChannelResult>(
             .flat_map(|r| r.warnings().iter().map(move |w| (r.channel(), w))),
         errors.iter().map(|e| &e.error),
     );
-    match (format.json, format.csv) {
-        (true, _) => print_stdout(&render_json()),
-        (false, Some(path)) if path.as_os_str() != "-" => {
-            ampnote::files::write_whole(path, render_csv().as_bytes()).map_err(|e| e.to_string())?
-        }
-        (false, Some(_)) => print_stdout(&render_csv()),
-        (false, None) => print_stdout(&render_table()),
-    }
+    emit(&format, render_json, render_csv, render_table)?;
     Ok(if errors.is_empty() {
         ExitCode::SUCCESS
     } else {

@@ -198,21 +198,22 @@ pub fn run(args: &SeparationArgs) -> Result<ExitCode, String> {
         stimulus: args.stimulus.display().to_string(),
         result: &result,
     };
-    for w in &result.warnings {
-        if args.json || args.csv.is_some() {
-            eprintln!("warning: {w}");
-        }
-    }
-    match (&args.csv, args.json) {
-        (_, true) => super::print_stdout(
-            &(serde_json::to_string_pretty(&report).expect("serializes") + "\n"),
-        ),
-        (Some(p), false) if p.as_os_str() != "-" => {
-            ampnote::files::write_whole(p, csv(&result).as_bytes()).map_err(|e| e.to_string())?
-        }
-        (Some(_), false) => super::print_stdout(&csv(&result)),
-        (None, false) => super::print_stdout(&table(&file, &result)),
-    }
+    let format = super::Format {
+        json: args.json,
+        csv: args.csv.as_deref(),
+    };
+    super::report_to_stderr(
+        format.json || format.csv.is_some(),
+        result.warnings.iter().map(|w| (args.driven, w)),
+        std::iter::empty(),
+    );
+    // The figures first, then the keep; a failed CSV write never costs the kept run.
+    let printed = super::emit(
+        &format,
+        || serde_json::to_string_pretty(&report).expect("serializes") + "\n",
+        || csv(&result),
+        || table(&file, &result),
+    );
     let mut keeper = super::Keeper::new(&args.save);
     keeper.add(
         "separation",
@@ -226,5 +227,5 @@ pub fn run(args: &SeparationArgs) -> Result<ExitCode, String> {
         &result,
     );
     keeper.commit()?;
-    Ok(ExitCode::SUCCESS)
+    printed.map(|_| ExitCode::SUCCESS)
 }
