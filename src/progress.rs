@@ -78,14 +78,6 @@ impl Progress {
         }
     }
 
-    /// Print a line above the bar (or plainly when there is none).
-    pub fn println(&self, line: impl AsRef<str>) {
-        match &self.0 {
-            Some(b) => b.println(line.as_ref()),
-            None => eprintln!("{}", line.as_ref()),
-        }
-    }
-
     /// Remove the bar.
     pub fn finish(&self) {
         if let Some(b) = &self.0 {
