@@ -23,7 +23,9 @@ pub mod notebook;
 pub mod procedure;
 pub mod progress;
 pub mod report;
+pub mod results;
 pub mod rig;
 pub mod signal;
+pub mod warning;
 
 pub use error::{Error, Result};

@@ -24,6 +24,7 @@ use crate::calibration::Calibration;
 use crate::capture::StoredSamples;
 use crate::error::Result;
 use crate::progress::Progress;
+use crate::warning::{Warning, WarningCode as C};
 use rayon::prelude::*;
 use serde::{Deserialize, Serialize};
 use std::ops::Range;
@@ -129,8 +130,8 @@ fn rms_opt<'a>(values: impl Iterator<Item = &'a Option<f64>>) -> Option<f64> {
 }
 
 /// Warnings of every block, each once, in first-seen order.
-fn union_warnings<'a>(lists: impl Iterator<Item = &'a Vec<String>>) -> Vec<String> {
-    let mut out: Vec<String> = Vec::new();
+fn union_warnings<'a>(lists: impl Iterator<Item = &'a Vec<Warning>>) -> Vec<Warning> {
+    let mut out: Vec<Warning> = Vec::new();
     for w in lists.flatten() {
         if !out.contains(w) {
             out.push(w.clone());
@@ -249,7 +250,7 @@ fn combine_tone(parts: Vec<ToneResult>, fs: f64) -> ToneResult {
     r.oscillations = merge_oscillations(parts.iter().flat_map(|p| &p.oscillations));
     r.warnings = union_warnings(parts.iter().map(|p| &p.warnings));
     if !same_mains {
-        r.warnings.push("the mains family detected differs between parts of the capture (50 and 60 Hz): the hum lines are upper bounds; give --mains".into());
+        r.warnings.push(C::MainsDiffers.say("the mains family detected differs between parts of the capture (50 and 60 Hz): the hum lines are upper bounds; give --mains"));
     }
     let spread = |v: &mut dyn Iterator<Item = f64>| {
         v.fold((f64::INFINITY, f64::NEG_INFINITY), |(lo, hi), x| {
@@ -264,11 +265,11 @@ fn combine_tone(parts: Vec<ToneResult>, fs: f64) -> ToneResult {
     };
     let block_s = first.samples_analysed as f64 / fs;
     if hi - lo > LEVEL_WANDER_DB || thi - tlo > THD_WANDER_DB {
-        r.warnings.push(format!(
+        r.warnings.push(C::FiguresMove.say(format!(
             "the figures move over the capture: across its {n} blocks of {block_s:.1} s the level spans {:.2} dB and THD {:.1} dB ({tlo:.1} to {thi:.1} dB); the figures here are averages. `ampnote trend` follows them second by second.",
             hi - lo,
             (thi - tlo).max(0.0)
-        ));
+        )));
     }
     r
 }
@@ -319,7 +320,7 @@ pub fn noise(
     r.oscillations = merge_oscillations(parts.iter().flat_map(|p| &p.oscillations));
     r.warnings = union_warnings(parts.iter().map(|p| &p.warnings));
     if !same_mains {
-        r.warnings.push("the mains family detected differs between parts of the capture (50 and 60 Hz): give --mains".into());
+        r.warnings.push(C::MainsDiffers.say("the mains family detected differs between parts of the capture (50 and 60 Hz): give --mains"));
     }
     Ok(r)
 }
@@ -358,7 +359,7 @@ pub fn imd(
     }
     r.warnings = union_warnings(parts.iter().map(|p| &p.warnings));
     if !same_pair {
-        r.warnings.push("the two tones found differ between parts of the capture: the capture is not one two-tone measurement".into());
+        r.warnings.push(C::PairDiffers.say("the two tones found differ between parts of the capture: the capture is not one two-tone measurement"));
     }
     Ok(r)
 }
@@ -460,7 +461,7 @@ pub struct TrendResult {
     pub to_s: f64,
     pub points: Vec<TrendPoint>,
     pub drift: TrendDrift,
-    pub warnings: Vec<String>,
+    pub warnings: Vec<crate::warning::Warning>,
 }
 
 impl TrendResult {
@@ -556,9 +557,9 @@ pub fn trend(
     let mut warnings = Vec::new();
     let failed = points.iter().filter(|p| p.level_dbfs.is_none()).count();
     if failed > 0 {
-        warnings.push(format!(
+        warnings.push(C::FiguresMove.say(format!(
             "{failed} of {count} blocks could not be analysed (their notes say why): the drift is over the others"
-        ));
+        )));
     }
     if points.iter().all(|p| p.level_dbfs.is_none()) {
         return Err(crate::error::Error::WrongKind {
@@ -716,12 +717,14 @@ impl<R> FileRun<R> {
     }
 
     /// What the reading itself leaves to say beside every channel's figures.
-    pub fn reading_warnings(&self, info: &crate::capture::SourceInfo) -> Vec<String> {
+    pub fn reading_warnings(&self, info: &crate::capture::SourceInfo) -> Vec<Warning> {
         let mut w = Vec::new();
         if self.truncated {
-            w.push("the file was truncated: only the complete frames were analysed".to_string());
+            w.push(
+                C::FileLength.say("the file was truncated: only the complete frames were analysed"),
+            );
         }
-        w.extend(info.length_warning());
+        w.extend(info.length_warning().map(|m| C::FileLength.say(m)));
         w
     }
 }

@@ -18,11 +18,12 @@ use super::tone::{
 };
 use crate::error::{Error, Result};
 use crate::signal::stimulus::TwoToneMethod;
+use crate::warning::WarningCode as C;
 use realfft::num_complex::Complex64;
 use serde::Serialize;
 
 /// One line the analysis fitted.
-#[derive(Debug, Clone, Serialize)]
+#[derive(Debug, Clone, Serialize, serde::Deserialize)]
 pub struct ImdLine {
     /// What the line is: "f_L", "f_H", "f_H - f_L", ...
     pub name: String,
@@ -32,12 +33,12 @@ pub struct ImdLine {
 }
 
 /// IMD of one channel. Percentages are amplitude ratios times 100.
-#[derive(Debug, Clone, Serialize)]
+#[derive(Debug, Clone, Serialize, serde::Deserialize)]
 pub struct ImdResult {
     pub channel: usize,
     pub method: TwoToneMethod,
     /// Where the pair came from: "stimulus description", "given" or "detected".
-    pub pair_source: &'static str,
+    pub pair_source: std::borrow::Cow<'static, str>,
     pub low_hz: f64,
     pub high_hz: f64,
     /// Measured amplitude of the low tone over the high tone.
@@ -54,7 +55,7 @@ pub struct ImdResult {
     #[serde(skip_serializing_if = "Option::is_none")]
     pub dd3_percent: Option<f64>,
     pub lines: Vec<ImdLine>,
-    pub warnings: Vec<String>,
+    pub warnings: Vec<crate::warning::Warning>,
 }
 
 /// What is known of the pair before looking: the method and the two frequencies, or nothing.
@@ -146,15 +147,15 @@ fn analyze_spectrum(
     let mut kept: Vec<(&str, f64)> = Vec::new();
     for &(name, f) in &named {
         if f < half || f > top {
-            warnings.push(format!(
+            warnings.push(C::ProductLost.say(format!(
                 "{name} at {:.1} Hz lies outside what this capture can resolve; it counts as zero.",
                 f * bin
-            ));
+            )));
         } else if kept.iter().any(|k| (k.1 - f).abs() < GUARD_BINS) {
-            warnings.push(format!(
+            warnings.push(C::ProductLost.say(format!(
                 "{name} at {:.1} Hz coincides with another line; it counts as zero.",
                 f * bin
-            ));
+            )));
         } else {
             kept.push((name, f));
         }
@@ -204,7 +205,7 @@ fn analyze_spectrum(
     let mut r = ImdResult {
         channel: input.channel,
         method,
-        pair_source: source,
+        pair_source: source.into(),
         low_hz: f_low * bin,
         high_hz: f_high * bin,
         measured_ratio: u_low / u_high,
@@ -224,10 +225,10 @@ fn analyze_spectrum(
             r.dm3_percent = Some(100.0 * dm3);
             r.imd_percent = Some(100.0 * (dm2 * dm2 + dm3 * dm3).sqrt());
             if !(2.0..=8.0).contains(&r.measured_ratio) {
-                r.warnings.push(format!(
+                r.warnings.push(C::ToneRatio.say(format!(
                     "the tones stand {:.2}:1, not near the 4:1 the modulation method assumes; compare figures only with others taken at this ratio.",
                     r.measured_ratio
-                ));
+                )));
             }
         }
         TwoToneMethod::DifferenceFrequency => {
@@ -237,9 +238,9 @@ fn analyze_spectrum(
         }
     }
     if overload > 0 {
-        r.warnings.push(format!(
+        r.warnings.push(C::InputOverload.say(format!(
             "input overload: {overload} sample(s) at or beyond full scale; the figures include the interface's clipping."
-        ));
+        )));
     }
     let floor_lines: Vec<&str> = r
         .lines
@@ -249,10 +250,10 @@ fn analyze_spectrum(
         .map(|l| l.name.as_str())
         .collect();
     if !floor_lines.is_empty() {
-        r.warnings.push(format!(
+        r.warnings.push(C::UnderNoise.say(format!(
             "{} at the noise floor: the figures that use them are upper bounds.",
             floor_lines.join(", ")
-        ));
+        )));
     }
     Ok(r)
 }

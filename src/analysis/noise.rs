@@ -15,10 +15,11 @@ use super::tone::{
 use super::weighting::a_weighting_power;
 use crate::calibration::Calibration;
 use crate::error::{Error, Result};
+use crate::warning::WarningCode as C;
 use serde::Serialize;
 
 /// One mains line.
-#[derive(Debug, Clone, Serialize)]
+#[derive(Debug, Clone, Serialize, serde::Deserialize)]
 pub struct NoiseHumLine {
     pub order: usize,
     pub frequency_hz: f64,
@@ -29,7 +30,7 @@ pub struct NoiseHumLine {
 }
 
 /// Noise and hum of one channel.
-#[derive(Debug, Clone, Serialize)]
+#[derive(Debug, Clone, Serialize, serde::Deserialize)]
 pub struct NoiseResult {
     pub channel: usize,
     pub duration_s: f64,
@@ -52,7 +53,7 @@ pub struct NoiseResult {
     #[serde(skip_serializing_if = "Option::is_none")]
     pub snr_a_re_1w_db: Option<f64>,
     pub mains_hz: f64,
-    pub mains_source: &'static str,
+    pub mains_source: std::borrow::Cow<'static, str>,
     pub hum: Vec<NoiseHumLine>,
     pub dc_offset: f64,
     pub overload_samples: usize,
@@ -60,7 +61,7 @@ pub struct NoiseResult {
     /// [`super::oscillation`]); each also has a warning.
     pub oscillations: Vec<super::oscillation::Oscillation>,
     pub oscillation_search: super::oscillation::OscillationSearch,
-    pub warnings: Vec<String>,
+    pub warnings: Vec<crate::warning::Warning>,
 }
 
 /// The noise analyser; its planner caches FFT plans.
@@ -227,14 +228,14 @@ fn analyze_spectrum(
                 next: "Short the amplifier's input (or stop the source) and record again; measure a tone with `ampnote analyze`.".into(),
             });
         }
-        warnings.push(format!(
+        warnings.push(C::Oscillation.say(format!(
             "{found}; it is counted in the noise figures. Look for a source left playing, interference or an oscillation."
-        ));
+        )));
     }
     if overload > 0 {
-        warnings.push(format!(
+        warnings.push(C::InputOverload.say(format!(
             "input overload: {overload} sample(s) at or beyond full scale"
-        ));
+        )));
     }
     // Oscillation checks: lines above the band and below 10 Hz. Mains and its rectifier buzz
     // end well inside the band (40th order, common practice), so nothing there is explained.
@@ -261,7 +262,7 @@ fn analyze_spectrum(
         snr_re_1w_db: v1w.zip(noise_vrms).map(|(v, nv)| 20.0 * (v / nv).log10()),
         snr_a_re_1w_db: v1w.zip(noise_a_vrms).map(|(v, nv)| 20.0 * (v / nv).log10()),
         mains_hz,
-        mains_source,
+        mains_source: mains_source.into(),
         hum,
         dc_offset: dc,
         overload_samples: overload,

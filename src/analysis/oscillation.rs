@@ -61,8 +61,13 @@ impl Oscillation {
     }
 
     /// The warning that names it.
-    pub fn warning(&self) -> String {
-        match self.kind {
+    pub fn warning(&self) -> crate::warning::Warning {
+        use crate::warning::WarningCode as C;
+        let code = match self.kind {
+            OscillationKind::Motorboating => C::Motorboating,
+            _ => C::Oscillation,
+        };
+        code.say(match self.kind {
             OscillationKind::Ultrasonic => format!(
                 "an ultrasonic line at {:.1} kHz ({}) is no harmonic of the signal nor mains: the amplifier may be oscillating (a parasitic oscillation); look with a scope, and do not trust THD+N, noise or power figures until it is gone",
                 self.frequency_hz / 1000.0,
@@ -78,7 +83,7 @@ impl Oscillation {
                 self.frequency_hz,
                 self.modulation_percent.unwrap_or(0.0)
             ),
-        }
+        })
     }
 }
 

@@ -40,7 +40,7 @@ pub struct SeparationResult {
     pub driven_channel: usize,
     pub channels: Vec<ChannelSeparation>,
     #[serde(default)]
-    pub warnings: Vec<String>,
+    pub warnings: Vec<crate::warning::Warning>,
 }
 
 /// The absolute gain of a response at each of its points, dB.

@@ -19,6 +19,7 @@
 
 use super::spectrum::{fast_length_up, SpectrumPlanner};
 use crate::error::{Error, Result};
+use crate::warning::WarningCode as C;
 use realfft::num_complex::Complex64;
 use serde::Serialize;
 use std::f64::consts::PI;
@@ -93,7 +94,7 @@ impl Default for ResponseConfig {
     }
 }
 
-#[derive(Debug, Clone, Copy, Serialize)]
+#[derive(Debug, Clone, Copy, Serialize, serde::Deserialize)]
 pub struct ResponsePoint {
     pub frequency_hz: f64,
     /// Relative to the response at the reference frequency.
@@ -102,14 +103,14 @@ pub struct ResponsePoint {
     pub phase_deg: f64,
 }
 
-#[derive(Debug, Clone, Copy, Serialize)]
+#[derive(Debug, Clone, Copy, Serialize, serde::Deserialize)]
 pub struct HarmonicPoint {
     /// The excitation frequency f0 (the harmonic itself is at order * f0).
     pub frequency_hz: f64,
     pub level_dbc: f64,
 }
 
-#[derive(Debug, Clone, Serialize)]
+#[derive(Debug, Clone, Serialize, serde::Deserialize)]
 pub struct HarmonicCurve {
     pub order: usize,
     pub points: Vec<HarmonicPoint>,
@@ -117,7 +118,7 @@ pub struct HarmonicCurve {
 
 /// The response of one channel. Units in field names; dB relative to the reference frequency
 /// unless the field says otherwise.
-#[derive(Debug, Clone, Serialize)]
+#[derive(Debug, Clone, Serialize, serde::Deserialize)]
 pub struct ResponseResult {
     pub channel: usize,
     pub reference_hz: f64,
@@ -138,7 +139,7 @@ pub struct ResponseResult {
     pub latency_ms: f64,
     pub latency_samples: f64,
     /// "non-inverting" or "inverting".
-    pub polarity: &'static str,
+    pub polarity: std::borrow::Cow<'static, str>,
     #[serde(skip_serializing_if = "Option::is_none")]
     pub smoothing_octave_fraction: Option<u32>,
     /// The interface's loopback response was taken out of the magnitude.
@@ -153,7 +154,7 @@ pub struct ResponseResult {
     /// (`null` when H2 is too weak, or the sweep too narrow, to tell).
     #[serde(skip_serializing_if = "Option::is_none")]
     pub clock_drift_ppm: Option<f64>,
-    pub warnings: Vec<String>,
+    pub warnings: Vec<crate::warning::Warning>,
 }
 
 /// The sweep analyser; its planner caches FFT plans across channels and runs.
@@ -527,35 +528,35 @@ impl ResponseAnalyzer {
 
         let mut warnings = Vec::new();
         if overload > 0 {
-            warnings.push(format!(
+            warnings.push(C::InputOverload.say(format!(
                 "input overload: {overload} sample(s) at or beyond full scale; the sweep was clipped and the harmonic curves show the interface's clipping. Lower the level or add attenuation."
-            ));
+            )));
         }
         if impulse_snr_db < 60.0 {
-            warnings.push(format!(
+            warnings.push(C::NoisySweep.say(format!(
                 "noisy measurement: the impulse response stands only {impulse_snr_db:.1} dB above its noise; raise the level or use a longer sweep."
-            ));
+            )));
         }
         // Warn only on a clear offset: over 10 ppm (where the harmonic curves start to smear on
         // a long sweep; common practice) and four standard errors from zero (a normal estimate
         // passes that by chance with probability 6e-5).
         if let Some((d, se)) = drift {
             if d.abs() > 10.0 && d.abs() > 4.0 * se {
-                warnings.push(format!(
+                warnings.push(C::ClockOffset.say(format!(
                     "the player's and recorder's clocks differ by about {d:.0} ppm: magnitudes hold, but phase and the harmonic curves are smeared. Play and record on one interface."
-                ));
+                )));
             }
         }
         if reference_hz != self.config.reference_hz {
-            warnings.push(format!(
+            warnings.push(C::ReferenceOutsideSweep.say(format!(
                 "the reference frequency {} Hz lies outside the sweep ({f_lo:.0}-{f_hi:.0} Hz): magnitudes are relative to {reference_hz:.0} Hz, the sweep's geometric centre, instead. Give --reference inside the sweep.",
                 crate::error::shown(self.config.reference_hz)
-            ));
+            )));
         }
         if dlo < f_lo || dhi > f_hi {
-            warnings.push(format!(
+            warnings.push(C::SweepNarrow.say(format!(
                 "the sweep covers {f_lo:.0}-{f_hi:.0} Hz, less than the {dlo:.0}-{dhi:.0} Hz deviation band; figures outside the sweep are not reported."
-            ));
+            )));
         }
         Ok(ResponseResult {
             channel,
@@ -571,7 +572,7 @@ impl ResponseAnalyzer {
             deviation_band_hz: [dlo.max(f_lo), dhi.min(f_hi)],
             latency_ms: latency_samples / fs * 1000.0,
             latency_samples,
-            polarity,
+            polarity: polarity.into(),
             smoothing_octave_fraction: self.config.smoothing,
             loopback_corrected: !self.config.correction_db.is_empty(),
             harmonics,

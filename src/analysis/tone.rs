@@ -30,6 +30,7 @@ use super::weighting::Weighting;
 use super::window::{CosineSum, WindowGenerator, BLACKMAN_HARRIS_7, HANN, WINDOW_BLOCK};
 use crate::calibration::Calibration;
 use crate::error::{Error, Result};
+use crate::warning::{Warning, WarningCode as C};
 use realfft::num_complex::Complex64;
 use serde::Serialize;
 use std::f64::consts::PI;
@@ -96,7 +97,7 @@ pub struct ChannelInput<'a> {
 }
 
 /// One harmonic of the fundamental.
-#[derive(Debug, Clone, Serialize)]
+#[derive(Debug, Clone, Serialize, serde::Deserialize)]
 pub struct Harmonic {
     pub order: usize,
     pub frequency_hz: f64,
@@ -117,7 +118,7 @@ pub struct Harmonic {
 }
 
 /// One mains-related line.
-#[derive(Debug, Clone, Serialize)]
+#[derive(Debug, Clone, Serialize, serde::Deserialize)]
 pub struct HumLine {
     /// 1 for the mains frequency itself, 2 for twice it (full-wave ripple), ...
     pub order: usize,
@@ -131,9 +132,9 @@ pub struct HumLine {
 }
 
 /// Details of how the analysis was done, for reproducibility.
-#[derive(Debug, Clone, Serialize)]
+#[derive(Debug, Clone, Serialize, serde::Deserialize)]
 pub struct AnalysisInfo {
-    pub window: &'static str,
+    pub window: std::borrow::Cow<'static, str>,
     pub fft_length: usize,
     pub enbw_bins: f64,
     pub bin_width_hz: f64,
@@ -144,7 +145,7 @@ pub struct AnalysisInfo {
 
 /// Everything the steady-tone analysis says about one channel. Units are in the field names;
 /// dBFS is referred to a full-scale sine (AES17), dBc to the fundamental.
-#[derive(Debug, Clone, Serialize)]
+#[derive(Debug, Clone, Serialize, serde::Deserialize)]
 pub struct ToneResult {
     /// 1-based channel number.
     pub channel: usize,
@@ -196,7 +197,7 @@ pub struct ToneResult {
     pub harmonics: Vec<Harmonic>,
     /// The mains frequency the hum lines refer to, and whether it was detected or given.
     pub mains_hz: f64,
-    pub mains_source: &'static str,
+    pub mains_source: std::borrow::Cow<'static, str>,
     pub hum: Vec<HumLine>,
     /// In-band noise with every fitted line removed, dBFS.
     pub noise_dbfs: f64,
@@ -220,7 +221,7 @@ pub struct ToneResult {
     /// How far the oscillation checks could look at this rate and length.
     pub oscillation_search: OscillationSearch,
     pub analysis: AnalysisInfo,
-    pub warnings: Vec<String>,
+    pub warnings: Vec<crate::warning::Warning>,
 }
 
 /// The steady-tone analyser: holds its settings and a planner that caches FFT plans and windows,
@@ -647,7 +648,7 @@ impl ToneAnalyzer {
             band_hz: [band_lo, band_hi],
             harmonics,
             mains_hz,
-            mains_source,
+            mains_source: mains_source.into(),
             hum,
             noise_dbfs,
             noise_weighting: self.config.weighting,
@@ -660,7 +661,7 @@ impl ToneAnalyzer {
             oscillations,
             oscillation_search,
             analysis: AnalysisInfo {
-                window: TONE_WINDOW.name,
+                window: TONE_WINDOW.name.into(),
                 fft_length: n,
                 enbw_bins: enbw,
                 bin_width_hz: bin_hz,
@@ -669,12 +670,12 @@ impl ToneAnalyzer {
             warnings: Vec::new(),
         };
         result.warnings = quality_warnings(&result, input, cal, p_thdn, p1, drift);
-        let named: Vec<String> = result.oscillations.iter().map(|o| o.warning()).collect();
+        let named: Vec<Warning> = result.oscillations.iter().map(|o| o.warning()).collect();
         result.warnings.extend(named);
         if let Some((f_x, dbc)) = other_line {
-            result.warnings.push(format!(
+            result.warnings.push(C::Oscillation.say(format!(
                 "a line at {f_x:.1} Hz ({dbc:.1} dBc) is neither a harmonic of the tone nor mains hum: an oscillation, interference or a second signal. THD+N and the noise include it; find its source before reading them as the amplifier's distortion."
-            ));
+            )));
         }
         Ok(result)
     }
@@ -1071,40 +1072,40 @@ fn quality_warnings(
     p_thdn: f64,
     p1: f64,
     drift: Option<Drift>,
-) -> Vec<String> {
+) -> Vec<Warning> {
     let mut w = Vec::new();
     if r.overload_samples > 0 {
-        w.push(format!(
+        w.push(C::InputOverload.say(format!(
             "input overload: {} sample(s) at or beyond full scale; the figures include the interface's own clipping. Lower the level or add attenuation.",
             r.overload_samples
-        ));
+        )));
     }
     if r.duration_s < 0.5 {
-        w.push(format!(
+        w.push(C::ShortCapture.say(format!(
             "short capture ({:.3} s): hum lines and low-frequency noise are poorly resolved; record 1 s or more.",
             r.duration_s
-        ));
+        )));
     }
     if r.fundamental_dbfs < -50.0 {
-        w.push(format!(
+        w.push(C::LowLevel.say(format!(
             "low level ({:.1} dBFS): the interface's own noise weighs on THD+N; raise the level toward -10 dBFS or reduce the attenuation.",
             r.fundamental_dbfs
-        ));
+        )));
     }
     if r.fundamental_hz < r.band_hz[0] || r.fundamental_hz > r.band_hz[1] {
-        w.push(format!(
+        w.push(C::OutsideBand.say(format!(
             "the fundamental ({:.1} Hz) lies outside the measurement band {}-{} Hz: THD+N is not meaningful; widen --band.",
             r.fundamental_hz, r.band_hz[0], r.band_hz[1]
-        ));
+        )));
     }
     if let Some(d) = drift {
         let implied_db = 20.0 * d.wander_rad.max(1e-300).log10();
         if implied_db > r.thdn_db - 6.0 {
-            w.push(format!(
+            w.push(C::FrequencyUnstable.say(format!(
                 "frequency unstable: the fundamental's phase wanders {:.3} degrees RMS (drift {:.1} ppm), enough to raise THD+N; check the player's clock or record the interface's own output.",
                 d.wander_rad.to_degrees(),
                 d.drift_ppm
-            ));
+            )));
         }
     }
     // Harmonics past the band's top: THD counts fewer orders, or none.
@@ -1127,7 +1128,7 @@ fn quality_warnings(
             ),
             None => "no common rate holds H2 and H3 of a tone this high".to_string(),
         };
-        w.push(match r.thd_highest_order {
+        w.push(C::HarmonicsOutOfBand.say(match r.thd_highest_order {
             None => format!(
                 "THD not measurable: H2 ({:.0} Hz) lies above the band's top ({:.0} Hz){}; THD+N still holds. To measure THD, {fix}.",
                 2.0 * f0,
@@ -1139,7 +1140,7 @@ fn quality_warnings(
                 3.0 * f0,
                 r.band_hz[1]
             ),
-        });
+        }));
     }
     // Resolution floor of the stored samples: an ideal B-bit quantizer's noise in the band,
     // SNR = 6.02 B + 1.76 dB for a full-scale sine over the whole Nyquist band (quantization
@@ -1154,10 +1155,10 @@ fn quality_warnings(
     };
     let floor_db = -full_band_snr - level_ref;
     if r.thdn_db < floor_db + 3.0 {
-        w.push(format!(
+        w.push(C::ResolutionFloor.say(format!(
             "THD+N ({:.1} dB) is at the resolution floor of the file's samples ({}-bit resolution: {:.1} dB at this level): the amplifier may be better than this reading.",
             r.thdn_db, input.resolution_bits, floor_db
-        ));
+        )));
     }
     // Higher harmonics under the noise are the normal case (each carries its own flag); it is
     // worth a warning when the dominant low orders are, because THD is then an upper bound.
@@ -1174,10 +1175,10 @@ fn quality_warnings(
             .count()
         && !floor_orders.is_empty()
     {
-        w.push(format!(
+        w.push(C::UnderNoise.say(format!(
             "{} at the noise floor: the distortion is below the noise, so THD is an upper bound; THD+N is the figure to quote.",
             floor_orders.join(" and ")
-        ));
+        )));
     }
     // The interface's own floor (from the calibration profile): readings within 10 dB of it
     // measure the interface (DESIGN: measurement quality, common practice).
@@ -1196,10 +1197,10 @@ fn quality_warnings(
         "reduce the attenuation or treat the figure as an upper bound",
     ));
     if r.dc_offset.abs() > 0.01 {
-        w.push(format!(
+        w.push(C::DcOffset.say(format!(
             "DC offset of {:.2} % of full scale at the interface input: check for a DC-coupled input or a leaky coupling capacitor.",
             r.dc_offset * 100.0
-        ));
+        )));
     }
     let hum_power: f64 = r
         .hum
@@ -1208,10 +1209,10 @@ fn quality_warnings(
         .map(|h| 10f64.powf(h.level_dbc / 10.0) * p1)
         .sum();
     if hum_power > 0.5 * p_thdn && !r.hum.iter().all(|h| h.upper_bound) {
-        w.push(format!(
+        w.push(C::HumDominates.say(format!(
             "mains hum dominates the THD+N residual ({:.1} dBc of hum): check grounding, heater wiring and filter capacitors before reading THD+N as distortion.",
             10.0 * (hum_power / p1).log10()
-        ));
+        )));
     }
     w
 }
@@ -1252,20 +1253,20 @@ pub(crate) fn check_steady_kind(channel: usize, s: &Steadiness, fs: f64) -> Resu
 
 /// What the steady-span search found that the user must know: the span analysed, jumps,
 /// dropouts, settling.
-pub(crate) fn steady_warnings(s: &Steadiness, fs: f64) -> Vec<String> {
+pub(crate) fn steady_warnings(s: &Steadiness, fs: f64) -> Vec<Warning> {
     let mut w = Vec::new();
     let secs = |i: usize| i as f64 / fs;
     if s.levels_db.len() == 2 {
-        w.push(format!(
+        w.push(C::LevelJump.say(format!(
             "level jump: the tone sits at {:.1} dBFS for part of the capture and {:.1} dBFS for another; only the longest steady part ({:.2}-{:.2} s) was analysed. Record one level, or cut the file.",
             s.levels_db[0],
             s.levels_db[1],
             secs(s.start),
             secs(s.end)
-        ));
+        )));
     }
     for d in &s.dropouts {
-        w.push(format!(
+        w.push(C::Dropout.say(format!(
             "dropout at {:.3} s: the level fell {} for about {:.0} ms; only the longest steady part ({:.2}-{:.2} s) was analysed. Check cables and the recorder's buffer settings.",
             d.at_s,
             if d.depth_db > 60.0 {
@@ -1276,25 +1277,25 @@ pub(crate) fn steady_warnings(s: &Steadiness, fs: f64) -> Vec<String> {
             d.length_s * 1000.0,
             secs(s.start),
             secs(s.end)
-        ));
+        )));
     }
     // Less than half the tone steady, or a level moving more than 0.5 dB across the span: worth
     // saying (common practice: a settled level holds to a tenth of a dB or so).
     let tone_len = s.tone_end.saturating_sub(s.tone_start);
     let steady_len = s.end - s.start;
     if s.judged && tone_len > 0 && (steady_len as f64) < 0.5 * tone_len as f64 {
-        w.push(format!(
+        w.push(C::PartlySteady.say(format!(
             "only {:.2} s of the {:.2} s tone is steady within {:.2} dB (the level settles or wanders): the figures are from that part. Let the amplifier settle before recording, or record longer.",
             secs(steady_len),
             secs(tone_len),
             s.tolerance_db
-        ));
+        )));
     }
     if s.drift_db.abs() > 0.5 {
-        w.push(format!(
+        w.push(C::LevelDrift.say(format!(
             "the level moves {:+.2} dB across the analysed span: the amplifier or the supply is still settling; the figures are an average over it.",
             s.drift_db
-        ));
+        )));
     }
     w
 }
@@ -1387,17 +1388,17 @@ pub(crate) fn against_loopback(
     unit: &str,
     floor: Option<f64>,
     near_advice: &str,
-) -> Option<String> {
+) -> Option<Warning> {
     let floor = floor?;
     if value < floor - 3.0 {
-        Some(format!(
+        Some(C::InterfaceFloor.say(format!(
             "{what} ({value:.1} {unit}) reads {:.1} dB below the interface's own loopback figure ({floor:.1} {unit}) in the calibration: this capture did not pass through that interface (a generated or processed file?), or the profile is out of date (run `ampnote calibrate` again).",
             floor - value
-        ))
+        )))
     } else if value < floor + 10.0 {
-        Some(format!(
+        Some(C::InterfaceFloor.say(format!(
             "{what} ({value:.1} {unit}) is within 10 dB of the interface's own loopback figure ({floor:.1} {unit}): {near_advice}."
-        ))
+        )))
     } else {
         None
     }

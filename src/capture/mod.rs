@@ -15,7 +15,7 @@ use std::io::Read;
 use std::path::Path;
 
 /// How samples were stored in the file.
-#[derive(Debug, Clone, Copy, PartialEq, Eq, serde::Serialize)]
+#[derive(Debug, Clone, Copy, PartialEq, Eq, serde::Serialize, serde::Deserialize)]
 #[serde(rename_all = "snake_case", tag = "kind")]
 pub enum Encoding {
     /// Two's complement integer PCM of `bits` bits.

@@ -6,6 +6,7 @@
 //! that records them says so every time.
 
 use crate::error::{Error, Result};
+use crate::warning::WarningCode as C;
 use serde::{Deserialize, Serialize};
 
 /// Resistors run above this share of their rating are worth a warning: common practice derates
@@ -40,7 +41,7 @@ pub struct DcPoint {
 pub struct DcResult {
     pub points: Vec<DcPoint>,
     #[serde(default)]
-    pub warnings: Vec<String>,
+    pub warnings: Vec<crate::warning::Warning>,
 }
 
 /// The caution shown whenever DC points are recorded.
@@ -175,14 +176,14 @@ pub fn operating_points(
         p.rating_w = Some(w);
         if d > w {
             p.overstressed = true;
-            warnings.push(format!(
+            warnings.push(C::OverRating.say(format!(
                 "{name} dissipates {d:.3} W, over its {w} W rating: fit a part rated for it before running the amplifier again"
-            ));
+            )));
         } else if d > DERATE_SHARE * w {
-            warnings.push(format!(
+            warnings.push(C::OverRating.say(format!(
                 "{name} dissipates {d:.3} W, {:.0} % of its {w} W rating: common practice runs resistors at about half their rating",
                 100.0 * d / w
-            ));
+            )));
         }
     }
     Ok(DcResult {

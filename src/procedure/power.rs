@@ -11,6 +11,7 @@ use crate::calibration::Calibration;
 use crate::error::{Error, Result};
 use crate::rig::Rig;
 use crate::signal::stimulus::Step;
+use crate::warning::WarningCode as C;
 use serde::Serialize;
 
 /// THD levels at which power is reported (common practice: 1 % is "clipping", 10 % the
@@ -23,7 +24,7 @@ pub const THD_TARGETS: [f64; 3] = [1.0, 3.0, 10.0];
 pub const CLIPPING_SLOPE_DB_PER_DB: f64 = 3.0;
 
 /// One step of the staircase.
-#[derive(Debug, Clone, Serialize)]
+#[derive(Debug, Clone, Serialize, serde::Deserialize)]
 pub struct PowerStep {
     /// Stimulus level at the interface output, dBFS.
     pub drive_dbfs: f64,
@@ -55,7 +56,7 @@ pub struct PowerStep {
 }
 
 /// Power at one THD level.
-#[derive(Debug, Clone, Serialize)]
+#[derive(Debug, Clone, Serialize, serde::Deserialize)]
 pub struct PowerAtThd {
     pub thd_percent: f64,
     #[serde(skip_serializing_if = "Option::is_none")]
@@ -68,7 +69,7 @@ pub struct PowerAtThd {
 }
 
 /// The staircase of one channel at one frequency.
-#[derive(Debug, Clone, Serialize)]
+#[derive(Debug, Clone, Serialize, serde::Deserialize)]
 pub struct PowerResult {
     pub channel: usize,
     pub frequency_hz: f64,
@@ -83,7 +84,7 @@ pub struct PowerResult {
     pub clipping_drive_dbfs: Option<f64>,
     #[serde(skip_serializing_if = "Option::is_none")]
     pub stopped_because: Option<String>,
-    pub warnings: Vec<String>,
+    pub warnings: Vec<crate::warning::Warning>,
 }
 
 /// The band each step is analysed in: 20 Hz to 20 kHz, widened when H2 and H3 of a high test
@@ -231,10 +232,10 @@ pub fn finish(
         .map(|s| format!("{:.1}", s.drive_dbfs))
         .collect();
     if !excluded.is_empty() {
-        warnings.push(format!(
+        warnings.push(C::StepsExcluded.say(format!(
             "the interface input overloaded at drive {} dBFS: those steps are left out (their distortion is the interface's, not the amplifier's); add attenuation",
             excluded.join(", ")
-        ));
+        )));
     }
     // Oscillations, each once, with the drives where it showed.
     let mut seen: Vec<(&crate::analysis::oscillation::Oscillation, Vec<f64>)> = Vec::new();
@@ -249,34 +250,34 @@ pub fn finish(
         }
     }
     for (o, drives) in seen {
-        warnings.push(format!(
+        let w = o.warning();
+        warnings.push(w.code.say(format!(
             "at drive {} dBFS: {}",
             drives
                 .iter()
                 .map(|d| format!("{d:.1}"))
                 .collect::<Vec<_>>()
                 .join(", "),
-            o.warning()
-        ));
+            w.message
+        )));
     }
     if !cal.has_volts() {
-        warnings.push("no calibration: levels are in dBFS; --input-fs-vrms and --attenuation add volts, --load-ohms watts (or --profile)".into());
+        warnings.push(C::Uncalibrated.say("no calibration: levels are in dBFS; --input-fs-vrms and --attenuation add volts, --load-ohms watts (or --profile)"));
     } else if cal.load_ohms.is_none() {
-        warnings.push("no load given: volts but no watts; add --load-ohms".into());
+        warnings.push(C::NoLoad.say("no load given: volts but no watts; add --load-ohms"));
     }
     let power_at_thd = power_at_targets(&steps, load_ohms);
     let (_, band) = step_band(frequency_hz, sample_rate_hz);
     let measurable = steps.iter().any(|s| s.thd_percent.is_some());
     if let Some(note) = band {
-        warnings.push(note);
+        warnings.push(C::BandNote.say(note));
     }
     if !measurable {
-        warnings.push(
-            "no power at 1 % THD: THD cannot be measured at this frequency and rate (see above)"
-                .into(),
-        );
+        warnings.push(C::LevelNotReached.say(
+            "no power at 1 % THD: THD cannot be measured at this frequency and rate (see above)",
+        ));
     } else if power_at_thd.iter().all(|p| p.thd_percent != 1.0) {
-        warnings.push("THD never crossed 1 % within the staircase; extend it upward (--to) to find the 1 % point".into());
+        warnings.push(C::LevelNotReached.say("THD never crossed 1 % within the staircase; extend it upward (--to) to find the 1 % point"));
     }
     PowerResult {
         channel,
@@ -349,11 +350,11 @@ pub fn power_from_capture(
     if !missing.is_empty() {
         r.warnings.insert(
             0,
-            format!(
+            C::StepsExcluded.say(format!(
                 "{} step(s) missing from the capture (drive {} dBFS): a dropout, or the recording stopped early",
                 missing.len(),
                 missing.iter().map(|d| format!("{d:.1}")).collect::<Vec<_>>().join(", ")
-            ),
+            )),
         );
     }
     Ok(r)

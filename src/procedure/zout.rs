@@ -8,6 +8,7 @@
 
 use crate::analysis::tone::ToneResult;
 use crate::error::{Error, Result};
+use crate::warning::WarningCode as C;
 use serde::Serialize;
 
 /// The two-load formula.
@@ -40,7 +41,7 @@ pub fn check_loads(r1: f64, r2: f64) -> Result<()> {
 }
 
 /// Output impedance at one frequency, or one point of the curve across the band.
-#[derive(Debug, Clone, Copy, Serialize)]
+#[derive(Debug, Clone, Copy, Serialize, serde::Deserialize)]
 pub struct ZoutPoint {
     pub frequency_hz: f64,
     pub zout_ohms: f64,
@@ -48,7 +49,7 @@ pub struct ZoutPoint {
 }
 
 /// The result of a two-load measurement.
-#[derive(Debug, Clone, Serialize)]
+#[derive(Debug, Clone, Serialize, serde::Deserialize)]
 pub struct ZoutResult {
     pub channel: usize,
     pub load_a_ohms: f64,
@@ -64,19 +65,19 @@ pub struct ZoutResult {
     pub zout_sigma_ohms: Option<f64>,
     pub damping_factor: f64,
     /// Across the band (sweep captures only).
-    #[serde(skip_serializing_if = "Vec::is_empty")]
+    #[serde(default, skip_serializing_if = "Vec::is_empty")]
     pub points: Vec<ZoutPoint>,
-    pub warnings: Vec<String>,
+    pub warnings: Vec<crate::warning::Warning>,
 }
 
 /// Common-practice cautions and sanity checks on a result.
-pub fn zout_warnings(load_a: f64, load_b: f64, z: f64) -> Vec<String> {
+pub fn zout_warnings(load_a: f64, load_b: f64, z: f64) -> Vec<crate::warning::Warning> {
     let mut w = Vec::new();
     if load_a.max(load_b) > 100.0 * load_a.min(load_b) {
-        w.push("one load is nearly an open circuit: never run a tube amplifier unloaded; use the rated load and about twice it".into());
+        w.push(C::OpenLoad.say("one load is nearly an open circuit: never run a tube amplifier unloaded; use the rated load and about twice it"));
     }
     if z < 0.0 {
-        w.push("a negative output impedance: the readings are noisy or the loads were swapped; check which capture went with which load".into());
+        w.push(C::Implausible.say("a negative output impedance: the readings are noisy or the loads were swapped; check which capture went with which load"));
     }
     w
 }

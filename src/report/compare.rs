@@ -14,7 +14,7 @@ use crate::notebook::Run;
 use serde::Serialize;
 
 /// One compared figure.
-#[derive(Debug, Clone, Serialize)]
+#[derive(Debug, Clone, Serialize, serde::Deserialize)]
 pub struct CompareLine {
     pub channel: usize,
     pub figure: String,
@@ -33,7 +33,7 @@ pub struct CompareLine {
 }
 
 /// B's frequency response minus A's, per channel (the deviation curve).
-#[derive(Debug, Clone, Serialize)]
+#[derive(Debug, Clone, Serialize, serde::Deserialize)]
 pub struct DeviationCurve {
     pub channel: usize,
     /// `[frequency_hz, delta_db]` at the frequencies both responses share.
@@ -41,7 +41,7 @@ pub struct DeviationCurve {
 }
 
 /// `ampnote compare`'s result.
-#[derive(Debug, Clone, Serialize)]
+#[derive(Debug, Clone, Serialize, serde::Deserialize)]
 pub struct Comparison {
     pub schema_version: u32,
     pub a: String,
@@ -643,7 +643,7 @@ impl Default for MatchTolerances {
     }
 }
 
-#[derive(Debug, Clone, Serialize)]
+#[derive(Debug, Clone, Serialize, serde::Deserialize)]
 pub struct MatchCheck {
     pub name: String,
     pub value: f64,
@@ -667,7 +667,7 @@ impl MatchCheck {
 }
 
 /// `ampnote match`'s result.
-#[derive(Debug, Clone, Serialize)]
+#[derive(Debug, Clone, Serialize, serde::Deserialize)]
 pub struct MatchResult {
     pub schema_version: u32,
     pub a: String,

@@ -7,7 +7,7 @@ use std::fmt::Write as _;
 
 /// What `ampnote imd` prints. The first channel's fields are repeated at the top level so a
 /// single-channel result reads flat; `channels` holds every channel analysed.
-#[derive(Debug, Clone, Serialize)]
+#[derive(Debug, Clone, Serialize, serde::Deserialize)]
 pub struct ImdReport {
     pub schema_version: u32,
     pub file: String,
@@ -15,7 +15,7 @@ pub struct ImdReport {
     #[serde(flatten, skip_serializing_if = "Option::is_none")]
     pub first: Option<ImdResult>,
     pub channels: Vec<ImdResult>,
-    #[serde(skip_serializing_if = "Vec::is_empty")]
+    #[serde(default, skip_serializing_if = "Vec::is_empty")]
     pub channel_errors: Vec<ChannelError>,
 }
 
@@ -37,7 +37,7 @@ impl ImdReport {
                 "{},{},{},{},{},{},{},{},{},{},{}",
                 c.channel,
                 method,
-                super::csv_text(c.pair_source),
+                super::csv_text(&c.pair_source),
                 c.low_hz,
                 c.high_hz,
                 c.measured_ratio,

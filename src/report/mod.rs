@@ -9,8 +9,11 @@ pub mod tone;
 pub mod trend;
 pub mod views;
 
-/// Version of the JSON layout; bumped when a field changes meaning or disappears.
-pub const SCHEMA_VERSION: u32 = 3;
+use crate::warning::Warning;
+
+/// Version of the JSON layout; bumped when a field changes meaning or disappears. 4: warnings
+/// are `{"code", "message"}` objects (bare strings before).
+pub const SCHEMA_VERSION: u32 = 4;
 
 /// A CSV field for a figure that may be missing (empty when it is).
 pub fn csv_num(v: Option<f64>) -> String {
@@ -25,12 +28,12 @@ pub fn csv_text(t: &str) -> String {
 /// A per-channel result: which channel, and its measurement-quality warnings.
 pub trait ChannelResult {
     fn channel(&self) -> usize;
-    fn warnings(&self) -> &[String];
-    fn warnings_mut(&mut self) -> &mut Vec<String>;
+    fn warnings(&self) -> &[Warning];
+    fn warnings_mut(&mut self) -> &mut Vec<Warning>;
 }
 
 /// Add what the rig noticed while measuring (`(channel, note)`) to each channel's warnings.
-pub fn add_rig_notes<T: ChannelResult>(results: &mut [T], notes: &[(usize, String)]) {
+pub fn add_rig_notes<T: ChannelResult>(results: &mut [T], notes: &[(usize, Warning)]) {
     for r in results {
         let ch = r.channel();
         for (c, n) in notes {
@@ -47,10 +50,10 @@ macro_rules! channel_result {
             fn channel(&self) -> usize {
                 self.channel
             }
-            fn warnings(&self) -> &[String] {
+            fn warnings(&self) -> &[Warning] {
                 &self.warnings
             }
-            fn warnings_mut(&mut self) -> &mut Vec<String> {
+            fn warnings_mut(&mut self) -> &mut Vec<Warning> {
                 &mut self.warnings
             }
         }

@@ -8,7 +8,7 @@ use std::fmt::Write as _;
 
 /// What `ampnote power` prints: one result per channel and frequency. The first result's fields
 /// are repeated at the top level so a single staircase reads flat.
-#[derive(Debug, Clone, Serialize)]
+#[derive(Debug, Clone, Serialize, serde::Deserialize)]
 pub struct PowerReport {
     pub schema_version: u32,
     /// The capture file, or the rig's description.
@@ -16,7 +16,7 @@ pub struct PowerReport {
     #[serde(flatten, skip_serializing_if = "Option::is_none")]
     pub first: Option<PowerResult>,
     pub results: Vec<PowerResult>,
-    #[serde(skip_serializing_if = "Vec::is_empty")]
+    #[serde(default, skip_serializing_if = "Vec::is_empty")]
     pub channel_errors: Vec<ChannelError>,
 }
 
@@ -114,7 +114,7 @@ impl PowerReport {
 }
 
 /// What `ampnote zout` prints.
-#[derive(Debug, Clone, Serialize)]
+#[derive(Debug, Clone, Serialize, serde::Deserialize)]
 pub struct ZoutReport {
     pub schema_version: u32,
     pub source: String,

@@ -7,7 +7,7 @@ use std::fmt::Write as _;
 
 /// What `ampnote response` prints. The first channel's fields are repeated at the top level so a
 /// single-channel result reads flat; `channels` holds every channel analysed.
-#[derive(Debug, Clone, Serialize)]
+#[derive(Debug, Clone, Serialize, serde::Deserialize)]
 pub struct ResponseReport {
     pub schema_version: u32,
     pub file: String,
@@ -23,7 +23,7 @@ pub struct ResponseReport {
     #[serde(skip_serializing_if = "Option::is_none")]
     pub absolute_gain_db: Option<f64>,
     pub channels: Vec<ResponseResult>,
-    #[serde(skip_serializing_if = "Vec::is_empty")]
+    #[serde(default, skip_serializing_if = "Vec::is_empty")]
     pub channel_errors: Vec<ChannelError>,
 }
 

@@ -13,7 +13,7 @@ pub struct ChannelError {
 }
 
 /// What `ampnote analyze` prints, in every format.
-#[derive(Debug, Clone, Serialize)]
+#[derive(Debug, Clone, Serialize, serde::Deserialize)]
 pub struct AnalyzeReport {
     pub schema_version: u32,
     pub file: String,
@@ -23,7 +23,7 @@ pub struct AnalyzeReport {
     pub channel_count: usize,
     pub truncated: bool,
     pub channels: Vec<ToneResult>,
-    #[serde(skip_serializing_if = "Vec::is_empty")]
+    #[serde(default, skip_serializing_if = "Vec::is_empty")]
     pub channel_errors: Vec<ChannelError>,
 }
 

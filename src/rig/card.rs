@@ -460,7 +460,7 @@ pub struct CardRig {
     gain: Vec<Option<f64>>,
     load_ohms: Option<f64>,
     /// Per channel, what the runs noticed since the last `take_notes`.
-    notes: Vec<Vec<String>>,
+    notes: Vec<Vec<crate::warning::Warning>>,
     in_preflight: bool,
 }
 
@@ -809,7 +809,7 @@ impl Rig for CardRig {
         0.999
     }
 
-    fn take_notes(&mut self, channel: usize) -> Vec<String> {
+    fn take_notes(&mut self, channel: usize) -> Vec<crate::warning::Warning> {
         channel
             .checked_sub(1)
             .and_then(|k| self.notes.get_mut(k))
@@ -927,10 +927,10 @@ impl Rig for CardRig {
                             located.drift_ppm
                         );
                         eprintln!("live: channel {channel}: {note}");
-                        self.notes[k].push(note);
+                        self.notes[k].push(crate::warning::WarningCode::Rig.say(note));
                     }
                     if attempt > 0 {
-                        self.notes[k].push("the first capture had a gap and was measured again (its partial capture is kept in the captures folder)".into());
+                        self.notes[k].push(crate::warning::WarningCode::Rig.say("the first capture had a gap and was measured again (its partial capture is kept in the captures folder)"));
                     }
                     let lat = located.latency_samples / fs * 1e3;
                     if let Some(p) = self.preflight[k] {

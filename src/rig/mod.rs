@@ -36,7 +36,7 @@ pub trait Rig {
 
     /// What the rig noticed on `channel` since the last call (a retried capture, clock drift),
     /// for the result's warnings.
-    fn take_notes(&mut self, channel: usize) -> Vec<String> {
+    fn take_notes(&mut self, channel: usize) -> Vec<crate::warning::Warning> {
         let _ = channel;
         Vec::new()
     }

@@ -74,7 +74,7 @@ pub fn print_stdout(text: &str) {
 /// machine-readable formats (the table carries them itself).
 pub fn report_to_stderr<'a>(
     machine_format: bool,
-    warnings: impl Iterator<Item = (usize, &'a String)>,
+    warnings: impl Iterator<Item = (usize, &'a ampnote::warning::Warning)>,
     errors: impl Iterator<Item = &'a String>,
 ) {
     if machine_format {
@@ -294,7 +294,7 @@ pub fn to_played(
 pub struct Recorded {
     pub capture: std::path::PathBuf,
     pub stimulus: Option<std::path::PathBuf>,
-    pub notes: Vec<(usize, String)>,
+    pub notes: Vec<(usize, ampnote::warning::Warning)>,
     pub calibration: Option<ampnote::calibration::Calibration>,
 }
 
@@ -397,10 +397,10 @@ pub fn capture_or_record(
                 eprintln!("channel {ch}: {}", found.describe(w));
                 let miss = 10.0 * (found.confirmed_w / w).log10();
                 if miss.abs() > ampnote::procedure::drive::TOLERANCE_DB {
-                    notes.push((ch, format!(
+                    notes.push((ch, ampnote::warning::WarningCode::Rig.say(format!(
                         "the drive found for {w} W gives {:.3} W ({miss:+.1} dB): the amplifier is not linear there (clipping or compression); the figures are at that power",
                         found.confirmed_w
-                    )));
+                    ))));
                 }
                 scaled = ampnote::procedure::drive::rescaled(&stim.signal, level, found.drive_dbfs);
                 &scaled

@@ -18,7 +18,7 @@ struct NoiseReport {
     #[serde(flatten, skip_serializing_if = "Option::is_none")]
     first: Option<NoiseResult>,
     channels: Vec<NoiseResult>,
-    #[serde(skip_serializing_if = "Vec::is_empty")]
+    #[serde(default, skip_serializing_if = "Vec::is_empty")]
     channel_errors: Vec<ChannelError>,
 }
 

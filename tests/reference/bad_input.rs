@@ -226,12 +226,11 @@ fn good_file_all_formats_and_outputs() {
     let p = write(&d, "clipped.wav", &[clipped], WavFormat::Float32);
     let (code, out, _) = run(&["analyze", &p, "--json"]);
     assert_eq!(code, 0);
-    let v: serde_json::Value = serde_json::from_str(&out).unwrap();
-    assert!(v["channels"][0]["overload_samples"].as_u64().unwrap() > 1000);
-    assert!(v["channels"][0]["warnings"][0]
-        .as_str()
-        .unwrap()
-        .contains("input overload"));
+    let v: ampnote::report::tone::AnalyzeReport = serde_json::from_str(&out).unwrap();
+    assert!(v.channels[0].overload_samples > 1000);
+    let w = &v.channels[0].warnings[0];
+    assert!(w.message.contains("input overload"));
+    assert_eq!(w.code, ampnote::warning::WarningCode::InputOverload);
     std::fs::remove_dir_all(&d).ok();
 }
 
@@ -294,8 +293,8 @@ fn a_rig_run_keeps_what_it_measured() {
         "--json",
     ]);
     assert_eq!(code, 0, "{err}");
-    let first: serde_json::Value = serde_json::from_str(&out).unwrap();
-    let file = first["file"].as_str().unwrap().to_string();
+    let first: ampnote::report::tone::AnalyzeReport = serde_json::from_str(&out).unwrap();
+    let file = first.file.clone();
     assert!(file.ends_with("-capture.wav"), "{file}");
     let stimuli: Vec<_> = std::fs::read_dir(&dir)
         .unwrap()
@@ -305,13 +304,11 @@ fn a_rig_run_keeps_what_it_measured() {
     assert_eq!(stimuli.len(), 1);
     let (code, again, err) = run(&["analyze", &file, "--channel", "1", "--json"]);
     assert_eq!(code, 0, "{err}");
-    let again: serde_json::Value = serde_json::from_str(&again).unwrap();
-    for key in ["thd_db", "thdn_db", "fundamental_dbfs"] {
-        assert_eq!(
-            first["channels"][0][key], again["channels"][0][key],
-            "{key} differs"
-        );
-    }
+    let again: ampnote::report::tone::AnalyzeReport = serde_json::from_str(&again).unwrap();
+    let (x, y) = (&first.channels[0], &again.channels[0]);
+    assert_eq!(x.thd_db, y.thd_db, "THD differs");
+    assert_eq!(x.thdn_db, y.thdn_db, "THD+N differs");
+    assert_eq!(x.fundamental_dbfs, y.fundamental_dbfs, "level differs");
 }
 
 #[test]

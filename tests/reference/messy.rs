@@ -146,8 +146,8 @@ fn a_generated_tone_file_reads_its_own_distortion() {
     assert_eq!(code, 0, "{err}");
     let (code, out, err) = super::common::run(&["analyze", f.to_str().unwrap(), "--json"]);
     assert_eq!(code, 0, "{err}");
-    let v: serde_json::Value = serde_json::from_str(&out).unwrap();
-    let thdn = v["channels"][0]["thdn_db"].as_f64().unwrap();
+    let v: ampnote::report::tone::AnalyzeReport = serde_json::from_str(&out).unwrap();
+    let thdn = v.channels[0].thdn_db;
     assert!(thdn < -120.0, "THD+N {thdn} dB");
     std::fs::remove_dir_all(&d).ok();
 }

@@ -137,8 +137,9 @@ fn tone_steps_and_twotone_levels() {
             "0",
         ],
     );
-    let v: serde_json::Value = serde_json::from_str(&ok(&["analyze", &tone, "--json"])).unwrap();
-    let lvl = v["channels"][0]["fundamental_dbfs"].as_f64().unwrap();
+    let v: ampnote::report::tone::AnalyzeReport =
+        serde_json::from_str(&ok(&["analyze", &tone, "--json"])).unwrap();
+    let lvl = v.channels[0].fundamental_dbfs;
     assert!((lvl + 12.0).abs() < 0.01, "tone level {lvl}");
 
     // The staircase: one step per dB from -30 to -20, each analysable at its level.
@@ -189,14 +190,18 @@ fn tone_steps_and_twotone_levels() {
         "two-tone RMS {rms}"
     );
     assert!(matches!(desc.kind, Kind::TwoTone { ratio, .. } if ratio == 4.0));
-    let v: serde_json::Value =
+    let v: ampnote::report::imd::ImdReport =
         serde_json::from_str(&ok(&["imd", &tt, "--stimulus", &tt, "--json"])).unwrap();
-    assert_eq!(v["method"], "modulation");
-    assert!(
-        v["dm2_percent"].as_f64().unwrap() < 1e-3,
-        "a clean pair has no IMD: {v}"
+    let c = &v.channels[0];
+    assert_eq!(
+        c.method,
+        ampnote::signal::stimulus::TwoToneMethod::Modulation
     );
-    assert_eq!(v["pair_source"], "stimulus description");
+    assert!(
+        c.dm2_percent.unwrap() < 1e-3,
+        "a clean pair has no IMD: {c:?}"
+    );
+    assert_eq!(c.pair_source, "stimulus description");
 
     // Stereo file with the signal on channel 2 only.
     let st2 = generate(
@@ -237,9 +242,11 @@ fn response_command_and_its_bad_input() {
     ] {
         assert!(v.get(key).is_some(), "response JSON lacks {key}");
     }
-    assert_eq!(v["polarity"], "non-inverting");
-    assert!(v["latency_ms"].as_f64().unwrap().abs() < 0.02);
-    assert!(v["max_deviation_db"].as_f64().unwrap().abs() < 0.01);
+    let r: ampnote::report::response::ResponseReport = serde_json::from_value(v).unwrap();
+    let c = &r.channels[0];
+    assert_eq!(c.polarity, "non-inverting");
+    assert!(c.latency_ms.abs() < 0.02);
+    assert!(c.max_deviation_db.abs() < 0.01);
     let csv = std::fs::read_to_string(d.join("r.csv")).unwrap();
     assert!(
         csv.starts_with("channel,frequency_hz,magnitude_db,phase_deg,h2_dbc"),
@@ -317,13 +324,10 @@ fn response_command_and_its_bad_input() {
         1,
     )
     .unwrap();
-    let v: serde_json::Value =
+    let v: ampnote::report::response::ResponseReport =
         serde_json::from_str(&ok(&["response", &early, "--stimulus", &sw, "--json"])).unwrap();
-    assert!(
-        (v["latency_ms"].as_f64().unwrap() + 100.0).abs() < 0.05,
-        "{}",
-        v["latency_ms"]
-    );
+    let latency = v.channels[0].latency_ms;
+    assert!((latency + 100.0).abs() < 0.05, "{latency}");
     // Clipped in the capture: a warning, not an error.
     let clipped = p(&d, "clipped.wav");
     let c: Vec<f64> = cap.channels[0]
@@ -338,15 +342,15 @@ fn response_command_and_its_bad_input() {
         1,
     )
     .unwrap();
-    let v: serde_json::Value =
+    let v: ampnote::report::response::ResponseReport =
         serde_json::from_str(&ok(&["response", &clipped, "--stimulus", &sw, "--json"])).unwrap();
+    let warnings = &v.channels[0].warnings;
     assert!(
-        v["warnings"]
-            .as_array()
-            .unwrap()
+        warnings
             .iter()
-            .any(|w| w.as_str().unwrap().contains("input overload")),
-        "{v}"
+            .any(|w| w.code == ampnote::warning::WarningCode::InputOverload
+                && w.message.contains("input overload")),
+        "{warnings:?}"
     );
     std::fs::remove_dir_all(&d).ok();
 }
@@ -465,7 +469,7 @@ fn power_from_a_recorded_staircase() {
     ] {
         assert!(v.get(key).is_some(), "power JSON lacks {key}");
     }
-    let steps = v["steps"].as_array().unwrap();
+    let steps = v["steps"].as_array().unwrap().clone();
     assert_eq!(steps.len(), 11);
     for key in [
         "drive_dbfs",
@@ -478,8 +482,9 @@ fn power_from_a_recorded_staircase() {
     }
     // The same staircase on the rig directly gives the same 1 % point (within the 2 dB steps'
     // interpolation; the rig refines, the file does not).
-    let p1_file = v["power_at_thd"][0]["output_w"].as_f64().unwrap();
-    let rig: serde_json::Value = serde_json::from_str(&ok(&[
+    let v: ampnote::report::power::PowerReport = serde_json::from_value(v).unwrap();
+    let p1_file = v.results[0].power_at_thd[0].output_w.unwrap();
+    let rig: ampnote::report::power::PowerReport = serde_json::from_str(&ok(&[
         "power",
         "--rig",
         "sim:stock",
@@ -490,7 +495,7 @@ fn power_from_a_recorded_staircase() {
         "-24",
     ]))
     .unwrap();
-    let p1_rig = rig["power_at_thd"][0]["output_w"].as_f64().unwrap();
+    let p1_rig = rig.results[0].power_at_thd[0].output_w.unwrap();
     assert!(
         (p1_file / p1_rig - 1.0).abs() < 0.1,
         "1 % point: file {p1_file} W, rig {p1_rig} W"
@@ -530,7 +535,7 @@ fn zout_on_the_simulated_bench_matches_its_model() {
     let ch = m.left;
     let rp = ch.triode.rp(ch.bias_v, ch.b_plus_v);
     let want = rp / (ch.primary_ohms / ch.nominal_load_ohms) + ch.winding_ohms;
-    let v: serde_json::Value = serde_json::from_str(&ok(&[
+    let v: ampnote::report::power::ZoutReport = serde_json::from_str(&ok(&[
         "zout",
         "--rig",
         "sim:stock",
@@ -539,12 +544,12 @@ fn zout_on_the_simulated_bench_matches_its_model() {
         "--json",
     ]))
     .unwrap();
-    let z = v["zout_ohms"].as_f64().unwrap();
+    let z = v.results[0].zout_ohms;
     assert!(
         (z / want - 1.0).abs() < 0.05,
         "Z {z} vs rp/N^2 + Rw = {want}"
     );
-    assert!((v["damping_factor"].as_f64().unwrap() - 8.0 / z).abs() < 1e-9);
+    assert!((v.results[0].damping_factor - 8.0 / z).abs() < 1e-9);
     let (code, _, err) = run(&["zout", "--rig", "sim", "--loads", "8,8"]);
     assert_eq!(code, 2);
     assert!(err.contains("must differ"), "{err}");
@@ -609,7 +614,7 @@ fn loopback_response_is_taken_out() {
         "[loopback]\nresponse = [[20.0, 0.0], [1000.0, 0.0], [20000.0, 0.0]]\n",
     )
     .unwrap();
-    let v: serde_json::Value = serde_json::from_str(&ok(&[
+    let v: ampnote::report::response::ResponseReport = serde_json::from_str(&ok(&[
         "response",
         &sw,
         "--stimulus",
@@ -619,14 +624,14 @@ fn loopback_response_is_taken_out() {
         "--json",
     ]))
     .unwrap();
-    assert_eq!(v["loopback_corrected"], true);
-    assert!(v["max_deviation_db"].as_f64().unwrap().abs() < 0.01);
+    assert!(v.channels[0].loopback_corrected);
+    assert!(v.channels[0].max_deviation_db.abs() < 0.01);
     std::fs::write(
         &prof,
         "[loopback]\nresponse = [[20.0, 0.0], [1000.0, 0.0], [20000.0, -1.0]]\n",
     )
     .unwrap();
-    let v: serde_json::Value = serde_json::from_str(&ok(&[
+    let v: ampnote::report::response::ResponseReport = serde_json::from_str(&ok(&[
         "response",
         &sw,
         "--stimulus",
@@ -637,17 +642,13 @@ fn loopback_response_is_taken_out() {
     ]))
     .unwrap();
     // The flat capture, corrected for a loopback that falls 1 dB at 20 kHz, rises by that much.
-    let top = v["points"]
-        .as_array()
-        .unwrap()
+    let top = v.channels[0]
+        .points
         .iter()
         .rev()
-        .find(|p| p["frequency_hz"].as_f64().unwrap() <= 20_000.0)
+        .find(|p| p.frequency_hz <= 20_000.0)
         .unwrap();
-    assert!(
-        (top["magnitude_db"].as_f64().unwrap() - 1.0).abs() < 0.02,
-        "{top}"
-    );
+    assert!((top.magnitude_db - 1.0).abs() < 0.02, "{top:?}");
     std::fs::remove_dir_all(&d).ok();
 }
 

@@ -1,0 +1,183 @@
+//! Every kind of result a run keeps, as one typed value.
+//!
+//! A run's `result.json` holds the procedure's own result struct as it always has (no wrapper),
+//! and its `run.json` names the procedure; [`RunResult::from_stored`] puts the two together and
+//! reads the result with serde into the matching variant. Fields added after the first schema
+//! carry `#[serde(default)]` on their structs, so runs written by older versions read back; a
+//! result that still does not read is reported as damaged with serde's reason, never dropped in
+//! silence.
+
+use crate::analysis::blocks::TrendResult;
+use crate::analysis::imd::ImdResult;
+use crate::analysis::noise::NoiseResult;
+use crate::analysis::separation::SeparationResult;
+use crate::analysis::sweep::ResponseResult;
+use crate::analysis::tone::ToneResult;
+use crate::procedure::dc::DcResult;
+use crate::procedure::power::PowerResult;
+use crate::procedure::zout::ZoutResult;
+use serde::{Deserialize, Serialize};
+use std::fmt;
+
+/// What a run measured. The names are kept in `run.json` (`"procedure": "tone"`).
+#[derive(Debug, Clone, Copy, PartialEq, Eq, PartialOrd, Ord, Hash, Serialize, Deserialize)]
+#[serde(rename_all = "snake_case")]
+pub enum Procedure {
+    /// One steady tone (`analyze`).
+    Tone,
+    /// A level staircase (`power`).
+    Power,
+    /// A swept sine (`response`).
+    Response,
+    /// Two tones (`imd`).
+    Imd,
+    /// Output impedance from two loads (`zout`).
+    Zout,
+    /// Noise and hum with no signal (`noise`).
+    Noise,
+    /// Channel separation (`separation`).
+    Separation,
+    /// Figures per block over a long capture (`trend`).
+    Trend,
+    /// DC operating points typed in (`notebook dc`).
+    Dc,
+}
+
+impl Procedure {
+    /// Every procedure, in the order the log and the report list them.
+    pub const ALL: [Procedure; 9] = [
+        Procedure::Tone,
+        Procedure::Power,
+        Procedure::Response,
+        Procedure::Imd,
+        Procedure::Zout,
+        Procedure::Noise,
+        Procedure::Separation,
+        Procedure::Trend,
+        Procedure::Dc,
+    ];
+
+    /// The name kept in `run.json` and shown in the log.
+    pub fn name(self) -> &'static str {
+        match self {
+            Procedure::Tone => "tone",
+            Procedure::Power => "power",
+            Procedure::Response => "response",
+            Procedure::Imd => "imd",
+            Procedure::Zout => "zout",
+            Procedure::Noise => "noise",
+            Procedure::Separation => "separation",
+            Procedure::Trend => "trend",
+            Procedure::Dc => "dc",
+        }
+    }
+
+    /// Whether `notebook reanalyze` can analyse the run again from its kept files.
+    pub fn reanalysable(self) -> bool {
+        matches!(
+            self,
+            Procedure::Tone | Procedure::Power | Procedure::Response
+        )
+    }
+}
+
+impl fmt::Display for Procedure {
+    fn fmt(&self, f: &mut fmt::Formatter<'_>) -> fmt::Result {
+        f.write_str(self.name())
+    }
+}
+
+impl PartialEq<&str> for Procedure {
+    fn eq(&self, other: &&str) -> bool {
+        self.name() == *other
+    }
+}
+
+/// One run's result, whichever procedure made it. Serialized untagged (the procedure is in
+/// `run.json`), so `result.json` is the procedure's own struct.
+#[derive(Debug, Clone, Serialize)]
+#[serde(untagged)]
+pub enum RunResult {
+    Tone(ToneResult),
+    Power(PowerResult),
+    Response(ResponseResult),
+    Imd(ImdResult),
+    Zout(ZoutResult),
+    Noise(NoiseResult),
+    Separation(SeparationResult),
+    Trend(TrendResult),
+    Dc(DcResult),
+}
+
+impl RunResult {
+    /// The procedure that made it.
+    pub fn procedure(&self) -> Procedure {
+        match self {
+            RunResult::Tone(_) => Procedure::Tone,
+            RunResult::Power(_) => Procedure::Power,
+            RunResult::Response(_) => Procedure::Response,
+            RunResult::Imd(_) => Procedure::Imd,
+            RunResult::Zout(_) => Procedure::Zout,
+            RunResult::Noise(_) => Procedure::Noise,
+            RunResult::Separation(_) => Procedure::Separation,
+            RunResult::Trend(_) => Procedure::Trend,
+            RunResult::Dc(_) => Procedure::Dc,
+        }
+    }
+
+    /// Read a stored `result.json` as the result of `procedure`.
+    pub fn from_stored(
+        procedure: Procedure,
+        value: serde_json::Value,
+    ) -> Result<RunResult, serde_json::Error> {
+        use serde_json::from_value as read;
+        Ok(match procedure {
+            Procedure::Tone => RunResult::Tone(read(value)?),
+            Procedure::Power => RunResult::Power(read(value)?),
+            Procedure::Response => RunResult::Response(read(value)?),
+            Procedure::Imd => RunResult::Imd(read(value)?),
+            Procedure::Zout => RunResult::Zout(read(value)?),
+            Procedure::Noise => RunResult::Noise(read(value)?),
+            Procedure::Separation => RunResult::Separation(read(value)?),
+            Procedure::Trend => RunResult::Trend(read(value)?),
+            Procedure::Dc => RunResult::Dc(read(value)?),
+        })
+    }
+
+    /// The result's warnings (empty for results that have none).
+    pub fn warnings(&self) -> &[crate::warning::Warning] {
+        match self {
+            RunResult::Tone(r) => &r.warnings,
+            RunResult::Power(r) => &r.warnings,
+            RunResult::Response(r) => &r.warnings,
+            RunResult::Imd(r) => &r.warnings,
+            RunResult::Zout(r) => &r.warnings,
+            RunResult::Noise(r) => &r.warnings,
+            RunResult::Separation(r) => &r.warnings,
+            RunResult::Trend(r) => &r.warnings,
+            RunResult::Dc(r) => &r.warnings,
+        }
+    }
+}
+
+macro_rules! from_result {
+    ($($t:ty => $v:ident),*) => {
+        $(impl From<$t> for RunResult {
+            fn from(r: $t) -> RunResult {
+                RunResult::$v(r)
+            }
+        })*
+    };
+}
+
+from_result!(
+    ToneResult => Tone,
+    PowerResult => Power,
+    ResponseResult => Response,
+    ImdResult => Imd,
+    ZoutResult => Zout,
+    NoiseResult => Noise,
+    SeparationResult => Separation,
+    TrendResult => Trend,
+    DcResult => Dc
+);
