@@ -15,6 +15,7 @@ use crate::notebook::{NewRun, Notebook};
 use crate::procedure::power::power_from_capture;
 use crate::procedure::zout::from_tones;
 use crate::report::compare::{compare, match_channels, Comparison, MatchResult, MatchTolerances};
+use crate::results::RunResult;
 use crate::rig::model::Model;
 use crate::rig::sim::SimRig;
 use crate::rig::Rig;
@@ -149,14 +150,10 @@ pub fn run(out: &Path, mut progress: impl FnMut(&str)) -> Result<DemoOutcome> {
             let mut settings = BTreeMap::new();
             settings.insert("rig".to_string(), rig.describe());
             settings.insert("mains".to_string(), "230 V 50 Hz (simulated)".to_string());
-            let save = |procedure: &str,
-                        files: Vec<(&str, &Path)>,
-                        result: serde_json::Value,
-                        notes: &str| {
+            let save = |files: Vec<(&str, &Path)>, result: RunResult, notes: &str| {
                 nb.save(NewRun {
                     label,
                     channel: ch,
-                    procedure,
                     notes,
                     settings: settings.clone(),
                     calibration: cal,
@@ -183,9 +180,8 @@ pub fn run(out: &Path, mut progress: impl FnMut(&str)) -> Result<DemoOutcome> {
             let y = record(&mut rig, ch, &tone, &cap_path)?;
             let r = tone_cfg.analyze(&input(ch, steady(&y, &tone), &rig), &cal)?;
             save(
-                "tone",
                 vec![("stimulus.wav", &tone_path), ("capture.wav", &cap_path)],
-                serde_json::to_value(&r).expect("serializes"),
+                r.into(),
                 "997 Hz at 1 W",
             )?;
             // The staircase.
@@ -202,9 +198,8 @@ pub fn run(out: &Path, mut progress: impl FnMut(&str)) -> Result<DemoOutcome> {
                 &cal,
             )?;
             save(
-                "power",
                 vec![("stimulus.wav", &steps_path), ("capture.wav", &cap_path)],
-                serde_json::to_value(&p).expect("serializes"),
+                p.into(),
                 "staircase -30..-1 dBFS",
             )?;
             // The sweep.
@@ -218,9 +213,8 @@ pub fn run(out: &Path, mut progress: impl FnMut(&str)) -> Result<DemoOutcome> {
                 rig.overload_threshold(),
             )?;
             save(
-                "response",
                 vec![("stimulus.wav", &sweep_path), ("capture.wav", &cap_path)],
-                serde_json::to_value(&r).expect("serializes"),
+                r.into(),
                 "10 Hz - 21.6 kHz sweep",
             )?;
             // Output impedance: the 1 W tone into 8 and 16 ohm.
@@ -239,13 +233,12 @@ pub fn run(out: &Path, mut progress: impl FnMut(&str)) -> Result<DemoOutcome> {
             )?;
             let z = from_tones(ch, &la, bench.load_ohms, &lb, 2.0 * bench.load_ohms)?;
             save(
-                "zout",
                 vec![
                     ("stimulus.wav", &tone_path),
                     ("capture.wav", &cap_path),
                     ("capture-load-b.wav", &b_path),
                 ],
-                serde_json::to_value(&z).expect("serializes"),
+                z.into(),
                 "two loads: 8 and 16 ohm",
             )?;
             // Noise and hum with the input silent.
@@ -264,12 +257,7 @@ pub fn run(out: &Path, mut progress: impl FnMut(&str)) -> Result<DemoOutcome> {
                 Mains::Auto,
                 &cal,
             )?;
-            save(
-                "noise",
-                vec![("capture.wav", &cap_path)],
-                serde_json::to_value(&nr).expect("serializes"),
-                "input silent",
-            )?;
+            save(vec![("capture.wav", &cap_path)], nr.into(), "input silent")?;
             runs += 5;
         }
     }
@@ -296,14 +284,13 @@ pub fn run(out: &Path, mut progress: impl FnMut(&str)) -> Result<DemoOutcome> {
         nb.save(NewRun {
             label,
             channel: 1,
-            procedure: "dc",
             notes: "left channel and the shared B+",
             settings,
             calibration: cal,
             analysis: None,
             files: Vec::new(),
             blobs: Vec::new(),
-            result: serde_json::to_value(&dc).expect("serializes"),
+            result: dc.into(),
         })?;
         runs += 1;
     }
@@ -357,14 +344,13 @@ pub fn run(out: &Path, mut progress: impl FnMut(&str)) -> Result<DemoOutcome> {
     nb.save(NewRun {
         label: "driver reworked",
         channel: 1,
-        procedure: "trend",
         notes: "warm-up from cold, 997 Hz at 1 W warm",
         settings,
         calibration: cal,
         analysis: None,
         files: vec![("stimulus.wav", &log_path), ("capture.wav", &cap_path)],
         blobs: Vec::new(),
-        result: serde_json::to_value(&t).expect("serializes"),
+        result: t.into(),
     })?;
     runs += 1;
     let a = nb.select("stock", None)?;

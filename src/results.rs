@@ -144,6 +144,67 @@ impl RunResult {
         })
     }
 
+    /// The one-line figure `notebook log` shows beside the run.
+    pub fn headline(&self) -> String {
+        match self {
+            RunResult::Tone(t) => {
+                let thd = t.thd_percent.map_or("THD not measurable".to_string(), |v| {
+                    format!("THD {}{v:.3} %", if t.thd_upper_bound { "< " } else { "" })
+                });
+                let at = t.output_w.map_or_else(
+                    || format!("{:.1} dBFS", t.fundamental_dbfs),
+                    |w| format!("{w:.2} W"),
+                );
+                format!("{thd}, THD+N {:.3} % at {at}", t.thdn_percent)
+            }
+            RunResult::Power(p) => {
+                let at = p.power_at_thd.iter().find(|q| q.thd_percent == 1.0);
+                match at {
+                    Some(q) => match q.output_w {
+                        Some(w) => format!("{w:.2} W at 1 % THD ({:.0} Hz)", p.frequency_hz),
+                        None => format!(
+                            "{:.1} dBFS at 1 % THD ({:.0} Hz)",
+                            q.output_dbfs, p.frequency_hz
+                        ),
+                    },
+                    None => format!("power: 1 % not reached ({:.0} Hz)", p.frequency_hz),
+                }
+            }
+            RunResult::Response(v) => {
+                let hz = |x: Option<f64>| {
+                    x.map_or("beyond the sweep".to_string(), |v| format!("{v:.1} Hz"))
+                };
+                format!("-3 dB at {} and {}", hz(v.low_3db_hz), hz(v.high_3db_hz))
+            }
+            RunResult::Noise(n) => format!(
+                "noise {:.1} dBFS ({:.1} A-weighted){}",
+                n.noise_dbfs,
+                n.noise_a_dbfs,
+                n.snr_a_re_1w_db
+                    .map_or(String::new(), |s| format!(", S/N {s:.1} dB(A) re 1 W"))
+            ),
+            RunResult::Zout(z) => format!(
+                "{:.2} ohm, damping factor {:.1}",
+                z.zout_ohms, z.damping_factor
+            ),
+            RunResult::Imd(i) => i.headline(),
+            RunResult::Separation(s) => s
+                .channels
+                .iter()
+                .map(|c| match (c.at_least_db, c.at_1khz_db, c.worst_db) {
+                    (Some(b), _, _) => format!("ch{} > {b:.0} dB", c.channel),
+                    (None, Some(k), Some(w)) => {
+                        format!("ch{} {k:.1} dB at 1 kHz, worst {w:.1} dB", c.channel)
+                    }
+                    _ => format!("ch{} -", c.channel),
+                })
+                .collect::<Vec<_>>()
+                .join("; "),
+            RunResult::Dc(d) => d.headline(),
+            RunResult::Trend(t) => t.headline(),
+        }
+    }
+
     /// The result's warnings (empty for results that have none).
     pub fn warnings(&self) -> &[crate::warning::Warning] {
         match self {
@@ -166,11 +227,47 @@ macro_rules! from_result {
             fn from(r: $t) -> RunResult {
                 RunResult::$v(r)
             }
+        }
+        impl From<&$t> for RunResult {
+            fn from(r: &$t) -> RunResult {
+                RunResult::$v(r.clone())
+            }
         })*
     };
 }
 
 from_result!(
+    ToneResult => Tone,
+    PowerResult => Power,
+    ResponseResult => Response,
+    ImdResult => Imd,
+    ZoutResult => Zout,
+    NoiseResult => Noise,
+    SeparationResult => Separation,
+    TrendResult => Trend,
+    DcResult => Dc
+);
+
+/// A result type that a [`RunResult`] can hold: `ToneResult::of(&run.result)` is the tone
+/// result when the run is a tone run.
+pub trait Kept: Sized {
+    fn of(r: &RunResult) -> Option<&Self>;
+}
+
+macro_rules! kept {
+    ($($t:ty => $v:ident),*) => {
+        $(impl Kept for $t {
+            fn of(r: &RunResult) -> Option<&Self> {
+                match r {
+                    RunResult::$v(x) => Some(x),
+                    _ => None,
+                }
+            }
+        })*
+    };
+}
+
+kept!(
     ToneResult => Tone,
     PowerResult => Power,
     ResponseResult => Response,

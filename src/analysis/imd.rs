@@ -58,6 +58,22 @@ pub struct ImdResult {
     pub warnings: Vec<crate::warning::Warning>,
 }
 
+impl ImdResult {
+    /// One line: the total (modulation method) or d2 and d3 (difference-frequency).
+    pub fn headline(&self) -> String {
+        match (self.imd_percent, self.dd2_percent, self.dd3_percent) {
+            (Some(t), _, _) => {
+                format!("IMD {t:.3} % ({:.0} + {:.0} Hz)", self.low_hz, self.high_hz)
+            }
+            (None, Some(d2), Some(d3)) => format!(
+                "d2 {d2:.4} %, d3 {d3:.4} % ({:.0} + {:.0} Hz)",
+                self.low_hz, self.high_hz
+            ),
+            _ => format!("IMD ({:.0} + {:.0} Hz)", self.low_hz, self.high_hz),
+        }
+    }
+}
+
 /// What is known of the pair before looking: the method and the two frequencies, or nothing.
 #[derive(Debug, Clone, Copy)]
 pub struct PairHint {

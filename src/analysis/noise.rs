@@ -59,7 +59,9 @@ pub struct NoiseResult {
     pub overload_samples: usize,
     /// Lines above the band or below 10 Hz that mains does not explain (see
     /// [`super::oscillation`]); each also has a warning.
+    #[serde(default)]
     pub oscillations: Vec<super::oscillation::Oscillation>,
+    #[serde(default)]
     pub oscillation_search: super::oscillation::OscillationSearch,
     pub warnings: Vec<crate::warning::Warning>,
 }

@@ -9,8 +9,8 @@
 //! 1. **Envelope.** Mean square (mean removed) in hops of about 1 ms, then a moving mean over a
 //!    whole number of the tone's periods spanning at least 10 ms. The period comes from
 //!    up-crossings with hysteresis (at half the loud part's peak) counted where the capture is
-//!    loud, so the moving mean of a sine has no ripple beyond what rounding to a hop leaves
-//!    (under 0.05 dB: at most one hop of a half-period's mean square over the window).
+//!    loud, so the moving mean of a sine has no ripple beyond what rounding to a hop leaves; the
+//!    window takes as many periods as keep that under 1 % (0.043 dB; see `envelope_window`).
 //! 2. **Flat stretches.** A hop is flat when the envelope stays within a tolerance over the next
 //!    window length; the tolerance follows the envelope's own scatter between disjoint windows
 //!    (six robust standard deviations, from the median absolute difference; at least 0.15 dB).
@@ -111,6 +111,44 @@ impl Steadiness {
     }
 }
 
+/// Largest ripple the envelope's window may leave on a steady sine, as a fraction of its mean
+/// square: 1 % is 0.043 dB either way, well inside the smallest flatness tolerance.
+const MAX_WINDOW_RIPPLE: f64 = 0.01;
+
+/// The envelope's moving-mean length in hops: a whole number of the tone's periods, at least
+/// [`MIN_WINDOW_S`], rounded to whole hops. Rounding leaves the window `d` samples off a whole
+/// number of periods, and the mean square of A sin(wt) over W samples then moves by at most
+/// (A^2 / 2) * 2 min(d, P / (4 pi)) / W (the leftover integral of cos 2wt, closed form); the
+/// fewest periods that keep this under [`MAX_WINDOW_RIPPLE`] are taken. A low tone whose period
+/// is no multiple of the hop needs about 100 ms (81 Hz: 10 ms is under one period, and the
+/// rounded window rippled by 0.35 dB, more than the flatness tolerance).
+fn envelope_window(period: f64, hop: usize, fs: f64) -> usize {
+    let hop_f = hop as f64;
+    let k0 = (MIN_WINDOW_S * fs / period).ceil().max(1.0) as usize;
+    let ripple = |k: usize| {
+        let span = k as f64 * period;
+        let hops = (span / hop_f).round().max(1.0);
+        let d = (hops * hop_f - span).abs();
+        (
+            hops as usize,
+            2.0 * d.min(period / (4.0 * std::f64::consts::PI)) / (hops * hop_f),
+        )
+    };
+    // At most a second of periods: beyond that, the best found.
+    let k_max = ((fs / period).ceil() as usize).max(k0);
+    let mut best = ripple(k0);
+    for k in k0..=k_max {
+        let (w, r) = ripple(k);
+        if r <= MAX_WINDOW_RIPPLE {
+            return w;
+        }
+        if r < best.1 {
+            best = (w, r);
+        }
+    }
+    best.0
+}
+
 /// Find the steady span of the tone in `x` (sampled at `fs`) and what else the capture holds.
 pub fn find_steady<T: Store>(x: &[T], fs: f64) -> Steadiness {
     let n = x.len();
@@ -179,8 +217,7 @@ pub fn find_steady<T: Store>(x: &[T], fs: f64) -> Steadiness {
     } else {
         0.02 * fs
     };
-    let periods = (MIN_WINDOW_S * fs / period).ceil().max(1.0);
-    let w = ((periods * period / hop as f64).round() as usize).clamp(1, hops / 4);
+    let w = envelope_window(period, hop, fs).clamp(1, hops / 4);
     // --- envelope, dB -------------------------------------------------------------------------
     let count = hops - w + 1;
     let mut env = Vec::with_capacity(count);
@@ -276,12 +313,23 @@ pub fn find_steady<T: Store>(x: &[T], fs: f64) -> Steadiness {
         joined.push(p);
     }
     let plateaus = joined;
-    let Some(main) = plateaus.iter().copied().max_by_key(|p| p.end - p.start) else {
+    let Some(mut main) = plateaus.iter().copied().max_by_key(|p| p.end - p.start) else {
         let mut s = Steadiness::whole(n);
         s.tolerance_db = tolerance_db;
         s.judged = true;
         return s;
     };
+    // A flat window may still hold a little of the floor at the plateau's ends: the tolerance
+    // lets a fraction f = 1 - 10^(-tol / 10) of the window's energy be missing, and g missing
+    // samples around a zero crossing of a low tone cost far less than g / W of it. Missing
+    // samples that hold a whole period cost at least (g - P) / W, so g < P + f W: the span is
+    // trimmed by that (and a hop) at each end, unless that would leave under half of it.
+    let missing = 1.0 - 10f64.powf(-tolerance_db / 10.0);
+    let margin = (period + missing * (w * hop) as f64).ceil() as usize + hop;
+    if main.end - main.start > 4 * margin {
+        main.start += margin;
+        main.end -= margin;
+    }
     // Distinct levels, loudest first: plateaus more than LEVEL_STEP_DB from every level so far.
     let mut by_level: Vec<f64> = plateaus.iter().map(|p| p.level_db).collect();
     by_level.sort_by(|a, b| b.total_cmp(a));

@@ -143,6 +143,7 @@ pub struct ResponseResult {
     #[serde(skip_serializing_if = "Option::is_none")]
     pub smoothing_octave_fraction: Option<u32>,
     /// The interface's loopback response was taken out of the magnitude.
+    #[serde(default)]
     pub loopback_corrected: bool,
     pub harmonics: Vec<HarmonicCurve>,
     /// THD against excitation frequency: the harmonics H2..Hmax that stay inside the sweep.

@@ -112,6 +112,7 @@ pub struct Harmonic {
     /// The line is not distinguishable from the noise around it: `level_dbc` and
     /// `level_percent` are then its detection limit (see [`detection_limit`]), an upper bound,
     /// and the phase means nothing.
+    #[serde(default)]
     pub upper_bound: bool,
     #[serde(skip_serializing_if = "Option::is_none")]
     pub level_vrms: Option<f64>,
@@ -126,9 +127,14 @@ pub struct HumLine {
     pub level_dbc: f64,
     pub level_dbfs: f64,
     /// Under the noise: the levels are the detection limit, an upper bound.
+    #[serde(default)]
     pub upper_bound: bool,
     #[serde(skip_serializing_if = "Option::is_none")]
     pub level_vrms: Option<f64>,
+}
+
+fn one() -> usize {
+    1
 }
 
 /// Details of how the analysis was done, for reproducibility.
@@ -140,11 +146,13 @@ pub struct AnalysisInfo {
     pub bin_width_hz: f64,
     /// Blocks of `fft_length` samples the figures combine (1 unless the capture was long; see
     /// [`super::blocks`]).
+    #[serde(default = "one")]
     pub blocks: usize,
 }
 
 /// Everything the steady-tone analysis says about one channel. Units are in the field names;
-/// dBFS is referred to a full-scale sine (AES17), dBc to the fundamental.
+/// dBFS is referred to a full-scale sine (AES17), dBc to the fundamental. Fields added after the
+/// first version read as 0, false or empty in runs kept before them.
 #[derive(Debug, Clone, Serialize, serde::Deserialize)]
 pub struct ToneResult {
     /// 1-based channel number.
@@ -153,9 +161,12 @@ pub struct ToneResult {
     pub duration_s: f64,
     /// The steady span of the tone that was analysed, seconds from the capture's start (the
     /// floor, fades and settling around it are left out; see [`super::steady`]).
+    #[serde(default)]
     pub analysed_from_s: f64,
+    #[serde(default)]
     pub analysed_to_s: f64,
     /// How far the level moves across the analysed span (its last tenth against its first), dB.
+    #[serde(default)]
     pub level_drift_db: f64,
     pub fundamental_hz: f64,
     pub fundamental_dbfs: f64,
@@ -163,6 +174,7 @@ pub struct ToneResult {
     /// amplitude's radial scatter is `sqrt(line noise)` (a line fitted to noise of power N has
     /// complex scatter of mean square 2N), over the amplitude, in dB. It leaves out the
     /// calibration's own uncertainty and any wander of the level itself.
+    #[serde(default)]
     pub fundamental_sigma_db: f64,
     /// RMS volts at the amplifier output (calibrated only).
     #[serde(skip_serializing_if = "Option::is_none")]
@@ -184,6 +196,7 @@ pub struct ToneResult {
     #[serde(skip_serializing_if = "Option::is_none")]
     pub thd_highest_order: Option<usize>,
     /// THD is mostly made of detection limits: the true figure is at most this.
+    #[serde(default)]
     pub thd_upper_bound: bool,
     /// AES17 THD+N: everything in band but the fundamental, over everything in band.
     pub thdn_percent: f64,
@@ -217,8 +230,10 @@ pub struct ToneResult {
     pub phase_wander_deg: Option<f64>,
     /// Lines no stimulus, harmonic, mains or noise explains, above or below the audio band, and a
     /// level pumping at a few hertz (see [`super::oscillation`]); each also has a warning.
+    #[serde(default)]
     pub oscillations: Vec<Oscillation>,
     /// How far the oscillation checks could look at this rate and length.
+    #[serde(default)]
     pub oscillation_search: OscillationSearch,
     pub analysis: AnalysisInfo,
     pub warnings: Vec<crate::warning::Warning>,

@@ -11,6 +11,7 @@
 
 use crate::calibration::{Calibration, Profile};
 use crate::error::{Error, Result};
+use crate::results::{Procedure, RunResult};
 use serde::{Deserialize, Serialize};
 use std::collections::BTreeMap;
 use std::path::{Path, PathBuf};
@@ -46,8 +47,8 @@ pub struct RunMeta {
     pub id: String,
     pub label: String,
     pub channel: usize,
-    /// `tone`, `power`, `response`, `imd`, `zout`.
-    pub procedure: String,
+    /// What the run measured (`"tone"`, `"power"`, ...); its result is read as that procedure's.
+    pub procedure: Procedure,
     pub time: String,
     #[serde(default)]
     pub notes: String,
@@ -144,19 +145,18 @@ pub fn check_label(label: &str) -> Result<()> {
     Ok(())
 }
 
-/// A run as read back: its folder, metadata and latest result.
+/// A run as read back: its folder, metadata and latest result, typed.
 #[derive(Debug, Clone)]
 pub struct Run {
     pub dir: PathBuf,
     pub meta: RunMeta,
-    pub result: serde_json::Value,
+    pub result: RunResult,
 }
 
 /// What a procedure hands over to be kept.
 pub struct NewRun<'a> {
     pub label: &'a str,
     pub channel: usize,
-    pub procedure: &'a str,
     pub notes: &'a str,
     pub settings: BTreeMap<String, String>,
     pub calibration: Calibration,
@@ -165,7 +165,8 @@ pub struct NewRun<'a> {
     pub files: Vec<(&'a str, &'a Path)>,
     /// Files to write in (name, bytes), for captures that exist only in memory.
     pub blobs: Vec<(&'a str, Vec<u8>)>,
-    pub result: serde_json::Value,
+    /// The result; its procedure names the run.
+    pub result: RunResult,
 }
 
 /// An open notebook.
@@ -329,13 +330,13 @@ impl Notebook {
                     "{n:04}-{}-ch{}-{}",
                     slug(run.label),
                     run.channel,
-                    run.procedure
+                    run.result.procedure()
                 );
                 let meta = RunMeta {
                     id: id.clone(),
                     label: run.label.to_string(),
                     channel: run.channel,
-                    procedure: run.procedure.to_string(),
+                    procedure: run.result.procedure(),
                     time: now_utc(),
                     notes: run.notes.to_string(),
                     settings: run.settings.clone(),
@@ -500,7 +501,16 @@ impl Notebook {
                 }
             };
             let result = match latest_result(&dir) {
-                Ok(v) => v,
+                Ok((file, v)) => match RunResult::from_stored(meta.procedure, v) {
+                    Ok(r) => r,
+                    Err(err) => {
+                        scan.damaged.push(damaged(
+                            &file,
+                            format!("does not read as a {} result ({err})", meta.procedure),
+                        ));
+                        continue;
+                    }
+                },
                 Err((file, reason)) => {
                     scan.damaged.push(damaged(&file, reason));
                     continue;
@@ -566,7 +576,7 @@ impl Notebook {
     }
 
     /// Write a new result beside a run's old one (re-analysis); the old stays.
-    pub fn add_result(&self, run: &Run, result: &serde_json::Value) -> Result<PathBuf> {
+    pub fn add_result(&self, run: &Run, result: &RunResult) -> Result<PathBuf> {
         let path = run
             .dir
             .join(format!("result-{}.json", now_utc().replace(':', "")));
@@ -578,7 +588,7 @@ impl Notebook {
 
 /// The newest `result*.json` of a run folder (re-analyses sort after the original), or the file
 /// that cannot be read and why.
-fn latest_result(dir: &Path) -> std::result::Result<serde_json::Value, (String, String)> {
+fn latest_result(dir: &Path) -> std::result::Result<(String, serde_json::Value), (String, String)> {
     let mut names: Vec<String> = std::fs::read_dir(dir)
         .map_err(|e| (String::new(), format!("cannot be read ({e})")))?
         .flatten()
@@ -596,7 +606,7 @@ fn latest_result(dir: &Path) -> std::result::Result<serde_json::Value, (String, 
     if !v.is_object() {
         return Err((newest.clone(), "holds no result (not a JSON object)".into()));
     }
-    Ok(v)
+    Ok((newest.clone(), v))
 }
 
 /// The folder holding run-number reservations, inside `runs/`.

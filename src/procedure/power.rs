@@ -41,6 +41,7 @@ pub struct PowerStep {
     /// `null` when no harmonic lies in the band at this frequency and rate.
     pub thd_percent: Option<f64>,
     /// THD is mostly made of detection limits (an upper bound).
+    #[serde(default)]
     pub thd_upper_bound: bool,
     pub thdn_percent: f64,
     /// `null` when the harmonic lies outside the band (or past Nyquist).

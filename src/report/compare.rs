@@ -1,16 +1,20 @@
 //! Before/after comparison of two sets of runs, and the channel-match check.
 //!
 //! Both read the figures each run's result holds (tone, power, response, output impedance), as
-//! typed views ([`super::views`]), and set them side by side; a figure only one side measured is
+//! typed results ([`crate::results::RunResult`]), and set them side by side; a figure only one side measured is
 //! left out and said so. A comparison is only as honest as its two sides are alike: tone figures
 //! are set against each other only at the same output level (within 0.5 dB), a figure that is a
 //! detection limit on either side is shown as `< limit` and gives no delta, and staircases are
 //! compared frequency by frequency.
 
-use super::views::{
-    view, ImdView, LineView, NoiseView, PowerView, ResponseView, ToneView, ZoutView,
-};
+use crate::analysis::imd::ImdResult as ImdView;
+use crate::analysis::noise::NoiseResult as NoiseView;
+use crate::analysis::sweep::ResponseResult as ResponseView;
+use crate::analysis::tone::{Harmonic, ToneResult as ToneView};
 use crate::notebook::Run;
+use crate::procedure::power::PowerResult as PowerView;
+use crate::procedure::zout::ZoutResult as ZoutView;
+use crate::results::Kept;
 use serde::Serialize;
 
 /// One compared figure.
@@ -68,30 +72,21 @@ fn deviation_curve(a: &ResponseView, b: &ResponseView) -> Vec<[f64; 2]> {
         .collect()
 }
 
-/// The latest run of `procedure` on `channel` among `runs`, read as `T`.
-fn latest<T: serde::de::DeserializeOwned>(
-    runs: &[Run],
-    procedure: &str,
-    channel: usize,
-) -> Option<T> {
+/// The latest run on `channel` among `runs` that holds a `T`.
+fn latest<T: Kept>(runs: &[Run], channel: usize) -> Option<&T> {
     runs.iter()
-        .filter(|r| r.meta.procedure == procedure && r.meta.channel == channel)
-        .max_by(|x, y| x.meta.id.cmp(&y.meta.id))
-        .and_then(|r| view(&r.result))
+        .filter(|r| r.meta.channel == channel)
+        .filter_map(|r| T::of(&r.result).map(|t| (r, t)))
+        .max_by(|x, y| x.0.meta.id.cmp(&y.0.meta.id))
+        .map(|(_, t)| t)
 }
 
 /// The latest staircase per test frequency on `channel`, in frequency order.
-fn power_runs(runs: &[Run], channel: usize) -> Vec<PowerView> {
-    let mut sorted: Vec<&Run> = runs
-        .iter()
-        .filter(|r| r.meta.procedure == "power" && r.meta.channel == channel)
-        .collect();
+fn power_runs(runs: &[Run], channel: usize) -> Vec<&PowerView> {
+    let mut sorted: Vec<&Run> = runs.iter().filter(|r| r.meta.channel == channel).collect();
     sorted.sort_by(|x, y| x.meta.id.cmp(&y.meta.id));
-    let mut out: Vec<PowerView> = Vec::new();
-    for p in sorted
-        .into_iter()
-        .filter_map(|r| view::<PowerView>(&r.result))
-    {
+    let mut out: Vec<&PowerView> = Vec::new();
+    for p in sorted.into_iter().filter_map(|r| PowerView::of(&r.result)) {
         match out
             .iter_mut()
             .find(|q| (q.frequency_hz / p.frequency_hz - 1.0).abs() < 1e-3)
@@ -115,7 +110,7 @@ fn measured(v: Option<f64>) -> Option<Val> {
     v.map(|v| Val { v, bound: false })
 }
 
-fn harmonic(lines: &[LineView], order: usize) -> Option<Val> {
+fn harmonic(lines: &[Harmonic], order: usize) -> Option<Val> {
     lines
         .iter()
         .find(|h| h.order == order && h.in_band)
@@ -309,8 +304,8 @@ pub fn compare(name_a: &str, a: &[Run], name_b: &str, b: &[Run]) -> Comparison {
             };
         // DC operating points, by name: volts as a difference, current in mA, dissipation.
         if let (Some(da), Some(db)) = (
-            latest::<crate::procedure::dc::DcResult>(a, "dc", ch),
-            latest::<crate::procedure::dc::DcResult>(b, "dc", ch),
+            latest::<crate::procedure::dc::DcResult>(a, ch),
+            latest::<crate::procedure::dc::DcResult>(b, ch),
         ) {
             for p in &da.points {
                 let Some(q) = db.points.iter().find(|q| q.name == p.name) else {
@@ -387,11 +382,8 @@ pub fn compare(name_a: &str, a: &[Run], name_b: &str, b: &[Run]) -> Comparison {
                 None,
             );
         }
-        if let (Some(ta), Some(tb)) = (
-            latest::<ToneView>(a, "tone", ch),
-            latest::<ToneView>(b, "tone", ch),
-        ) {
-            let (diff, at_a, at_b) = tone_levels(&ta, &tb);
+        if let (Some(ta), Some(tb)) = (latest::<ToneView>(a, ch), latest::<ToneView>(b, ch)) {
+            let (diff, at_a, at_b) = tone_levels(ta, tb);
             let unlike_text = format!(
                 "the tone runs were at different levels ({at_a} and {at_b}, {diff:+.1} dB); distortion depends on level, so measure both at the same output (for example --watts 1)"
             );
@@ -410,7 +402,7 @@ pub fn compare(name_a: &str, a: &[Run], name_b: &str, b: &[Run]) -> Comparison {
                     bound: t.thd_upper_bound,
                 })
             };
-            add(&format!("THD{at}"), thd(&ta), thd(&tb), "%", unlike);
+            add(&format!("THD{at}"), thd(ta), thd(tb), "%", unlike);
             add(
                 &format!("THD+N{at}"),
                 measured(Some(ta.thdn_percent)),
@@ -452,13 +444,11 @@ pub fn compare(name_a: &str, a: &[Run], name_b: &str, b: &[Run]) -> Comparison {
                         .map(|v| Val { v, bound: true }),
                 }
             };
-            add("strongest hum line", hum(&ta), hum(&tb), "dBc", None);
+            add("strongest hum line", hum(ta), hum(tb), "dBc", None);
         }
-        if let (Some(ra), Some(rb)) = (
-            latest::<ResponseView>(a, "response", ch),
-            latest::<ResponseView>(b, "response", ch),
-        ) {
-            let points = deviation_curve(&ra, &rb);
+        if let (Some(ra), Some(rb)) = (latest::<ResponseView>(a, ch), latest::<ResponseView>(b, ch))
+        {
+            let points = deviation_curve(ra, rb);
             if !points.is_empty() {
                 deviation_curves.push(DeviationCurve {
                     channel: ch,
@@ -488,16 +478,13 @@ pub fn compare(name_a: &str, a: &[Run], name_b: &str, b: &[Run]) -> Comparison {
             );
             add(
                 "H2 at 40 Hz (sweep)",
-                measured(sweep_harmonic(&ra, 2, 40.0)),
-                measured(sweep_harmonic(&rb, 2, 40.0)),
+                measured(sweep_harmonic(ra, 2, 40.0)),
+                measured(sweep_harmonic(rb, 2, 40.0)),
                 "dBc",
                 None,
             );
         }
-        if let (Some(na), Some(nb)) = (
-            latest::<NoiseView>(a, "noise", ch),
-            latest::<NoiseView>(b, "noise", ch),
-        ) {
+        if let (Some(na), Some(nb)) = (latest::<NoiseView>(a, ch), latest::<NoiseView>(b, ch)) {
             for (fig, x, y, unit) in [
                 (
                     "noise with no signal (flat)",
@@ -527,10 +514,7 @@ pub fn compare(name_a: &str, a: &[Run], name_b: &str, b: &[Run]) -> Comparison {
                 add(fig, measured(x), measured(y), unit, None);
             }
         }
-        if let (Some(ia), Some(ib)) = (
-            latest::<ImdView>(a, "imd", ch),
-            latest::<ImdView>(b, "imd", ch),
-        ) {
+        if let (Some(ia), Some(ib)) = (latest::<ImdView>(a, ch), latest::<ImdView>(b, ch)) {
             let same_pair =
                 (ia.low_hz - ib.low_hz).abs() < 1.0 && (ia.high_hz - ib.high_hz).abs() < 1.0;
             if same_pair {
@@ -563,10 +547,7 @@ pub fn compare(name_a: &str, a: &[Run], name_b: &str, b: &[Run]) -> Comparison {
                 ));
             }
         }
-        if let (Some(za), Some(zb)) = (
-            latest::<ZoutView>(a, "zout", ch),
-            latest::<ZoutView>(b, "zout", ch),
-        ) {
+        if let (Some(za), Some(zb)) = (latest::<ZoutView>(a, ch), latest::<ZoutView>(b, ch)) {
             add(
                 "output impedance",
                 measured(Some(za.zout_ohms)),
@@ -730,14 +711,8 @@ pub fn match_channels(
         });
         Some(v)
     };
-    let (ta, tb) = (
-        latest::<ToneView>(a, "tone", ca),
-        latest::<ToneView>(b, "tone", cb),
-    );
-    let (ra, rb) = (
-        latest::<ResponseView>(a, "response", ca),
-        latest::<ResponseView>(b, "response", cb),
-    );
+    let (ta, tb) = (latest::<ToneView>(a, ca), latest::<ToneView>(b, cb));
+    let (ra, rb) = (latest::<ResponseView>(a, ca), latest::<ResponseView>(b, cb));
     // Gain: from the sweeps (the same drive on both channels by construction), else from the
     // tone runs' levels.
     let gain = match (&ra, &rb, &ta, &tb) {
@@ -791,9 +766,7 @@ pub fn match_channels(
     // Separation: each channel driven, the other's level below it at 1 kHz (a lower bound
     // counts when it already reaches the limit).
     for (runs, driven, other) in [(a, ca, cb), (b, cb, ca)] {
-        let Some(s) =
-            latest::<crate::analysis::separation::SeparationResult>(runs, "separation", driven)
-        else {
+        let Some(s) = latest::<crate::analysis::separation::SeparationResult>(runs, driven) else {
             continue;
         };
         let Some(c) = s.channels.iter().find(|c| c.channel == other) else {

@@ -5,12 +5,17 @@
 //! olive, plum, slate); the left channel is drawn solid, the right dashed; reference lines (1 %
 //! THD, 0 dB) are thin grey. Charts are plain white panels that print well.
 
+use crate::analysis::blocks::TrendResult;
+use crate::analysis::separation::SeparationResult;
+use crate::analysis::sweep::ResponseResult;
+use crate::analysis::tone::ToneResult;
 use crate::error::{Error, Result};
 use crate::notebook::{Notebook, Run};
+use crate::procedure::power::PowerResult;
 use crate::report::compare::{compare, match_channels, MatchTolerances};
+use crate::results::Kept;
 use plotters::coord::Shift;
 use plotters::prelude::*;
-use serde_json::Value;
 use std::fmt::Write as _;
 use std::path::{Path, PathBuf};
 
@@ -266,24 +271,6 @@ fn draw_lines<DB: DrawingBackend>(
     Ok(())
 }
 
-fn num(v: &Value, k: &str) -> Option<f64> {
-    v.get(k).and_then(Value::as_f64)
-}
-
-fn arr<'a>(v: &'a Value, k: &str) -> &'a [Value] {
-    v.get(k)
-        .and_then(Value::as_array)
-        .map_or(&[], |a| a.as_slice())
-}
-
-/// The (x, y) pairs of a list of JSON points, by key; points lacking either are skipped.
-fn xy(points: &[Value], x: &str, y: &str) -> Points {
-    points
-        .iter()
-        .filter_map(|p| Some((num(p, x)?, num(p, y)?)))
-        .collect()
-}
-
 /// Labels in the order their first run was made.
 fn labels(runs: &[Run]) -> Vec<String> {
     let mut out: Vec<String> = Vec::new();
@@ -295,11 +282,12 @@ fn labels(runs: &[Run]) -> Vec<String> {
     out
 }
 
-fn curves_for(runs: &[Run], procedure: &str, f: impl Fn(&Value) -> Vec<(f64, f64)>) -> Vec<Curve> {
+/// One curve per run holding a `T`, its points taken by `f`.
+fn curves_for<T: Kept>(runs: &[Run], f: impl Fn(&T) -> Vec<(f64, f64)>) -> Vec<Curve> {
     let labels = labels(runs);
     runs.iter()
-        .filter(|r| r.meta.procedure == procedure)
-        .map(|r| {
+        .filter_map(|r| T::of(&r.result).map(|t| (r, t)))
+        .map(|(r, t)| {
             let li = labels.iter().position(|l| *l == r.meta.label).unwrap_or(0);
             Curve {
                 name: format!(
@@ -315,7 +303,7 @@ fn curves_for(runs: &[Run], procedure: &str, f: impl Fn(&Value) -> Vec<(f64, f64
                 ),
                 color: PALETTE[li % PALETTE.len()],
                 dashed: r.meta.channel % 2 == 0,
-                points: f(&r.result),
+                points: f(t),
             }
         })
         .filter(|c| !c.points.is_empty())
@@ -324,7 +312,10 @@ fn curves_for(runs: &[Run], procedure: &str, f: impl Fn(&Value) -> Vec<(f64, f64
 
 /// Bars of the harmonic profile (H2..H7 in dBc) of every tone run, grouped by order.
 fn profile_chart(runs: &[Run], png: Option<&Path>) -> Result<String> {
-    let tones: Vec<&Run> = runs.iter().filter(|r| r.meta.procedure == "tone").collect();
+    let tones: Vec<(&Run, &ToneResult)> = runs
+        .iter()
+        .filter_map(|r| ToneResult::of(&r.result).map(|t| (r, t)))
+        .collect();
     if tones.is_empty() {
         return Ok(String::new());
     }
@@ -335,7 +326,7 @@ fn profile_chart(runs: &[Run], png: Option<&Path>) -> Result<String> {
 
 fn draw_profile<DB: DrawingBackend>(
     root: &DrawingArea<DB, Shift>,
-    tones: &[&Run],
+    tones: &[(&Run, &ToneResult)],
     labels: &[String],
     orders: &[u64],
 ) -> Result<()> {
@@ -357,7 +348,7 @@ fn draw_profile<DB: DrawingBackend>(
         .draw()
         .map_err(draw_err)?;
     let w = 0.8 / tones.len() as f64;
-    for (i, r) in tones.iter().enumerate() {
+    for (i, (r, t)) in tones.iter().enumerate() {
         let li = labels.iter().position(|l| *l == r.meta.label).unwrap_or(0);
         let color = PALETTE[li % PALETTE.len()];
         let fill = if r.meta.channel % 2 == 0 {
@@ -368,10 +359,8 @@ fn draw_profile<DB: DrawingBackend>(
         let bars: Vec<Rectangle<(f64, f64)>> = orders
             .iter()
             .filter_map(|&o| {
-                let h = arr(&r.result, "harmonics")
-                    .iter()
-                    .find(|h| h.get("order").and_then(Value::as_u64) == Some(o))?;
-                let level = num(h, "level_dbc")?.max(-140.0);
+                let h = t.harmonics.iter().find(|h| h.order as u64 == o)?;
+                let level = h.level_dbc.max(-140.0);
                 let x = o as f64 - 0.4 + i as f64 * w;
                 Some(Rectangle::new([(x, -140.0), (x + w * 0.9, level)], fill))
             })
@@ -401,7 +390,7 @@ fn draw_profile<DB: DrawingBackend>(
 /// to the peak of each of 600 log-spaced slices from 10 Hz to 20 kHz) and its distortion residual
 /// over one period (the capture minus its fitted fundamental, averaged cycle by cycle at each
 /// phase, in percent of the fundamental's peak).
-fn tone_views(run: &Run) -> Option<(Points, Points)> {
+fn tone_views(run: &Run, tone: &ToneResult) -> Option<(Points, Points)> {
     use crate::analysis::spectrum::{fast_length, SpectrumPlanner};
     use crate::analysis::tone::TONE_WINDOW;
     let info = crate::capture::Capture::probe(&run.dir.join("capture.wav")).ok()?;
@@ -448,7 +437,7 @@ fn tone_views(run: &Run) -> Option<(Points, Points)> {
         spectrum.push(((f_a * f_b).sqrt(), 20.0 * peak.max(1e-9).log10()));
     }
     // Residual over one period.
-    let f0 = run.result.get("fundamental_hz")?.as_f64()?;
+    let f0 = tone.fundamental_hz;
     let (lines, dc) = crate::analysis::fit::sine_fit_time_domain(seg, &[f0 / fs])?;
     let (a, b) = lines[0];
     let peak = (a * a + b * b).sqrt();
@@ -622,55 +611,59 @@ pub fn write_report(nb: &Notebook, out: &Path) -> Result<ReportFiles> {
         }
     }
     // Charts.
-    let power = curves_for(&runs, "power", |v| {
-        arr(v, "steps")
+    let power = curves_for(&runs, |p: &PowerResult| {
+        p.steps
             .iter()
-            .filter(|s| s.get("excluded").and_then(Value::as_bool) != Some(true))
-            .filter_map(|s| Some((num(s, "output_w")?, num(s, "thd_percent")?)))
+            .filter(|s| !s.excluded)
+            .filter_map(|s| Some((s.output_w?, s.thd_percent?)))
             .collect()
     });
-    let response = curves_for(&runs, "response", |v| {
-        xy(arr(v, "points"), "frequency_hz", "magnitude_db")
-    });
-    let phase = curves_for(&runs, "response", |v| {
-        xy(arr(v, "points"), "frequency_hz", "phase_deg")
-    });
-    let h2 = curves_for(&runs, "response", |v| {
-        arr(v, "harmonics")
+    let response = curves_for(&runs, |r: &ResponseResult| {
+        r.points
             .iter()
-            .find(|h| h.get("order").and_then(Value::as_u64) == Some(2))
+            .map(|p| (p.frequency_hz, p.magnitude_db))
+            .collect()
+    });
+    let phase = curves_for(&runs, |r: &ResponseResult| {
+        r.points
+            .iter()
+            .map(|p| (p.frequency_hz, p.phase_deg))
+            .collect()
+    });
+    let h2 = curves_for(&runs, |r: &ResponseResult| {
+        r.harmonics
+            .iter()
+            .find(|h| h.order == 2)
             .map_or(Vec::new(), |h| {
-                xy(arr(h, "points"), "frequency_hz", "level_dbc")
-            })
-    });
-    let thd_f = curves_for(&runs, "response", |v| {
-        xy(arr(v, "thd"), "frequency_hz", "level_dbc")
-    });
-    // Trends (typed: the trend result is read back as itself).
-    let trend = |f: fn(&crate::analysis::blocks::TrendPoint) -> Option<f64>| {
-        curves_for(&runs, "trend", move |v| {
-            super::views::view::<crate::analysis::blocks::TrendResult>(v).map_or(Vec::new(), |t| {
-                t.points
+                h.points
                     .iter()
-                    .filter_map(|p| Some((p.at_s, f(p)?)))
+                    .map(|p| (p.frequency_hz, p.level_dbc))
                     .collect()
             })
+    });
+    let thd_f = curves_for(&runs, |r: &ResponseResult| {
+        r.thd
+            .iter()
+            .map(|p| (p.frequency_hz, p.level_dbc))
+            .collect()
+    });
+    let trend = |f: fn(&crate::analysis::blocks::TrendPoint) -> Option<f64>| {
+        curves_for(&runs, move |t: &TrendResult| {
+            t.points
+                .iter()
+                .filter_map(|p| Some((p.at_s, f(p)?)))
+                .collect()
         })
     };
     let trend_level = trend(|p| p.level_dbfs);
-    // Separation: the first undriven channel of each run (typed).
-    let separation = curves_for(&runs, "separation", |v| {
-        super::views::view::<crate::analysis::separation::SeparationResult>(v).map_or(
-            Vec::new(),
-            |s| {
-                s.channels.first().map_or(Vec::new(), |c| {
-                    c.points
-                        .iter()
-                        .map(|p| (p.frequency_hz, p.separation_db))
-                        .collect()
-                })
-            },
-        )
+    // Separation: the first undriven channel of each run.
+    let separation = curves_for(&runs, |s: &SeparationResult| {
+        s.channels.first().map_or(Vec::new(), |c| {
+            c.points
+                .iter()
+                .map(|p| (p.frequency_hz, p.separation_db))
+                .collect()
+        })
     });
     let trend_thd = trend(|p| p.thd_percent.or(p.thdn_percent));
     // Spectrum and residual of each label's left-channel tone run (the latest).
@@ -678,26 +671,26 @@ pub fn write_report(nb: &Notebook, out: &Path) -> Result<ReportFiles> {
     let mut residuals = Vec::new();
     let mut notes = Vec::new();
     for (li, label) in labels.iter().enumerate() {
-        let Some(run) = runs
+        let Some((run, tone)) = runs
             .iter()
             .rev()
-            .find(|r| r.meta.procedure == "tone" && &r.meta.label == label && r.meta.channel == 1)
+            .filter(|r| &r.meta.label == label && r.meta.channel == 1)
+            .find_map(|r| ToneResult::of(&r.result).map(|t| (r, t)))
         else {
             continue;
         };
-        let Some((spec, res)) = tone_views(run) else {
+        let Some((spec, res)) = tone_views(run, tone) else {
             continue;
         };
         let color = PALETTE[li % PALETTE.len()];
         if li == 0 {
-            let f0 = num(&run.result, "fundamental_hz").unwrap_or(1000.0);
-            let level = num(&run.result, "fundamental_dbfs").unwrap_or(0.0);
-            for h in arr(&run.result, "harmonics").iter().take(4) {
-                if let (Some(o), Some(dbc)) =
-                    (h.get("order").and_then(Value::as_u64), num(h, "level_dbc"))
-                {
-                    notes.push((o as f64 * f0 * 1.03, level + dbc + 4.0, format!("H{o}")));
-                }
+            let (f0, level) = (tone.fundamental_hz, tone.fundamental_dbfs);
+            for h in tone.harmonics.iter().take(4) {
+                notes.push((
+                    h.order as f64 * f0 * 1.03,
+                    level + h.level_dbc + 4.0,
+                    format!("H{}", h.order),
+                ));
             }
             notes.push((f0 * 1.03, level + 4.0, "fundamental".to_string()));
         }
@@ -936,7 +929,7 @@ pub fn write_report(nb: &Notebook, out: &Path) -> Result<ReportFiles> {
             escape(&r.meta.time),
             escape(&r.meta.label),
             r.meta.channel,
-            escape(&r.meta.procedure),
+            r.meta.procedure.name(),
             escape(&r.meta.notes)
         );
     }

@@ -7,7 +7,6 @@ pub mod power;
 pub mod response;
 pub mod tone;
 pub mod trend;
-pub mod views;
 
 use crate::warning::Warning;
 

@@ -63,7 +63,6 @@ pub fn run(args: &AnalyzeArgs) -> Result<ExitCode, String> {
     let mut keeper = super::Keeper::new(&args.save);
     for r in &channels {
         keeper.add(
-            "tone",
             r.channel,
             cal,
             Some(ampnote::notebook::AnalysisSettings::Tone(

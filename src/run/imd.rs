@@ -95,7 +95,7 @@ pub fn run(args: &ImdArgs) -> Result<ExitCode, String> {
         if let Some(st) = &stimulus {
             files.insert(0, ("stimulus.wav", st.as_path()));
         }
-        keeper.add("imd", r.channel, recorded_cal, None, files, r);
+        keeper.add(r.channel, recorded_cal, None, files, r);
     }
     let report = ImdReport {
         schema_version: SCHEMA_VERSION,

@@ -164,12 +164,11 @@ pub struct Keeper<'a> {
 }
 
 struct Pending {
-    procedure: String,
     channel: usize,
     calibration: ampnote::calibration::Calibration,
     analysis: Option<ampnote::notebook::AnalysisSettings>,
     files: Vec<(String, std::path::PathBuf)>,
-    result: serde_json::Value,
+    result: ampnote::results::RunResult,
 }
 
 impl<'a> Keeper<'a> {
@@ -183,18 +182,16 @@ impl<'a> Keeper<'a> {
     /// One channel's result, with the files that made it.
     pub fn add(
         &mut self,
-        procedure: &str,
         channel: usize,
         calibration: ampnote::calibration::Calibration,
         analysis: Option<ampnote::notebook::AnalysisSettings>,
         files: Vec<(&str, &Path)>,
-        result: &impl serde::Serialize,
+        result: impl Into<ampnote::results::RunResult>,
     ) {
         if self.save.notebook.is_none() {
             return;
         }
         self.pending.push(Pending {
-            procedure: procedure.to_string(),
             channel,
             calibration,
             analysis,
@@ -202,7 +199,7 @@ impl<'a> Keeper<'a> {
                 .into_iter()
                 .map(|(n, p)| (n.to_string(), p.to_path_buf()))
                 .collect(),
-            result: serde_json::to_value(result).expect("results serialize"),
+            result: result.into(),
         });
     }
 
@@ -222,7 +219,6 @@ impl<'a> Keeper<'a> {
             .map(|p| ampnote::notebook::NewRun {
                 label,
                 channel: p.channel,
-                procedure: &p.procedure,
                 notes: &self.save.note,
                 settings: settings.clone(),
                 calibration: p.calibration,

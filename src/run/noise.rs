@@ -189,14 +189,7 @@ pub fn run(args: &NoiseArgs) -> Result<ExitCode, String> {
             Ok(mut r) => {
                 r.warnings.extend(reading.iter().cloned());
                 ampnote::report::add_rig_notes(std::slice::from_mut(&mut r), &notes);
-                keeper.add(
-                    "noise",
-                    ch,
-                    cal,
-                    None,
-                    vec![("capture.wav", capture_path)],
-                    &r,
-                );
+                keeper.add(ch, cal, None, vec![("capture.wav", capture_path)], &r);
                 channels.push(r)
             }
             Err(err) => channel_errors.push(ChannelError {

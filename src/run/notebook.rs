@@ -4,6 +4,7 @@ use crate::cli::{CompareArgs, MatchArgs, NotebookAction};
 use ampnote::calibration::Profile;
 use ampnote::notebook::{Notebook, Run};
 use ampnote::report::compare::{compare as compare_runs, match_channels, MatchTolerances};
+use ampnote::results::RunResult;
 use std::path::Path;
 use std::process::ExitCode;
 
@@ -137,7 +138,7 @@ pub fn notebook(action: &NotebookAction) -> Result<ExitCode, String> {
                         r.meta.time,
                         p(&r.meta.label),
                         r.meta.channel,
-                        p(&r.meta.procedure),
+                        r.meta.procedure,
                         headline(r)
                     )
                 };
@@ -177,76 +178,9 @@ pub fn notebook(action: &NotebookAction) -> Result<ExitCode, String> {
     }
 }
 
-/// The run's one-line figure, from its result read as a typed view.
+/// The run's one-line figure.
 fn headline(r: &Run) -> String {
-    use ampnote::report::views::{view, NoiseView, PowerView, ResponseView, ToneView, ZoutView};
-    let unreadable = || format!("(its {} result does not read as one)", r.meta.procedure);
-    match r.meta.procedure.as_str() {
-        "tone" => view::<ToneView>(&r.result).map_or_else(unreadable, |t| {
-            let thd = t.thd_percent.map_or("THD not measurable".to_string(), |v| {
-                format!("THD {}{v:.3} %", if t.thd_upper_bound { "< " } else { "" })
-            });
-            let at = t.output_w.map_or_else(
-                || format!("{:.1} dBFS", t.fundamental_dbfs),
-                |w| format!("{w:.2} W"),
-            );
-            format!("{thd}, THD+N {:.3} % at {at}", t.thdn_percent)
-        }),
-        "power" => view::<PowerView>(&r.result).map_or_else(unreadable, |p| {
-            let at = p.power_at_thd.iter().find(|q| q.thd_percent == 1.0);
-            match at {
-                Some(q) => match q.output_w {
-                    Some(w) => format!("{w:.2} W at 1 % THD ({:.0} Hz)", p.frequency_hz),
-                    None => format!(
-                        "{:.1} dBFS at 1 % THD ({:.0} Hz)",
-                        q.output_dbfs, p.frequency_hz
-                    ),
-                },
-                None => format!("power: 1 % not reached ({:.0} Hz)", p.frequency_hz),
-            }
-        }),
-        "response" => view::<ResponseView>(&r.result).map_or_else(unreadable, |v| {
-            let hz =
-                |x: Option<f64>| x.map_or("beyond the sweep".to_string(), |v| format!("{v:.1} Hz"));
-            format!("-3 dB at {} and {}", hz(v.low_3db_hz), hz(v.high_3db_hz))
-        }),
-        "noise" => view::<NoiseView>(&r.result).map_or_else(unreadable, |n| {
-            format!(
-                "noise {:.1} dBFS ({:.1} A-weighted){}",
-                n.noise_dbfs,
-                n.noise_a_dbfs,
-                n.snr_a_re_1w_db
-                    .map_or(String::new(), |s| format!(", S/N {s:.1} dB(A) re 1 W"))
-            )
-        }),
-        "zout" => view::<ZoutView>(&r.result).map_or_else(unreadable, |z| {
-            format!(
-                "{:.2} ohm, damping factor {:.1}",
-                z.zout_ohms, z.damping_factor
-            )
-        }),
-        "imd" => view::<ampnote::report::views::ImdView>(&r.result)
-            .map_or_else(unreadable, |i| i.headline()),
-        "separation" => view::<ampnote::analysis::separation::SeparationResult>(&r.result)
-            .map_or_else(unreadable, |s| {
-                s.channels
-                    .iter()
-                    .map(|c| match (c.at_least_db, c.at_1khz_db, c.worst_db) {
-                        (Some(b), _, _) => format!("ch{} > {b:.0} dB", c.channel),
-                        (None, Some(k), Some(w)) => {
-                            format!("ch{} {k:.1} dB at 1 kHz, worst {w:.1} dB", c.channel)
-                        }
-                        _ => format!("ch{} -", c.channel),
-                    })
-                    .collect::<Vec<_>>()
-                    .join("; ")
-            }),
-        "dc" => view::<ampnote::procedure::dc::DcResult>(&r.result)
-            .map_or_else(unreadable, |d| d.headline()),
-        "trend" => view::<ampnote::analysis::blocks::TrendResult>(&r.result)
-            .map_or_else(unreadable, |t| t.headline()),
-        other => ampnote::notebook::printable(other),
-    }
+    r.result.headline()
 }
 
 /// Runs made on the spot from a capture file (every channel, analysed as its stimulus says).
@@ -275,15 +209,14 @@ fn runs_from_file(
     let mut out = Vec::new();
     for ch in 1..=info.channel_count {
         let cap = Capture::read_channels(path, false, Some(&[ch])).map_err(e)?;
-        let (procedure, result) =
-            analyze_capture(&cap, ch, stim.as_ref().zip(desc.as_ref()), cal, None)?;
+        let result = analyze_capture(&cap, ch, stim.as_ref().zip(desc.as_ref()), cal, None)?;
         out.push(Run {
             dir: path.to_path_buf(),
             meta: ampnote::notebook::RunMeta {
                 id: format!("{}:{ch}", path.display()),
                 label: label.to_string(),
                 channel: ch,
-                procedure: procedure.to_string(),
+                procedure: result.procedure(),
                 time: ampnote::notebook::now_utc(),
                 notes: String::new(),
                 settings: Default::default(),
@@ -430,7 +363,7 @@ pub fn analyze_capture(
     )>,
     cal: &ampnote::calibration::Calibration,
     settings: Option<&ampnote::notebook::AnalysisSettings>,
-) -> Result<(&'static str, serde_json::Value), String> {
+) -> Result<RunResult, String> {
     use ampnote::analysis::sweep::{ResponseAnalyzer, ResponseConfig, SweepParams};
     use ampnote::analysis::tone::{ChannelInput, ToneAnalyzer, ToneConfig};
     use ampnote::notebook::AnalysisSettings;
@@ -445,7 +378,6 @@ pub fn analyze_capture(
         overload_threshold: capture.encoding.overload_threshold(),
         resolution_bits: capture.encoding.resolution_bits(),
     };
-    let value = |v: serde_json::Result<serde_json::Value>| v.expect("results serialize");
     match stimulus {
         Some((s, d)) if matches!(d.kind, Kind::Sweep { .. }) => {
             let sp = SweepParams::from_description(d).ok_or("the stimulus is not a sweep")?;
@@ -460,7 +392,7 @@ pub fn analyze_capture(
                 .map_err(e)?
                 .analyze(channel, x, sp, y, fs, input.overload_threshold)
                 .map_err(e)?;
-            Ok(("response", value(serde_json::to_value(&r))))
+            Ok(r.into())
         }
         Some((s, d)) if matches!(d.kind, Kind::Steps { .. }) => {
             let Kind::Steps {
@@ -494,7 +426,7 @@ pub fn analyze_capture(
                 cal,
             )
             .map_err(e)?;
-            Ok(("power", value(serde_json::to_value(&r))))
+            Ok(r.into())
         }
         other => {
             // A tone: its steady part when the stimulus says where it is.
@@ -517,7 +449,7 @@ pub fn analyze_capture(
                 .map_err(e)?
                 .analyze(&ChannelInput { samples, ..input }, cal)
                 .map_err(e)?;
-            Ok(("tone", value(serde_json::to_value(&r))))
+            Ok(r.into())
         }
     }
 }
@@ -536,9 +468,7 @@ fn reanalyze(dir: &Path, only: &[String]) -> Result<ExitCode, String> {
             continue;
         }
         let cap_path = run.dir.join("capture.wav");
-        if !cap_path.exists()
-            || !matches!(run.meta.procedure.as_str(), "tone" | "response" | "power")
-        {
+        if !cap_path.exists() || !run.meta.procedure.reanalysable() {
             skipped.push(format!(
                 "{} ({} runs with a stored capture are re-analysed; this one is {})",
                 run.meta.id, "tone, power and response", run.meta.procedure
@@ -550,7 +480,7 @@ fn reanalyze(dir: &Path, only: &[String]) -> Result<ExitCode, String> {
     // Every run on its own core; the new results are written afterwards, in the notebook's
     // order, so the outcome is the serial one.
     let progress = ampnote::progress::Progress::new(todo.len() as u64, "runs");
-    let analysed: Vec<Result<(&str, serde_json::Value), String>> = todo
+    let analysed: Vec<Result<RunResult, String>> = todo
         .par_iter()
         .map(|run| {
             progress.message(run.meta.id.clone());
@@ -578,8 +508,8 @@ fn reanalyze(dir: &Path, only: &[String]) -> Result<ExitCode, String> {
         .collect();
     progress.finish();
     for (run, outcome) in todo.iter().zip(analysed) {
-        let (procedure, v) = outcome?;
-        if procedure != run.meta.procedure {
+        let v = outcome?;
+        if v.procedure() != run.meta.procedure {
             skipped.push(format!(
                 "{} (its stored stimulus no longer matches a {} run)",
                 run.meta.id, run.meta.procedure
@@ -635,14 +565,13 @@ fn dc(
         .save(ampnote::notebook::NewRun {
             label,
             channel,
-            procedure: "dc",
             notes: note,
             settings: std::collections::BTreeMap::new(),
             calibration: ampnote::calibration::Calibration::default(),
             analysis: None,
             files: Vec::new(),
             blobs: Vec::new(),
-            result: serde_json::to_value(&result).expect("serializes"),
+            result: (&result).into(),
         })
         .map_err(e)?;
     eprintln!("kept as {} in {}", run.meta.id, dir.display());

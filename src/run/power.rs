@@ -147,7 +147,7 @@ pub fn run(args: &PowerArgs) -> Result<ExitCode, String> {
         if let (Some(c), Some(st)) = (&args.capture, &args.stimulus) {
             files = vec![("stimulus.wav", st.as_path()), ("capture.wav", c.as_path())];
         }
-        keeper.add("power", r.channel, used, None, files, r);
+        keeper.add(r.channel, used, None, files, r);
     }
     let report = PowerReport {
         schema_version: SCHEMA_VERSION,

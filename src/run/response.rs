@@ -122,7 +122,6 @@ pub fn run(args: &ResponseArgs) -> Result<ExitCode, String> {
     let mut keeper = super::Keeper::new(&args.save);
     for r in &channels {
         keeper.add(
-            "response",
             r.channel,
             cal,
             Some(ampnote::notebook::AnalysisSettings::Response(

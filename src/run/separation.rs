@@ -216,7 +216,6 @@ pub fn run(args: &SeparationArgs) -> Result<ExitCode, String> {
     );
     let mut keeper = super::Keeper::new(&args.save);
     keeper.add(
-        "separation",
         args.driven,
         cal,
         None,

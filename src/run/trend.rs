@@ -61,7 +61,6 @@ pub fn run(args: &TrendArgs) -> Result<ExitCode, String> {
     let mut keeper = super::Keeper::new(&a.save);
     for r in &channels {
         keeper.add(
-            "trend",
             r.channel,
             cal,
             Some(ampnote::notebook::AnalysisSettings::Tone(

@@ -291,7 +291,7 @@ pub fn run(args: &ZoutArgs) -> Result<ExitCode, String> {
             ],
             _ => Vec::new(),
         };
-        keeper.add("zout", r.channel, cal, None, files, r);
+        keeper.add(r.channel, cal, None, files, r);
     }
     let report = ZoutReport {
         schema_version: SCHEMA_VERSION,

@@ -8,23 +8,24 @@ use ampnote::calibration::Calibration;
 use ampnote::notebook::{NewRun, Notebook};
 use ampnote::procedure::power::{finish, PowerStep};
 use ampnote::report::compare::{compare, CompareLine};
+use ampnote::results::RunResult;
 use std::collections::BTreeMap;
 
 const FS: f64 = 48_000.0;
 
 /// A 1 kHz tone at `dbfs` with H2 at `h2` of it, over white noise at -110 dBFS (so H4 and up
 /// are under the noise).
-fn tone(dbfs: f64, h2: f64, seed: u64) -> serde_json::Value {
+fn tone(dbfs: f64, h2: f64, seed: u64) -> RunResult {
     let a = 10f64.powf(dbfs / 20.0);
     let mut x = sines(FS, 48_000, &[(1000.0, a, 0.1), (2000.0, a * h2, 0.7)]);
     let mut rng = ampnote::signal::dither::Rng::new(seed);
     let sigma = 10f64.powf(-110.0 / 20.0) / 2f64.sqrt();
     x.iter_mut().for_each(|v| *v += sigma * rng.gaussian());
-    serde_json::to_value(analyze(&x, FS)).unwrap()
+    analyze(&x, FS).into()
 }
 
 /// A staircase at `f` whose THD is 0.5 % then 2 % at 1 and 4 W (and 1 % at 2 W).
-fn staircase(f: f64, scale: f64) -> serde_json::Value {
+fn staircase(f: f64, scale: f64) -> RunResult {
     let step = |w: f64, thd: f64| PowerStep {
         drive_dbfs: 10.0 * w.log10() - 20.0,
         output_dbfs: 10.0 * w.log10() - 20.0,
@@ -52,17 +53,16 @@ fn staircase(f: f64, scale: f64) -> serde_json::Value {
         step(2.0 * scale, 1.0 + 1e-9),
         step(4.0 * scale, 2.0),
     ];
-    serde_json::to_value(finish(1, f, 96_000.0, &cal, steps, None)).unwrap()
+    finish(1, f, 96_000.0, &cal, steps, None).into()
 }
 
-fn notebook(tag: &str, runs: &[(&str, &str, serde_json::Value)]) -> (std::path::PathBuf, Notebook) {
+fn notebook(tag: &str, runs: &[(&str, RunResult)]) -> (std::path::PathBuf, Notebook) {
     let d = tmpdir(tag);
     let nb = Notebook::init(&d.join("amp"), "amp", 1, None, None).unwrap();
-    for (label, procedure, result) in runs {
+    for (label, result) in runs {
         nb.save(NewRun {
             label,
             channel: 1,
-            procedure,
             notes: "",
             settings: BTreeMap::new(),
             calibration: Calibration::default(),
@@ -89,9 +89,9 @@ fn tone_figures_are_compared_only_at_the_same_level() {
     let (d, nb) = notebook(
         "cmp-level",
         &[
-            ("a", "tone", tone(-24.0, 0.01, 1)),
-            ("b", "tone", tone(-24.2, 0.005, 2)),
-            ("c", "tone", tone(-22.7, 0.005, 3)),
+            ("a", tone(-24.0, 0.01, 1)),
+            ("b", tone(-24.2, 0.005, 2)),
+            ("c", tone(-22.7, 0.005, 3)),
         ],
     );
     let sel = |l: &str| nb.select(l, None).unwrap();
@@ -117,10 +117,7 @@ fn tone_figures_are_compared_only_at_the_same_level() {
 fn bounds_are_shown_as_bounds_and_give_no_delta() {
     let (d, nb) = notebook(
         "cmp-bound",
-        &[
-            ("a", "tone", tone(-20.0, 0.01, 4)),
-            ("b", "tone", tone(-20.0, 1e-7, 5)),
-        ],
+        &[("a", tone(-20.0, 0.01, 4)), ("b", tone(-20.0, 1e-7, 5))],
     );
     let sel = |l: &str| nb.select(l, None).unwrap();
     let c = compare("a", &sel("a"), "b", &sel("b"));
@@ -148,10 +145,10 @@ fn staircases_are_compared_per_frequency() {
     let (d, nb) = notebook(
         "cmp-freq",
         &[
-            ("a", "power", staircase(40.0, 1.0)),
-            ("a", "power", staircase(1000.0, 1.0)),
-            ("b", "power", staircase(40.0, 2.0)),
-            ("b", "power", staircase(1000.0, 1.5)),
+            ("a", staircase(40.0, 1.0)),
+            ("a", staircase(1000.0, 1.0)),
+            ("b", staircase(40.0, 2.0)),
+            ("b", staircase(1000.0, 1.5)),
         ],
     );
     let sel = |l: &str| nb.select(l, None).unwrap();

@@ -492,7 +492,18 @@ proptest! {
         }
         let s = find_steady(&x, FS);
         prop_assert!(s.start >= nl && s.end <= nl + ns, "span {}..{} vs tone {}..{}", s.start, s.end, nl, nl + ns);
-        let r = analyze(&x, FS);
+        let input = ampnote::analysis::tone::ChannelInput {
+            channel: 1,
+            samples: &x,
+            sample_rate_hz: FS,
+            overload_threshold: 1.0,
+            resolution_bits: 53,
+        };
+        let r = ampnote::analysis::tone::ToneAnalyzer::new(ToneConfig::default())
+            .unwrap()
+            .analyze(&input, &Default::default());
+        prop_assert!(r.is_ok(), "f0 {f0} level {level_db} lead {lead} tail {tail} fade {fade}: {:?}", r.err());
+        let r = r.unwrap();
         prop_assert!((r.fundamental_dbfs - level_db).abs() < 0.02, "level {} vs {}", r.fundamental_dbfs, level_db);
     }
 }

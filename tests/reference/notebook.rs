@@ -2,7 +2,10 @@
 //! runs end to end.
 
 use super::common::{run, tmpdir};
+use ampnote::analysis::blocks::TrendResult;
 use ampnote::notebook::{NewRun, Notebook};
+use ampnote::procedure::power::PowerResult;
+use ampnote::results::{Kept, RunResult};
 use std::collections::BTreeMap;
 use std::path::Path;
 
@@ -98,18 +101,24 @@ fn runs_are_whole_and_never_overwritten() {
         Notebook::init(&d.join("amp"), "again", 2, None, None).is_err(),
         "init twice must be refused"
     );
+    // A real tone result (1 kHz at -20 dBFS with H2 at 1 %), kept under two labels.
+    let x = super::common::sines(
+        48_000.0,
+        48_000,
+        &[(1000.0, 0.1, 0.0), (2000.0, 0.001, 0.0)],
+    );
+    let tone = super::common::analyze(&x, 48_000.0);
     let save = |label: &str| {
         nb.save(NewRun {
             label,
             channel: 1,
-            procedure: "tone",
             notes: "",
             settings: BTreeMap::new(),
             calibration: Default::default(),
             analysis: None,
             files: vec![],
             blobs: vec![("capture.wav", vec![1, 2, 3])],
-            result: serde_json::json!({"thd_percent": 1.0}),
+            result: (&tone).into(),
         })
         .unwrap()
     };
@@ -132,11 +141,14 @@ fn runs_are_whole_and_never_overwritten() {
         runs.iter().map(|r| &r.meta.id).collect::<Vec<_>>()
     );
     // Re-analysis keeps the old result beside the new.
-    let newer = nb
-        .add_result(&runs[0], &serde_json::json!({"thd_percent": 0.5}))
-        .unwrap();
+    let mut again = tone.clone();
+    again.thd_percent = Some(0.5);
+    let newer = nb.add_result(&runs[0], &again.into()).unwrap();
     assert!(newer.exists() && runs[0].dir.join("result.json").exists());
-    assert_eq!(nb.runs().unwrap()[0].result["thd_percent"], 0.5);
+    let RunResult::Tone(t) = &nb.runs().unwrap()[0].result else {
+        panic!("a tone run reads back as a tone result");
+    };
+    assert_eq!(t.thd_percent, Some(0.5));
     // Not a notebook; a channel outside it.
     assert!(Notebook::open(&d)
         .unwrap_err()
@@ -162,30 +174,22 @@ fn demo_runs_end_to_end() {
     // The cold start's trend: the simulated gain starts 2 dB low and settles as e^(-t / 6 s), so
     // the level moves by 2 (e^(-t1/6) - e^(-t2/6)) dB between the first and last block's middles
     // (closed form of the invented warm-up; 0.15 dB for the amplifier's own compression at 1 W).
-    let trend = runs.iter().find(|r| r.meta.procedure == "trend").unwrap();
-    let t: ampnote::analysis::blocks::TrendResult =
-        serde_json::from_value(trend.result.clone()).unwrap();
+    let t = runs
+        .iter()
+        .find_map(|r| TrendResult::of(&r.result))
+        .unwrap();
     let (t1, t2) = (t.points[0].at_s + 0.5, t.points.last().unwrap().at_s + 0.5);
     let expected = 2.0 * ((-t1 / 6.0f64).exp() - (-t2 / 6.0f64).exp());
     let got = t.drift.level_db.as_ref().unwrap().change;
     assert!((got - expected).abs() < 0.15, "{got} vs {expected}");
     // The invented amplifier is stable: no tone or noise run reports an oscillation.
-    #[derive(serde::Deserialize)]
-    struct Checked {
-        #[serde(default)]
-        oscillations: Vec<ampnote::analysis::oscillation::Oscillation>,
-    }
-    for r in runs
-        .iter()
-        .filter(|r| matches!(r.meta.procedure.as_str(), "tone" | "noise"))
-    {
-        let c: Checked = serde_json::from_value(r.result.clone()).unwrap();
-        assert!(
-            c.oscillations.is_empty(),
-            "{}: {:?}",
-            r.meta.id,
-            c.oscillations
-        );
+    for r in &runs {
+        let found = match &r.result {
+            RunResult::Tone(t) => &t.oscillations,
+            RunResult::Noise(n) => &n.oscillations,
+            _ => continue,
+        };
+        assert!(found.is_empty(), "{}: {:?}", r.meta.id, found);
     }
     // The rework lowers the second harmonic (its driver cancels part of it): power at 1 % rises.
     let (_, cmp, _) = run(&[
@@ -222,8 +226,8 @@ fn demo_runs_end_to_end() {
         .runs()
         .unwrap()
         .iter()
-        .filter(|r| r.meta.procedure == "power")
-        .map(|r| r.result["power_at_thd"][0]["output_w"].as_f64().unwrap())
+        .filter_map(|r| PowerResult::of(&r.result))
+        .map(|p| p.power_at_thd[0].output_w.unwrap())
         .collect();
     let (code, o, err) = run(&[
         "notebook",
@@ -236,8 +240,8 @@ fn demo_runs_end_to_end() {
         .runs()
         .unwrap()
         .iter()
-        .filter(|r| r.meta.procedure == "power")
-        .map(|r| r.result["power_at_thd"][0]["output_w"].as_f64().unwrap())
+        .filter_map(|r| PowerResult::of(&r.result))
+        .map(|p| p.power_at_thd[0].output_w.unwrap())
         .collect();
     for (x, y) in before.iter().zip(&after) {
         assert!((x / y - 1.0).abs() < 1e-3, "re-analysed power {y} vs {x}");
@@ -340,17 +344,18 @@ fn a_write_that_fails_half_way_leaves_the_notebook_intact() {
     // it, the half-written folder is removed, and the notebook lists what it listed before.
     let d = tmpdir("nbfail");
     let nb = Notebook::init(&d.join("amp"), "test amp", 1, None, None).unwrap();
+    let x = super::common::sines(48_000.0, 48_000, &[(1000.0, 0.1, 0.0)]);
+    let tone = super::common::analyze(&x, 48_000.0);
     let good = |blobs: Vec<(&'static str, Vec<u8>)>| NewRun {
         label: "x",
         channel: 1,
-        procedure: "tone",
         notes: "",
         settings: BTreeMap::new(),
         calibration: Default::default(),
         analysis: None,
         files: vec![],
         blobs,
-        result: serde_json::json!({}),
+        result: (&tone).into(),
     };
     nb.save(good(vec![("capture.wav", vec![0; 10])])).unwrap();
     let err = nb.save(good(vec![
@@ -373,5 +378,115 @@ fn a_write_that_fails_half_way_leaves_the_notebook_intact() {
         .unwrap_err()
         .to_string()
         .contains("channel 2 is not in this notebook"));
+    std::fs::remove_dir_all(&d).ok();
+}
+
+#[test]
+fn runs_kept_by_older_versions_read_back_typed() {
+    // A tone run as an older version kept it: warnings as bare strings, and without the fields
+    // added later (the steady span, the level's sigma, the oscillation checks). It reads back as
+    // a tone result with its figures intact and its warnings coded `unclassified`; a result that
+    // does not read as its procedure's is listed as damaged with serde's reason, never dropped.
+    let d = tmpdir("nbold");
+    let nb = Notebook::init(&d.join("amp"), "old amp", 1, None, None).unwrap();
+    let x = super::common::sines(
+        48_000.0,
+        48_000,
+        &[(1000.0, 0.1, 0.0), (2000.0, 0.001, 0.0)],
+    );
+    let tone = super::common::analyze(&x, 48_000.0);
+    let kept = nb
+        .save(NewRun {
+            label: "old",
+            channel: 1,
+            notes: "",
+            settings: BTreeMap::new(),
+            calibration: Default::default(),
+            analysis: None,
+            files: vec![],
+            blobs: vec![],
+            result: (&tone).into(),
+        })
+        .unwrap();
+    let path = kept.dir.join("result.json");
+    let mut v: serde_json::Value =
+        serde_json::from_str(&std::fs::read_to_string(&path).unwrap()).unwrap();
+    let o = v.as_object_mut().unwrap();
+    for later in [
+        "analysed_from_s",
+        "analysed_to_s",
+        "level_drift_db",
+        "fundamental_sigma_db",
+        "thd_upper_bound",
+        "oscillations",
+        "oscillation_search",
+    ] {
+        o.remove(later);
+    }
+    o.insert(
+        "warnings".into(),
+        serde_json::json!(["short capture (0.100 s): record 1 s or more."]),
+    );
+    std::fs::write(&path, serde_json::to_string(&v).unwrap()).unwrap();
+    let runs = nb.runs().unwrap();
+    let RunResult::Tone(t) = &runs[0].result else {
+        panic!("an older tone run reads back as a tone result");
+    };
+    assert_eq!(t.thd_percent, tone.thd_percent);
+    assert_eq!(t.fundamental_dbfs, tone.fundamental_dbfs);
+    assert_eq!(t.warnings.len(), 1);
+    assert_eq!(
+        t.warnings[0].code,
+        ampnote::warning::WarningCode::Unclassified
+    );
+    assert!(t.warnings[0].message.starts_with("short capture"));
+    // A result that is not the procedure's: damaged, with the reason.
+    std::fs::write(&path, r#"{"zout_ohms": 1.0}"#).unwrap();
+    let scan = nb.scan().unwrap();
+    assert!(scan.runs.is_empty());
+    assert_eq!(scan.damaged.len(), 1);
+    assert!(
+        scan.damaged[0]
+            .reason
+            .contains("does not read as a tone result"),
+        "{}",
+        scan.damaged[0].reason
+    );
+    std::fs::remove_dir_all(&d).ok();
+}
+
+#[test]
+fn warnings_carry_a_stable_code_in_json() {
+    // A clipped tone: the overload warning carries the code `input-overload` beside its message
+    // in the JSON (schema 4), and reads back typed.
+    let d = tmpdir("wcode");
+    let x: Vec<f64> = super::common::sines(48_000.0, 48_000, &[(1000.0, 1.2, 0.0)])
+        .into_iter()
+        .map(|v| v.clamp(-1.0, 1.0))
+        .collect();
+    let p = d.join("clipped.wav");
+    ampnote::signal::wav::write_wav(
+        &p,
+        48_000,
+        &[x],
+        ampnote::signal::wav::WavFormat::Float32,
+        1,
+    )
+    .unwrap();
+    let (code, out, err) = run(&["analyze", &p.to_string_lossy(), "--json"]);
+    assert_eq!(code, 0, "{err}");
+    let raw: serde_json::Value = serde_json::from_str(&out).unwrap();
+    assert_eq!(raw["schema_version"], 4);
+    assert!(
+        out.contains("\"code\": \"input-overload\""),
+        "the code is written in kebab-case beside the message"
+    );
+    let r: ampnote::report::tone::AnalyzeReport = serde_json::from_str(&out).unwrap();
+    let w = r.channels[0]
+        .warnings
+        .iter()
+        .find(|w| w.code == ampnote::warning::WarningCode::InputOverload)
+        .expect("an overload warning");
+    assert!(w.message.contains("input overload"), "{}", w.message);
     std::fs::remove_dir_all(&d).ok();
 }
