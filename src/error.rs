@@ -118,14 +118,62 @@ pub enum Error {
     #[error("invalid setting: {0}")]
     InvalidSetting(String),
 
-    #[error("live rig: {0}")]
-    Rig(String),
+    #[error("the two tones ({low_hz:.1} and {high_hz:.1} Hz) are too close to separate in this capture; record longer (the lines need a few bins between them), or space the tones further apart.")]
+    TonesNotSeparable { low_hz: f64, high_hz: f64 },
+
+    #[error("cannot tell which two-tone method this capture follows (strongest lines at {low_hz:.1} and {high_hz:.1} Hz, amplitude ratio {ratio:.2}); give the stimulus with --stimulus.")]
+    TwoToneMethodUnknown {
+        low_hz: f64,
+        high_hz: f64,
+        ratio: f64,
+    },
+
+    #[error(
+        "{dir} is not a notebook (no notebook.toml); create one with `ampnote notebook init {dir}`"
+    )]
+    NotANotebook { dir: PathBuf },
+
+    #[error("{dir} is already a notebook; open it with --notebook {dir}")]
+    AlreadyANotebook { dir: PathBuf },
+
+    #[error("no run labelled `{label}`{on} in {dir}; it holds: {holds}", on = channel.map_or(String::new(), |c| format!(" on channel {c}")))]
+    NoSuchRun {
+        label: String,
+        channel: Option<usize>,
+        dir: PathBuf,
+        /// The labels (and channels) the notebook does hold.
+        holds: String,
+    },
+
+    #[error("channel {channel} is not in this notebook (channels 1..{channels})")]
+    ChannelNotInNotebook { channel: usize, channels: usize },
+
+    #[error("the two readings ({a:.6} and {b:.6}) do not differ enough to give an output impedance: use loads further apart (the rated load and about twice it), or a higher level.")]
+    ReadingsTooClose { a: f64, b: f64 },
+
+    /// The audio interface or its server failed. `retryable`: a transient fault (a stalled
+    /// stream, a gap, a busy device) that running the command again may clear.
+    #[error("audio interface: {detail}{}", if *retryable { " (this can be transient: run the command again; if it persists, close other audio programs or raise the buffer size)" } else { "" })]
+    Device { detail: String, retryable: bool },
 
     #[error("report: {0}")]
     Report(String),
 
     #[error("stopped by Ctrl-C (the output was silenced first){0}")]
     Interrupted(String),
+}
+
+impl Error {
+    /// The process exit code this error ends a command with: 3 for the audio interface (a
+    /// device or rig fault), 130 for Ctrl-C (the shells' convention for an interrupt), 2 for
+    /// everything the user gave (usage and input).
+    pub fn exit_code(&self) -> u8 {
+        match self {
+            Error::Device { .. } => 3,
+            Error::Interrupted(_) => 130,
+            _ => 2,
+        }
+    }
 }
 
 /// Shorthand used across the library.

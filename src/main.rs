@@ -1,5 +1,6 @@
 //! The `ampnote` binary: parse, build a validated configuration, call the library, render, and
-//! map the outcome to an exit code (0 success, 1 a requested check failed, 2 usage or input error).
+//! map the outcome to an exit code (0 success, 1 a requested check failed, 2 usage or input error,
+//! 3 the audio interface or rig failed, 130 stopped by Ctrl-C).
 
 mod cli;
 mod run;
@@ -41,9 +42,9 @@ fn main() -> ExitCode {
     };
     match outcome {
         Ok(code) => code,
-        Err(msg) => {
-            eprintln!("error: {msg}");
-            ExitCode::from(2)
+        Err(failure) => {
+            eprintln!("error: {failure}");
+            ExitCode::from(failure.code)
         }
     }
 }

@@ -116,29 +116,36 @@ fn on_jack(args: &[&str], patched: bool) -> (i32, String) {
 
 #[test]
 fn bad_requests_name_what_is_there() {
-    let cases: [(&[&str], bool, &[&str]); 5] = [
+    // Exit codes: 3 for what the interface or its server does (a device not there, a rate it
+    // refuses, a signal that does not come back), 2 for what the user typed (a host name the
+    // build lacks, a level that would clip the input).
+    let cases: [(&[&str], bool, i32, &[&str]); 5] = [
         // A device that is not there: the error lists the ones that are.
         (
             &["analyze", "--rig", "card:no-such-box"],
             true,
+            3,
             &["no output device matches `no-such-box`", "jack:output"],
         ),
         // A host that is not in the build.
         (
             &["analyze", "--rig", "card", "--host", "no-such-host"],
             true,
+            2,
             &["no audio host called `no-such-host`"],
         ),
         // A rate the server refuses (it runs at 48 kHz): the error says what it offers.
         (
             &["analyze", "--rig", "card", "--rate", "96000"],
             true,
+            3,
             &["refuses 96000 Hz", "48000 Hz"],
         ),
         // Nothing patched: the pre-flight chirp does not come back, nothing loud is played.
         (
             &["analyze", "--rig", "card"],
             false,
+            3,
             &["did not come back on input 1"],
         ),
         // A stimulus louder than the interface input takes (a 0 dBFS sine through a gain of 1
@@ -146,12 +153,13 @@ fn bad_requests_name_what_is_there() {
         (
             &["analyze", "--rig", "card", "--level", "0"],
             true,
+            2,
             &["would reach"],
         ),
     ];
-    for (args, patched, needles) in cases {
+    for (args, patched, want, needles) in cases {
         let (code, err) = on_jack(args, patched);
-        assert_eq!(code, 2, "{args:?}: {err}");
+        assert_eq!(code, want, "{args:?}: {err}");
         for n in needles {
             assert!(err.contains(n), "{args:?}: message lacks `{n}`: {err}");
         }

@@ -135,11 +135,10 @@ fn analyze_spectrum(
     let f_high = refine_frequency(spec, n, &TONE_WINDOW, k_high as f64, &[]);
     let d = f_high - f_low;
     if d < 2.0 * GUARD_BINS {
-        return Err(Error::InvalidSetting(format!(
-            "the two tones ({:.1} and {:.1} Hz) are too close to separate in this capture; record longer",
-            f_low * bin,
-            f_high * bin
-        )));
+        return Err(Error::TonesNotSeparable {
+            low_hz: f_low * bin,
+            high_hz: f_high * bin,
+        });
     }
     let named: Vec<(&str, f64)> = match method {
         TwoToneMethod::Modulation => vec![
@@ -177,10 +176,9 @@ fn analyze_spectrum(
         }
     }
     let freqs: Vec<f64> = kept.iter().map(|k| k.1).collect();
-    let fit = fit_lines(spec, n, &TONE_WINDOW, &freqs).ok_or_else(|| {
-        Error::InvalidSetting(
-            "the two-tone lines could not be separated; record a longer capture".into(),
-        )
+    let fit = fit_lines(spec, n, &TONE_WINDOW, &freqs).ok_or(Error::TonesNotSeparable {
+        low_hz: f_low * bin,
+        high_hz: f_high * bin,
     })?;
     let model = fit.full_model();
     let scale = 2.0 / (n as f64 * n as f64 * TONE_WINDOW.mean_square());
@@ -397,8 +395,10 @@ fn detect_pair(
             "detected",
         ))
     } else {
-        Err(Error::InvalidSetting(format!(
-            "cannot tell which two-tone method this capture follows (strongest lines at bins {k_low} and {k_high}, ratio {ratio:.2}); give the stimulus with --stimulus"
-        )))
+        Err(Error::TwoToneMethodUnknown {
+            low_hz: k_low as f64 * bin,
+            high_hz: k_high as f64 * bin,
+            ratio,
+        })
     }
 }

@@ -194,11 +194,9 @@ impl Notebook {
     ) -> Result<Notebook> {
         let file = dir.join("notebook.toml");
         if file.exists() {
-            return Err(Error::InvalidSetting(format!(
-                "{} is already a notebook; open it with --notebook {}",
-                dir.display(),
-                dir.display()
-            )));
+            return Err(Error::AlreadyANotebook {
+                dir: dir.to_path_buf(),
+            });
         }
         if channels == 0 {
             return Err(Error::InvalidSetting(
@@ -233,12 +231,8 @@ impl Notebook {
     /// Open an existing notebook.
     pub fn open(dir: &Path) -> Result<Notebook> {
         let file = dir.join("notebook.toml");
-        let text = std::fs::read_to_string(&file).map_err(|_| {
-            Error::InvalidSetting(format!(
-                "{} is not a notebook (no notebook.toml); create one with `ampnote notebook init {}`",
-                dir.display(),
-                dir.display()
-            ))
+        let text = std::fs::read_to_string(&file).map_err(|_| Error::NotANotebook {
+            dir: dir.to_path_buf(),
         })?;
         let info: NotebookInfo = toml::from_str(&text).map_err(|e| {
             Error::InvalidSetting(format!("{}: {}", file.display(), e.to_string().trim()))
@@ -281,10 +275,10 @@ impl Notebook {
         for run in &runs_in {
             check_label(run.label)?;
             if run.channel == 0 || run.channel > self.info.channels {
-                return Err(Error::InvalidSetting(format!(
-                    "channel {} is not in this notebook (channels 1..{})",
-                    run.channel, self.info.channels
-                )));
+                return Err(Error::ChannelNotInNotebook {
+                    channel: run.channel,
+                    channels: self.info.channels,
+                });
             }
         }
         let runs = self.dir.join("runs");
@@ -560,17 +554,16 @@ impl Notebook {
                 .collect();
             labels.sort();
             labels.dedup();
-            return Err(Error::InvalidSetting(format!(
-                "no run labelled `{}`{} in {}; it holds: {}",
-                printable(label),
-                channel.map_or(String::new(), |c| format!(" on channel {c}")),
-                self.dir.display(),
-                if labels.is_empty() {
+            return Err(Error::NoSuchRun {
+                label: printable(label),
+                channel,
+                dir: self.dir.clone(),
+                holds: if labels.is_empty() {
                     "no runs yet".to_string()
                 } else {
                     labels.join(", ")
-                }
-            )));
+                },
+            });
         }
         Ok(chosen)
     }

@@ -16,9 +16,7 @@ pub fn two_load(v1: f64, r1: f64, v2: f64, r2: f64) -> Result<f64> {
     check_loads(r1, r2)?;
     let den = v1 / r1 - v2 / r2;
     if den.abs() < 1e-300 {
-        return Err(Error::InvalidSetting(
-            "the two readings do not differ enough to give an impedance".into(),
-        ));
+        return Err(Error::ReadingsTooClose { a: v1, b: v2 });
     }
     Ok((v2 - v1) / den)
 }

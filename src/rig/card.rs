@@ -22,7 +22,18 @@ use std::time::{Duration, Instant};
 use super::{catch_interrupt, interrupted};
 
 fn rig_error(text: impl Into<String>) -> Error {
-    Error::Rig(text.into())
+    Error::Device {
+        detail: text.into(),
+        retryable: false,
+    }
+}
+
+/// A fault that running again may clear: a stalled stream, a gap, a busy device.
+fn transient(text: impl Into<String>) -> Error {
+    Error::Device {
+        detail: text.into(),
+        retryable: true,
+    }
 }
 
 /// The host by name (`alsa`, `jack`, ...), or the system's default.
@@ -43,7 +54,8 @@ pub fn host_by_name(name: Option<&str>) -> Result<cpal::Host> {
         .find(|h| h.name().eq_ignore_ascii_case(name))
         .copied()
         .ok_or_else(|| {
-            rig_error(format!(
+            // A name the build does not know is a typo in the flag (usage), not a device fault.
+            Error::InvalidSetting(format!(
                 "no audio host called `{name}` in this build; available here: {}",
                 names()
             ))
@@ -531,9 +543,9 @@ impl CardRig {
             _ => build_input::<f32>(&self.in_dev, icfg, in_prod, shared.clone()),
         }?;
         i.play()
-            .map_err(|e| rig_error(format!("cannot start the input stream: {e}")))?;
+            .map_err(|e| transient(format!("cannot start the input stream: {e}")))?;
         o.play()
-            .map_err(|e| rig_error(format!("cannot start the output stream: {e}")))?;
+            .map_err(|e| transient(format!("cannot start the output stream: {e}")))?;
         let buffer_frames = i.buffer_size().ok();
         if self.opts.self_patch {
             jack_self_patch(&self.opts.outputs, &self.opts.inputs)?;
@@ -623,7 +635,7 @@ impl CardRig {
             if let Some(why) = watchdog.check(&sh) {
                 sh.stop_run();
                 let kept = keep_partial(&keep_dir, &caps, rate, "failed");
-                return Err(rig_error(format!("{why}{kept}")));
+                return Err(transient(format!("{why}{kept}")));
             }
             std::thread::sleep(Duration::from_millis(2));
         }
@@ -893,7 +905,7 @@ impl Rig for CardRig {
                 break Ok(());
             }
             if let Some(why) = watchdog.check(&sh) {
-                break Err(rig_error(why));
+                break Err(transient(why));
             }
             std::thread::sleep(Duration::from_millis(5));
         };
@@ -954,7 +966,7 @@ impl Rig for CardRig {
                     if attempt == 0 {
                         eprintln!("live: channel {channel}: {why}{kept}; retrying once");
                     } else {
-                        return Err(rig_error(format!(
+                        return Err(transient(format!(
                             "channel {channel}: {why}, again on the retry{kept}"
                         )));
                     }

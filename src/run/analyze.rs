@@ -1,5 +1,6 @@
 //! `ampnote analyze`: read a capture one channel at a time, analyse, render.
 
+use super::Failure;
 use crate::cli::AnalyzeArgs;
 use ampnote::analysis::blocks;
 use ampnote::analysis::tone::ToneAnalyzer;
@@ -8,12 +9,12 @@ use ampnote::report::tone::{AnalyzeReport, ChannelError};
 use ampnote::report::SCHEMA_VERSION;
 use std::process::ExitCode;
 
-pub fn run(args: &AnalyzeArgs) -> Result<ExitCode, String> {
+pub fn run(args: &AnalyzeArgs) -> Result<ExitCode, Failure> {
     super::check_save(&args.save)?;
     let config = args.tone_config()?;
     let cal = args.calibration.resolve(&args.save)?;
     let channel = args.channel_choice()?;
-    let analyzer = ToneAnalyzer::new(config).map_err(|e| e.to_string())?;
+    let analyzer = ToneAnalyzer::new(config)?;
     let recorded = super::capture_or_record(
         &args.capture,
         &args.rig,
@@ -29,8 +30,8 @@ pub fn run(args: &AnalyzeArgs) -> Result<ExitCode, String> {
     let cal = recorded.calibration_or(cal);
     let notes = recorded.notes;
     let capture_path = recorded.capture.as_path();
-    let info = Capture::probe(capture_path).map_err(|e| e.to_string())?;
-    let chosen = select_channels(info.channel_count, channel).map_err(|e| e.to_string())?;
+    let info = Capture::probe(capture_path)?;
+    let chosen = select_channels(info.channel_count, channel)?;
 
     // Channels in parallel; a long capture one channel at a time in compact storage, its blocks
     // in parallel (see ampnote::analysis::blocks).
@@ -41,8 +42,7 @@ pub fn run(args: &AnalyzeArgs) -> Result<ExitCode, String> {
         args.accept_truncated,
         |input| analyzer.analyze(input, &cal),
         |input| blocks::tone(&analyzer, input, &cal, blocks::BLOCK_SAMPLES),
-    )
-    .map_err(|e| e.to_string())?;
+    )?;
     let (frames, truncated) = (run.frames, run.truncated);
     let reading = run.reading_warnings(&info);
     let mut channels = Vec::new();

@@ -1,6 +1,7 @@
 //! `ampnote calibrate`: walk the user through building a calibration profile, or take every
 //! value as a flag.
 
+use super::Failure;
 use crate::cli::CalibrateArgs;
 use ampnote::analysis::tone::{ChannelInput, ToneAnalyzer, ToneConfig};
 use ampnote::calibration::{
@@ -61,7 +62,7 @@ const LOAD: Range = Range {
     unit: "ohm",
 };
 
-fn ask(prompt: &str, allowed: bool, range: Range) -> Result<Option<f64>, String> {
+fn ask(prompt: &str, allowed: bool, range: Range) -> Result<Option<f64>, Failure> {
     if !allowed {
         return Ok(None);
     }
@@ -98,12 +99,11 @@ fn tone_reading(
     rate: f64,
     overload: f64,
     bits: u32,
-) -> Result<ampnote::analysis::tone::ToneResult, String> {
+) -> Result<ampnote::analysis::tone::ToneResult, Failure> {
     ToneAnalyzer::new(ToneConfig {
         fundamental_hint_hz: Some(997.0),
         ..ToneConfig::default()
-    })
-    .map_err(|e| e.to_string())?
+    })?
     .analyze(
         &ChannelInput {
             channel: 1,
@@ -114,7 +114,7 @@ fn tone_reading(
         },
         &Calibration::default(),
     )
-    .map_err(|e| e.to_string())
+    .map_err(Failure::from)
 }
 
 /// Play the calibration tone through the live rig's channel 1, looped straight back: the reading,
@@ -122,7 +122,7 @@ fn tone_reading(
 fn live_loopback(
     args: &CalibrateArgs,
     ask_meter: bool,
-) -> Result<(ampnote::analysis::tone::ToneResult, Option<f64>), String> {
+) -> Result<(ampnote::analysis::tone::ToneResult, Option<f64>), Failure> {
     let spec = args.rig.rig.as_deref().unwrap_or_default();
     if !spec.starts_with("card") {
         return Err("calibrate measures the interface itself: use --rig card with the interface output wired straight to its input (no amplifier)".into());
@@ -144,9 +144,7 @@ fn live_loopback(
         let tone: Vec<f64> = (0..3 * rate as usize)
             .map(|i| amp * (w * i as f64).sin())
             .collect();
-        let y = rig
-            .play_and_record(1, &tone, rate)
-            .map_err(|e| e.to_string())?;
+        let y = rig.play_and_record(1, &tone, rate)?;
         let r = tone_reading(&y[rate as usize / 2..], rate as f64, overload, bits)?;
         return Ok((r, None));
     }
@@ -179,7 +177,7 @@ fn live_loopback(
             Err(_) => true,
         }
     })
-    .map_err(|e| e.to_string())?;
+    ?;
     let typed = typed.unwrap_or(Ok(None))?;
     if last.is_empty() {
         return Err("the loopback delivered no reading; nothing was written".into());
@@ -188,7 +186,7 @@ fn live_loopback(
     Ok((r, typed))
 }
 
-pub fn run(args: &CalibrateArgs) -> Result<ExitCode, String> {
+pub fn run(args: &CalibrateArgs) -> Result<ExitCode, Failure> {
     eprintln!("{SAFETY}");
     let interactive = !args.no_prompt && std::io::stdin().is_terminal();
     if let Some(path) = &args.tone {
@@ -201,7 +199,7 @@ pub fn run(args: &CalibrateArgs) -> Result<ExitCode, String> {
             tail_s: 0.0,
             fade_s: 0.05,
         };
-        let s = stimulus::tone(&c, 997.0, 30.0).map_err(|e| e.to_string())?;
+        let s = stimulus::tone(&c, 997.0, 30.0)?;
         write_wav_described(
             path,
             48_000,
@@ -209,8 +207,7 @@ pub fn run(args: &CalibrateArgs) -> Result<ExitCode, String> {
             WavFormat::Int { bits: 24 },
             1,
             Some(&s.description.to_json()),
-        )
-        .map_err(|e| e.to_string())?;
+        )?;
         eprintln!(
             "wrote {}: 997 Hz at {TONE_DBFS} dBFS. Play it with the interface output unconnected to the amplifier, read the output with a true-RMS meter, and record it looped straight back into the input.",
             path.display()
@@ -239,7 +236,7 @@ pub fn run(args: &CalibrateArgs) -> Result<ExitCode, String> {
         (Some(_), Some(_)) => return Err("give --loopback FILE or --rig card, not both".into()),
         (Some(_), None) => Some(live_loopback(args, meter.is_none() && interactive)?),
         (None, Some(path)) => {
-            let cap = Capture::read_channels(path, false, Some(&[1])).map_err(|e| e.to_string())?;
+            let cap = Capture::read_channels(path, false, Some(&[1]))?;
             let r = tone_reading(
                 &cap.channels[0],
                 cap.sample_rate_hz as f64,
@@ -329,9 +326,10 @@ pub fn run(args: &CalibrateArgs) -> Result<ExitCode, String> {
                 )
             } else {
                 err.to_string()
-            });
+            }
+            .into());
         }
-        Err(err) => return Err(err.to_string()),
+        Err(err) => return Err(err.into()),
     };
     let mut missing = Vec::new();
     if cal.input_fs_vrms.is_none() {
@@ -344,7 +342,7 @@ pub fn run(args: &CalibrateArgs) -> Result<ExitCode, String> {
         "# ampnote calibration profile (format: calibration/README.md)\n{}",
         profile.to_toml()
     );
-    ampnote::files::write_whole(&args.out, text.as_bytes()).map_err(|e| e.to_string())?;
+    ampnote::files::write_whole(&args.out, text.as_bytes())?;
     eprintln!("wrote {}", args.out.display());
     if !missing.is_empty() {
         eprintln!(

@@ -1,19 +1,19 @@
 //! `ampnote generate`: make a stimulus and write it, with its description, whole or not at all.
 
+use super::Failure;
 use crate::cli::GenerateKind;
 use ampnote::signal::stimulus;
 use ampnote::signal::wav::write_wav_described;
 use std::process::ExitCode;
 
-pub fn run(kind: &GenerateKind) -> Result<ExitCode, String> {
-    let e = |err: ampnote::Error| err.to_string();
+pub fn run(kind: &GenerateKind) -> Result<ExitCode, Failure> {
     let (stim, common) = match kind {
         GenerateKind::Tone {
             freq,
             seconds,
             common,
         } => (
-            stimulus::tone(&common.common(0.01)?, *freq, *seconds).map_err(e)?,
+            stimulus::tone(&common.common(0.01)?, *freq, *seconds)?,
             common,
         ),
         GenerateKind::Steps {
@@ -38,8 +38,7 @@ pub fn run(kind: &GenerateKind) -> Result<ExitCode, String> {
                 *step,
                 *dwell,
                 *settle,
-            )
-            .map_err(e)?,
+            )?,
             common,
         ),
         GenerateKind::Sweep {
@@ -50,7 +49,7 @@ pub fn run(kind: &GenerateKind) -> Result<ExitCode, String> {
         } => {
             let to = to.unwrap_or(stimulus::default_sweep_stop_hz(common.rate));
             (
-                stimulus::sweep(&common.common(0.0)?, *from, to, *seconds).map_err(e)?,
+                stimulus::sweep(&common.common(0.0)?, *from, to, *seconds)?,
                 common,
             )
         }
@@ -71,8 +70,7 @@ pub fn run(kind: &GenerateKind) -> Result<ExitCode, String> {
                 high.unwrap_or(dh),
                 ratio.unwrap_or(dr),
                 *seconds,
-            )
-            .map_err(e)?;
+            )?;
             (s, common)
         }
     };
@@ -85,8 +83,7 @@ pub fn run(kind: &GenerateKind) -> Result<ExitCode, String> {
         format,
         common.seed,
         Some(&d.to_json()),
-    )
-    .map_err(e)?;
+    )?;
     eprintln!(
         "wrote {}: {:.3} s, {} Hz, {} channel(s) (signal on {:?}), {:.1} dBFS",
         common.out.display(),

@@ -1,19 +1,18 @@
 //! `ampnote imd`: intermodulation from a two-tone capture.
 
+use super::Failure;
 use crate::cli::{channel_choice, ImdArgs};
 use ampnote::analysis::blocks;
 use ampnote::analysis::imd::{ImdAnalyzer, PairHint};
 use ampnote::capture::{select_channels, Capture};
-use ampnote::error::Error;
 use ampnote::report::imd::ImdReport;
 use ampnote::report::tone::ChannelError;
 use ampnote::report::SCHEMA_VERSION;
 use ampnote::signal::stimulus::Kind;
 use std::process::ExitCode;
 
-pub fn run(args: &ImdArgs) -> Result<ExitCode, String> {
+pub fn run(args: &ImdArgs) -> Result<ExitCode, Failure> {
     super::check_save(&args.save)?;
-    let e = |err: Error| err.to_string();
     let cal = args.calibration.resolve(&args.save)?;
     let recorded = super::capture_or_record(
         &args.capture,
@@ -60,8 +59,8 @@ pub fn run(args: &ImdArgs) -> Result<ExitCode, String> {
         }
         None => None,
     };
-    let info = Capture::probe(capture_path).map_err(e)?;
-    let chosen = select_channels(info.channel_count, channel_choice(&args.channel)?).map_err(e)?;
+    let info = Capture::probe(capture_path)?;
+    let chosen = select_channels(info.channel_count, channel_choice(&args.channel)?)?;
     let analyzer = ImdAnalyzer::new();
     let mut channels = Vec::new();
     let mut channel_errors = Vec::new();
@@ -72,8 +71,7 @@ pub fn run(args: &ImdArgs) -> Result<ExitCode, String> {
         args.accept_truncated,
         |input| analyzer.analyze(input, hint),
         |input| blocks::imd(&analyzer, input, hint, blocks::BLOCK_SAMPLES),
-    )
-    .map_err(e)?;
+    )?;
     let reading = run.reading_warnings(&info);
     for (ch, result) in run.channels {
         match result {

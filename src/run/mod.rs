@@ -22,7 +22,7 @@ use std::path::Path;
 use std::process::ExitCode;
 
 /// `ampnote devices`: the audio hosts and interfaces the live rig can use.
-pub fn devices(json: bool) -> Result<ExitCode, String> {
+pub fn devices(json: bool) -> Result<ExitCode, Failure> {
     #[cfg(feature = "live")]
     {
         let list = ampnote::rig::card::list_devices();
@@ -41,7 +41,7 @@ pub fn devices(json: bool) -> Result<ExitCode, String> {
 
 /// `ampnote man`: the manual page from the parser itself (clap_mangen), to stdout or, with
 /// `out`, one page per command into that folder.
-pub fn man(out: Option<&Path>) -> Result<ExitCode, String> {
+pub fn man(out: Option<&Path>) -> Result<ExitCode, Failure> {
     use clap::CommandFactory;
     let cmd = crate::cli::Cli::command();
     match out {
@@ -87,6 +87,42 @@ pub fn report_to_stderr<'a>(
     }
 }
 
+/// Why a command stopped: what to tell the user, and the exit code (2 usage or input, 3 the audio
+/// interface or rig, 130 Ctrl-C; see [`ampnote::Error::exit_code`]).
+#[derive(Debug)]
+pub struct Failure {
+    pub message: String,
+    pub code: u8,
+}
+
+impl std::fmt::Display for Failure {
+    fn fmt(&self, f: &mut std::fmt::Formatter<'_>) -> std::fmt::Result {
+        f.write_str(&self.message)
+    }
+}
+
+impl From<ampnote::Error> for Failure {
+    fn from(e: ampnote::Error) -> Failure {
+        Failure {
+            code: e.exit_code(),
+            message: e.to_string(),
+        }
+    }
+}
+
+/// A message of the command's own: a usage or input problem.
+impl From<String> for Failure {
+    fn from(message: String) -> Failure {
+        Failure { message, code: 2 }
+    }
+}
+
+impl From<&str> for Failure {
+    fn from(message: &str) -> Failure {
+        message.to_string().into()
+    }
+}
+
 /// How a command prints its figures: a table, JSON, or CSV (to stdout with `-`, or a file).
 pub struct Format<'a> {
     pub json: bool,
@@ -100,11 +136,11 @@ pub fn emit(
     render_json: impl FnOnce() -> String,
     render_csv: impl FnOnce() -> String,
     render_table: impl FnOnce() -> String,
-) -> Result<(), String> {
+) -> Result<(), Failure> {
     match (format.json, format.csv) {
         (true, _) => print_stdout(&render_json()),
         (false, Some(path)) if path.as_os_str() != "-" => {
-            ampnote::files::write_whole(path, render_csv().as_bytes()).map_err(|e| e.to_string())?
+            ampnote::files::write_whole(path, render_csv().as_bytes())?
         }
         (false, Some(_)) => print_stdout(&render_csv()),
         (false, None) => print_stdout(&render_table()),
@@ -121,7 +157,7 @@ pub fn finish<T: ampnote::report::ChannelResult>(
     render_json: impl FnOnce() -> String,
     render_csv: impl FnOnce() -> String,
     render_table: impl FnOnce() -> String,
-) -> Result<ExitCode, String> {
+) -> Result<ExitCode, Failure> {
     report_to_stderr(
         format.json || format.csv.is_some(),
         results
@@ -139,19 +175,16 @@ pub fn finish<T: ampnote::report::ChannelResult>(
 
 /// A stimulus file `ampnote generate` wrote: its samples and its description, which must be of
 /// the `wanted` kind (`tone`, `steps`, `sweep`, `twotone`).
-pub fn read_stimulus(path: &Path, wanted: &'static str) -> Result<(Capture, Description), String> {
-    let cap = Capture::read(path, false).map_err(|e| e.to_string())?;
-    let not = |why: String| {
-        Error::NotAStimulus {
-            path: path.to_path_buf(),
-            wanted,
-            why,
-        }
-        .to_string()
+pub fn read_stimulus(path: &Path, wanted: &'static str) -> Result<(Capture, Description), Failure> {
+    let cap = Capture::read(path, false)?;
+    let not = |why: String| Error::NotAStimulus {
+        path: path.to_path_buf(),
+        wanted,
+        why,
     };
     let desc = Description::of_capture(&cap).map_err(not)?;
     if desc.kind.name() != wanted {
-        return Err(not(format!("it is a {} stimulus", desc.kind.name())));
+        return Err(not(format!("it is a {} stimulus", desc.kind.name())).into());
     }
     Ok((cap, desc))
 }
@@ -204,14 +237,14 @@ impl<'a> Keeper<'a> {
     }
 
     /// Write every channel added, as one measurement.
-    pub fn commit(self) -> Result<(), String> {
+    pub fn commit(self) -> Result<(), Failure> {
         let (Some(dir), Some(label)) = (&self.save.notebook, &self.save.label) else {
             return Ok(());
         };
         if self.pending.is_empty() {
             return Ok(());
         }
-        let nb = ampnote::notebook::Notebook::open(dir).map_err(|e| e.to_string())?;
+        let nb = ampnote::notebook::Notebook::open(dir)?;
         let settings = self.save.settings_map()?;
         let runs: Vec<ampnote::notebook::NewRun> = self
             .pending
@@ -232,7 +265,7 @@ impl<'a> Keeper<'a> {
                 result: p.result.clone(),
             })
             .collect();
-        let kept = nb.save_measurement(runs).map_err(|e| e.to_string())?;
+        let kept = nb.save_measurement(runs)?;
         for run in kept {
             eprintln!("kept as {} in {}", run.meta.id, dir.display());
         }
@@ -241,10 +274,10 @@ impl<'a> Keeper<'a> {
 }
 
 /// Check the notebook and label before measuring, so a run is never made that cannot be kept.
-pub fn check_save(save: &crate::cli::SaveArgs) -> Result<(), String> {
+pub fn check_save(save: &crate::cli::SaveArgs) -> Result<(), Failure> {
     if let (Some(dir), Some(label)) = (&save.notebook, &save.label) {
-        ampnote::notebook::Notebook::open(dir).map_err(|e| e.to_string())?;
-        ampnote::notebook::check_label(label).map_err(|e| e.to_string())?;
+        ampnote::notebook::Notebook::open(dir)?;
+        ampnote::notebook::check_label(label)?;
         save.settings_map()?;
     }
     Ok(())
@@ -280,8 +313,8 @@ pub fn rig_common(rate_hz: u32, level_dbfs: f64, fade_s: f64) -> ampnote::signal
 /// A generated stimulus, ready for [`capture_or_record`].
 pub fn to_played(
     s: ampnote::error::Result<ampnote::signal::stimulus::Stimulus>,
-) -> Result<Played, String> {
-    s.map(Into::into).map_err(|e| e.to_string())
+) -> Result<Played, Failure> {
+    Ok(s.map(Into::into)?)
 }
 
 /// A command's capture: the file, the stimulus file a rig run wrote (if any), what the rig
@@ -317,8 +350,8 @@ pub fn capture_or_record(
     procedure: &str,
     channel: Option<usize>,
     watts: Option<f64>,
-    make_stimulus: impl FnOnce() -> Result<Played, String>,
-) -> Result<Recorded, String> {
+    make_stimulus: impl FnOnce() -> Result<Played, Failure>,
+) -> Result<Recorded, Failure> {
     let rig = rig_args.open(calibration)?;
     let mut rig = match (capture, rig) {
         (Some(_), Some(_)) => return Err("give a capture file or --rig, not both".into()),
@@ -336,14 +369,13 @@ pub fn capture_or_record(
         (None, None) => {
             return Err(format!(
                 "give a capture file to analyse, or --rig sim (the simulated bench) or --rig card (the audio interface) to measure one ({procedure})"
-            ))
+            ).into())
         }
         (None, Some(rig)) => rig,
     };
     let stim = make_stimulus()?;
     let rate = stim.rate;
-    let chosen =
-        ampnote::capture::select_channels(rig.channels(), channel).map_err(|e| e.to_string())?;
+    let chosen = ampnote::capture::select_channels(rig.channels(), channel)?;
     let dir = &rig_args.captures_dir;
     std::fs::create_dir_all(dir)
         .map_err(|e| format!("cannot create the captures folder {}: {e}", dir.display()))?;
@@ -358,8 +390,7 @@ pub fn capture_or_record(
         ampnote::signal::wav::WavFormat::Float32,
         1,
         description.as_deref(),
-    )
-    .map_err(|e| e.to_string())?;
+    )?;
     eprintln!("{}", rig.describe());
     let n = *chosen.iter().max().expect("at least one channel");
     let mut chans = vec![vec![0.0; stim.signal.len()]; n];
@@ -388,8 +419,7 @@ pub fn capture_or_record(
             (None, _) => &stim.signal,
             (Some(_), None) => return Err("--watts applies to a tone".into()),
             (Some(w), Some(f)) => {
-                let found = ampnote::procedure::drive::drive_for_power(&mut *rig, ch, f, rate, w)
-                    .map_err(|e| e.to_string())?;
+                let found = ampnote::procedure::drive::drive_for_power(&mut *rig, ch, f, rate, w)?;
                 eprintln!("channel {ch}: {}", found.describe(w));
                 let miss = 10.0 * (found.confirmed_w / w).log10();
                 if miss.abs() > ampnote::procedure::drive::TOLERANCE_DB {
@@ -410,6 +440,7 @@ pub fn capture_or_record(
                 notes.extend(rig.take_notes(ch).into_iter().map(|n| (ch, n)));
             }
             Err(err) => {
+                let code = err.exit_code();
                 let mut msg = err.to_string();
                 if done > 0 {
                     let partial = dir.join(format!("{procedure}-{stamp}-capture.partial.wav"));
@@ -419,7 +450,7 @@ pub fn capture_or_record(
                         partial.display()
                     ));
                 }
-                return Err(msg);
+                return Err(Failure { message: msg, code });
             }
         }
     }

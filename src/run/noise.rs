@@ -1,5 +1,6 @@
 //! `ampnote noise`: noise and hum with no signal.
 
+use super::Failure;
 use crate::cli::{channel_choice, NoiseArgs};
 use ampnote::analysis::blocks;
 use ampnote::analysis::noise::{NoiseAnalyzer, NoiseResult};
@@ -109,9 +110,8 @@ fn table(r: &NoiseReport) -> String {
     s
 }
 
-pub fn run(args: &NoiseArgs) -> Result<ExitCode, String> {
+pub fn run(args: &NoiseArgs) -> Result<ExitCode, Failure> {
     super::check_save(&args.save)?;
-    let e = |err: ampnote::Error| err.to_string();
     let cal = args.calibration.resolve(&args.save)?;
     let (lo, hi) = args
         .band
@@ -142,12 +142,13 @@ pub fn run(args: &NoiseArgs) -> Result<ExitCode, String> {
         channel_choice(&args.channel)?,
         None,
         || {
-            ampnote::capture::check_rate(args.rate).map_err(|e| e.to_string())?;
+            ampnote::capture::check_rate(args.rate)?;
             if !(args.seconds >= 0.5 && args.seconds <= 600.0) {
                 return Err(format!(
                     "--seconds takes 0.5 to 600 s of listening, got {}",
                     args.seconds
-                ));
+                )
+                .into());
             }
             Ok(super::Played {
                 signal: vec![0.0; (args.seconds * args.rate as f64) as usize],
@@ -159,8 +160,8 @@ pub fn run(args: &NoiseArgs) -> Result<ExitCode, String> {
     let cal = recorded.calibration_or(cal);
     let notes = recorded.notes;
     let capture_path = recorded.capture.as_path();
-    let info = Capture::probe(capture_path).map_err(e)?;
-    let chosen = select_channels(info.channel_count, channel_choice(&args.channel)?).map_err(e)?;
+    let info = Capture::probe(capture_path)?;
+    let chosen = select_channels(info.channel_count, channel_choice(&args.channel)?)?;
     let analyzer = NoiseAnalyzer::new();
     let mut channels = Vec::new();
     let mut channel_errors = Vec::new();
@@ -181,8 +182,7 @@ pub fn run(args: &NoiseArgs) -> Result<ExitCode, String> {
                 blocks::BLOCK_SAMPLES,
             )
         },
-    )
-    .map_err(e)?;
+    )?;
     let reading = run.reading_warnings(&info);
     for (ch, result) in run.channels {
         match result {

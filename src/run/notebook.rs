@@ -1,5 +1,6 @@
 //! `ampnote demo`, `notebook init|log`, `compare`, `match`.
 
+use super::Failure;
 use crate::cli::{CompareArgs, MatchArgs, NotebookAction};
 use ampnote::calibration::Profile;
 use ampnote::notebook::{Notebook, Run};
@@ -8,11 +9,7 @@ use ampnote::results::RunResult;
 use std::path::Path;
 use std::process::ExitCode;
 
-fn e(err: ampnote::Error) -> String {
-    err.to_string()
-}
-
-pub fn demo(out: &Path) -> Result<ExitCode, String> {
+pub fn demo(out: &Path) -> Result<ExitCode, Failure> {
     let t0 = std::time::Instant::now();
     // A folder that already holds a demo is kept; the next free name is used instead.
     let mut folder = out.to_path_buf();
@@ -30,7 +27,7 @@ pub fn demo(out: &Path) -> Result<ExitCode, String> {
     }
     let out = folder.as_path();
     eprintln!("ampnote demo: an invented stereo single-ended amplifier on the simulated bench");
-    let outcome = ampnote::demo::run(out, |what| eprintln!("  measuring {what} ...")).map_err(e)?;
+    let outcome = ampnote::demo::run(out, |what| eprintln!("  measuring {what} ..."))?;
     let mut s = String::new();
     s += &format!(
         "\n{} runs kept in {} ({:.1} s)\n\nBefore and after the driver rework\n",
@@ -43,8 +40,8 @@ pub fn demo(out: &Path) -> Result<ExitCode, String> {
         s += "\n";
         s += &m.to_table();
     }
-    let nb = Notebook::open(&outcome.notebook).map_err(e)?;
-    let files = ampnote::report::html::write_report(&nb, &out.join("report")).map_err(e)?;
+    let nb = Notebook::open(&outcome.notebook)?;
+    let files = ampnote::report::html::write_report(&nb, &out.join("report"))?;
     s += &format!(
         "\nReport: {}\nNext: `ampnote notebook log {}`, `ampnote compare stock \"driver reworked\" --notebook {}`\n",
         files.html.display(),
@@ -55,7 +52,7 @@ pub fn demo(out: &Path) -> Result<ExitCode, String> {
     Ok(ExitCode::SUCCESS)
 }
 
-pub fn notebook(action: &NotebookAction) -> Result<ExitCode, String> {
+pub fn notebook(action: &NotebookAction) -> Result<ExitCode, Failure> {
     match action {
         NotebookAction::Init {
             dir,
@@ -65,10 +62,10 @@ pub fn notebook(action: &NotebookAction) -> Result<ExitCode, String> {
             profile,
         } => {
             let prof = match profile {
-                Some(p) => Some(Profile::load(p).map_err(e)?),
+                Some(p) => Some(Profile::load(p)?),
                 None => None,
             };
-            let nb = Notebook::init(dir, amplifier, *channels, *load_ohms, prof).map_err(e)?;
+            let nb = Notebook::init(dir, amplifier, *channels, *load_ohms, prof)?;
             eprintln!(
                 "notebook for `{}` created in {}",
                 nb.info.amplifier,
@@ -86,8 +83,8 @@ pub fn notebook(action: &NotebookAction) -> Result<ExitCode, String> {
             note,
         } => dc(dir, label, points, ratings, *channel, note),
         NotebookAction::Log { dir, json } => {
-            let nb = Notebook::open(dir).map_err(e)?;
-            let scan = nb.scan().map_err(e)?;
+            let nb = Notebook::open(dir)?;
+            let scan = nb.scan()?;
             if *json {
                 #[derive(serde::Serialize)]
                 struct LogRun<'a> {
@@ -189,11 +186,11 @@ fn runs_from_file(
     stimulus: Option<&Path>,
     label: &str,
     cal: &ampnote::calibration::Calibration,
-) -> Result<Vec<Run>, String> {
+) -> Result<Vec<Run>, Failure> {
     use ampnote::capture::Capture;
     use ampnote::signal::stimulus::Description;
     let stim = match stimulus {
-        Some(p) => Some(Capture::read(p, false).map_err(e)?),
+        Some(p) => Some(Capture::read(p, false)?),
         None => None,
     };
     let desc = match &stim {
@@ -205,10 +202,10 @@ fn runs_from_file(
         })?),
         None => None,
     };
-    let info = Capture::probe(path).map_err(e)?;
+    let info = Capture::probe(path)?;
     let mut out = Vec::new();
     for ch in 1..=info.channel_count {
-        let cap = Capture::read_channels(path, false, Some(&[ch])).map_err(e)?;
+        let cap = Capture::read_channels(path, false, Some(&[ch]))?;
         let result = analyze_capture(&cap, ch, stim.as_ref().zip(desc.as_ref()), cal, None)?;
         out.push(Run {
             dir: path.to_path_buf(),
@@ -232,8 +229,8 @@ fn runs_from_file(
 }
 
 /// Runs named by a label, `LABEL:CH`, or a run id.
-fn pick(nb: &Notebook, name: &str) -> Result<Vec<Run>, String> {
-    let runs = nb.runs().map_err(e)?;
+fn pick(nb: &Notebook, name: &str) -> Result<Vec<Run>, Failure> {
+    let runs = nb.runs()?;
     if let Some(r) = runs.iter().find(|r| r.meta.id == name) {
         return Ok(vec![r.clone()]);
     }
@@ -241,13 +238,13 @@ fn pick(nb: &Notebook, name: &str) -> Result<Vec<Run>, String> {
         Some((l, c)) if c.parse::<usize>().is_ok() => (l, c.parse::<usize>().ok()),
         _ => (name, None),
     };
-    nb.select(label, ch).map_err(e)
+    Ok(nb.select(label, ch)?)
 }
 
-pub fn compare(args: &CompareArgs) -> Result<ExitCode, String> {
+pub fn compare(args: &CompareArgs) -> Result<ExitCode, Failure> {
     let (a, b) = match &args.notebook {
         Some(dir) => {
-            let nb = Notebook::open(dir).map_err(e)?;
+            let nb = Notebook::open(dir)?;
             (pick(&nb, &args.a)?, pick(&nb, &args.b)?)
         }
         None => {
@@ -267,10 +264,10 @@ pub fn compare(args: &CompareArgs) -> Result<ExitCode, String> {
     Ok(ExitCode::SUCCESS)
 }
 
-pub fn match_(args: &MatchArgs) -> Result<ExitCode, String> {
+pub fn match_(args: &MatchArgs) -> Result<ExitCode, Failure> {
     let (na, nb_name, a, b) = match &args.notebook {
         Some(dir) => {
-            let nb = Notebook::open(dir).map_err(e)?;
+            let nb = Notebook::open(dir)?;
             let (na, nb_name) = match &args.b {
                 Some(b) => (args.a.clone(), b.clone()),
                 None => (format!("{}:1", args.a), format!("{}:2", args.a)),
@@ -327,7 +324,8 @@ pub fn match_(args: &MatchArgs) -> Result<ExitCode, String> {
         if !(v.is_finite() && (0.0..=1000.0).contains(&v)) {
             return Err(format!(
                 "{name} must be a number between 0 and 1000 (dB, or degrees for phase), got {v}"
-            ));
+            )
+            .into());
         }
     }
     let m = match_channels(&na, &a, &nb_name, &b, &tol);
@@ -339,10 +337,10 @@ pub fn match_(args: &MatchArgs) -> Result<ExitCode, String> {
     })
 }
 
-pub fn report(dir: &Path, out: Option<&Path>) -> Result<ExitCode, String> {
-    let nb = Notebook::open(dir).map_err(e)?;
+pub fn report(dir: &Path, out: Option<&Path>) -> Result<ExitCode, Failure> {
+    let nb = Notebook::open(dir)?;
     let out = out.map_or_else(|| dir.join("report"), Path::to_path_buf);
-    let files = ampnote::report::html::write_report(&nb, &out).map_err(e)?;
+    let files = ampnote::report::html::write_report(&nb, &out)?;
     eprintln!(
         "wrote {} and {} chart(s) beside it",
         files.html.display(),
@@ -363,7 +361,7 @@ pub fn analyze_capture(
     )>,
     cal: &ampnote::calibration::Calibration,
     settings: Option<&ampnote::notebook::AnalysisSettings>,
-) -> Result<RunResult, String> {
+) -> Result<RunResult, Failure> {
     use ampnote::analysis::sweep::{ResponseAnalyzer, ResponseConfig, SweepParams};
     use ampnote::analysis::tone::{ChannelInput, ToneAnalyzer, ToneConfig};
     use ampnote::notebook::AnalysisSettings;
@@ -388,10 +386,14 @@ pub fn analyze_capture(
                 Some(AnalysisSettings::Response(c)) => c.clone(),
                 _ => ResponseConfig::default(),
             };
-            let r = ResponseAnalyzer::new(config)
-                .map_err(e)?
-                .analyze(channel, x, sp, y, fs, input.overload_threshold)
-                .map_err(e)?;
+            let r = ResponseAnalyzer::new(config)?.analyze(
+                channel,
+                x,
+                sp,
+                y,
+                fs,
+                input.overload_threshold,
+            )?;
             Ok(r.into())
         }
         Some((s, d)) if matches!(d.kind, Kind::Steps { .. }) => {
@@ -424,8 +426,7 @@ pub fn analyze_capture(
                 steps,
                 lag,
                 cal,
-            )
-            .map_err(e)?;
+            )?;
             Ok(r.into())
         }
         other => {
@@ -445,25 +446,22 @@ pub fn analyze_capture(
                 Some(AnalysisSettings::Tone(c)) => c.clone(),
                 _ => ToneConfig::default(),
             };
-            let r = ToneAnalyzer::new(config)
-                .map_err(e)?
-                .analyze(&ChannelInput { samples, ..input }, cal)
-                .map_err(e)?;
+            let r = ToneAnalyzer::new(config)?.analyze(&ChannelInput { samples, ..input }, cal)?;
             Ok(r.into())
         }
     }
 }
 
 /// Analyse stored captures again (tone, response and power runs); results go beside the old.
-fn reanalyze(dir: &Path, only: &[String]) -> Result<ExitCode, String> {
+fn reanalyze(dir: &Path, only: &[String]) -> Result<ExitCode, Failure> {
     use ampnote::capture::Capture;
     use ampnote::signal::stimulus::Description;
     use rayon::prelude::*;
-    let nb = Notebook::open(dir).map_err(e)?;
+    let nb = Notebook::open(dir)?;
     let mut done = 0;
     let mut skipped = Vec::new();
     let mut todo = Vec::new();
-    for run in nb.runs().map_err(e)? {
+    for run in nb.runs()? {
         if !only.is_empty() && !only.contains(&run.meta.id) {
             continue;
         }
@@ -480,18 +478,18 @@ fn reanalyze(dir: &Path, only: &[String]) -> Result<ExitCode, String> {
     // Every run on its own core; the new results are written afterwards, in the notebook's
     // order, so the outcome is the serial one.
     let progress = ampnote::progress::Progress::new(todo.len() as u64, "runs");
-    let analysed: Vec<Result<RunResult, String>> = todo
+    let analysed: Vec<Result<RunResult, Failure>> = todo
         .par_iter()
         .map(|run| {
             progress.message(run.meta.id.clone());
             let cap_path = run.dir.join("capture.wav");
-            let info = Capture::probe(&cap_path).map_err(e)?;
+            let info = Capture::probe(&cap_path)?;
             let ch = if run.meta.channel <= info.channel_count {
                 run.meta.channel
             } else {
                 1
             };
-            let cap = Capture::read_channels(&cap_path, true, Some(&[ch])).map_err(e)?;
+            let cap = Capture::read_channels(&cap_path, true, Some(&[ch]))?;
             let stim = Capture::read(&run.dir.join("stimulus.wav"), false).ok();
             let desc = stim.as_ref().and_then(|s| Description::of_capture(s).ok());
             let pair = stim.as_ref().zip(desc.as_ref());
@@ -516,7 +514,7 @@ fn reanalyze(dir: &Path, only: &[String]) -> Result<ExitCode, String> {
             ));
             continue;
         }
-        let path = nb.add_result(run, &v).map_err(e)?;
+        let path = nb.add_result(run, &v)?;
         eprintln!("{}: new result {}", run.meta.id, path.display());
         done += 1;
     }
@@ -535,45 +533,42 @@ fn dc(
     ratings: &[String],
     channel: usize,
     note: &str,
-) -> Result<ExitCode, String> {
+) -> Result<ExitCode, Failure> {
     use ampnote::procedure::dc;
-    let nb = Notebook::open(dir).map_err(e)?;
-    ampnote::notebook::check_label(label).map_err(e)?;
+    let nb = Notebook::open(dir)?;
+    ampnote::notebook::check_label(label)?;
     if channel == 0 || channel > nb.info.channels {
         return Err(format!(
             "--channel takes 1..{} (the notebook's channels), got {channel}",
             nb.info.channels
-        ));
+        )
+        .into());
     }
     let parsed = points
         .iter()
         .map(|p| dc::parse_point(p))
-        .collect::<ampnote::Result<Vec<_>>>()
-        .map_err(e)?;
+        .collect::<ampnote::Result<Vec<_>>>()?;
     let rated = ratings
         .iter()
         .map(|r| dc::parse_rating(r))
-        .collect::<ampnote::Result<Vec<_>>>()
-        .map_err(e)?;
-    let result = dc::operating_points(parsed, rated).map_err(e)?;
+        .collect::<ampnote::Result<Vec<_>>>()?;
+    let result = dc::operating_points(parsed, rated)?;
     eprintln!("{}", dc::CAUTION);
     super::print_stdout(&format!("{}\n", result.headline()));
     for w in &result.warnings {
         eprintln!("warning: {w}");
     }
-    let run = nb
-        .save(ampnote::notebook::NewRun {
-            label,
-            channel,
-            notes: note,
-            settings: std::collections::BTreeMap::new(),
-            calibration: ampnote::calibration::Calibration::default(),
-            analysis: None,
-            files: Vec::new(),
-            blobs: Vec::new(),
-            result: (&result).into(),
-        })
-        .map_err(e)?;
+    let run = nb.save(ampnote::notebook::NewRun {
+        label,
+        channel,
+        notes: note,
+        settings: std::collections::BTreeMap::new(),
+        calibration: ampnote::calibration::Calibration::default(),
+        analysis: None,
+        files: Vec::new(),
+        blobs: Vec::new(),
+        result: (&result).into(),
+    })?;
     eprintln!("kept as {} in {}", run.meta.id, dir.display());
     Ok(if result.points.iter().any(|p| p.overstressed) {
         ExitCode::from(1)

@@ -1,5 +1,6 @@
 //! `ampnote power`: a staircase from a capture, or run on a rig.
 
+use super::Failure;
 use crate::cli::{channel_choice, PowerArgs};
 use ampnote::capture::{select_channels, Capture};
 use ampnote::error::Error;
@@ -16,9 +17,8 @@ fn first_start(steps: &[ampnote::signal::stimulus::Step]) -> usize {
     steps.first().map_or(0, |s| s.start_sample)
 }
 
-pub fn run(args: &PowerArgs) -> Result<ExitCode, String> {
+pub fn run(args: &PowerArgs) -> Result<ExitCode, Failure> {
     super::check_save(&args.save)?;
-    let e = |err: Error| err.to_string();
     let flags = args.calibration.resolve(&args.save)?;
     let mut results = Vec::new();
     let mut channel_errors = Vec::new();
@@ -54,14 +54,14 @@ pub fn run(args: &PowerArgs) -> Result<ExitCode, String> {
                     .validated()
                 })
                 .collect::<Result<_, _>>()
-                .map_err(e)?;
+                ?;
             let mut rig = args.rig.open(flags)?.expect("a rig was named");
             if let Some(l) = flags.load_ohms {
-                rig.set_load(l).map_err(e)?;
+                rig.set_load(l)?;
             }
             source = rig.describe();
             used = rig.calibration();
-            let chosen = select_channels(rig.channels(), channel_choice(&args.channel)?).map_err(e)?;
+            let chosen = select_channels(rig.channels(), channel_choice(&args.channel)?)?;
             let progress = ampnote::progress::Progress::new(0, "steps");
             for settings in &plans {
                 for &ch in &chosen {
@@ -70,7 +70,7 @@ pub fn run(args: &PowerArgs) -> Result<ExitCode, String> {
                             r.warnings.extend(rig.take_notes(ch));
                             results.push(r)
                         }
-                        Err(err @ Error::InvalidSetting(_)) => return Err(err.to_string()),
+                        Err(err @ Error::InvalidSetting(_)) => return Err(err.into()),
                         Err(err) => channel_errors.push(ChannelError {
                             channel: ch,
                             error: err.to_string(),
@@ -93,18 +93,18 @@ pub fn run(args: &PowerArgs) -> Result<ExitCode, String> {
             else {
                 unreachable!("read_stimulus checked the kind");
             };
-            let info = Capture::probe(path).map_err(e)?;
+            let info = Capture::probe(path)?;
             if info.sample_rate_hz != desc.sample_rate_hz {
-                return Err(e(Error::SampleRateMismatch {
+                return Err(Error::SampleRateMismatch {
                     stimulus_hz: desc.sample_rate_hz,
                     capture_hz: info.sample_rate_hz,
-                }));
+                }.into());
             }
             source = path.display().to_string();
             let x = stim.channel(desc.signal_channels[0]).ok_or("the stimulus's signal channel is missing from it")?;
-            let chosen = select_channels(info.channel_count, channel_choice(&args.channel)?).map_err(e)?;
+            let chosen = select_channels(info.channel_count, channel_choice(&args.channel)?)?;
             for &ch in &chosen {
-                let cap = Capture::read_channels(path, args.accept_truncated, Some(&[ch])).map_err(e)?;
+                let cap = Capture::read_channels(path, args.accept_truncated, Some(&[ch]))?;
                 let fs = cap.sample_rate_hz as f64;
                 // Where the staircase starts in the capture: its level envelope (10 ms blocks)
                 // against the stimulus's, searched up to 2 s either way. Each step's window has

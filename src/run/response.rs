@@ -1,5 +1,6 @@
 //! `ampnote response`: a sweep capture against the sweep file, one channel at a time.
 
+use super::Failure;
 use crate::cli::{channel_choice, ResponseArgs};
 use ampnote::analysis::sweep::{ResponseAnalyzer, ResponseConfig, SweepParams};
 use ampnote::capture::{select_channels, Capture};
@@ -11,11 +12,11 @@ use ampnote::signal::stimulus::Kind;
 use std::process::ExitCode;
 
 /// The interface's loopback response from the profile, if it gives one.
-fn loopback_response(args: &ResponseArgs) -> Result<Vec<(f64, f64)>, String> {
+fn loopback_response(args: &ResponseArgs) -> Result<Vec<(f64, f64)>, Failure> {
     let Some(path) = &args.calibration.profile else {
         return Ok(Vec::new());
     };
-    let profile = ampnote::calibration::Profile::load(path).map_err(|e| e.to_string())?;
+    let profile = ampnote::calibration::Profile::load(path)?;
     let mut pairs: Vec<(f64, f64)> = profile
         .loopback
         .and_then(|l| l.response)
@@ -27,9 +28,8 @@ fn loopback_response(args: &ResponseArgs) -> Result<Vec<(f64, f64)>, String> {
     Ok(pairs)
 }
 
-pub fn run(args: &ResponseArgs) -> Result<ExitCode, String> {
+pub fn run(args: &ResponseArgs) -> Result<ExitCode, Failure> {
     super::check_save(&args.save)?;
-    let e = |err: Error| err.to_string();
     let cal = args.calibration.resolve(&args.save)?;
     let analyzer = ResponseAnalyzer::new(ResponseConfig {
         reference_hz: args.reference,
@@ -38,8 +38,7 @@ pub fn run(args: &ResponseArgs) -> Result<ExitCode, String> {
         max_harmonic: args.harmonics,
         correction_db: loopback_response(args)?,
         ..ResponseConfig::default()
-    })
-    .map_err(e)?;
+    })?;
     let recorded = super::capture_or_record(
         &args.capture,
         &args.rig,
@@ -90,19 +89,19 @@ pub fn run(args: &ResponseArgs) -> Result<ExitCode, String> {
         .channel(signal_ch)
         .ok_or("the stimulus's signal channel is missing from it")?;
 
-    let info = Capture::probe(capture_path).map_err(e)?;
+    let info = Capture::probe(capture_path)?;
     if info.sample_rate_hz != desc.sample_rate_hz {
-        return Err(e(Error::SampleRateMismatch {
+        return Err(Error::SampleRateMismatch {
             stimulus_hz: desc.sample_rate_hz,
             capture_hz: info.sample_rate_hz,
-        }));
+        }
+        .into());
     }
-    let chosen = select_channels(info.channel_count, channel_choice(&args.channel)?).map_err(e)?;
+    let chosen = select_channels(info.channel_count, channel_choice(&args.channel)?)?;
     let mut channels = Vec::new();
     let mut channel_errors = Vec::new();
     for &ch in &chosen {
-        let cap =
-            Capture::read_channels(capture_path, args.accept_truncated, Some(&[ch])).map_err(e)?;
+        let cap = Capture::read_channels(capture_path, args.accept_truncated, Some(&[ch]))?;
         match analyzer.analyze(
             ch,
             x,
@@ -150,7 +149,7 @@ pub fn run(args: &ResponseArgs) -> Result<ExitCode, String> {
         channel_errors,
     };
     if let Some(path) = &args.csv {
-        ampnote::files::write_whole(path, report.to_csv().as_bytes()).map_err(e)?;
+        ampnote::files::write_whole(path, report.to_csv().as_bytes())?;
     }
     // The figures are printed first, so a failed keep never hides what was measured.
     // (--csv here is a file written beside the table or JSON, see above.)

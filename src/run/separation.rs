@@ -1,6 +1,7 @@
 //! `ampnote separation`: a sweep on one channel, every channel recorded; how far each undriven
 //! channel stays below the driven one against frequency.
 
+use super::Failure;
 use crate::cli::SeparationArgs;
 use ampnote::analysis::separation::{self, SeparationResult};
 use ampnote::analysis::sweep::{ResponseAnalyzer, ResponseConfig, SweepParams};
@@ -95,37 +96,38 @@ fn window_levels(x: &[f64], range: std::ops::Range<usize>, w: usize) -> Vec<f64>
         .collect()
 }
 
-pub fn run(args: &SeparationArgs) -> Result<ExitCode, String> {
+pub fn run(args: &SeparationArgs) -> Result<ExitCode, Failure> {
     super::check_save(&args.save)?;
-    let e = |err: Error| err.to_string();
     let cal = args.calibration.resolve(&args.save)?;
     let (stim, desc) = super::read_stimulus(&args.stimulus, "sweep")?;
     let sweep = SweepParams::from_description(&desc).expect("a sweep");
     let x = stim
         .channel(desc.signal_channels.first().copied().unwrap_or(1))
         .ok_or("the stimulus's signal channel is missing from it")?;
-    let info = Capture::probe(&args.capture).map_err(e)?;
+    let info = Capture::probe(&args.capture)?;
     if info.sample_rate_hz != desc.sample_rate_hz {
-        return Err(e(Error::SampleRateMismatch {
+        return Err(Error::SampleRateMismatch {
             stimulus_hz: desc.sample_rate_hz,
             capture_hz: info.sample_rate_hz,
-        }));
+        }
+        .into());
     }
     if info.channel_count < 2 {
         return Err(format!(
             "{} has one channel: separation needs the driven channel and at least one other, recorded together",
             args.capture.display()
-        ));
+        ).into());
     }
     if args.driven == 0 || args.driven > info.channel_count {
         return Err(format!(
             "--driven takes the channel the sweep was played into, 1..{}, got {}",
             info.channel_count, args.driven
-        ));
+        )
+        .into());
     }
-    let capture = Capture::read(&args.capture, args.accept_truncated).map_err(e)?;
+    let capture = Capture::read(&args.capture, args.accept_truncated)?;
     let fs = capture.sample_rate_hz as f64;
-    let analyzer = ResponseAnalyzer::new(ResponseConfig::default()).map_err(e)?;
+    let analyzer = ResponseAnalyzer::new(ResponseConfig::default())?;
     let analyse = |ch: usize| {
         analyzer.analyze(
             ch,
@@ -177,7 +179,7 @@ pub fn run(args: &SeparationArgs) -> Result<ExitCode, String> {
             }
         };
         if c.at_1khz_db.is_some_and(|s| s < 0.0) {
-            return Err(e(Error::WrongKind {
+            return Err(Error::WrongKind {
                 channel: ch,
                 found: format!(
                     "it carries the sweep {:.1} dB louder than channel {} at 1 kHz",
@@ -187,7 +189,8 @@ pub fn run(args: &SeparationArgs) -> Result<ExitCode, String> {
                 next: format!(
                     "Check --driven: the channel the sweep was played into is probably {ch}."
                 ),
-            }));
+            }
+            .into());
         }
         result.channels.push(c);
     }

@@ -1,5 +1,6 @@
 //! `ampnote trend`: a steady tone followed block by block over a long capture.
 
+use super::Failure;
 use crate::cli::TrendArgs;
 use ampnote::analysis::blocks;
 use ampnote::analysis::tone::ToneAnalyzer;
@@ -13,7 +14,7 @@ use std::process::ExitCode;
 /// is not a trend (our choice: 50 ms to an hour).
 const EVERY_RANGE_S: (f64, f64) = (0.05, 3600.0);
 
-pub fn run(args: &TrendArgs) -> Result<ExitCode, String> {
+pub fn run(args: &TrendArgs) -> Result<ExitCode, Failure> {
     let a = &args.tone;
     if !(args.every.is_finite() && (EVERY_RANGE_S.0..=EVERY_RANGE_S.1).contains(&args.every)) {
         return Err(format!(
@@ -21,13 +22,14 @@ pub fn run(args: &TrendArgs) -> Result<ExitCode, String> {
             EVERY_RANGE_S.0,
             EVERY_RANGE_S.1,
             ampnote::error::shown(args.every)
-        ));
+        )
+        .into());
     }
     super::check_save(&a.save)?;
     let config = a.tone_config()?;
     let cal = a.calibration.resolve(&a.save)?;
     let channel = a.channel_choice()?;
-    let analyzer = ToneAnalyzer::new(config).map_err(|e| e.to_string())?;
+    let analyzer = ToneAnalyzer::new(config)?;
     let recorded =
         super::capture_or_record(&a.capture, &a.rig, cal, "trend", channel, a.watts, || {
             let c = super::rig_common(a.rate, a.level, 0.01);
@@ -35,13 +37,12 @@ pub fn run(args: &TrendArgs) -> Result<ExitCode, String> {
         })?;
     let cal = recorded.calibration_or(cal);
     let path = recorded.capture.as_path();
-    let info = Capture::probe(path).map_err(|e| e.to_string())?;
-    let chosen = select_channels(info.channel_count, channel).map_err(|e| e.to_string())?;
+    let info = Capture::probe(path)?;
+    let chosen = select_channels(info.channel_count, channel)?;
     // One channel at a time in compact storage; its blocks on every core.
     let run = blocks::each_stored_channel(path, &info, &chosen, a.accept_truncated, |input| {
         blocks::trend(&analyzer, input, &cal, args.every)
-    })
-    .map_err(|e| e.to_string())?;
+    })?;
     let reading = run.reading_warnings(&info);
     let mut channels = Vec::new();
     let mut channel_errors = Vec::new();

@@ -2,6 +2,7 @@
 //! THD, THD+N, H2, H3 and the strongest hum line, on one refreshed line. For trimming bias or hum
 //! balance while looking at the figures. Ctrl-C stops it and leaves the terminal as it was.
 
+use super::Failure;
 use crate::cli::WatchArgs;
 use ampnote::analysis::tone::{ChannelInput, ToneAnalyzer, ToneConfig, ToneResult};
 use std::io::{IsTerminal, Write};
@@ -101,28 +102,31 @@ impl Redraw {
     }
 }
 
-pub fn run(args: &WatchArgs) -> Result<ExitCode, String> {
+pub fn run(args: &WatchArgs) -> Result<ExitCode, Failure> {
     if !(5.0..=50.0).contains(&args.refresh) {
         return Err(format!(
             "--refresh takes 5 to 50 readings a second, got {}",
             args.refresh
-        ));
+        )
+        .into());
     }
     if !(args.level.is_finite() && (-140.0..=0.0).contains(&args.level)) {
         return Err(format!(
             "--level is the tone's RMS in dBFS: between -140 and 0 (full scale), got {}",
             args.level
-        ));
+        )
+        .into());
     }
     let rate = args.rate;
-    ampnote::capture::check_rate(rate).map_err(|e| e.to_string())?;
+    ampnote::capture::check_rate(rate)?;
     let freq = args.freq.round();
     if !(freq >= 10.0 && freq < 0.45 * rate as f64) {
         return Err(format!(
             "--freq must lie between 10 Hz and 0.45 x the rate ({} Hz), got {}",
             0.45 * rate as f64,
             args.freq
-        ));
+        )
+        .into());
     }
     let cal = args.calibration.calibration()?;
     // The log is opened before anything plays: a file already there is never overwritten.
@@ -156,7 +160,8 @@ pub fn run(args: &WatchArgs) -> Result<ExitCode, String> {
             "--channel takes 1..{}, got {}",
             rig.channels(),
             args.channel
-        ));
+        )
+        .into());
     }
     let cal = rig.calibration();
     let level = match args.watts {
@@ -167,8 +172,7 @@ pub fn run(args: &WatchArgs) -> Result<ExitCode, String> {
                 freq,
                 rate,
                 w,
-            )
-            .map_err(|e| e.to_string())?;
+            )?;
             eprintln!("{}", found.describe(w));
             found.drive_dbfs
         }
@@ -187,8 +191,7 @@ pub fn run(args: &WatchArgs) -> Result<ExitCode, String> {
         fundamental_hint_hz: Some(freq),
         max_harmonic: 5,
         ..ToneConfig::default()
-    })
-    .map_err(|e| e.to_string())?;
+    })?;
     let overload = rig.overload_threshold();
     let bits = rig.resolution_bits();
     eprintln!("{}", rig.describe());
@@ -295,9 +298,9 @@ pub fn run(args: &WatchArgs) -> Result<ExitCode, String> {
     if let Some((path, _)) = &log {
         eprintln!("readings kept in {}", path.display());
     }
-    outcome.map_err(|e| e.to_string())?;
+    outcome?;
     if let Some(err) = log_error {
-        return Err(err);
+        return Err(err.into());
     }
     Ok(ExitCode::SUCCESS)
 }

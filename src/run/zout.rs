@@ -1,5 +1,6 @@
 //! `ampnote zout`: the two-load method on two captures, or on a rig.
 
+use super::Failure;
 use crate::cli::{channel_choice, ZoutArgs};
 use ampnote::analysis::sweep::{ResponseAnalyzer, ResponseConfig, ResponseResult, SweepParams};
 use ampnote::analysis::tone::{ChannelInput, ToneAnalyzer, ToneConfig, ToneResult};
@@ -15,10 +16,6 @@ use ampnote::report::SCHEMA_VERSION;
 use ampnote::signal::stimulus::{self, Common};
 use std::process::ExitCode;
 
-fn e(err: Error) -> String {
-    err.to_string()
-}
-
 /// The steady-tone analysis of one load's capture.
 fn tone_level(
     samples: &[f64],
@@ -26,12 +23,11 @@ fn tone_level(
     overload: f64,
     bits: u32,
     hint: Option<f64>,
-) -> Result<ToneResult, String> {
+) -> Result<ToneResult, Failure> {
     let a = ToneAnalyzer::new(ToneConfig {
         fundamental_hint_hz: hint,
         ..ToneConfig::default()
-    })
-    .map_err(e)?;
+    })?;
     a.analyze(
         &ChannelInput {
             channel: 1,
@@ -42,7 +38,7 @@ fn tone_level(
         },
         &Calibration::default(),
     )
-    .map_err(e)
+    .map_err(Failure::from)
 }
 
 /// Z across the band from two responses to the same sweep. The difference of the two curves
@@ -54,8 +50,8 @@ fn from_responses(
     ra: f64,
     b: &ResponseResult,
     rb: f64,
-) -> Result<ZoutResult, String> {
-    check_loads(ra, rb).map_err(e)?;
+) -> Result<ZoutResult, Failure> {
+    check_loads(ra, rb)?;
     let lin = |r: &ResponseResult, db: f64| 10f64.powf((r.reference_gain_db + db) / 20.0);
     let diff: Vec<f64> = a
         .points
@@ -70,9 +66,8 @@ fn from_responses(
     let mut steps: Vec<f64> = diff.windows(2).map(|w| (w[1] - w[0]).abs()).collect();
     steps.sort_by(f64::total_cmp);
     let sigma = steps.get(steps.len() / 2).copied().unwrap_or(0.0) * 1.4826 / 2f64.sqrt();
-    check_distinct(channel, a.reference_gain_db, b.reference_gain_db, sigma).map_err(e)?;
-    let mut res =
-        from_levels(channel, a.reference_hz, lin(a, 0.0), ra, lin(b, 0.0), rb).map_err(e)?;
+    check_distinct(channel, a.reference_gain_db, b.reference_gain_db, sigma)?;
+    let mut res = from_levels(channel, a.reference_hz, lin(a, 0.0), ra, lin(b, 0.0), rb)?;
     res.zout_sigma_ohms = Some(zout_sigma(lin(a, 0.0), ra, lin(b, 0.0), rb, sigma));
     let nominal = res.nominal_load_ohms;
     res.points = a
@@ -91,7 +86,7 @@ fn from_responses(
     Ok(res)
 }
 
-pub fn run(args: &ZoutArgs) -> Result<ExitCode, String> {
+pub fn run(args: &ZoutArgs) -> Result<ExitCode, Failure> {
     super::check_save(&args.save)?;
     let loads: Vec<f64> = args
         .loads
@@ -108,7 +103,8 @@ pub fn run(args: &ZoutArgs) -> Result<ExitCode, String> {
         return Err(format!(
             "--loads takes exactly two resistances (the rated load and about twice it), got {}",
             loads.len()
-        ));
+        )
+        .into());
     };
     let mut results = Vec::new();
     let source;
@@ -116,7 +112,7 @@ pub fn run(args: &ZoutArgs) -> Result<ExitCode, String> {
     if let Some(mut rig) = args.rig.open(cal)? {
         let rate = args.rate;
         source = rig.describe();
-        let chosen = select_channels(rig.channels(), channel_choice(&args.channel)?).map_err(e)?;
+        let chosen = select_channels(rig.channels(), channel_choice(&args.channel)?)?;
         let c = Common {
             sample_rate_hz: rate,
             level_dbfs: args.level,
@@ -127,9 +123,9 @@ pub fn run(args: &ZoutArgs) -> Result<ExitCode, String> {
             fade_s: if args.sweep { 0.0 } else { 0.01 },
         };
         let stim = if args.sweep {
-            stimulus::sweep(&c, 10.0, 21_600.0, 3.0).map_err(e)?
+            stimulus::sweep(&c, 10.0, 21_600.0, 3.0)?
         } else {
-            stimulus::tone(&c, args.freq, 1.5).map_err(e)?
+            stimulus::tone(&c, args.freq, 1.5)?
         };
         if args.watts.is_some() && args.sweep {
             return Err(
@@ -140,15 +136,14 @@ pub fn run(args: &ZoutArgs) -> Result<ExitCode, String> {
             // With --watts: this channel's drive for that power into the first load.
             let scaled: Option<Vec<f64>> = match args.watts {
                 Some(w) => {
-                    rig.set_load(ra).map_err(e)?;
+                    rig.set_load(ra)?;
                     let found = ampnote::procedure::drive::drive_for_power(
                         rig.as_mut(),
                         ch,
                         args.freq,
                         rate,
                         w,
-                    )
-                    .map_err(e)?;
+                    )?;
                     Some(ampnote::procedure::drive::rescaled(
                         &stim.signal,
                         args.level,
@@ -160,19 +155,15 @@ pub fn run(args: &ZoutArgs) -> Result<ExitCode, String> {
             let signal = scaled.as_deref().unwrap_or(&stim.signal);
             let mut caps = Vec::new();
             for r in [ra, rb] {
-                rig.set_load(r).map_err(e)?;
-                caps.push(rig.play_and_record(ch, signal, rate).map_err(e)?);
+                rig.set_load(r)?;
+                caps.push(rig.play_and_record(ch, signal, rate)?);
             }
             let mut res = if args.sweep {
                 let sp = SweepParams::from_description(&stim.description).expect("a sweep");
-                let an = ResponseAnalyzer::new(ResponseConfig::default()).map_err(e)?;
+                let an = ResponseAnalyzer::new(ResponseConfig::default())?;
                 let thr = rig.overload_threshold();
-                let a = an
-                    .analyze(ch, &stim.signal, sp, &caps[0], rate as f64, thr)
-                    .map_err(e)?;
-                let b = an
-                    .analyze(ch, &stim.signal, sp, &caps[1], rate as f64, thr)
-                    .map_err(e)?;
+                let a = an.analyze(ch, &stim.signal, sp, &caps[0], rate as f64, thr)?;
+                let b = an.analyze(ch, &stim.signal, sp, &caps[1], rate as f64, thr)?;
                 from_responses(ch, &a, ra, &b, rb)?
             } else {
                 let level = |cap: &[f64], hint: f64| {
@@ -186,12 +177,12 @@ pub fn run(args: &ZoutArgs) -> Result<ExitCode, String> {
                 };
                 let a = level(&caps[0], args.freq)?;
                 let b = level(&caps[1], args.freq)?;
-                from_tones(ch, &a, ra, &b, rb).map_err(e)?
+                from_tones(ch, &a, ra, &b, rb)?
             };
             res.warnings.extend(rig.take_notes(ch));
             results.push(res);
         }
-        rig.set_load(ra).map_err(e)?;
+        rig.set_load(ra)?;
     } else {
         let [a_path, b_path] = &args.captures[..] else {
             return Err(
@@ -203,9 +194,8 @@ pub fn run(args: &ZoutArgs) -> Result<ExitCode, String> {
             a_path.display(),
             b_path.display()
         );
-        let info = Capture::probe(a_path).map_err(e)?;
-        let chosen =
-            select_channels(info.channel_count, channel_choice(&args.channel)?).map_err(e)?;
+        let info = Capture::probe(a_path)?;
+        let chosen = select_channels(info.channel_count, channel_choice(&args.channel)?)?;
         let sweep = match &args.stimulus {
             Some(p) => {
                 let (stim, desc) = super::read_stimulus(p, "sweep")?;
@@ -219,46 +209,43 @@ pub fn run(args: &ZoutArgs) -> Result<ExitCode, String> {
             None => None,
         };
         for &ch in &chosen {
-            let ca = Capture::read_channels(a_path, false, Some(&[ch])).map_err(e)?;
-            let cb = Capture::read_channels(b_path, false, Some(&[ch])).map_err(e)?;
+            let ca = Capture::read_channels(a_path, false, Some(&[ch]))?;
+            let cb = Capture::read_channels(b_path, false, Some(&[ch]))?;
             if ca.sample_rate_hz != cb.sample_rate_hz {
                 return Err(
                     "the two captures have different sample rates; record both the same way".into(),
                 );
             }
             if ca.channels[0] == cb.channels[0] {
-                return Err(e(Error::WrongKind {
+                return Err(Error::WrongKind {
                     channel: ch,
                     found: "the two captures hold the same samples: one recording given twice"
                         .into(),
                     next: "Give the capture into the first load, then the one into the second."
                         .into(),
-                }));
+                }
+                .into());
             }
             let fs = ca.sample_rate_hz as f64;
             let res = match &sweep {
                 Some((x, sp)) => {
-                    let an = ResponseAnalyzer::new(ResponseConfig::default()).map_err(e)?;
-                    let a = an
-                        .analyze(
-                            ch,
-                            x,
-                            *sp,
-                            &ca.channels[0],
-                            fs,
-                            ca.encoding.overload_threshold(),
-                        )
-                        .map_err(e)?;
-                    let b = an
-                        .analyze(
-                            ch,
-                            x,
-                            *sp,
-                            &cb.channels[0],
-                            fs,
-                            cb.encoding.overload_threshold(),
-                        )
-                        .map_err(e)?;
+                    let an = ResponseAnalyzer::new(ResponseConfig::default())?;
+                    let a = an.analyze(
+                        ch,
+                        x,
+                        *sp,
+                        &ca.channels[0],
+                        fs,
+                        ca.encoding.overload_threshold(),
+                    )?;
+                    let b = an.analyze(
+                        ch,
+                        x,
+                        *sp,
+                        &cb.channels[0],
+                        fs,
+                        cb.encoding.overload_threshold(),
+                    )?;
                     from_responses(ch, &a, ra, &b, rb)?
                 }
                 None => {
@@ -276,7 +263,7 @@ pub fn run(args: &ZoutArgs) -> Result<ExitCode, String> {
                         cb.encoding.resolution_bits(),
                         None,
                     )?;
-                    from_tones(ch, &a, ra, &b, rb).map_err(e)?
+                    from_tones(ch, &a, ra, &b, rb)?
                 }
             };
             results.push(res);

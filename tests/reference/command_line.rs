@@ -181,3 +181,39 @@ fn every_measuring_command_writes_csv() {
         }
     }
 }
+
+#[test]
+fn exit_codes_tell_input_from_device_faults() {
+    // 2 for what the user gave, 3 for the audio interface, 130 for Ctrl-C (the shells'
+    // convention, common practice); a device fault says whether running again may clear it.
+    use ampnote::error::Error;
+    let busy = Error::Device {
+        detail: "the input stream stalled".into(),
+        retryable: true,
+    };
+    assert_eq!(busy.exit_code(), 3);
+    assert!(busy.to_string().contains("run the command again"), "{busy}");
+    let gone = Error::Device {
+        detail: "no output device matches `x`".into(),
+        retryable: false,
+    };
+    assert_eq!(gone.exit_code(), 3);
+    assert!(!gone.to_string().contains("run the command again"));
+    assert_eq!(Error::Interrupted(String::new()).exit_code(), 130);
+    assert_eq!(
+        Error::NoSuchChannel {
+            requested: 3,
+            available: 2
+        }
+        .exit_code(),
+        2
+    );
+    // Through the binary: a file that is not there, and a notebook that is not one, exit 2.
+    let (code, _, err) = super::common::run(&["analyze", "/no/such/file.wav"]);
+    assert_eq!(code, 2, "{err}");
+    let d = super::common::tmpdir("exitcodes");
+    let (code, _, err) = super::common::run(&["notebook", "log", &d.to_string_lossy()]);
+    assert_eq!(code, 2, "{err}");
+    assert!(err.contains("is not a notebook"), "{err}");
+    std::fs::remove_dir_all(&d).ok();
+}
