@@ -7,6 +7,7 @@
 //! detection limit on either side is shown as `< limit` and gives no delta, and staircases are
 //! compared frequency by frequency.
 
+use super::number::{self, Unit};
 use crate::analysis::imd::ImdResult as ImdView;
 use crate::analysis::noise::NoiseResult as NoiseView;
 use crate::analysis::sweep::ResponseResult as ResponseView;
@@ -27,12 +28,12 @@ pub struct CompareLine {
     /// The side's value is a detection limit (the figure is at most this): no delta is given.
     pub a_upper_bound: bool,
     pub b_upper_bound: bool,
-    pub unit: String,
+    pub unit: Unit,
     /// B relative to A, in `delta_unit` (dB for powers, levels and ratios; the unit itself for
     /// dB figures and impedances); `null` when a side is a bound or the runs are not like for
     /// like (the sentence says why).
     pub delta: Option<f64>,
-    pub delta_unit: String,
+    pub delta_unit: Unit,
     pub sentence: String,
 }
 
@@ -120,12 +121,12 @@ fn harmonic(lines: &[Harmonic], order: usize) -> Option<Val> {
         })
 }
 
-fn power_at(p: &PowerView, thd: f64) -> Option<(f64, &'static str)> {
+fn power_at(p: &PowerView, thd: f64) -> Option<(f64, Unit)> {
     let at = p.power_at_thd.iter().find(|q| q.thd_percent == thd)?;
     Some(
         at.output_w
-            .map(|w| (w, "W"))
-            .unwrap_or((at.output_dbfs, "dBFS")),
+            .map(|w| (w, Unit::Watts))
+            .unwrap_or((at.output_dbfs, Unit::Dbfs)),
     )
 }
 
@@ -143,35 +144,18 @@ pub fn thd_at_power(p: &PowerView, w: f64) -> Option<f64> {
     Some((pair[0].1.ln() + t * (pair[1].1.ln() - pair[0].1.ln())).exp())
 }
 
-fn fmt(v: f64, unit: &str) -> String {
-    match unit {
-        "W" if v < 0.9995 => format!("{:.0} mW", v * 1000.0),
-        "W" => format!("{v:.2} W"),
-        "%" => format!("{} %", super::tone::fmt_pct(v)),
-        "Hz" if v >= 1000.0 => format!("{:.2} kHz", v / 1000.0),
-        "Hz" => format!("{v:.1} Hz"),
-        "ohm" => format!("{v:.2} ohm"),
-        "" => format!("{v:.2}"),
-        _ => format!("{v:.2} {unit}"),
-    }
+fn fmt(v: f64, unit: Unit) -> String {
+    number::show(v, unit)
 }
 
-/// B relative to A: dB for ratio figures (powers, percentages, volts), a plain difference for the
-/// rest.
-fn change(a: f64, b: f64, unit: &str) -> (f64, String) {
-    match unit {
-        "W" => (10.0 * (b / a).log10(), "dB".to_string()),
-        "%" | "V" => (20.0 * (b / a).log10(), "dB".to_string()),
-        u => (b - a, u.to_string()),
-    }
-}
-
-fn fmt_change(delta: f64, unit: &str) -> String {
-    let sign = if delta >= 0.0 { "+" } else { "" };
-    if matches!(unit, "W" | "%" | "V") || unit.starts_with("dB") {
-        format!("{sign}{delta:.2} dB")
-    } else {
-        format!("{sign}{}", fmt(delta, unit))
+/// B relative to A, and the unit of the change: dB for ratio figures (powers, percentages,
+/// volts: 10 or 20 lg of the ratio) and for levels in dB (a difference), a plain difference in
+/// the figure's unit for the rest.
+fn change(a: f64, b: f64, unit: Unit) -> (f64, Unit) {
+    match unit.change_in_db() {
+        Some(k) => (k * (b / a).log10(), Unit::Db),
+        None if unit.is_db() => (b - a, Unit::Db),
+        None => (b - a, unit),
     }
 }
 
@@ -182,25 +166,21 @@ fn line(
     figure: &str,
     a: Val,
     b: Val,
-    unit: &str,
+    unit: Unit,
     unlike: Option<&str>,
 ) -> CompareLine {
     let shown = |x: Val| {
         if x.bound {
-            format!("< {}", fmt(x.v, unit))
+            number::bound(x.v, unit)
         } else {
             fmt(x.v, unit)
         }
     };
     let (d, delta_unit) = change(a.v, b.v, unit);
-    let magnitude = if delta_unit == "dB" || unit.starts_with("dB") {
-        format!("{:.1} dB", d.abs())
-    } else {
-        fmt(d.abs(), unit)
-    };
+    let magnitude = fmt(d.abs(), delta_unit);
     let (delta, tail) = match (a.bound, b.bound, unlike) {
         (_, _, Some(why)) => (None, format!("not compared: {why}")),
-        (false, false, None) => (Some(d), fmt_change(d, unit)),
+        (false, false, None) => (Some(d), number::change(d, delta_unit)),
         (true, true, None) => (
             None,
             "both under the noise: no change can be read".to_string(),
@@ -225,7 +205,7 @@ fn line(
         b: b.v,
         a_upper_bound: a.bound,
         b_upper_bound: b.bound,
-        unit: unit.to_string(),
+        unit,
         delta,
         delta_unit,
         sentence: format!("{figure}: {} -> {}, {tail}", shown(a), shown(b)),
@@ -238,7 +218,7 @@ fn tone_levels(a: &ToneView, b: &ToneView) -> (f64, String, String) {
     match (a.fundamental_vrms, b.fundamental_vrms) {
         (Some(x), Some(y)) => {
             let said = |t: &ToneView, v: f64| match t.output_w {
-                Some(w) => fmt(w, "W"),
+                Some(w) => fmt(w, Unit::Watts),
                 None => format!("{v:.3} V"),
             };
             (20.0 * (y / x).log10(), said(a, x), said(b, y))
@@ -292,11 +272,11 @@ pub fn compare(name_a: &str, a: &[Run], name_b: &str, b: &[Run]) -> Comparison {
     let mut deviation_curves = Vec::new();
     for ch in channels {
         let mut add =
-            |fig: &str, x: Option<Val>, y: Option<Val>, unit: &str, unlike: Option<&str>| {
+            |fig: &str, x: Option<Val>, y: Option<Val>, unit: Unit, unlike: Option<&str>| {
                 if let (Some(x), Some(y)) = (x, y) {
                     if x.v.is_finite()
                         && y.v.is_finite()
-                        && (unit != "W" && unit != "%" || x.v > 0.0 && y.v > 0.0)
+                        && (unit.change_in_db().is_none() || x.v > 0.0 && y.v > 0.0)
                     {
                         lines.push(line(ch, fig, x, y, unit, unlike));
                     }
@@ -320,21 +300,21 @@ pub fn compare(name_a: &str, a: &[Run], name_b: &str, b: &[Run]) -> Comparison {
                     &format!("DC {name}"),
                     measured(Some(p.volts)),
                     measured(Some(q.volts)),
-                    "V DC",
+                    Unit::VoltsDc,
                     None,
                 );
                 add(
                     &format!("DC {name} current"),
                     measured(p.current_ma),
                     measured(q.current_ma),
-                    "mA",
+                    Unit::Milliamps,
                     None,
                 );
                 add(
                     &format!("DC {name} dissipation"),
                     measured(p.dissipation_w),
                     measured(q.dissipation_w),
-                    "W",
+                    Unit::Watts,
                     None,
                 );
             }
@@ -349,13 +329,13 @@ pub fn compare(name_a: &str, a: &[Run], name_b: &str, b: &[Run]) -> Comparison {
                 if several {
                     skipped.push(format!(
                         "channel {ch}: a staircase at {} only on `{name_a}`: not compared",
-                        fmt(p.frequency_hz, "Hz")
+                        fmt(p.frequency_hz, Unit::Hz)
                     ));
                 }
                 continue;
             };
             let at_f = if several {
-                format!(" ({})", fmt(p.frequency_hz, "Hz"))
+                format!(" ({})", fmt(p.frequency_hz, Unit::Hz))
             } else {
                 String::new()
             };
@@ -369,7 +349,9 @@ pub fn compare(name_a: &str, a: &[Run], name_b: &str, b: &[Run]) -> Comparison {
                         None,
                     ),
                     (Some((_, u)), Some((_, v))) => skipped.push(format!(
-                        "channel {ch}: power at {t} %{at_f} is in {u} on one side and {v} on the other: not compared (give both sides a calibration)"
+                        "channel {ch}: power at {t} %{at_f} is in {} on one side and {} on the other: not compared (give both sides a calibration)",
+                        u.symbol(),
+                        v.symbol()
                     )),
                     _ => {}
                 }
@@ -378,7 +360,7 @@ pub fn compare(name_a: &str, a: &[Run], name_b: &str, b: &[Run]) -> Comparison {
                 &format!("THD at 1 W (staircase){at_f}"),
                 measured(thd_at_power(p, 1.0)),
                 measured(thd_at_power(q, 1.0)),
-                "%",
+                Unit::Percent,
                 None,
             );
         }
@@ -402,12 +384,12 @@ pub fn compare(name_a: &str, a: &[Run], name_b: &str, b: &[Run]) -> Comparison {
                     bound: t.thd_upper_bound,
                 })
             };
-            add(&format!("THD{at}"), thd(ta), thd(tb), "%", unlike);
+            add(&format!("THD{at}"), thd(ta), thd(tb), Unit::Percent, unlike);
             add(
                 &format!("THD+N{at}"),
                 measured(Some(ta.thdn_percent)),
                 measured(Some(tb.thdn_percent)),
-                "%",
+                Unit::Percent,
                 unlike,
             );
             for o in 2..=5 {
@@ -415,7 +397,7 @@ pub fn compare(name_a: &str, a: &[Run], name_b: &str, b: &[Run]) -> Comparison {
                     &format!("H{o}{at}"),
                     harmonic(&ta.harmonics, o),
                     harmonic(&tb.harmonics, o),
-                    "dBc",
+                    Unit::Dbc,
                     unlike,
                 );
             }
@@ -423,7 +405,7 @@ pub fn compare(name_a: &str, a: &[Run], name_b: &str, b: &[Run]) -> Comparison {
                 "noise",
                 measured(Some(ta.noise_dbfs)),
                 measured(Some(tb.noise_dbfs)),
-                "dBFS",
+                Unit::Dbfs,
                 None,
             );
             // The strongest hum line that stands above the noise, else the highest limit.
@@ -444,7 +426,7 @@ pub fn compare(name_a: &str, a: &[Run], name_b: &str, b: &[Run]) -> Comparison {
                         .map(|v| Val { v, bound: true }),
                 }
             };
-            add("strongest hum line", hum(ta), hum(tb), "dBc", None);
+            add("strongest hum line", hum(ta), hum(tb), Unit::Dbc, None);
         }
         if let (Some(ra), Some(rb)) = (latest::<ResponseView>(a, ch), latest::<ResponseView>(b, ch))
         {
@@ -459,28 +441,28 @@ pub fn compare(name_a: &str, a: &[Run], name_b: &str, b: &[Run]) -> Comparison {
                 "low -3 dB point",
                 measured(ra.low_3db_hz),
                 measured(rb.low_3db_hz),
-                "Hz",
+                Unit::Hz,
                 None,
             );
             add(
                 "high -3 dB point",
                 measured(ra.high_3db_hz),
                 measured(rb.high_3db_hz),
-                "Hz",
+                Unit::Hz,
                 None,
             );
             add(
                 "largest deviation 20 Hz-20 kHz",
                 measured(Some(ra.max_deviation_db)),
                 measured(Some(rb.max_deviation_db)),
-                "dB",
+                Unit::Db,
                 None,
             );
             add(
                 "H2 at 40 Hz (sweep)",
                 measured(sweep_harmonic(ra, 2, 40.0)),
                 measured(sweep_harmonic(rb, 2, 40.0)),
-                "dBc",
+                Unit::Dbc,
                 None,
             );
         }
@@ -490,25 +472,25 @@ pub fn compare(name_a: &str, a: &[Run], name_b: &str, b: &[Run]) -> Comparison {
                     "noise with no signal (flat)",
                     Some(na.noise_dbfs),
                     Some(nb.noise_dbfs),
-                    "dBFS",
+                    Unit::Dbfs,
                 ),
                 (
                     "noise with no signal (A-weighted)",
                     Some(na.noise_a_dbfs),
                     Some(nb.noise_a_dbfs),
-                    "dBFS",
+                    Unit::Dbfs,
                 ),
                 (
                     "hum and noise with no signal",
                     Some(na.hum_and_noise_dbfs),
                     Some(nb.hum_and_noise_dbfs),
-                    "dBFS",
+                    Unit::Dbfs,
                 ),
                 (
                     "S/N re 1 W (A-weighted)",
                     na.snr_a_re_1w_db,
                     nb.snr_a_re_1w_db,
-                    "dB",
+                    Unit::Db,
                 ),
             ] {
                 add(fig, measured(x), measured(y), unit, None);
@@ -523,21 +505,21 @@ pub fn compare(name_a: &str, a: &[Run], name_b: &str, b: &[Run]) -> Comparison {
                     &format!("IMD{pair}"),
                     measured(ia.imd_percent),
                     measured(ib.imd_percent),
-                    "%",
+                    Unit::Percent,
                     None,
                 );
                 add(
                     &format!("d2{pair}"),
                     measured(ia.dd2_percent),
                     measured(ib.dd2_percent),
-                    "%",
+                    Unit::Percent,
                     None,
                 );
                 add(
                     &format!("d3{pair}"),
                     measured(ia.dd3_percent),
                     measured(ib.dd3_percent),
-                    "%",
+                    Unit::Percent,
                     None,
                 );
             } else {
@@ -552,14 +534,14 @@ pub fn compare(name_a: &str, a: &[Run], name_b: &str, b: &[Run]) -> Comparison {
                 "output impedance",
                 measured(Some(za.zout_ohms)),
                 measured(Some(zb.zout_ohms)),
-                "ohm",
+                Unit::Ohms,
                 None,
             );
             add(
                 "damping factor",
                 measured(Some(za.damping_factor)),
                 measured(Some(zb.damping_factor)),
-                "",
+                Unit::Ratio,
                 None,
             );
         }
@@ -629,7 +611,7 @@ pub struct MatchCheck {
     pub name: String,
     pub value: f64,
     pub tolerance: f64,
-    pub unit: String,
+    pub unit: Unit,
     /// The value must reach the tolerance (a separation), not stay within it.
     #[serde(default)]
     pub minimum: bool,
@@ -640,9 +622,9 @@ impl MatchCheck {
     /// "within 0.5 dB" or "at least 60 dB".
     pub fn limit_text(&self) -> String {
         if self.minimum {
-            format!("at least {} {}", self.tolerance, self.unit)
+            format!("at least {}", fmt(self.tolerance, self.unit))
         } else {
-            format!("within {} {}", self.tolerance, self.unit)
+            format!("within {}", fmt(self.tolerance, self.unit))
         }
     }
 }
@@ -699,13 +681,13 @@ pub fn match_channels(
     let (ca, cb) = (ch_of(a), ch_of(b));
     let mut checks = Vec::new();
     let mut warnings = Vec::new();
-    let mut check = |name: &str, value: Option<f64>, tolerance: f64, unit: &str| -> Option<f64> {
+    let mut check = |name: &str, value: Option<f64>, tolerance: f64, unit: Unit| -> Option<f64> {
         let v = value?;
         checks.push(MatchCheck {
             name: name.to_string(),
             value: v,
             tolerance,
-            unit: unit.to_string(),
+            unit,
             minimum: false,
             pass: v.abs() <= tolerance,
         });
@@ -720,13 +702,13 @@ pub fn match_channels(
         (_, _, Some(x), Some(y)) => Some(y.fundamental_dbfs - x.fundamental_dbfs),
         _ => None,
     };
-    let gain_difference_db = check("gain difference", gain, tol.gain_db, "dB");
+    let gain_difference_db = check("gain difference", gain, tol.gain_db, Unit::Db);
     let response_max_deviation_db = match (&ra, &rb) {
         (Some(x), Some(y)) => check(
             "largest response deviation 20 Hz-20 kHz",
             curve_difference(x, y, false),
             tol.response_db,
-            "dB",
+            Unit::Db,
         ),
         _ => None,
     };
@@ -735,7 +717,7 @@ pub fn match_channels(
             "largest phase difference 20 Hz-20 kHz",
             curve_difference(x, y, true),
             tol.phase_deg,
-            "deg",
+            Unit::Degrees,
         );
     }
     let (pa, pb) = (power_runs(a, ca), power_runs(b, cb));
@@ -743,24 +725,24 @@ pub fn match_channels(
         let thd = thd_at_power(x, 1.0)
             .zip(thd_at_power(y, 1.0))
             .map(|(p, q)| 20.0 * (q / p).log10());
-        check("THD difference at 1 W", thd, tol.thd_db, "dB");
+        check("THD difference at 1 W", thd, tol.thd_db, Unit::Db);
         let p1 = power_at(x, 1.0)
             .zip(power_at(y, 1.0))
             .map(|((p, u), (q, _))| {
-                if u == "W" {
+                if u == Unit::Watts {
                     10.0 * (q / p).log10()
                 } else {
                     q - p
                 }
             });
-        check("power at 1 % THD difference", p1, tol.power_db, "dB");
+        check("power at 1 % THD difference", p1, tol.power_db, Unit::Db);
     }
     if let (Some(x), Some(y)) = (&ta, &tb) {
         check(
             "noise difference",
             Some(y.noise_dbfs - x.noise_dbfs),
             tol.noise_db,
-            "dB",
+            Unit::Db,
         );
     }
     // Separation: each channel driven, the other's level below it at 1 kHz (a lower bound
@@ -785,7 +767,7 @@ pub fn match_channels(
                 ),
                 value: v,
                 tolerance: tol.separation_db,
-                unit: "dB".into(),
+                unit: Unit::Db,
                 minimum: true,
                 pass: v >= tol.separation_db,
             });
@@ -845,10 +827,9 @@ impl MatchResult {
         );
         for c in &self.checks {
             s += &format!(
-                "  {:<42} {:>8.2} {:<4} ({})  {}\n",
+                "  {:<42} {:>13} ({})  {}\n",
                 c.name,
-                c.value,
-                c.unit,
+                fmt(c.value, c.unit),
                 c.limit_text(),
                 if c.pass { "pass" } else { "FAIL" }
             );

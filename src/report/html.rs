@@ -597,10 +597,9 @@ pub fn write_report(nb: &Notebook, out: &Path) -> Result<ReportFiles> {
                 for c in &m.checks {
                     let _ = writeln!(
                         html,
-                        "<tr><td>{}</td><td>{:.2} {}</td><td>{}</td><td class=\"{}\">{}</td></tr>",
+                        "<tr><td>{}</td><td>{}</td><td>{}</td><td class=\"{}\">{}</td></tr>",
                         escape(&c.name),
-                        c.value,
-                        c.unit,
+                        super::number::show(c.value, c.unit),
                         escape(&c.limit_text()),
                         if c.pass { "pass" } else { "fail" },
                         if c.pass { "pass" } else { "FAIL" }

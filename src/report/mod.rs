@@ -3,6 +3,7 @@
 pub mod compare;
 pub mod html;
 pub mod imd;
+pub mod number;
 pub mod power;
 pub mod response;
 pub mod tone;

@@ -88,8 +88,10 @@ impl PowerReport {
                     "  {:>10.2} {:>10.2} {:>9} {:>10} {:>12} {:>12} {:>8} {:>8}{}",
                     st.drive_dbfs,
                     st.output_dbfs,
-                    st.output_vrms.map_or("-".into(), |v| format!("{v:.3}")),
-                    st.output_w.map_or("-".into(), |w| format!("{w:.3}")),
+                    st.output_vrms
+                        .map_or("-".into(), |v| super::number::significant(v, 3, 6)),
+                    st.output_w
+                        .map_or("-".into(), |w| super::number::significant(w, 3, 6)),
                     match st.thd_percent {
                         Some(t) if st.thd_upper_bound => format!("<{}", fmt_pct(t)),
                         Some(t) => fmt_pct(t),

@@ -341,31 +341,15 @@ pub fn oscillation_lines(
 
 /// Percent with enough significant digits for small values.
 pub fn fmt_pct(p: f64) -> String {
-    if p >= 1.0 {
-        format!("{p:.3}")
-    } else if p >= 1e-4 {
-        format!("{p:.6}")
-    } else {
-        format!("{p:.3e}")
-    }
+    super::number::percent(p)
 }
 
 /// Volts with a sensible unit prefix.
 pub fn fmt_volts(v: f64) -> String {
-    if v >= 1.0 {
-        format!("{v:.3} V")
-    } else if v >= 1e-3 {
-        format!("{:.3} mV", v * 1e3)
-    } else {
-        format!("{:.3} uV", v * 1e6)
-    }
+    super::number::show(v, super::number::Unit::Volts)
 }
 
 /// Watts with a sensible unit prefix.
 pub fn fmt_watts(w: f64) -> String {
-    if w >= 1.0 {
-        format!("{w:.3} W")
-    } else {
-        format!("{:.3} mW", w * 1e3)
-    }
+    super::number::show(w, super::number::Unit::Watts)
 }

@@ -217,3 +217,57 @@ fn exit_codes_tell_input_from_device_faults() {
     assert!(err.contains("is not a notebook"), "{err}");
     std::fs::remove_dir_all(&d).ok();
 }
+
+#[test]
+fn numbers_read_as_a_person_writes_them() {
+    // The figures the issue found printed badly, and what a bench notebook would show instead
+    // (3 significant figures, common practice; no exponent in a % column; no -0).
+    use ampnote::report::number::{bound, change, percent, show, Unit};
+    assert_eq!(percent(0.251212), "0.251");
+    assert_eq!(percent(2.769e-5), "0.0000277");
+    assert_eq!(percent(5.495e-7), "0.0000005");
+    assert_eq!(percent(1e-9), "< 0.0000001");
+    assert_eq!(percent(12.345), "12.3");
+    assert_eq!(percent(9.9951), "10.0");
+    assert_eq!(show(-0.0001, Unit::Dbfs), "0.00 dBFS");
+    assert_eq!(show(-12.345, Unit::Dbc), "-12.3 dBc");
+    assert_eq!(show(0.128210, Unit::Watts), "128 mW");
+    assert_eq!(show(1.001, Unit::Watts), "1.00 W");
+    assert_eq!(show(0.99996, Unit::Watts), "1.00 W");
+    assert_eq!(show(0.9994, Unit::Watts), "999 mW");
+    assert_eq!(show(999.7, Unit::Hz), "1.00 kHz");
+    assert_eq!(show(0.99999, Unit::Volts), "1.00 V");
+    assert_eq!(show(10_000.0, Unit::Hz), "10.0 kHz");
+    assert_eq!(show(997.0, Unit::Hz), "997 Hz");
+    assert_eq!(show(40.0, Unit::Hz), "40.0 Hz");
+    assert_eq!(show(0.0123, Unit::Volts), "12.3 mV");
+    assert_eq!(show(2.5, Unit::Ohms), "2.50 ohm");
+    assert_eq!(bound(-110.04, Unit::Dbc), "< -110.0 dBc");
+    assert_eq!(change(3.0103, Unit::Db), "+3.01 dB");
+    assert_eq!(change(-0.5, Unit::Db), "-0.50 dB");
+    // Every number of the demo's tables carries no exponent.
+    let x = super::common::sines(48_000.0, 48_000, &[(1000.0, 0.5, 0.0), (2000.0, 5e-7, 0.0)]);
+    let d = super::common::tmpdir("numbers");
+    let p = d.join("t.wav");
+    ampnote::signal::wav::write_wav(
+        &p,
+        48_000,
+        &[x],
+        ampnote::signal::wav::WavFormat::Float32,
+        1,
+    )
+    .unwrap();
+    let (code, out, err) = super::common::run(&["analyze", &p.to_string_lossy()]);
+    assert_eq!(code, 0, "{err}");
+    for word in out.split_whitespace() {
+        let exponent = word.contains("e-") || word.contains("e+");
+        let numeric = word
+            .trim_start_matches(['-', '+', '<'])
+            .starts_with(|c: char| c.is_ascii_digit());
+        assert!(
+            !(exponent && numeric),
+            "exponent in the table: {word}\n{out}"
+        );
+    }
+    std::fs::remove_dir_all(&d).ok();
+}
