@@ -226,10 +226,10 @@ pub struct PowerArgs {
     pub rig: RigArgs,
     /// Amplifier channel(s): a number from 1, or `all`.
     #[arg(long, default_value = "all", value_name = "N|all")]
-    pub channel: String,
+    pub channel: ChannelChoice,
     /// Frequencies for a rig run, e.g. 997 or 40,997,10000 (power bandwidth); 997 Hz is the AES17 test tone.
-    #[arg(long, default_value = "997", value_name = "HZ[,HZ...]")]
-    pub freq: String,
+    #[arg(long, default_value = "997", value_name = "HZ[,HZ...]", value_delimiter = ',', value_parser = hertz)]
+    pub freq: Vec<f64>,
     /// First drive level of a rig run, dBFS.
     #[arg(long = "from", default_value_t = -30.0, value_name = "DBFS", allow_negative_numbers = true)]
     pub from_dbfs: f64,
@@ -287,8 +287,8 @@ pub struct ZoutArgs {
     /// Capture into the first load, then into the second (or use --rig).
     pub captures: Vec<PathBuf>,
     /// The two loads in ohms, in the captures' order (e.g. 8,16: the rated load and twice it).
-    #[arg(long, default_value = "8,16", value_name = "R1,R2")]
-    pub loads: String,
+    #[arg(long, default_value = "8,16", value_name = "R1,R2", value_delimiter = ',', value_parser = ohms)]
+    pub loads: Vec<f64>,
     /// The sweep the captures recorded (gives the impedance across the band); without it the
     /// captures are steady tones.
     #[arg(long, value_name = "SWEEP.wav")]
@@ -315,7 +315,7 @@ pub struct ZoutArgs {
     pub watts: Option<f64>,
     /// Channel to measure: a number from 1, or `all`.
     #[arg(long, default_value = "all", value_name = "N|all")]
-    pub channel: String,
+    pub channel: ChannelChoice,
     /// Print JSON instead of the table.
     #[arg(long)]
     pub json: bool,
@@ -473,8 +473,8 @@ pub struct GenerateCommon {
     #[arg(long, default_value_t = 48_000, value_name = "HZ")]
     pub rate: u32,
     /// Sample format: 16 or 24-bit integer (TPDF dither) or 32-bit float.
-    #[arg(long, default_value = "24", value_name = "16|24|32f")]
-    pub bits: String,
+    #[arg(long, value_enum, default_value = "24")]
+    pub bits: Bits,
     /// RMS level in dBFS (0 dBFS = a full-scale sine) [default: -12; a staircase takes --from
     /// and --to instead]
     #[arg(long, value_name = "DBFS", allow_negative_numbers = true)]
@@ -484,7 +484,7 @@ pub struct GenerateCommon {
     pub channels: usize,
     /// Channels that carry the signal (e.g. 1 or 1,2); the others stay silent.
     #[arg(long, default_value = "all", value_name = "LIST|all")]
-    pub signal_on: String,
+    pub signal_on: ChannelList,
     /// Silence before the signal.
     #[arg(long, default_value_t = 0.2, value_name = "S")]
     pub lead: f64,
@@ -528,7 +528,7 @@ pub struct ResponseArgs {
     pub rate: u32,
     /// Channel of the capture to analyse: a number from 1, or `all`.
     #[arg(long, default_value = "all", value_name = "N|all")]
-    pub channel: String,
+    pub channel: ChannelChoice,
     /// Smooth the magnitude over 1/N octave.
     #[arg(long, value_name = "N")]
     pub smooth: Option<u32>,
@@ -607,13 +607,13 @@ pub struct NoiseArgs {
     pub rate: u32,
     /// Channel to analyse: a number from 1, or `all`.
     #[arg(long, default_value = "all", value_name = "N|all")]
-    pub channel: String,
+    pub channel: ChannelChoice,
     /// Measurement band in Hz.
     #[arg(long, default_value = "20:20000", value_name = "LO:HI")]
-    pub band: String,
+    pub band: Band,
     /// Mains frequency for the hum lines: auto (50 or 60, whichever is present), or a value in Hz.
     #[arg(long, default_value = "auto", value_name = "auto|50|60|HZ")]
-    pub mains: String,
+    pub mains: MainsChoice,
     #[command(flatten)]
     pub calibration: CalibrationArgs,
     /// Print JSON instead of the table.
@@ -652,7 +652,7 @@ pub struct ImdArgs {
     pub stimulus: Option<PathBuf>,
     /// Channel of the capture to analyse: a number from 1, or `all`.
     #[arg(long, default_value = "all", value_name = "N|all")]
-    pub channel: String,
+    pub channel: ChannelChoice,
     /// Print JSON instead of the table.
     #[arg(long)]
     pub json: bool,
@@ -694,11 +694,11 @@ pub struct AnalyzeArgs {
 
     /// Channel to analyse: a number from 1, or `all`.
     #[arg(long, default_value = "all", value_name = "N|all")]
-    pub channel: String,
+    pub channel: ChannelChoice,
 
     /// Measurement band in Hz (default 20:20000, or up to Nyquist when the rate is lower).
     #[arg(long, value_name = "LO:HI")]
-    pub band: Option<String>,
+    pub band: Option<Band>,
 
     /// Weighting of the noise figure.
     #[arg(long, value_enum, default_value_t = WeightingArg::None)]
@@ -710,7 +710,7 @@ pub struct AnalyzeArgs {
 
     /// Mains frequency for the hum lines: auto (50 or 60, whichever is present), or a value in Hz.
     #[arg(long, default_value = "auto", value_name = "auto|50|60|HZ")]
-    pub mains: String,
+    pub mains: MainsChoice,
 
     /// Expected fundamental in Hz (the search stays within 2 % of it).
     #[arg(long, value_name = "HZ")]
@@ -750,11 +750,11 @@ pub struct RigArgs {
     #[arg(long, value_name = "NAME")]
     pub input_device: Option<String>,
     /// Live rig: the interface output feeding each amplifier channel (1 for channel 1, ...).
-    #[arg(long, default_value = "1,2", value_name = "LIST")]
-    pub outputs: String,
+    #[arg(long, default_value = "1,2", value_name = "LIST", value_delimiter = ',', value_parser = output_channel)]
+    pub outputs: Vec<usize>,
     /// Live rig: the interface input reading each amplifier channel (through the attenuator).
-    #[arg(long, default_value = "1,2", value_name = "LIST")]
-    pub inputs: String,
+    #[arg(long, default_value = "1,2", value_name = "LIST", value_delimiter = ',', value_parser = input_channel)]
+    pub inputs: Vec<usize>,
     /// Live rig, JACK only: connect ampnote's outputs to its inputs (checks the rig itself,
     /// with no amplifier).
     #[arg(long)]
@@ -770,19 +770,11 @@ pub struct RigArgs {
 impl RigArgs {
     /// The live settings, checked.
     pub fn options(&self, calibration: Calibration) -> Result<ampnote::rig::RigOptions, String> {
-        let list = |flag: &str, text: &str| -> Result<Vec<usize>, String> {
-            text.split(',')
-                .map(|t| t.trim().parse::<usize>().ok().filter(|&n| n >= 1))
-                .collect::<Option<Vec<_>>>()
-                .ok_or_else(|| {
-                    format!("--{flag} takes interface channel numbers from 1, like 1 or 1,2; got `{text}`")
-                })
-        };
         Ok(ampnote::rig::RigOptions {
             host: self.host.clone(),
             input_device: self.input_device.clone(),
-            outputs: list("outputs", &self.outputs)?,
-            inputs: list("inputs", &self.inputs)?,
+            outputs: self.outputs.clone(),
+            inputs: self.inputs.clone(),
             self_patch: self.self_patch,
             buffer_frames: self.buffer,
             keep_dir: self.captures_dir.clone(),
@@ -904,32 +896,12 @@ pub enum WeightingArg {
     A,
 }
 
-/// `--channel N|all`: `None` for all.
-pub fn channel_choice(text: &str) -> Result<Option<usize>, String> {
-    if text.eq_ignore_ascii_case("all") {
-        return Ok(None);
-    }
-    text.parse::<usize>()
-        .map(Some)
-        .map_err(|_| format!("--channel takes a number from 1 or `all`, got `{text}`"))
-}
-
 impl GenerateCommon {
     /// The validated common stimulus settings (fade: the kind's default when not given).
     pub fn common(&self, default_fade_s: f64) -> Result<Common, String> {
-        let signal_channels = if self.signal_on.eq_ignore_ascii_case("all") {
-            (1..=self.channels).collect()
-        } else {
-            self.signal_on
-                .split(',')
-                .map(|t| t.trim().parse::<usize>())
-                .collect::<Result<Vec<_>, _>>()
-                .map_err(|_| {
-                    format!(
-                        "--signal-on takes channel numbers like 1 or 1,2, or `all`; got `{}`",
-                        self.signal_on
-                    )
-                })?
+        let signal_channels = match &self.signal_on {
+            ChannelList::All => (1..=self.channels).collect(),
+            ChannelList::These(v) => v.clone(),
         };
         Ok(Common {
             sample_rate_hz: self.rate,
@@ -943,51 +915,33 @@ impl GenerateCommon {
     }
 
     pub fn format(&self) -> Result<WavFormat, String> {
-        match self.bits.as_str() {
-            "16" => Ok(WavFormat::Int { bits: 16 }),
-            "24" => Ok(WavFormat::Int { bits: 24 }),
-            "32f" | "32" => Ok(WavFormat::Float32),
-            other => Err(format!("--bits takes 16, 24 or 32f, got `{other}`")),
-        }
+        Ok(match self.bits {
+            Bits::Int16 => WavFormat::Int { bits: 16 },
+            Bits::Int24 => WavFormat::Int { bits: 24 },
+            Bits::Float32 => WavFormat::Float32,
+        })
     }
 }
 
 impl AnalyzeArgs {
     /// The channel choice: `None` for all.
     pub fn channel_choice(&self) -> Result<Option<usize>, String> {
-        channel_choice(&self.channel)
+        Ok(self.channel.get())
     }
 
     /// The validated analysis settings.
     pub fn tone_config(&self) -> Result<ToneConfig, String> {
         let mut cfg = ToneConfig::default();
-        if let Some(b) = &self.band {
-            let (lo, hi) = b.split_once(':').ok_or_else(|| {
-                format!("--band takes LO:HI in Hz, for example 20:20000; got `{b}`")
-            })?;
-            let parse = |s: &str| {
-                s.trim().parse::<f64>().map_err(|_| {
-                    format!("--band takes LO:HI in Hz, for example 20:20000; `{s}` is not a number")
-                })
-            };
-            cfg.band_low_hz = parse(lo)?;
-            cfg.band_high_hz = Some(parse(hi)?);
+        if let Some(b) = self.band {
+            cfg.band_low_hz = b.low_hz;
+            cfg.band_high_hz = Some(b.high_hz);
         }
         cfg.weighting = match self.weighting {
             WeightingArg::None => Weighting::None,
             WeightingArg::A => Weighting::A,
         };
         cfg.max_harmonic = self.harmonics;
-        cfg.mains = if self.mains.eq_ignore_ascii_case("auto") {
-            Mains::Auto
-        } else {
-            Mains::Hz(self.mains.parse::<f64>().map_err(|_| {
-                format!(
-                    "--mains takes auto, 50, 60 or a frequency in Hz; got `{}`",
-                    self.mains
-                )
-            })?)
-        };
+        cfg.mains = self.mains.0;
         cfg.fundamental_hint_hz = self.fundamental;
         Ok(cfg)
     }
@@ -1031,4 +985,159 @@ impl CalibrationArgs {
             .validated()
             .map_err(|e| e.to_string())
     }
+}
+
+// --- flag values, parsed and checked by clap before a command runs ------------------------------
+// Every value below is parsed with its `FromStr` (clap's `value_parser!` picks it up), so a typo
+// in `--channel`, `--band` or `--freq` is a usage error before any file or rig is opened.
+
+/// `--channel`: one channel, or all of them.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub enum ChannelChoice {
+    All,
+    One(usize),
+}
+
+impl ChannelChoice {
+    /// `None` for all.
+    pub fn get(self) -> Option<usize> {
+        match self {
+            ChannelChoice::All => None,
+            ChannelChoice::One(n) => Some(n),
+        }
+    }
+}
+
+impl std::str::FromStr for ChannelChoice {
+    type Err = String;
+    fn from_str(text: &str) -> Result<Self, String> {
+        if text.eq_ignore_ascii_case("all") {
+            return Ok(ChannelChoice::All);
+        }
+        text.trim()
+            .parse::<usize>()
+            .map(ChannelChoice::One)
+            .map_err(|_| format!("--channel takes a number from 1 or `all`, got `{text}`"))
+    }
+}
+
+/// A list of channel numbers from 1 (`1` or `1,2`), or `all`.
+#[derive(Debug, Clone, PartialEq, Eq)]
+pub enum ChannelList {
+    All,
+    These(Vec<usize>),
+}
+
+impl std::str::FromStr for ChannelList {
+    type Err = String;
+    fn from_str(text: &str) -> Result<Self, String> {
+        if text.eq_ignore_ascii_case("all") {
+            return Ok(ChannelList::All);
+        }
+        text.split(',')
+            .map(|t| t.trim().parse::<usize>().ok().filter(|&n| n >= 1))
+            .collect::<Option<Vec<_>>>()
+            .map(ChannelList::These)
+            .ok_or_else(|| {
+                format!("takes channel numbers from 1 like 1 or 1,2, or `all`; got `{text}`")
+            })
+    }
+}
+
+/// `--band LO:HI` in Hz.
+#[derive(Debug, Clone, Copy, PartialEq)]
+pub struct Band {
+    pub low_hz: f64,
+    pub high_hz: f64,
+}
+
+impl std::str::FromStr for Band {
+    type Err = String;
+    fn from_str(text: &str) -> Result<Self, String> {
+        let said = || format!("--band takes LO:HI in Hz, for example 20:20000; got `{text}`");
+        let (lo, hi) = text.split_once(':').ok_or_else(said)?;
+        let number = |s: &str| {
+            s.trim().parse::<f64>().map_err(|_| {
+                format!("--band takes LO:HI in Hz, for example 20:20000; `{s}` is not a number")
+            })
+        };
+        let (low_hz, high_hz) = (number(lo)?, number(hi)?);
+        if !(low_hz.is_finite() && high_hz.is_finite() && low_hz >= 0.0 && high_hz > low_hz) {
+            return Err(format!(
+                "--band takes LO:HI with 0 <= LO < HI in Hz, for example 20:20000; got `{text}`"
+            ));
+        }
+        Ok(Band { low_hz, high_hz })
+    }
+}
+
+/// `--mains auto|50|60|HZ`.
+#[derive(Debug, Clone, Copy, PartialEq)]
+pub struct MainsChoice(pub Mains);
+
+impl std::str::FromStr for MainsChoice {
+    type Err = String;
+    fn from_str(text: &str) -> Result<Self, String> {
+        if text.eq_ignore_ascii_case("auto") {
+            return Ok(MainsChoice(Mains::Auto));
+        }
+        text.trim()
+            .parse::<f64>()
+            .ok()
+            .filter(|f| f.is_finite() && *f > 0.0)
+            .map(|f| MainsChoice(Mains::Hz(f)))
+            .ok_or_else(|| format!("--mains takes auto, 50, 60 or a frequency in Hz; got `{text}`"))
+    }
+}
+
+/// A frequency in Hz, above 0 (the range against the rate is checked where the rate is known).
+pub fn hertz(text: &str) -> Result<f64, String> {
+    text.trim()
+        .parse::<f64>()
+        .ok()
+        .filter(|f| f.is_finite() && *f > 0.0)
+        .ok_or_else(|| {
+            format!("takes frequencies in Hz above 0, like 997 or 40,997,10000; got `{text}`")
+        })
+}
+
+fn interface_channel(flag: &str, text: &str) -> Result<usize, String> {
+    text.trim()
+        .parse::<usize>()
+        .ok()
+        .filter(|&n| n >= 1)
+        .ok_or_else(|| {
+            format!("--{flag} takes interface channel numbers from 1, like 1 or 1,2; got `{text}`")
+        })
+}
+
+/// `--outputs`: interface outputs from 1.
+pub fn output_channel(text: &str) -> Result<usize, String> {
+    interface_channel("outputs", text)
+}
+
+/// `--inputs`: interface inputs from 1.
+pub fn input_channel(text: &str) -> Result<usize, String> {
+    interface_channel("inputs", text)
+}
+
+/// A resistance in ohms, above 0.
+pub fn ohms(text: &str) -> Result<f64, String> {
+    text.trim()
+        .parse::<f64>()
+        .ok()
+        .filter(|r| r.is_finite() && *r > 0.0)
+        .ok_or_else(|| format!("takes resistances in ohms above 0, like 8,16; got `{text}`"))
+}
+
+/// `--bits`: the sample format of a written stimulus.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, clap::ValueEnum)]
+pub enum Bits {
+    // (No doc comments on the values: clap would switch every help line to the long layout.)
+    #[value(name = "16")]
+    Int16,
+    #[value(name = "24")]
+    Int24,
+    #[value(name = "32f", alias = "32")]
+    Float32,
 }

@@ -131,10 +131,11 @@ fn live_loopback(
         .rig
         .open(Calibration::default())?
         .expect("a rig was named");
+    let first = |l: &[usize]| l.first().copied().unwrap_or(1);
     eprintln!(
         "Wire interface output {} straight to input {} (no amplifier, no attenuator) for this step.",
-        args.rig.outputs.split(',').next().unwrap_or("1"),
-        args.rig.inputs.split(',').next().unwrap_or("1")
+        first(&args.rig.outputs),
+        first(&args.rig.inputs)
     );
     let rate = 48_000u32;
     let amp = 10f64.powf(TONE_DBFS / 20.0);

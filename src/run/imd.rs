@@ -1,7 +1,7 @@
 //! `ampnote imd`: intermodulation from a two-tone capture.
 
 use super::Failure;
-use crate::cli::{channel_choice, ImdArgs};
+use crate::cli::ImdArgs;
 use ampnote::analysis::blocks;
 use ampnote::analysis::imd::{ImdAnalyzer, PairHint};
 use ampnote::capture::{select_channels, Capture};
@@ -19,7 +19,7 @@ pub fn run(args: &ImdArgs) -> Result<ExitCode, Failure> {
         &args.rig,
         cal,
         "imd",
-        channel_choice(&args.channel)?,
+        args.channel.get(),
         None,
         || {
             let c = super::rig_common(args.rate, args.level, 0.01);
@@ -60,7 +60,7 @@ pub fn run(args: &ImdArgs) -> Result<ExitCode, Failure> {
         None => None,
     };
     let info = Capture::probe(capture_path)?;
-    let chosen = select_channels(info.channel_count, channel_choice(&args.channel)?)?;
+    let chosen = select_channels(info.channel_count, args.channel.get())?;
     let analyzer = ImdAnalyzer::new();
     let mut channels = Vec::new();
     let mut channel_errors = Vec::new();

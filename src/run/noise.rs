@@ -1,10 +1,9 @@
 //! `ampnote noise`: noise and hum with no signal.
 
 use super::Failure;
-use crate::cli::{channel_choice, NoiseArgs};
+use crate::cli::NoiseArgs;
 use ampnote::analysis::blocks;
 use ampnote::analysis::noise::{NoiseAnalyzer, NoiseResult};
-use ampnote::analysis::tone::Mains;
 use ampnote::capture::{select_channels, Capture};
 use ampnote::report::tone::{fmt_volts, ChannelError};
 use serde::Serialize;
@@ -113,33 +112,14 @@ fn table(r: &NoiseReport) -> String {
 pub fn run(args: &NoiseArgs) -> Result<ExitCode, Failure> {
     super::check_save(&args.save)?;
     let cal = args.calibration.resolve(&args.save)?;
-    let (lo, hi) = args
-        .band
-        .split_once(':')
-        .and_then(|(a, b)| Some((a.trim().parse::<f64>().ok()?, b.trim().parse::<f64>().ok()?)))
-        .filter(|(a, b)| *a >= 0.0 && b > a)
-        .ok_or_else(|| {
-            format!(
-                "--band takes LO:HI in Hz, for example 20:20000; got `{}`",
-                args.band
-            )
-        })?;
-    let mains = if args.mains.eq_ignore_ascii_case("auto") {
-        Mains::Auto
-    } else {
-        Mains::Hz(args.mains.parse::<f64>().map_err(|_| {
-            format!(
-                "--mains takes auto, 50, 60 or a frequency; got `{}`",
-                args.mains
-            )
-        })?)
-    };
+    let (lo, hi) = (args.band.low_hz, args.band.high_hz);
+    let mains = args.mains.0;
     let recorded = super::capture_or_record(
         &args.capture,
         &args.rig,
         cal,
         "noise",
-        channel_choice(&args.channel)?,
+        args.channel.get(),
         None,
         || {
             ampnote::capture::check_rate(args.rate)?;
@@ -161,7 +141,7 @@ pub fn run(args: &NoiseArgs) -> Result<ExitCode, Failure> {
     let notes = recorded.notes;
     let capture_path = recorded.capture.as_path();
     let info = Capture::probe(capture_path)?;
-    let chosen = select_channels(info.channel_count, channel_choice(&args.channel)?)?;
+    let chosen = select_channels(info.channel_count, args.channel.get())?;
     let analyzer = NoiseAnalyzer::new();
     let mut channels = Vec::new();
     let mut channel_errors = Vec::new();

@@ -1,7 +1,7 @@
 //! `ampnote power`: a staircase from a capture, or run on a rig.
 
 use super::Failure;
-use crate::cli::{channel_choice, PowerArgs};
+use crate::cli::PowerArgs;
 use ampnote::capture::{select_channels, Capture};
 use ampnote::error::Error;
 use ampnote::procedure::align::find_envelope_lag;
@@ -32,12 +32,7 @@ pub fn run(args: &PowerArgs) -> Result<ExitCode, Failure> {
         }
         (None, Some(_)) => {
             // Every setting checked before the rig is opened or anything is played.
-            let freqs: Vec<f64> = args
-                .freq
-                .split(',')
-                .map(|t| t.trim().parse::<f64>())
-                .collect::<Result<_, _>>()
-                .map_err(|_| format!("--freq takes frequencies in Hz like 1000 or 40,1000,10000; got `{}`", args.freq))?;
+            let freqs = &args.freq;
             let plans: Vec<StaircaseSettings> = freqs
                 .iter()
                 .map(|&f| {
@@ -61,7 +56,7 @@ pub fn run(args: &PowerArgs) -> Result<ExitCode, Failure> {
             }
             source = rig.describe();
             used = rig.calibration();
-            let chosen = select_channels(rig.channels(), channel_choice(&args.channel)?)?;
+            let chosen = select_channels(rig.channels(), args.channel.get())?;
             let progress = ampnote::progress::Progress::new(0, "steps");
             for settings in &plans {
                 for &ch in &chosen {
@@ -102,7 +97,7 @@ pub fn run(args: &PowerArgs) -> Result<ExitCode, Failure> {
             }
             source = path.display().to_string();
             let x = stim.channel(desc.signal_channels[0]).ok_or("the stimulus's signal channel is missing from it")?;
-            let chosen = select_channels(info.channel_count, channel_choice(&args.channel)?)?;
+            let chosen = select_channels(info.channel_count, args.channel.get())?;
             for &ch in &chosen {
                 let cap = Capture::read_channels(path, args.accept_truncated, Some(&[ch]))?;
                 let fs = cap.sample_rate_hz as f64;

@@ -1,7 +1,7 @@
 //! `ampnote response`: a sweep capture against the sweep file, one channel at a time.
 
 use super::Failure;
-use crate::cli::{channel_choice, ResponseArgs};
+use crate::cli::ResponseArgs;
 use ampnote::analysis::sweep::{ResponseAnalyzer, ResponseConfig, SweepParams};
 use ampnote::capture::{select_channels, Capture};
 use ampnote::error::Error;
@@ -44,7 +44,7 @@ pub fn run(args: &ResponseArgs) -> Result<ExitCode, Failure> {
         &args.rig,
         cal,
         "response",
-        channel_choice(&args.channel)?,
+        args.channel.get(),
         None,
         || {
             // Sweeps fade in only, over a few periods of the start, and need a tail.
@@ -97,7 +97,7 @@ pub fn run(args: &ResponseArgs) -> Result<ExitCode, Failure> {
         }
         .into());
     }
-    let chosen = select_channels(info.channel_count, channel_choice(&args.channel)?)?;
+    let chosen = select_channels(info.channel_count, args.channel.get())?;
     let mut channels = Vec::new();
     let mut channel_errors = Vec::new();
     for &ch in &chosen {

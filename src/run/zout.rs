@@ -1,7 +1,7 @@
 //! `ampnote zout`: the two-load method on two captures, or on a rig.
 
 use super::Failure;
-use crate::cli::{channel_choice, ZoutArgs};
+use crate::cli::ZoutArgs;
 use ampnote::analysis::sweep::{ResponseAnalyzer, ResponseConfig, ResponseResult, SweepParams};
 use ampnote::analysis::tone::{ChannelInput, ToneAnalyzer, ToneConfig, ToneResult};
 use ampnote::calibration::Calibration;
@@ -88,21 +88,10 @@ fn from_responses(
 
 pub fn run(args: &ZoutArgs) -> Result<ExitCode, Failure> {
     super::check_save(&args.save)?;
-    let loads: Vec<f64> = args
-        .loads
-        .split(',')
-        .map(|t| t.trim().parse::<f64>())
-        .collect::<Result<_, _>>()
-        .map_err(|_| {
-            format!(
-                "--loads takes two resistances like 8,16; got `{}`",
-                args.loads
-            )
-        })?;
-    let [ra, rb] = loads[..] else {
+    let [ra, rb] = args.loads[..] else {
         return Err(format!(
             "--loads takes exactly two resistances (the rated load and about twice it), got {}",
-            loads.len()
+            args.loads.len()
         )
         .into());
     };
@@ -112,7 +101,7 @@ pub fn run(args: &ZoutArgs) -> Result<ExitCode, Failure> {
     if let Some(mut rig) = args.rig.open(cal)? {
         let rate = args.rate;
         source = rig.describe();
-        let chosen = select_channels(rig.channels(), channel_choice(&args.channel)?)?;
+        let chosen = select_channels(rig.channels(), args.channel.get())?;
         let c = Common {
             sample_rate_hz: rate,
             level_dbfs: args.level,
@@ -195,7 +184,7 @@ pub fn run(args: &ZoutArgs) -> Result<ExitCode, Failure> {
             b_path.display()
         );
         let info = Capture::probe(a_path)?;
-        let chosen = select_channels(info.channel_count, channel_choice(&args.channel)?)?;
+        let chosen = select_channels(info.channel_count, args.channel.get())?;
         let sweep = match &args.stimulus {
             Some(p) => {
                 let (stim, desc) = super::read_stimulus(p, "sweep")?;

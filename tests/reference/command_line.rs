@@ -271,3 +271,47 @@ fn numbers_read_as_a_person_writes_them() {
     }
     std::fs::remove_dir_all(&d).ok();
 }
+
+#[test]
+fn flag_values_are_checked_before_anything_runs() {
+    // Parsed by clap into typed values: a typo is a usage error (exit 2) that names the flag and
+    // what it takes, before a file or rig is opened.
+    for (args, needle) in [
+        (vec!["power", "--rig", "sim", "--freq", "1k"], "--freq"),
+        (vec!["power", "--rig", "sim", "--freq", "0"], "above 0"),
+        (vec!["zout", "--rig", "sim", "--loads", "8,x"], "--loads"),
+        (vec!["noise", "--rig", "sim", "--band", "20-20000"], "LO:HI"),
+        (
+            vec!["noise", "--rig", "sim", "--band", "2000:20"],
+            "LO < HI",
+        ),
+        (
+            vec!["noise", "--rig", "sim", "--mains", "fifty"],
+            "--mains takes auto",
+        ),
+        (
+            vec!["analyze", "--rig", "sim", "--channel", "left"],
+            "--channel takes",
+        ),
+        (
+            vec![
+                "generate",
+                "tone",
+                "--bits",
+                "20",
+                "--out",
+                "/tmp/never.wav",
+            ],
+            "--bits",
+        ),
+        (
+            vec!["analyze", "--rig", "sim", "--outputs", "0"],
+            "--outputs takes",
+        ),
+    ] {
+        let (code, _, err) = super::common::run(&args);
+        assert_eq!(code, 2, "{args:?}: {err}");
+        assert!(err.contains(needle), "{args:?}: {err}");
+    }
+    assert!(!std::path::Path::new("/tmp/never.wav").exists());
+}
