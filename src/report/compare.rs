@@ -18,6 +18,59 @@ use crate::procedure::zout::ZoutResult as ZoutView;
 use crate::results::Kept;
 use serde::Serialize;
 
+/// Which way a figure is better.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize, serde::Deserialize)]
+#[serde(rename_all = "snake_case")]
+pub enum Better {
+    Higher,
+    Lower,
+}
+
+/// The comparable figures, by the start of their name, and which way each is better (common
+/// practice: more power and separation, less distortion, noise, hum and output impedance, a
+/// wider band). Checked in order (`H2 at 40 Hz (sweep)` before `H2`, `THD+N` before `THD`). DC
+/// points and the largest deviation have no better side.
+pub const FIGURES: &[(&str, Option<Better>)] = &[
+    ("DC ", None),
+    ("power at", Some(Better::Higher)),
+    ("THD+N", Some(Better::Lower)),
+    ("THD", Some(Better::Lower)),
+    ("H2 at 40 Hz (sweep)", Some(Better::Lower)),
+    ("H", Some(Better::Lower)),
+    ("noise", Some(Better::Lower)),
+    ("hum and noise", Some(Better::Lower)),
+    ("strongest hum line", Some(Better::Lower)),
+    ("S/N", Some(Better::Higher)),
+    ("low -3 dB point", Some(Better::Lower)),
+    ("high -3 dB point", Some(Better::Higher)),
+    ("largest deviation", None),
+    ("IMD", Some(Better::Lower)),
+    ("d2", Some(Better::Lower)),
+    ("d3", Some(Better::Lower)),
+    ("output impedance", Some(Better::Lower)),
+    ("damping factor", Some(Better::Higher)),
+];
+
+/// Which way `figure` is better (see [`FIGURES`]).
+pub fn better(figure: &str) -> Option<Better> {
+    FIGURES
+        .iter()
+        .find(|(start, _)| figure.starts_with(start))
+        .and_then(|(_, b)| *b)
+}
+
+/// What a change means for the amplifier.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize, serde::Deserialize)]
+#[serde(rename_all = "snake_case")]
+pub enum Verdict {
+    Better,
+    Worse,
+    /// Within what the measurement resolves (0.1 dB, or 2 % of a frequency or impedance).
+    Same,
+    /// No delta (a bound, runs not like for like), or a figure with no better side.
+    Unknown,
+}
+
 /// One compared figure.
 #[derive(Debug, Clone, Serialize, serde::Deserialize)]
 pub struct CompareLine {
@@ -34,7 +87,32 @@ pub struct CompareLine {
     /// like (the sentence says why).
     pub delta: Option<f64>,
     pub delta_unit: Unit,
+    /// Which way the figure is better, when it has a better side.
+    #[serde(default)]
+    pub better: Option<Better>,
+    /// The change in words: `+6.86 dB`, or why none can be read.
+    #[serde(default)]
+    pub change: String,
     pub sentence: String,
+}
+
+impl CompareLine {
+    /// Better, worse or the same, following the figure's direction.
+    pub fn verdict(&self) -> Verdict {
+        let (Some(d), Some(dir)) = (self.delta, self.better) else {
+            return Verdict::Unknown;
+        };
+        let same = if self.delta_unit == Unit::Db {
+            d.abs() < 0.1
+        } else {
+            d.abs() < 0.02 * self.a.abs()
+        };
+        match (same, d > 0.0, dir) {
+            (true, _, _) => Verdict::Same,
+            (false, true, Better::Higher) | (false, false, Better::Lower) => Verdict::Better,
+            _ => Verdict::Worse,
+        }
+    }
 }
 
 /// B's frequency response minus A's, per channel (the deviation curve).
@@ -208,7 +286,9 @@ fn line(
         unit,
         delta,
         delta_unit,
+        better: better(figure),
         sentence: format!("{figure}: {} -> {}, {tail}", shown(a), shown(b)),
+        change: tail,
     }
 }
 

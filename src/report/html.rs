@@ -1,480 +1,22 @@
 //! The notebook report: one self-contained HTML page (inline SVG charts, no external assets) plus
-//! each chart as its own SVG file.
+//! each chart as its own SVG and PNG file.
+//!
+//! The page is the typed [`ReportModel`] rendered through maud's `html!` template: maud escapes
+//! every interpolated string (labels, notes and settings are the user's text) and checks the
+//! markup at compile time, which hand-written `write!` calls did not (why maud over askama: the
+//! template stays Rust, next to the model's types, with no template files to ship).
 //!
 //! Visual language (our own): each label has a colour (first label copper, second teal, then
-//! olive, plum, slate); the left channel is drawn solid, the right dashed; reference lines (1 %
-//! THD, 0 dB) are thin grey. Charts are plain white panels that print well.
+//! olive, plum, slate); the left channel is drawn solid, the right dashed; a better change is
+//! marked with an up-pointing word "better" in teal, a worse one "worse" in red, both also in
+//! words so the page reads in black and white.
 
-use crate::analysis::blocks::TrendResult;
-use crate::analysis::separation::SeparationResult;
-use crate::analysis::sweep::ResponseResult;
-use crate::analysis::tone::ToneResult;
-use crate::error::{Error, Result};
-use crate::notebook::{Notebook, Run};
-use crate::procedure::power::PowerResult;
-use crate::report::compare::{compare, match_channels, MatchTolerances};
-use crate::results::Kept;
-use plotters::coord::Shift;
-use plotters::prelude::*;
-use std::fmt::Write as _;
+use super::compare::Verdict;
+use super::model::ReportModel;
+use crate::error::Result;
+use crate::notebook::Notebook;
+use maud::{html, Markup, PreEscaped, DOCTYPE};
 use std::path::{Path, PathBuf};
-
-const PALETTE: [RGBColor; 5] = [
-    RGBColor(176, 98, 38),  // copper
-    RGBColor(31, 111, 139), // teal
-    RGBColor(110, 122, 40), // olive
-    RGBColor(122, 63, 110), // plum
-    RGBColor(80, 90, 100),  // slate
-];
-const GREY: RGBColor = RGBColor(150, 150, 150);
-const SIZE: (u32, u32) = (760, 420);
-
-/// (x, y) pairs of a curve.
-type Points = Vec<(f64, f64)>;
-
-/// One curve: a name for the legend, its label's colour, dashed for the right channel.
-struct Curve {
-    name: String,
-    color: RGBColor,
-    dashed: bool,
-    points: Points,
-}
-
-/// DejaVu Sans (Bitstream Vera licence, `assets/fonts/`), for text in PNG charts: the bitmap
-/// backend cannot rely on system fonts.
-static FONT: &[u8] = include_bytes!("../../assets/fonts/DejaVuSans.ttf");
-
-fn ensure_font() -> Result<()> {
-    static ONCE: std::sync::OnceLock<bool> = std::sync::OnceLock::new();
-    let ok = *ONCE.get_or_init(|| {
-        ["sans-serif", "serif", "monospace"].iter().all(|family| {
-            [
-                FontStyle::Normal,
-                FontStyle::Bold,
-                FontStyle::Italic,
-                FontStyle::Oblique,
-            ]
-            .into_iter()
-            .all(|style| plotters::style::register_font(family, style, FONT).is_ok())
-        })
-    });
-    if ok {
-        Ok(())
-    } else {
-        Err(Error::InvalidSetting(
-            "the bundled chart font could not be loaded".into(),
-        ))
-    }
-}
-
-/// Draw a chart as SVG (the value) and, when `png` names a file, as PNG too: the body is expanded
-/// once per plotters backend.
-macro_rules! render {
-    ($png:expr, |$root:ident| $body:expr) => {{
-        // Text is measured with the bundled font for both backends.
-        ensure_font()?;
-        let mut svg = String::new();
-        {
-            let area = SVGBackend::with_string(&mut svg, SIZE).into_drawing_area();
-            let $root = &area;
-            $body?;
-        }
-        if let Some(path) = $png {
-            // Whole or not at all: drawn under a temporary name, renamed when complete.
-            // (the image format comes from the extension, so it stays last)
-            let tmp = path.with_extension("partial.png");
-            {
-                let area = BitMapBackend::new(&tmp, SIZE).into_drawing_area();
-                let $root = &area;
-                $body?;
-            }
-            std::fs::rename(&tmp, path).map_err(|source| Error::Write {
-                path: path.to_path_buf(),
-                source,
-            })?;
-        }
-        Ok::<String, Error>(svg)
-    }};
-}
-
-fn draw_err<E: std::fmt::Display>(e: E) -> Error {
-    // The plotting library's message nests its own debug text; say what it means instead.
-    let text = e.to_string();
-    let full = [
-        "os error 28",
-        "os error 27",
-        "No space left",
-        "File too large",
-    ]
-    .iter()
-    .any(|k| text.contains(k));
-    Error::Report(if full {
-        "the disk is full (or a file-size limit was reached) while writing a chart. Free some space and run `ampnote report` again; the notebook itself is untouched.".into()
-    } else {
-        "a chart could not be drawn or written. Check that the report folder is writable and run `ampnote report` again; the notebook itself is untouched.".into()
-    })
-}
-
-/// What a line chart shows.
-#[derive(Clone, Copy)]
-struct LineSpec<'a> {
-    title: &'a str,
-    x_desc: &'a str,
-    y_desc: &'a str,
-    curves: &'a [Curve],
-    log_x: bool,
-    log_y: bool,
-    /// A reference level, drawn as a thin grey line.
-    hline: Option<f64>,
-    /// Text at data coordinates (harmonic labels on a spectrum).
-    notes: &'a [(f64, f64, String)],
-}
-
-/// A line chart as SVG (and PNG when `png` names a file); empty when no curve has a point.
-fn line_chart(spec: &LineSpec, png: Option<&Path>) -> Result<String> {
-    let LineSpec {
-        curves,
-        log_x,
-        log_y,
-        hline,
-        ..
-    } = *spec;
-    let pts = curves.iter().flat_map(|c| c.points.iter()).filter(|p| {
-        p.0.is_finite() && p.1.is_finite() && (!log_x || p.0 > 0.0) && (!log_y || p.1 > 0.0)
-    });
-    let (mut x0, mut x1, mut y0, mut y1) = (
-        f64::INFINITY,
-        f64::NEG_INFINITY,
-        f64::INFINITY,
-        f64::NEG_INFINITY,
-    );
-    for &(x, y) in pts {
-        x0 = x0.min(x);
-        x1 = x1.max(x);
-        y0 = y0.min(y);
-        y1 = y1.max(y);
-    }
-    if !x0.is_finite() {
-        return Ok(String::new());
-    }
-    if let Some(h) = hline {
-        y0 = y0.min(h);
-        y1 = y1.max(h);
-    }
-    let (y0, y1) = if log_y {
-        (y0 / 1.5, y1 * 1.5)
-    } else {
-        let m = ((y1 - y0) * 0.08).max(0.5);
-        (y0 - m, y1 + m)
-    };
-    let ranges = (x0, x1, y0, y1);
-    render!(png, |root| draw_lines(root, spec, ranges))
-}
-
-/// The body of every line chart, on any plotters backend.
-fn draw_lines<DB: DrawingBackend>(
-    root: &DrawingArea<DB, Shift>,
-    spec: &LineSpec,
-    (x0, x1, y0, y1): (f64, f64, f64, f64),
-) -> Result<()> {
-    let LineSpec {
-        title,
-        x_desc,
-        y_desc,
-        curves,
-        log_x,
-        log_y,
-        hline,
-        notes,
-    } = *spec;
-    root.fill(&WHITE).map_err(draw_err)?;
-    let mut b = ChartBuilder::on(root);
-    b.caption(title, ("sans-serif", 18))
-        .margin(12)
-        .x_label_area_size(42)
-        .y_label_area_size(60);
-    macro_rules! body {
-        ($chart:expr) => {{
-            let mut chart = $chart;
-            chart
-                .configure_mesh()
-                .x_desc(x_desc)
-                .y_desc(y_desc)
-                .light_line_style(RGBColor(235, 235, 235))
-                .draw()
-                .map_err(draw_err)?;
-            if let Some(h) = hline {
-                chart
-                    .draw_series(LineSeries::new(
-                        vec![(x0, h), (x1, h)],
-                        GREY.stroke_width(1),
-                    ))
-                    .map_err(draw_err)?;
-            }
-            for c in curves {
-                let style = c.color.stroke_width(2);
-                let pts: Vec<(f64, f64)> = c
-                    .points
-                    .iter()
-                    .copied()
-                    .filter(|p| p.0.is_finite() && p.1.is_finite())
-                    .collect();
-                if c.dashed {
-                    chart
-                        .draw_series(DashedLineSeries::new(pts, 7, 5, style))
-                        .map_err(draw_err)?
-                        .label(c.name.clone())
-                        .legend(move |(x, y)| {
-                            EmptyElement::at((x, y))
-                                + PathElement::new(vec![(0, 0), (8, 0)], style)
-                                + PathElement::new(vec![(13, 0), (22, 0)], style)
-                        });
-                } else {
-                    chart
-                        .draw_series(LineSeries::new(pts, style))
-                        .map_err(draw_err)?
-                        .label(c.name.clone())
-                        .legend(move |(x, y)| PathElement::new(vec![(x, y), (x + 22, y)], style));
-                }
-            }
-            chart
-                .draw_series(notes.iter().map(|(x, y, t)| {
-                    Text::new(
-                        t.clone(),
-                        (*x, *y),
-                        ("sans-serif", 13).into_font().color(&BLACK),
-                    )
-                }))
-                .map_err(draw_err)?;
-            chart
-                .configure_series_labels()
-                .background_style(WHITE.mix(0.85))
-                .border_style(GREY)
-                .position(SeriesLabelPosition::UpperRight)
-                .draw()
-                .map_err(draw_err)?;
-        }};
-    }
-    match (log_x, log_y) {
-        (true, true) => body!(b
-            .build_cartesian_2d((x0..x1).log_scale(), (y0..y1).log_scale())
-            .map_err(draw_err)?),
-        (true, false) => body!(b
-            .build_cartesian_2d((x0..x1).log_scale(), y0..y1)
-            .map_err(draw_err)?),
-        (false, true) => body!(b
-            .build_cartesian_2d(x0..x1, (y0..y1).log_scale())
-            .map_err(draw_err)?),
-        (false, false) => body!(b.build_cartesian_2d(x0..x1, y0..y1).map_err(draw_err)?),
-    }
-    root.present().map_err(draw_err)?;
-    Ok(())
-}
-
-/// Labels in the order their first run was made.
-fn labels(runs: &[Run]) -> Vec<String> {
-    let mut out: Vec<String> = Vec::new();
-    for r in runs {
-        if !out.contains(&r.meta.label) {
-            out.push(r.meta.label.clone());
-        }
-    }
-    out
-}
-
-/// One curve per run holding a `T`, its points taken by `f`.
-fn curves_for<T: Kept>(runs: &[Run], f: impl Fn(&T) -> Vec<(f64, f64)>) -> Vec<Curve> {
-    let labels = labels(runs);
-    runs.iter()
-        .filter_map(|r| T::of(&r.result).map(|t| (r, t)))
-        .map(|(r, t)| {
-            let li = labels.iter().position(|l| *l == r.meta.label).unwrap_or(0);
-            Curve {
-                name: format!(
-                    "{}, {}",
-                    crate::notebook::printable(&r.meta.label),
-                    if r.meta.channel == 1 {
-                        "left".to_string()
-                    } else if r.meta.channel == 2 {
-                        "right".to_string()
-                    } else {
-                        format!("ch{}", r.meta.channel)
-                    }
-                ),
-                color: PALETTE[li % PALETTE.len()],
-                dashed: r.meta.channel % 2 == 0,
-                points: f(t),
-            }
-        })
-        .filter(|c| !c.points.is_empty())
-        .collect()
-}
-
-/// Bars of the harmonic profile (H2..H7 in dBc) of every tone run, grouped by order.
-fn profile_chart(runs: &[Run], png: Option<&Path>) -> Result<String> {
-    let tones: Vec<(&Run, &ToneResult)> = runs
-        .iter()
-        .filter_map(|r| ToneResult::of(&r.result).map(|t| (r, t)))
-        .collect();
-    if tones.is_empty() {
-        return Ok(String::new());
-    }
-    let labels = labels(runs);
-    let orders: Vec<u64> = (2..=7).collect();
-    render!(png, |root| draw_profile(root, &tones, &labels, &orders))
-}
-
-fn draw_profile<DB: DrawingBackend>(
-    root: &DrawingArea<DB, Shift>,
-    tones: &[(&Run, &ToneResult)],
-    labels: &[String],
-    orders: &[u64],
-) -> Result<()> {
-    root.fill(&WHITE).map_err(draw_err)?;
-    let mut chart = ChartBuilder::on(root)
-        .caption("Harmonic profile of the tone runs", ("sans-serif", 18))
-        .margin(12)
-        .x_label_area_size(42)
-        .y_label_area_size(60)
-        .build_cartesian_2d(1.5f64..7.5f64, -140f64..0f64)
-        .map_err(draw_err)?;
-    chart
-        .configure_mesh()
-        .x_desc("Harmonic order")
-        .y_desc("Level (dBc)")
-        .x_labels(6)
-        .x_label_formatter(&|x| format!("H{}", x.round()))
-        .light_line_style(RGBColor(235, 235, 235))
-        .draw()
-        .map_err(draw_err)?;
-    let w = 0.8 / tones.len() as f64;
-    for (i, (r, t)) in tones.iter().enumerate() {
-        let li = labels.iter().position(|l| *l == r.meta.label).unwrap_or(0);
-        let color = PALETTE[li % PALETTE.len()];
-        let fill = if r.meta.channel % 2 == 0 {
-            color.mix(0.45).filled()
-        } else {
-            color.filled()
-        };
-        let bars: Vec<Rectangle<(f64, f64)>> = orders
-            .iter()
-            .filter_map(|&o| {
-                let h = t.harmonics.iter().find(|h| h.order as u64 == o)?;
-                let level = h.level_dbc.max(-140.0);
-                let x = o as f64 - 0.4 + i as f64 * w;
-                Some(Rectangle::new([(x, -140.0), (x + w * 0.9, level)], fill))
-            })
-            .collect();
-        chart
-            .draw_series(bars)
-            .map_err(draw_err)?
-            .label(format!(
-                "{}, ch{}",
-                crate::notebook::printable(&r.meta.label),
-                r.meta.channel
-            ))
-            .legend(move |(x, y)| Rectangle::new([(x, y - 5), (x + 14, y + 5)], fill));
-    }
-    chart
-        .configure_series_labels()
-        .background_style(WHITE.mix(0.85))
-        .border_style(GREY)
-        .position(SeriesLabelPosition::UpperRight)
-        .draw()
-        .map_err(draw_err)?;
-    root.present().map_err(draw_err)?;
-    Ok(())
-}
-
-/// From a tone run's stored capture: its spectrum (dBFS per bin under the 7-term window, reduced
-/// to the peak of each of 600 log-spaced slices from 10 Hz to 20 kHz) and its distortion residual
-/// over one period (the capture minus its fitted fundamental, averaged cycle by cycle at each
-/// phase, in percent of the fundamental's peak).
-fn tone_views(run: &Run, tone: &ToneResult) -> Option<(Points, Points)> {
-    use crate::analysis::spectrum::{fast_length, SpectrumPlanner};
-    use crate::analysis::tone::TONE_WINDOW;
-    let info = crate::capture::Capture::probe(&run.dir.join("capture.wav")).ok()?;
-    let ch = if run.meta.channel <= info.channel_count {
-        run.meta.channel
-    } else {
-        1
-    };
-    let cap =
-        crate::capture::Capture::read_channels(&run.dir.join("capture.wav"), true, Some(&[ch]))
-            .ok()?;
-    let x = &cap.channels[0];
-    let fs = cap.sample_rate_hz as f64;
-    let seg = &x[x.len() / 4..x.len() * 3 / 4];
-    let n = fast_length(seg.len());
-    if n < 1024 {
-        return None;
-    }
-    let planner = SpectrumPlanner::new();
-    let plan = planner.plan(TONE_WINDOW, n);
-    let mut buf = plan.make_buffers();
-    let mean = seg[..n].iter().sum::<f64>() / n as f64;
-    plan.transform(seg, mean, &mut buf);
-    let scale = 2.0 / (n as f64 * TONE_WINDOW.coherent_gain());
-    let bin = fs / n as f64;
-    let slices = 600;
-    let (lo, hi) = (10f64, 20_000f64.min(fs / 2.0));
-    let mut spectrum = Vec::with_capacity(slices);
-    for i in 0..slices {
-        let f_a = lo * (hi / lo).powf(i as f64 / slices as f64);
-        let f_b = lo * (hi / lo).powf((i + 1) as f64 / slices as f64);
-        let (ka, kb) = (
-            (f_a / bin).ceil() as usize,
-            ((f_b / bin).floor() as usize).min(buf.output.len() - 1),
-        );
-        if kb < ka {
-            continue;
-        }
-        let peak = buf.output[ka..=kb]
-            .iter()
-            .map(|c| c.norm())
-            .fold(0.0, f64::max)
-            * scale;
-        spectrum.push(((f_a * f_b).sqrt(), 20.0 * peak.max(1e-9).log10()));
-    }
-    // Residual over one period.
-    let f0 = tone.fundamental_hz;
-    let (lines, dc) = crate::analysis::fit::sine_fit_time_domain(seg, &[f0 / fs])?;
-    let (a, b) = lines[0];
-    let peak = (a * a + b * b).sqrt();
-    let phi = a.atan2(b); // x = peak sin(w n + phi)
-    let bins = 180;
-    let mut acc = vec![(0.0, 0usize); bins];
-    for (i, &v) in seg.iter().enumerate() {
-        let wn = 2.0 * std::f64::consts::PI * f0 / fs * i as f64;
-        let r = v - dc - a * wn.cos() - b * wn.sin();
-        let theta = (wn + phi).rem_euclid(2.0 * std::f64::consts::PI);
-        let k = ((theta / (2.0 * std::f64::consts::PI)) * bins as f64) as usize % bins;
-        acc[k].0 += r;
-        acc[k].1 += 1;
-    }
-    let residual = acc
-        .iter()
-        .enumerate()
-        .filter(|(_, (_, c))| *c > 0)
-        .map(|(k, (sum, c))| {
-            (
-                (k as f64 + 0.5) * 360.0 / bins as f64,
-                100.0 * sum / *c as f64 / peak,
-            )
-        })
-        .collect();
-    Some((spectrum, residual))
-}
-
-/// Text for the page: control and text-direction characters made visible (see
-/// [`crate::notebook::printable`]), then the HTML specials escaped.
-fn escape(s: &str) -> String {
-    crate::notebook::printable(s)
-        .replace('&', "&amp;")
-        .replace('<', "&lt;")
-        .replace('>', "&gt;")
-        .replace('"', "&quot;")
-}
 
 /// What the report wrote.
 pub struct ReportFiles {
@@ -482,460 +24,225 @@ pub struct ReportFiles {
     pub charts: Vec<PathBuf>,
 }
 
+/// Screen and print: A4 or Letter (the printer's paper; margins fit both), table headers repeated
+/// on each page, no heading left alone at the foot of a page, text no smaller than 9 pt.
+const STYLE: &str = "
+body{font-family:sans-serif;max-width:900px;margin:2em auto;color:#222;line-height:1.4;font-size:15px}
+h1{font-size:1.5em;border-bottom:3px solid #b06226;padding-bottom:.2em}
+h2{font-size:1.2em;margin-top:1.8em;break-after:avoid;page-break-after:avoid}
+h3{font-size:1.05em;break-after:avoid;page-break-after:avoid}
+table{border-collapse:collapse;font-size:.92em;margin:.4em 0 1em}
+td,th{border:1px solid #ccc;padding:.25em .55em;text-align:left;vertical-align:top}
+th{background:#f4f1ec} thead{display:table-header-group} tr{break-inside:avoid;page-break-inside:avoid}
+td.num{text-align:right;white-space:nowrap}
+.better{color:#1f6f8b;font-weight:bold} .worse{color:#b00020;font-weight:bold} .same{color:#555}
+.pass{color:#1f6f8b;font-weight:bold} .fail{color:#b00020;font-weight:bold}
+.warn{color:#8a4b00;font-size:.9em;margin:.1em 0} .code{font-family:monospace;font-size:.85em;color:#666}
+figure{margin:1em 0;break-inside:avoid;page-break-inside:avoid} figcaption{font-size:.9em;color:#444}
+.note{color:#555;font-size:.9em}
+@page{margin:14mm}
+@media print{body{max-width:none;margin:0;font-size:10pt} figure svg{max-width:100%;height:auto}}
+";
+
+fn verdict(v: Verdict) -> Markup {
+    match v {
+        Verdict::Better => html! { span.better { "better" } },
+        Verdict::Worse => html! { span.worse { "worse" } },
+        Verdict::Same => html! { span.same { "no change" } },
+        Verdict::Unknown => html! {},
+    }
+}
+
+fn channel_name(ch: usize) -> String {
+    match ch {
+        1 => "left (1)".into(),
+        2 => "right (2)".into(),
+        n => format!("channel {n}"),
+    }
+}
+
+/// The page.
+fn page(m: &ReportModel, charts: &[(&str, &str, String)]) -> Markup {
+    let title = format!("ampnote report: {}", m.amplifier);
+    html! {
+        (DOCTYPE)
+        html lang="en" {
+            head {
+                meta charset="utf-8";
+                title { (title) }
+                style { (PreEscaped(STYLE)) }
+            }
+            body {
+                h1 { (title) }
+                p.note {
+                    "Notebook " (m.notebook) ": " (m.run_count) " run(s), " (m.channels)
+                    " channel(s), " (m.warning_count()) " warning(s). Written by ampnote "
+                    (m.version) " on " (m.written) "."
+                }
+                @if m.run_count == 0 {
+                    p {
+                        "This notebook has no runs yet. Measure something first, for example "
+                        code { "ampnote analyze CAPTURE.wav --notebook DIR --label stock" }
+                        ", or run " code { "ampnote demo" } " to see a filled notebook."
+                    }
+                }
+                @if let Some(s) = &m.summary {
+                    h2 { "Summary: " (s.a) " → " (s.b) }
+                    table {
+                        thead {
+                            tr {
+                                th { "Figure" }
+                                @for ch in &s.channels { th { (channel_name(*ch)) } }
+                            }
+                        }
+                        tbody {
+                            @for row in &s.rows {
+                                tr {
+                                    td { (row.figure) }
+                                    @for cell in &row.cells {
+                                        @match cell {
+                                            Some(c) => td {
+                                                (c.a) " → " (c.b) br;
+                                                span.note { (c.change) } " " (verdict(c.verdict))
+                                            },
+                                            None => td { "-" },
+                                        }
+                                    }
+                                }
+                            }
+                        }
+                    }
+                    p.note {
+                        "Better or worse follows each figure's direction (more power, less distortion, \
+                         noise and output impedance, a wider band); changes under 0.1 dB, or 2 % of a \
+                         frequency or impedance, read as no change. A figure under the noise on either \
+                         side gives no change (shown as < limit)."
+                    }
+                }
+                @if !m.matches.is_empty() {
+                    h2 { "Channel match" }
+                    @for (label, r) in &m.matches {
+                        h3 {
+                            (label) ": "
+                            @if r.pass { span.pass { "channels match" } } @else { span.fail { "channels differ" } }
+                        }
+                        table {
+                            thead { tr { th { "Check" } th { "Value" } th { "Tolerance" } th { "" } } }
+                            tbody {
+                                @for c in &r.checks {
+                                    tr {
+                                        td { (c.name) }
+                                        td.num { (super::number::show(c.value, c.unit)) }
+                                        td { (c.limit_text()) }
+                                        td { @if c.pass { span.pass { "pass" } } @else { span.fail { "FAIL" } } }
+                                    }
+                                }
+                            }
+                        }
+                        @for w in &r.warnings { p.warn { (crate::notebook::printable(w)) } }
+                    }
+                }
+                @if !m.benches.is_empty() {
+                    h2 { "The bench" }
+                    @for b in &m.benches {
+                        h3 { (b.label) " (" (b.runs) " run(s))" }
+                        table {
+                            tbody {
+                                @for c in &b.calibration { tr { th { "Calibration" } td { (c) } } }
+                                @for (k, v) in &b.settings { tr { th { (k) } td { (v) } } }
+                                @for n in &b.notes { tr { th { "Note" } td { (n) } } }
+                            }
+                        }
+                    }
+                }
+                @if m.run_count > 0 {
+                    h2 { "Runs, their figures and warnings" }
+                    table {
+                        thead {
+                            tr { th { "Run" } th { "Label" } th { "Channel" } th { "What" } th { "Figure, and what to know about it" } }
+                        }
+                        tbody {
+                            @for r in &m.runs {
+                                tr {
+                                    td { (r.id) br; span.note { (r.time) } }
+                                    td { (r.label) }
+                                    td { (r.channel) }
+                                    td { (r.procedure) }
+                                    td {
+                                        (r.figure)
+                                        @for w in &r.warnings {
+                                            p.warn { "warning: " (w.message) " " span.code { "[" (w.code.name()) "]" } }
+                                        }
+                                    }
+                                }
+                            }
+                        }
+                    }
+                }
+                @let drawn: Vec<&(&str, &str, String)> = charts.iter().filter(|c| !c.2.is_empty()).collect();
+                @if !drawn.is_empty() {
+                    h2 { "Charts" }
+                    p.note { "Colour: label; solid: left channel, dashed (or paler): right channel." }
+                    @for (file, caption, svg) in drawn {
+                        figure id=(file) { (PreEscaped(svg)) figcaption { (caption) } }
+                    }
+                }
+                @if let Some(c) = &m.comparison {
+                    h2 { "Every compared figure: " (c.a) " → " (c.b) }
+                    table {
+                        thead { tr { th { "Channel" } th { "Figure" } th { "Before" } th { "After" } th { "Change" } } }
+                        tbody {
+                            @for l in &c.lines {
+                                @let (a, b) = super::model::shown_sides(l);
+                                tr {
+                                    td { (l.channel) }
+                                    td { (l.figure) }
+                                    td.num { (a) }
+                                    td.num { (b) }
+                                    td { (l.change) " " (verdict(l.verdict())) }
+                                }
+                            }
+                        }
+                    }
+                    @for w in &c.warnings { p.warn { (crate::notebook::printable(w)) } }
+                }
+                p.note {
+                    "Measurements of amplifiers involve lethal voltages inside tube equipment; \
+                     see the README's safety section and follow local codes and licensed practice."
+                }
+            }
+        }
+    }
+}
+
 /// Write the report of `nb` into `out`.
 pub fn write_report(nb: &Notebook, out: &Path) -> Result<ReportFiles> {
-    let runs = nb.runs()?;
-    std::fs::create_dir_all(out.join("charts")).map_err(|source| Error::Write {
+    let model = ReportModel::build(nb)?;
+    std::fs::create_dir_all(out.join("charts")).map_err(|source| crate::error::Error::Write {
         path: out.to_path_buf(),
         source,
     })?;
-    let mut html = String::new();
-    let title = format!("ampnote report: {}", escape(&nb.info.amplifier));
-    let _ = write!(
-        html,
-        "<!DOCTYPE html>\n<html lang=\"en\"><head><meta charset=\"utf-8\"><title>{title}</title>\n<style>\n\
-         body{{font-family:sans-serif;max-width:820px;margin:2em auto;color:#222;line-height:1.4}}\n\
-         h1{{font-size:1.5em;border-bottom:3px solid #b06226;padding-bottom:.2em}} h2{{font-size:1.15em;margin-top:1.8em}}\n\
-         table{{border-collapse:collapse;font-size:.9em}} td,th{{border:1px solid #ccc;padding:.25em .6em;text-align:left}}\n\
-         .pass{{color:#1f6f8b}} .fail{{color:#b00020;font-weight:bold}} figure{{margin:1em 0;page-break-inside:avoid}}\n\
-         .note{{color:#555;font-size:.9em}}\n</style></head><body>\n<h1>{title}</h1>\n\
-         <p class=\"note\">Notebook {}: {} run(s), {} channel(s). Written by ampnote {} on {}.</p>\n",
-        escape(&nb.dir.display().to_string()),
-        runs.len(),
-        nb.info.channels,
-        env!("CARGO_PKG_VERSION"),
-        crate::notebook::now_utc()
-    );
-    if runs.is_empty() {
-        html += "<p>This notebook has no runs yet. Measure something first, for example \
-                 <code>ampnote analyze CAPTURE.wav --notebook DIR --label stock</code>, or run \
-                 <code>ampnote demo</code> to see a filled notebook.</p>\n</body></html>\n";
-        let path = out.join("report.html");
-        crate::files::write_whole(&path, html.as_bytes())?;
-        return Ok(ReportFiles {
-            html: path,
-            charts: Vec::new(),
-        });
-    }
-    let labels = labels(&runs);
-    let mut deviation = Vec::new();
-    if labels.len() >= 2 {
-        let a: Vec<Run> = runs
-            .iter()
-            .filter(|r| r.meta.label == labels[0])
-            .cloned()
-            .collect();
-        let b: Vec<Run> = runs
-            .iter()
-            .filter(|r| r.meta.label == labels[1])
-            .cloned()
-            .collect();
-        let c = compare(&labels[0], &a, &labels[1], &b);
-        deviation = c
-            .deviation_curves
-            .iter()
-            .map(|d| Curve {
-                name: format!(
-                    "{} minus {}, {}",
-                    crate::notebook::printable(&labels[1]),
-                    crate::notebook::printable(&labels[0]),
-                    if d.channel == 1 { "left" } else { "right" }
-                ),
-                color: PALETTE[1],
-                dashed: d.channel % 2 == 0,
-                points: d.points.iter().map(|p| (p[0], p[1])).collect(),
-            })
-            .collect::<Vec<_>>();
-        let _ = write!(html, "<h2>{} → {}</h2>\n<table><tr><th>Channel</th><th>Figure</th><th>Before</th><th>After</th><th>Change</th></tr>\n", escape(&labels[0]), escape(&labels[1]));
-        for l in &c.lines {
-            let (before, rest) = l
-                .sentence
-                .split_once(": ")
-                .map_or(("", l.sentence.as_str()), |(_, r)| ("", r));
-            let _ = before;
-            let parts: Vec<&str> = rest.splitn(2, " -> ").collect();
-            let (x, y_delta) = (
-                parts.first().copied().unwrap_or(""),
-                parts.get(1).copied().unwrap_or(""),
-            );
-            let (y, delta) = y_delta.rsplit_once(", ").unwrap_or((y_delta, ""));
-            let _ = writeln!(
-                html,
-                "<tr><td>{}</td><td>{}</td><td>{}</td><td>{}</td><td>{}</td></tr>",
-                l.channel,
-                escape(&l.figure),
-                escape(x),
-                escape(y),
-                escape(delta)
-            );
-        }
-        html += "</table>\n";
-        for w in &c.warnings {
-            let _ = writeln!(html, "<p class=\"note\">{}</p>", escape(w));
-        }
-    }
-    if nb.info.channels >= 2 {
-        html += "<h2>Channel match</h2>\n";
-        for label in &labels {
-            let l = nb.select(label, Some(1));
-            let r = nb.select(label, Some(2));
-            if let (Ok(l), Ok(r)) = (l, r) {
-                let m = match_channels(
-                    &format!("{label}, left"),
-                    &l,
-                    &format!("{label}, right"),
-                    &r,
-                    &MatchTolerances::default(),
-                );
-                let _ = writeln!(
-                    html,
-                    "<p><b>{}</b>: <span class=\"{}\">{}</span></p>\n<table><tr><th>Check</th><th>Value</th><th>Tolerance</th><th></th></tr>",
-                    escape(label),
-                    if m.pass { "pass" } else { "fail" },
-                    if m.pass { "channels match" } else { "channels differ" }
-                );
-                for c in &m.checks {
-                    let _ = writeln!(
-                        html,
-                        "<tr><td>{}</td><td>{}</td><td>{}</td><td class=\"{}\">{}</td></tr>",
-                        escape(&c.name),
-                        super::number::show(c.value, c.unit),
-                        escape(&c.limit_text()),
-                        if c.pass { "pass" } else { "fail" },
-                        if c.pass { "pass" } else { "FAIL" }
-                    );
-                }
-                html += "</table>\n";
-            }
-        }
-    }
-    // Charts.
-    let power = curves_for(&runs, |p: &PowerResult| {
-        p.steps
-            .iter()
-            .filter(|s| !s.excluded)
-            .filter_map(|s| Some((s.output_w?, s.thd_percent?)))
-            .collect()
-    });
-    let response = curves_for(&runs, |r: &ResponseResult| {
-        r.points
-            .iter()
-            .map(|p| (p.frequency_hz, p.magnitude_db))
-            .collect()
-    });
-    let phase = curves_for(&runs, |r: &ResponseResult| {
-        r.points
-            .iter()
-            .map(|p| (p.frequency_hz, p.phase_deg))
-            .collect()
-    });
-    let h2 = curves_for(&runs, |r: &ResponseResult| {
-        r.harmonics
-            .iter()
-            .find(|h| h.order == 2)
-            .map_or(Vec::new(), |h| {
-                h.points
-                    .iter()
-                    .map(|p| (p.frequency_hz, p.level_dbc))
-                    .collect()
-            })
-    });
-    let thd_f = curves_for(&runs, |r: &ResponseResult| {
-        r.thd
-            .iter()
-            .map(|p| (p.frequency_hz, p.level_dbc))
-            .collect()
-    });
-    let trend = |f: fn(&crate::analysis::blocks::TrendPoint) -> Option<f64>| {
-        curves_for(&runs, move |t: &TrendResult| {
-            t.points
-                .iter()
-                .filter_map(|p| Some((p.at_s, f(p)?)))
-                .collect()
-        })
+    let runs = nb.runs()?;
+    let deviation = model
+        .comparison
+        .as_ref()
+        .map_or(Vec::new(), |c| c.deviation_curves.clone());
+    let charts = if runs.is_empty() {
+        Vec::new()
+    } else {
+        super::charts::build(&runs, &deviation, out)?
     };
-    let trend_level = trend(|p| p.level_dbfs);
-    // Separation: the first undriven channel of each run.
-    let separation = curves_for(&runs, |s: &SeparationResult| {
-        s.channels.first().map_or(Vec::new(), |c| {
-            c.points
-                .iter()
-                .map(|p| (p.frequency_hz, p.separation_db))
-                .collect()
-        })
-    });
-    let trend_thd = trend(|p| p.thd_percent.or(p.thdn_percent));
-    // Spectrum and residual of each label's left-channel tone run (the latest).
-    let mut spectra = Vec::new();
-    let mut residuals = Vec::new();
-    let mut notes = Vec::new();
-    for (li, label) in labels.iter().enumerate() {
-        let Some((run, tone)) = runs
-            .iter()
-            .rev()
-            .filter(|r| &r.meta.label == label && r.meta.channel == 1)
-            .find_map(|r| ToneResult::of(&r.result).map(|t| (r, t)))
-        else {
-            continue;
-        };
-        let Some((spec, res)) = tone_views(run, tone) else {
-            continue;
-        };
-        let color = PALETTE[li % PALETTE.len()];
-        if li == 0 {
-            let (f0, level) = (tone.fundamental_hz, tone.fundamental_dbfs);
-            for h in tone.harmonics.iter().take(4) {
-                notes.push((
-                    h.order as f64 * f0 * 1.03,
-                    level + h.level_dbc + 4.0,
-                    format!("H{}", h.order),
-                ));
-            }
-            notes.push((f0 * 1.03, level + 4.0, "fundamental".to_string()));
-        }
-        spectra.push(Curve {
-            name: format!("{}, left", crate::notebook::printable(label)),
-            color,
-            dashed: false,
-            points: spec,
-        });
-        residuals.push(Curve {
-            name: format!("{}, left", crate::notebook::printable(label)),
-            color,
-            dashed: false,
-            points: res,
-        });
-    }
-    let png = |file: &str| out.join("charts").join(format!("{file}.png"));
-    // A chart's SVG (and its PNG beside it); the spec's notes default to none.
-    let chart = |file: &str, spec: LineSpec| line_chart(&spec, Some(&png(file)));
-    let spec = |title, x_desc, y_desc, curves, log_x, log_y, hline| LineSpec {
-        title,
-        x_desc,
-        y_desc,
-        curves,
-        log_x,
-        log_y,
-        hline,
-        notes: &[],
-    };
-    let charts = [
-        (
-            "thd-vs-power",
-            "THD against output power",
-            chart(
-                "thd-vs-power",
-                spec(
-                    "THD against output power",
-                    "Output power (W)",
-                    "THD (%)",
-                    &power,
-                    true,
-                    true,
-                    Some(1.0),
-                ),
-            )?,
-        ),
-        (
-            "response-magnitude",
-            "Frequency response",
-            chart(
-                "response-magnitude",
-                spec(
-                    "Frequency response (re 1 kHz)",
-                    "Frequency (Hz)",
-                    "Magnitude (dB)",
-                    &response,
-                    true,
-                    false,
-                    Some(0.0),
-                ),
-            )?,
-        ),
-        (
-            "response-phase",
-            "Phase",
-            chart(
-                "response-phase",
-                spec(
-                    "Phase (latency removed)",
-                    "Frequency (Hz)",
-                    "Phase (degrees)",
-                    &phase,
-                    true,
-                    false,
-                    None,
-                ),
-            )?,
-        ),
-        (
-            "h2-vs-frequency",
-            "Second harmonic against frequency",
-            chart(
-                "h2-vs-frequency",
-                spec(
-                    "Second harmonic against frequency (sweep)",
-                    "Frequency (Hz)",
-                    "H2 (dBc)",
-                    &h2,
-                    true,
-                    false,
-                    None,
-                ),
-            )?,
-        ),
-        (
-            "thd-vs-frequency",
-            "THD against frequency",
-            chart(
-                "thd-vs-frequency",
-                spec(
-                    "THD against frequency (sweep, H2-H5)",
-                    "Frequency (Hz)",
-                    "THD (dBc)",
-                    &thd_f,
-                    true,
-                    false,
-                    None,
-                ),
-            )?,
-        ),
-        (
-            "separation",
-            "Channel separation",
-            chart(
-                "separation",
-                spec(
-                    "Channel separation (the undriven channel below the driven one)",
-                    "Frequency (Hz)",
-                    "Separation (dB)",
-                    &separation,
-                    true,
-                    false,
-                    Some(60.0),
-                ),
-            )?,
-        ),
-        (
-            "trend-level",
-            "Level over time",
-            chart(
-                "trend-level",
-                spec(
-                    "Level over time (trend)",
-                    "Time (s)",
-                    "Level (dBFS)",
-                    &trend_level,
-                    false,
-                    false,
-                    None,
-                ),
-            )?,
-        ),
-        (
-            "trend-thd",
-            "THD over time",
-            chart(
-                "trend-thd",
-                spec(
-                    "THD over time (trend; THD+N where THD is under the noise)",
-                    "Time (s)",
-                    "THD (%)",
-                    &trend_thd,
-                    false,
-                    true,
-                    None,
-                ),
-            )?,
-        ),
-        (
-            "harmonic-profile",
-            "Harmonic profile",
-            profile_chart(&runs, Some(&png("harmonic-profile")))?,
-        ),
-        (
-            "response-change",
-            "Response change (after minus before)",
-            chart(
-                "response-change",
-                spec(
-                    "Response change, after minus before",
-                    "Frequency (Hz)",
-                    "Change (dB)",
-                    &deviation,
-                    true,
-                    false,
-                    Some(0.0),
-                ),
-            )?,
-        ),
-        (
-            "spectrum",
-            "Spectrum of the tone (left channel)",
-            chart(
-                "spectrum",
-                LineSpec {
-                    notes: &notes,
-                    ..spec(
-                        "Spectrum of the tone, left channel (peak per slice)",
-                        "Frequency (Hz)",
-                        "Level (dBFS)",
-                        &spectra,
-                        true,
-                        false,
-                        None,
-                    )
-                },
-            )?,
-        ),
-        (
-            "residual",
-            "Distortion residual over one period",
-            chart(
-                "residual",
-                spec(
-                    "Distortion residual over one period of the fundamental",
-                    "Phase of the fundamental (degrees)",
-                    "Residual (% of the fundamental's peak)",
-                    &residuals,
-                    false,
-                    false,
-                    Some(0.0),
-                ),
-            )?,
-        ),
-    ];
     let mut written = Vec::new();
-    html += "<h2>Charts</h2>\n<p class=\"note\">Colour: label; solid: left channel, dashed (or paler): right channel.</p>\n";
-    for (file, caption, svg) in &charts {
+    for (file, _, svg) in &charts {
         if svg.is_empty() {
             continue;
         }
         let path = out.join("charts").join(format!("{file}.svg"));
         crate::files::write_whole(&path, svg.as_bytes())?;
         written.push(path);
-        let _ = writeln!(
-            html,
-            "<figure id=\"{file}\">{svg}<figcaption>{caption}</figcaption></figure>"
-        );
     }
-    html += "<h2>Runs</h2>\n<table><tr><th>Run</th><th>Time</th><th>Label</th><th>Channel</th><th>Procedure</th><th>Notes</th></tr>\n";
-    for r in &runs {
-        let _ = writeln!(
-            html,
-            "<tr><td>{}</td><td>{}</td><td>{}</td><td>{}</td><td>{}</td><td>{}</td></tr>",
-            escape(&r.meta.id),
-            escape(&r.meta.time),
-            escape(&r.meta.label),
-            r.meta.channel,
-            r.meta.procedure.name(),
-            escape(&r.meta.notes)
-        );
-    }
-    html += "</table>\n<p class=\"note\">Measurements of amplifiers involve lethal voltages inside tube equipment; \
-             see the README's safety section and follow local codes and licensed practice.</p>\n</body></html>\n";
     let path = out.join("report.html");
-    crate::files::write_whole(&path, html.as_bytes())?;
+    crate::files::write_whole(&path, page(&model, &charts).into_string().as_bytes())?;
     Ok(ReportFiles {
         html: path,
         charts: written,

@@ -1,8 +1,10 @@
 //! Rendering results: terminal tables, JSON, CSV. Every renderer draws the same typed result.
 
+pub mod charts;
 pub mod compare;
 pub mod html;
 pub mod imd;
+pub mod model;
 pub mod number;
 pub mod power;
 pub mod response;

@@ -99,6 +99,8 @@ fn tone_figures_are_compared_only_at_the_same_level() {
     let thd = find(&c.lines, "THD at");
     let d_thd = thd.delta.expect("like for like");
     assert!((d_thd - 20.0 * 0.5f64.log10()).abs() < 0.01, "{thd:?}");
+    // Less distortion is better (common practice): the report marks the change so.
+    assert_eq!(thd.verdict(), ampnote::report::compare::Verdict::Better);
     assert!(c.warnings.iter().all(|w| !w.contains("different levels")));
     // 1.3 dB apart: the figures are shown with both levels, no delta, and a warning.
     let c = compare("a", &sel("a"), "c", &sel("c"));
@@ -127,6 +129,8 @@ fn bounds_are_shown_as_bounds_and_give_no_delta() {
         h4.a_upper_bound && h4.b_upper_bound && h4.delta.is_none(),
         "{h4:?}"
     );
+    // Two detection limits: no verdict either way.
+    assert_eq!(h4.verdict(), ampnote::report::compare::Verdict::Unknown);
     assert!(h4.sentence.contains("< -"), "{}", h4.sentence);
     // H2 falls from -40 dBc into the noise: a bound on the change, not a delta.
     let h2 = find(&c.lines, "H2");
@@ -158,6 +162,11 @@ fn staircases_are_compared_per_frequency() {
         (at40.delta.unwrap() - 10.0 * 2f64.log10()).abs() < 1e-6,
         "{at40:?}"
     );
+    // More power at 1 % is better; the other way round it is worse.
+    assert_eq!(at40.verdict(), ampnote::report::compare::Verdict::Better);
+    let back = compare("b", &sel("b"), "a", &sel("a"));
+    let at40 = find(&back.lines, "power at 1 % THD (40.0 Hz)");
+    assert_eq!(at40.verdict(), ampnote::report::compare::Verdict::Worse);
     let at1k = find(&c.lines, "power at 1 % THD (1.00 kHz)");
     assert!(
         (at1k.delta.unwrap() - 10.0 * 1.5f64.log10()).abs() < 1e-6,

@@ -272,6 +272,58 @@ fn report_of_a_notebook_and_of_an_empty_one() {
         !html.contains("src=") && !html.contains("href="),
         "no external assets"
     );
+    // The page opens on the summary: before the bench, the runs and every chart.
+    let at = |needle: &str| {
+        html.find(needle)
+            .unwrap_or_else(|| panic!("lacks {needle}"))
+    };
+    assert!(at("Summary: before") < at("The bench") && at("The bench") < at("<svg"));
+    // Every run warning is shown beside its run's figure, with its code: a copy of the fixture
+    // with a warning added to one run.
+    let copy = d.join("nb");
+    std::fs::create_dir_all(copy.join("runs")).unwrap();
+    std::fs::copy(
+        std::path::Path::new(&fixture()).join("notebook.toml"),
+        copy.join("notebook.toml"),
+    )
+    .unwrap();
+    for e in std::fs::read_dir(std::path::Path::new(&fixture()).join("runs")).unwrap() {
+        let e = e.unwrap();
+        let to = copy.join("runs").join(e.file_name());
+        std::fs::create_dir_all(&to).unwrap();
+        for f in std::fs::read_dir(e.path()).unwrap() {
+            let f = f.unwrap();
+            std::fs::copy(f.path(), to.join(f.file_name())).unwrap();
+        }
+    }
+    let result = copy.join("runs/0001-before-ch1-power/result.json");
+    let mut v: serde_json::Value =
+        serde_json::from_str(&std::fs::read_to_string(&result).unwrap()).unwrap();
+    v.as_object_mut().unwrap().insert(
+        "warnings".into(),
+        serde_json::to_value(vec![ampnote::warning::WarningCode::InputOverload
+            .say("input overload: 12 sample(s) at full scale")])
+        .unwrap(),
+    );
+    std::fs::write(&result, v.to_string()).unwrap();
+    let out2 = d.join("r2");
+    let (code, _, err) = run(&[
+        "report",
+        &copy.to_string_lossy(),
+        "--out",
+        &out2.to_string_lossy(),
+    ]);
+    assert_eq!(code, 0, "{err}");
+    let html2 = std::fs::read_to_string(out2.join("report.html")).unwrap();
+    let w = html2
+        .find("input overload: 12 sample(s)")
+        .expect("the warning is shown");
+    let run_row = html2.find("0001-before-ch1-power").unwrap();
+    assert!(
+        run_row < w && html2[w..].contains("[input-overload]"),
+        "beside its run, with its code"
+    );
+    assert!(html2.contains("1 warning(s)"));
     let png = std::fs::read(out.join("charts/thd-vs-power.png")).unwrap();
     assert!(
         png.starts_with(b"\x89PNG") && png.len() > 5000,

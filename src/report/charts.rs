@@ -1,0 +1,787 @@
+//! The report's charts: plotters' SVG (and PNG) line charts and the harmonic profile, and the
+//! curves each chart draws, taken from the notebook's typed results.
+//!
+//! Visual language (our own): each label has a colour (first label copper, second teal, then
+//! olive, plum, slate); the left channel is drawn solid, the right dashed; reference lines (1 %
+//! THD, 0 dB) are thin grey. Charts are plain white panels that print well.
+
+use crate::analysis::blocks::TrendResult;
+use crate::analysis::separation::SeparationResult;
+use crate::analysis::sweep::ResponseResult;
+use crate::analysis::tone::ToneResult;
+use crate::error::{Error, Result};
+use crate::notebook::Run;
+use crate::procedure::power::PowerResult;
+use crate::results::Kept;
+use plotters::coord::Shift;
+use plotters::prelude::*;
+use std::path::Path;
+
+const PALETTE: [RGBColor; 5] = [
+    RGBColor(176, 98, 38),  // copper
+    RGBColor(31, 111, 139), // teal
+    RGBColor(110, 122, 40), // olive
+    RGBColor(122, 63, 110), // plum
+    RGBColor(80, 90, 100),  // slate
+];
+const GREY: RGBColor = RGBColor(150, 150, 150);
+const SIZE: (u32, u32) = (760, 420);
+
+/// (x, y) pairs of a curve.
+type Points = Vec<(f64, f64)>;
+
+/// One curve: a name for the legend, its label's colour, dashed for the right channel.
+struct Curve {
+    name: String,
+    color: RGBColor,
+    dashed: bool,
+    points: Points,
+}
+
+/// DejaVu Sans (Bitstream Vera licence, `assets/fonts/`), for text in PNG charts: the bitmap
+/// backend cannot rely on system fonts.
+static FONT: &[u8] = include_bytes!("../../assets/fonts/DejaVuSans.ttf");
+
+fn ensure_font() -> Result<()> {
+    static ONCE: std::sync::OnceLock<bool> = std::sync::OnceLock::new();
+    let ok = *ONCE.get_or_init(|| {
+        ["sans-serif", "serif", "monospace"].iter().all(|family| {
+            [
+                FontStyle::Normal,
+                FontStyle::Bold,
+                FontStyle::Italic,
+                FontStyle::Oblique,
+            ]
+            .into_iter()
+            .all(|style| plotters::style::register_font(family, style, FONT).is_ok())
+        })
+    });
+    if ok {
+        Ok(())
+    } else {
+        Err(Error::InvalidSetting(
+            "the bundled chart font could not be loaded".into(),
+        ))
+    }
+}
+
+/// Draw a chart as SVG (the value) and, when `png` names a file, as PNG too: the body is expanded
+/// once per plotters backend.
+macro_rules! render {
+    ($png:expr, |$root:ident| $body:expr) => {{
+        // Text is measured with the bundled font for both backends.
+        ensure_font()?;
+        let mut svg = String::new();
+        {
+            let area = SVGBackend::with_string(&mut svg, SIZE).into_drawing_area();
+            let $root = &area;
+            $body?;
+        }
+        if let Some(path) = $png {
+            // Whole or not at all: drawn under a temporary name, renamed when complete.
+            // (the image format comes from the extension, so it stays last)
+            let tmp = path.with_extension("partial.png");
+            {
+                let area = BitMapBackend::new(&tmp, SIZE).into_drawing_area();
+                let $root = &area;
+                $body?;
+            }
+            std::fs::rename(&tmp, path).map_err(|source| Error::Write {
+                path: path.to_path_buf(),
+                source,
+            })?;
+        }
+        Ok::<String, Error>(svg)
+    }};
+}
+
+fn draw_err<E: std::fmt::Display>(e: E) -> Error {
+    // The plotting library's message nests its own debug text; say what it means instead.
+    let text = e.to_string();
+    let full = [
+        "os error 28",
+        "os error 27",
+        "No space left",
+        "File too large",
+    ]
+    .iter()
+    .any(|k| text.contains(k));
+    Error::Report(if full {
+        "the disk is full (or a file-size limit was reached) while writing a chart. Free some space and run `ampnote report` again; the notebook itself is untouched.".into()
+    } else {
+        "a chart could not be drawn or written. Check that the report folder is writable and run `ampnote report` again; the notebook itself is untouched.".into()
+    })
+}
+
+/// What a line chart shows.
+#[derive(Clone, Copy)]
+struct LineSpec<'a> {
+    title: &'a str,
+    x_desc: &'a str,
+    y_desc: &'a str,
+    curves: &'a [Curve],
+    log_x: bool,
+    log_y: bool,
+    /// A reference level, drawn as a thin grey line.
+    hline: Option<f64>,
+    /// Text at data coordinates (harmonic labels on a spectrum).
+    notes: &'a [(f64, f64, String)],
+}
+
+/// A line chart as SVG (and PNG when `png` names a file); empty when no curve has a point.
+fn line_chart(spec: &LineSpec, png: Option<&Path>) -> Result<String> {
+    let LineSpec {
+        curves,
+        log_x,
+        log_y,
+        hline,
+        ..
+    } = *spec;
+    let pts = curves.iter().flat_map(|c| c.points.iter()).filter(|p| {
+        p.0.is_finite() && p.1.is_finite() && (!log_x || p.0 > 0.0) && (!log_y || p.1 > 0.0)
+    });
+    let (mut x0, mut x1, mut y0, mut y1) = (
+        f64::INFINITY,
+        f64::NEG_INFINITY,
+        f64::INFINITY,
+        f64::NEG_INFINITY,
+    );
+    for &(x, y) in pts {
+        x0 = x0.min(x);
+        x1 = x1.max(x);
+        y0 = y0.min(y);
+        y1 = y1.max(y);
+    }
+    if !x0.is_finite() {
+        return Ok(String::new());
+    }
+    if let Some(h) = hline {
+        y0 = y0.min(h);
+        y1 = y1.max(h);
+    }
+    let (y0, y1) = if log_y {
+        (y0 / 1.5, y1 * 1.5)
+    } else {
+        let m = ((y1 - y0) * 0.08).max(0.5);
+        (y0 - m, y1 + m)
+    };
+    let ranges = (x0, x1, y0, y1);
+    render!(png, |root| draw_lines(root, spec, ranges))
+}
+
+/// The body of every line chart, on any plotters backend.
+fn draw_lines<DB: DrawingBackend>(
+    root: &DrawingArea<DB, Shift>,
+    spec: &LineSpec,
+    (x0, x1, y0, y1): (f64, f64, f64, f64),
+) -> Result<()> {
+    let LineSpec {
+        title,
+        x_desc,
+        y_desc,
+        curves,
+        log_x,
+        log_y,
+        hline,
+        notes,
+    } = *spec;
+    root.fill(&WHITE).map_err(draw_err)?;
+    let mut b = ChartBuilder::on(root);
+    b.caption(title, ("sans-serif", 18))
+        .margin(12)
+        .x_label_area_size(42)
+        .y_label_area_size(60);
+    macro_rules! body {
+        ($chart:expr) => {{
+            let mut chart = $chart;
+            chart
+                .configure_mesh()
+                .x_desc(x_desc)
+                .y_desc(y_desc)
+                .light_line_style(RGBColor(235, 235, 235))
+                .draw()
+                .map_err(draw_err)?;
+            if let Some(h) = hline {
+                chart
+                    .draw_series(LineSeries::new(
+                        vec![(x0, h), (x1, h)],
+                        GREY.stroke_width(1),
+                    ))
+                    .map_err(draw_err)?;
+            }
+            for c in curves {
+                let style = c.color.stroke_width(2);
+                let pts: Vec<(f64, f64)> = c
+                    .points
+                    .iter()
+                    .copied()
+                    .filter(|p| p.0.is_finite() && p.1.is_finite())
+                    .collect();
+                if c.dashed {
+                    chart
+                        .draw_series(DashedLineSeries::new(pts, 7, 5, style))
+                        .map_err(draw_err)?
+                        .label(c.name.clone())
+                        .legend(move |(x, y)| {
+                            EmptyElement::at((x, y))
+                                + PathElement::new(vec![(0, 0), (8, 0)], style)
+                                + PathElement::new(vec![(13, 0), (22, 0)], style)
+                        });
+                } else {
+                    chart
+                        .draw_series(LineSeries::new(pts, style))
+                        .map_err(draw_err)?
+                        .label(c.name.clone())
+                        .legend(move |(x, y)| PathElement::new(vec![(x, y), (x + 22, y)], style));
+                }
+            }
+            chart
+                .draw_series(notes.iter().map(|(x, y, t)| {
+                    Text::new(
+                        t.clone(),
+                        (*x, *y),
+                        ("sans-serif", 13).into_font().color(&BLACK),
+                    )
+                }))
+                .map_err(draw_err)?;
+            chart
+                .configure_series_labels()
+                .background_style(WHITE.mix(0.85))
+                .border_style(GREY)
+                .position(SeriesLabelPosition::UpperRight)
+                .draw()
+                .map_err(draw_err)?;
+        }};
+    }
+    match (log_x, log_y) {
+        (true, true) => body!(b
+            .build_cartesian_2d((x0..x1).log_scale(), (y0..y1).log_scale())
+            .map_err(draw_err)?),
+        (true, false) => body!(b
+            .build_cartesian_2d((x0..x1).log_scale(), y0..y1)
+            .map_err(draw_err)?),
+        (false, true) => body!(b
+            .build_cartesian_2d(x0..x1, (y0..y1).log_scale())
+            .map_err(draw_err)?),
+        (false, false) => body!(b.build_cartesian_2d(x0..x1, y0..y1).map_err(draw_err)?),
+    }
+    root.present().map_err(draw_err)?;
+    Ok(())
+}
+
+/// Labels in the order their first run was made.
+fn labels(runs: &[Run]) -> Vec<String> {
+    let mut out: Vec<String> = Vec::new();
+    for r in runs {
+        if !out.contains(&r.meta.label) {
+            out.push(r.meta.label.clone());
+        }
+    }
+    out
+}
+
+/// One curve per run holding a `T`, its points taken by `f`.
+fn curves_for<T: Kept>(runs: &[Run], f: impl Fn(&T) -> Vec<(f64, f64)>) -> Vec<Curve> {
+    let labels = labels(runs);
+    runs.iter()
+        .filter_map(|r| T::of(&r.result).map(|t| (r, t)))
+        .map(|(r, t)| {
+            let li = labels.iter().position(|l| *l == r.meta.label).unwrap_or(0);
+            Curve {
+                name: format!(
+                    "{}, {}",
+                    crate::notebook::printable(&r.meta.label),
+                    if r.meta.channel == 1 {
+                        "left".to_string()
+                    } else if r.meta.channel == 2 {
+                        "right".to_string()
+                    } else {
+                        format!("ch{}", r.meta.channel)
+                    }
+                ),
+                color: PALETTE[li % PALETTE.len()],
+                dashed: r.meta.channel % 2 == 0,
+                points: f(t),
+            }
+        })
+        .filter(|c| !c.points.is_empty())
+        .collect()
+}
+
+/// Bars of the harmonic profile (H2..H7 in dBc) of every tone run, grouped by order.
+fn profile_chart(runs: &[Run], png: Option<&Path>) -> Result<String> {
+    let tones: Vec<(&Run, &ToneResult)> = runs
+        .iter()
+        .filter_map(|r| ToneResult::of(&r.result).map(|t| (r, t)))
+        .collect();
+    if tones.is_empty() {
+        return Ok(String::new());
+    }
+    let labels = labels(runs);
+    let orders: Vec<u64> = (2..=7).collect();
+    render!(png, |root| draw_profile(root, &tones, &labels, &orders))
+}
+
+fn draw_profile<DB: DrawingBackend>(
+    root: &DrawingArea<DB, Shift>,
+    tones: &[(&Run, &ToneResult)],
+    labels: &[String],
+    orders: &[u64],
+) -> Result<()> {
+    root.fill(&WHITE).map_err(draw_err)?;
+    let mut chart = ChartBuilder::on(root)
+        .caption("Harmonic profile of the tone runs", ("sans-serif", 18))
+        .margin(12)
+        .x_label_area_size(42)
+        .y_label_area_size(60)
+        .build_cartesian_2d(1.5f64..7.5f64, -140f64..0f64)
+        .map_err(draw_err)?;
+    chart
+        .configure_mesh()
+        .x_desc("Harmonic order")
+        .y_desc("Level (dBc)")
+        .x_labels(6)
+        .x_label_formatter(&|x| format!("H{}", x.round()))
+        .light_line_style(RGBColor(235, 235, 235))
+        .draw()
+        .map_err(draw_err)?;
+    let w = 0.8 / tones.len() as f64;
+    for (i, (r, t)) in tones.iter().enumerate() {
+        let li = labels.iter().position(|l| *l == r.meta.label).unwrap_or(0);
+        let color = PALETTE[li % PALETTE.len()];
+        let fill = if r.meta.channel % 2 == 0 {
+            color.mix(0.45).filled()
+        } else {
+            color.filled()
+        };
+        let bars: Vec<Rectangle<(f64, f64)>> = orders
+            .iter()
+            .filter_map(|&o| {
+                let h = t.harmonics.iter().find(|h| h.order as u64 == o)?;
+                let level = h.level_dbc.max(-140.0);
+                let x = o as f64 - 0.4 + i as f64 * w;
+                Some(Rectangle::new([(x, -140.0), (x + w * 0.9, level)], fill))
+            })
+            .collect();
+        chart
+            .draw_series(bars)
+            .map_err(draw_err)?
+            .label(format!(
+                "{}, ch{}",
+                crate::notebook::printable(&r.meta.label),
+                r.meta.channel
+            ))
+            .legend(move |(x, y)| Rectangle::new([(x, y - 5), (x + 14, y + 5)], fill));
+    }
+    chart
+        .configure_series_labels()
+        .background_style(WHITE.mix(0.85))
+        .border_style(GREY)
+        .position(SeriesLabelPosition::UpperRight)
+        .draw()
+        .map_err(draw_err)?;
+    root.present().map_err(draw_err)?;
+    Ok(())
+}
+
+/// From a tone run's stored capture: its spectrum (dBFS per bin under the 7-term window, reduced
+/// to the peak of each of 600 log-spaced slices from 10 Hz to 20 kHz) and its distortion residual
+/// over one period (the capture minus its fitted fundamental, averaged cycle by cycle at each
+/// phase, in percent of the fundamental's peak).
+fn tone_views(run: &Run, tone: &ToneResult) -> Option<(Points, Points)> {
+    use crate::analysis::spectrum::{fast_length, SpectrumPlanner};
+    use crate::analysis::tone::TONE_WINDOW;
+    let info = crate::capture::Capture::probe(&run.dir.join("capture.wav")).ok()?;
+    let ch = if run.meta.channel <= info.channel_count {
+        run.meta.channel
+    } else {
+        1
+    };
+    let cap =
+        crate::capture::Capture::read_channels(&run.dir.join("capture.wav"), true, Some(&[ch]))
+            .ok()?;
+    let x = &cap.channels[0];
+    let fs = cap.sample_rate_hz as f64;
+    let seg = &x[x.len() / 4..x.len() * 3 / 4];
+    let n = fast_length(seg.len());
+    if n < 1024 {
+        return None;
+    }
+    let planner = SpectrumPlanner::new();
+    let plan = planner.plan(TONE_WINDOW, n);
+    let mut buf = plan.make_buffers();
+    let mean = seg[..n].iter().sum::<f64>() / n as f64;
+    plan.transform(seg, mean, &mut buf);
+    let scale = 2.0 / (n as f64 * TONE_WINDOW.coherent_gain());
+    let bin = fs / n as f64;
+    let slices = 600;
+    let (lo, hi) = (10f64, 20_000f64.min(fs / 2.0));
+    let mut spectrum = Vec::with_capacity(slices);
+    for i in 0..slices {
+        let f_a = lo * (hi / lo).powf(i as f64 / slices as f64);
+        let f_b = lo * (hi / lo).powf((i + 1) as f64 / slices as f64);
+        let (ka, kb) = (
+            (f_a / bin).ceil() as usize,
+            ((f_b / bin).floor() as usize).min(buf.output.len() - 1),
+        );
+        if kb < ka {
+            continue;
+        }
+        let peak = buf.output[ka..=kb]
+            .iter()
+            .map(|c| c.norm())
+            .fold(0.0, f64::max)
+            * scale;
+        spectrum.push(((f_a * f_b).sqrt(), 20.0 * peak.max(1e-9).log10()));
+    }
+    // Residual over one period.
+    let f0 = tone.fundamental_hz;
+    let (lines, dc) = crate::analysis::fit::sine_fit_time_domain(seg, &[f0 / fs])?;
+    let (a, b) = lines[0];
+    let peak = (a * a + b * b).sqrt();
+    let phi = a.atan2(b); // x = peak sin(w n + phi)
+    let bins = 180;
+    let mut acc = vec![(0.0, 0usize); bins];
+    for (i, &v) in seg.iter().enumerate() {
+        let wn = 2.0 * std::f64::consts::PI * f0 / fs * i as f64;
+        let r = v - dc - a * wn.cos() - b * wn.sin();
+        let theta = (wn + phi).rem_euclid(2.0 * std::f64::consts::PI);
+        let k = ((theta / (2.0 * std::f64::consts::PI)) * bins as f64) as usize % bins;
+        acc[k].0 += r;
+        acc[k].1 += 1;
+    }
+    let residual = acc
+        .iter()
+        .enumerate()
+        .filter(|(_, (_, c))| *c > 0)
+        .map(|(k, (sum, c))| {
+            (
+                (k as f64 + 0.5) * 360.0 / bins as f64,
+                100.0 * sum / *c as f64 / peak,
+            )
+        })
+        .collect();
+    Some((spectrum, residual))
+}
+
+/// Every chart of the report: (file stem, caption, SVG), an empty SVG where no run has data for
+/// it. Each is also written as PNG under `out/charts/`. `deviation` is B minus A of the first two
+/// labels' responses, per channel.
+pub(crate) fn build(
+    runs: &[Run],
+    deviation: &[crate::report::compare::DeviationCurve],
+    out: &Path,
+) -> Result<Vec<(&'static str, &'static str, String)>> {
+    let labels = labels(runs);
+    let runs = runs.to_vec();
+    let deviation: Vec<Curve> = deviation
+        .iter()
+        .map(|d| Curve {
+            name: format!(
+                "{} minus {}, {}",
+                crate::notebook::printable(labels.get(1).map_or("", |s| s.as_str())),
+                crate::notebook::printable(labels.first().map_or("", |s| s.as_str())),
+                if d.channel == 1 { "left" } else { "right" }
+            ),
+            color: PALETTE[1],
+            dashed: d.channel % 2 == 0,
+            points: d.points.iter().map(|p| (p[0], p[1])).collect(),
+        })
+        .collect();
+    let power = curves_for(&runs, |p: &PowerResult| {
+        p.steps
+            .iter()
+            .filter(|s| !s.excluded)
+            .filter_map(|s| Some((s.output_w?, s.thd_percent?)))
+            .collect()
+    });
+    let response = curves_for(&runs, |r: &ResponseResult| {
+        r.points
+            .iter()
+            .map(|p| (p.frequency_hz, p.magnitude_db))
+            .collect()
+    });
+    let phase = curves_for(&runs, |r: &ResponseResult| {
+        r.points
+            .iter()
+            .map(|p| (p.frequency_hz, p.phase_deg))
+            .collect()
+    });
+    let h2 = curves_for(&runs, |r: &ResponseResult| {
+        r.harmonics
+            .iter()
+            .find(|h| h.order == 2)
+            .map_or(Vec::new(), |h| {
+                h.points
+                    .iter()
+                    .map(|p| (p.frequency_hz, p.level_dbc))
+                    .collect()
+            })
+    });
+    let thd_f = curves_for(&runs, |r: &ResponseResult| {
+        r.thd
+            .iter()
+            .map(|p| (p.frequency_hz, p.level_dbc))
+            .collect()
+    });
+    let trend = |f: fn(&crate::analysis::blocks::TrendPoint) -> Option<f64>| {
+        curves_for(&runs, move |t: &TrendResult| {
+            t.points
+                .iter()
+                .filter_map(|p| Some((p.at_s, f(p)?)))
+                .collect()
+        })
+    };
+    let trend_level = trend(|p| p.level_dbfs);
+    // Separation: the first undriven channel of each run.
+    let separation = curves_for(&runs, |s: &SeparationResult| {
+        s.channels.first().map_or(Vec::new(), |c| {
+            c.points
+                .iter()
+                .map(|p| (p.frequency_hz, p.separation_db))
+                .collect()
+        })
+    });
+    let trend_thd = trend(|p| p.thd_percent.or(p.thdn_percent));
+    // Spectrum and residual of each label's left-channel tone run (the latest).
+    let mut spectra = Vec::new();
+    let mut residuals = Vec::new();
+    let mut notes = Vec::new();
+    for (li, label) in labels.iter().enumerate() {
+        let Some((run, tone)) = runs
+            .iter()
+            .rev()
+            .filter(|r| &r.meta.label == label && r.meta.channel == 1)
+            .find_map(|r| ToneResult::of(&r.result).map(|t| (r, t)))
+        else {
+            continue;
+        };
+        let Some((spec, res)) = tone_views(run, tone) else {
+            continue;
+        };
+        let color = PALETTE[li % PALETTE.len()];
+        if li == 0 {
+            let (f0, level) = (tone.fundamental_hz, tone.fundamental_dbfs);
+            for h in tone.harmonics.iter().take(4) {
+                notes.push((
+                    h.order as f64 * f0 * 1.03,
+                    level + h.level_dbc + 4.0,
+                    format!("H{}", h.order),
+                ));
+            }
+            notes.push((f0 * 1.03, level + 4.0, "fundamental".to_string()));
+        }
+        spectra.push(Curve {
+            name: format!("{}, left", crate::notebook::printable(label)),
+            color,
+            dashed: false,
+            points: spec,
+        });
+        residuals.push(Curve {
+            name: format!("{}, left", crate::notebook::printable(label)),
+            color,
+            dashed: false,
+            points: res,
+        });
+    }
+    let png = |file: &str| out.join("charts").join(format!("{file}.png"));
+    // A chart's SVG (and its PNG beside it); the spec's notes default to none.
+    let chart = |file: &str, spec: LineSpec| line_chart(&spec, Some(&png(file)));
+    let spec = |title, x_desc, y_desc, curves, log_x, log_y, hline| LineSpec {
+        title,
+        x_desc,
+        y_desc,
+        curves,
+        log_x,
+        log_y,
+        hline,
+        notes: &[],
+    };
+    let charts = [
+        (
+            "thd-vs-power",
+            "THD against output power",
+            chart(
+                "thd-vs-power",
+                spec(
+                    "THD against output power",
+                    "Output power (W)",
+                    "THD (%)",
+                    &power,
+                    true,
+                    true,
+                    Some(1.0),
+                ),
+            )?,
+        ),
+        (
+            "response-magnitude",
+            "Frequency response",
+            chart(
+                "response-magnitude",
+                spec(
+                    "Frequency response (re 1 kHz)",
+                    "Frequency (Hz)",
+                    "Magnitude (dB)",
+                    &response,
+                    true,
+                    false,
+                    Some(0.0),
+                ),
+            )?,
+        ),
+        (
+            "response-phase",
+            "Phase",
+            chart(
+                "response-phase",
+                spec(
+                    "Phase (latency removed)",
+                    "Frequency (Hz)",
+                    "Phase (degrees)",
+                    &phase,
+                    true,
+                    false,
+                    None,
+                ),
+            )?,
+        ),
+        (
+            "h2-vs-frequency",
+            "Second harmonic against frequency",
+            chart(
+                "h2-vs-frequency",
+                spec(
+                    "Second harmonic against frequency (sweep)",
+                    "Frequency (Hz)",
+                    "H2 (dBc)",
+                    &h2,
+                    true,
+                    false,
+                    None,
+                ),
+            )?,
+        ),
+        (
+            "thd-vs-frequency",
+            "THD against frequency",
+            chart(
+                "thd-vs-frequency",
+                spec(
+                    "THD against frequency (sweep, H2-H5)",
+                    "Frequency (Hz)",
+                    "THD (dBc)",
+                    &thd_f,
+                    true,
+                    false,
+                    None,
+                ),
+            )?,
+        ),
+        (
+            "separation",
+            "Channel separation",
+            chart(
+                "separation",
+                spec(
+                    "Channel separation (the undriven channel below the driven one)",
+                    "Frequency (Hz)",
+                    "Separation (dB)",
+                    &separation,
+                    true,
+                    false,
+                    Some(60.0),
+                ),
+            )?,
+        ),
+        (
+            "trend-level",
+            "Level over time",
+            chart(
+                "trend-level",
+                spec(
+                    "Level over time (trend)",
+                    "Time (s)",
+                    "Level (dBFS)",
+                    &trend_level,
+                    false,
+                    false,
+                    None,
+                ),
+            )?,
+        ),
+        (
+            "trend-thd",
+            "THD over time",
+            chart(
+                "trend-thd",
+                spec(
+                    "THD over time (trend; THD+N where THD is under the noise)",
+                    "Time (s)",
+                    "THD (%)",
+                    &trend_thd,
+                    false,
+                    true,
+                    None,
+                ),
+            )?,
+        ),
+        (
+            "harmonic-profile",
+            "Harmonic profile",
+            profile_chart(&runs, Some(&png("harmonic-profile")))?,
+        ),
+        (
+            "response-change",
+            "Response change (after minus before)",
+            chart(
+                "response-change",
+                spec(
+                    "Response change, after minus before",
+                    "Frequency (Hz)",
+                    "Change (dB)",
+                    &deviation,
+                    true,
+                    false,
+                    Some(0.0),
+                ),
+            )?,
+        ),
+        (
+            "spectrum",
+            "Spectrum of the tone (left channel)",
+            chart(
+                "spectrum",
+                LineSpec {
+                    notes: &notes,
+                    ..spec(
+                        "Spectrum of the tone, left channel (peak per slice)",
+                        "Frequency (Hz)",
+                        "Level (dBFS)",
+                        &spectra,
+                        true,
+                        false,
+                        None,
+                    )
+                },
+            )?,
+        ),
+        (
+            "residual",
+            "Distortion residual over one period",
+            chart(
+                "residual",
+                spec(
+                    "Distortion residual over one period of the fundamental",
+                    "Phase of the fundamental (degrees)",
+                    "Residual (% of the fundamental's peak)",
+                    &residuals,
+                    false,
+                    false,
+                    Some(0.0),
+                ),
+            )?,
+        ),
+    ];
+    Ok(charts.into_iter().collect())
+}

@@ -1,0 +1,304 @@
+//! What the notebook report says, as typed values: built here from the notebook, rendered by
+//! [`super::html`]. Nothing here writes HTML.
+//!
+//! Top to bottom: the headline summary (per channel, side by side, before -> after with the
+//! change and whether it is better or worse), the channel-match verdicts, the bench of each label
+//! (rig, calibration, settings, notes), every run with its figure and its warnings, then the
+//! charts and the full comparison.
+
+use super::compare::{
+    compare, match_channels, CompareLine, Comparison, MatchResult, MatchTolerances, Verdict,
+};
+use crate::notebook::{printable, Notebook, Run};
+use crate::warning::Warning;
+
+/// The report of one notebook.
+#[derive(Debug, Clone)]
+pub struct ReportModel {
+    pub amplifier: String,
+    pub notebook: String,
+    pub written: String,
+    pub version: &'static str,
+    pub channels: usize,
+    pub run_count: usize,
+    /// The first two labels, side by side (absent with fewer than two labels).
+    pub summary: Option<Summary>,
+    pub comparison: Option<Comparison>,
+    /// Left against right, per label.
+    pub matches: Vec<(String, MatchResult)>,
+    pub benches: Vec<Bench>,
+    pub runs: Vec<RunLine>,
+}
+
+/// The headline figures of two labels.
+#[derive(Debug, Clone)]
+pub struct Summary {
+    pub a: String,
+    pub b: String,
+    pub channels: Vec<usize>,
+    pub rows: Vec<SummaryRow>,
+}
+
+/// One headline figure, a cell per channel (in `Summary::channels` order).
+#[derive(Debug, Clone)]
+pub struct SummaryRow {
+    pub figure: String,
+    pub cells: Vec<Option<SummaryCell>>,
+}
+
+#[derive(Debug, Clone)]
+pub struct SummaryCell {
+    pub a: String,
+    pub b: String,
+    /// `+6.86 dB`, or why there is no change to read.
+    pub change: String,
+    pub verdict: Verdict,
+}
+
+/// How one label was measured.
+#[derive(Debug, Clone)]
+pub struct Bench {
+    pub label: String,
+    pub runs: usize,
+    /// Rig descriptions and other settings kept with the runs (`--set`), each once.
+    pub settings: Vec<(String, String)>,
+    /// The calibration, in words (`interface 2.00 V at full scale, attenuator 10.0:1, 8.00 ohm`).
+    pub calibration: Vec<String>,
+    pub notes: Vec<String>,
+}
+
+/// One run: its headline figure and its warnings beside it.
+#[derive(Debug, Clone)]
+pub struct RunLine {
+    pub id: String,
+    pub time: String,
+    pub label: String,
+    pub channel: usize,
+    pub procedure: &'static str,
+    pub figure: String,
+    pub warnings: Vec<Warning>,
+}
+
+/// The headline figures, in order: what each row is, and which comparison line fills it per
+/// channel (the first that exists: the tone run's THD, at its own level, before the staircase's
+/// THD at 1 W). The row is named after the line (`THD at 1.00 W`), so a tone run at another level
+/// says so.
+const HEADLINES: &[Headline] = &[
+    Headline::Starts("power at 1 % THD"),
+    Headline::Tone("THD at", "THD at 1 W (staircase)"),
+    Headline::Tone("H2 at", ""),
+    Headline::Tone("H3 at", ""),
+    Headline::Starts("noise with no signal (A-weighted)"),
+    Headline::Starts("S/N re 1 W (A-weighted)"),
+    Headline::Starts("low -3 dB point"),
+    Headline::Starts("high -3 dB point"),
+    Headline::Starts("output impedance"),
+];
+
+enum Headline {
+    /// The line whose figure starts so.
+    Starts(&'static str),
+    /// A tone run's line (not a staircase's or a sweep's), else the fallback figure.
+    Tone(&'static str, &'static str),
+}
+
+impl Headline {
+    fn pick<'a>(&self, lines: &'a [CompareLine], channel: usize) -> Option<&'a CompareLine> {
+        let mine = || lines.iter().filter(move |l| l.channel == channel);
+        match self {
+            Headline::Starts(s) => mine().find(|l| l.figure.starts_with(s)),
+            Headline::Tone(s, fallback) => mine()
+                .find(|l| {
+                    l.figure.starts_with(s)
+                        && !l.figure.contains("staircase")
+                        && !l.figure.contains("sweep")
+                })
+                .or_else(|| {
+                    (!fallback.is_empty())
+                        .then(|| mine().find(|l| l.figure == *fallback))
+                        .flatten()
+                }),
+        }
+    }
+}
+
+fn summary(c: &Comparison) -> Summary {
+    let mut channels: Vec<usize> = c.lines.iter().map(|l| l.channel).collect();
+    channels.sort();
+    channels.dedup();
+    let rows = HEADLINES
+        .iter()
+        .filter_map(|h| {
+            let picked: Vec<Option<&CompareLine>> =
+                channels.iter().map(|&ch| h.pick(&c.lines, ch)).collect();
+            let figure = picked.iter().flatten().next()?.figure.clone();
+            Some(SummaryRow {
+                figure,
+                cells: picked
+                    .into_iter()
+                    .map(|l| {
+                        l.map(|l| {
+                            let (a, b) = shown_sides(l);
+                            SummaryCell {
+                                a,
+                                b,
+                                change: l.change.clone(),
+                                verdict: l.verdict(),
+                            }
+                        })
+                    })
+                    .collect(),
+            })
+        })
+        .collect();
+    Summary {
+        a: c.a.clone(),
+        b: c.b.clone(),
+        channels,
+        rows,
+    }
+}
+
+/// Each side of a line as shown (a detection limit as `< limit`).
+pub fn shown_sides(l: &CompareLine) -> (String, String) {
+    use super::number::{bound, show};
+    let side = |v: f64, b: bool| if b { bound(v, l.unit) } else { show(v, l.unit) };
+    (side(l.a, l.a_upper_bound), side(l.b, l.b_upper_bound))
+}
+
+/// Labels in the order their first run was made.
+pub fn labels(runs: &[Run]) -> Vec<String> {
+    let mut out: Vec<String> = Vec::new();
+    for r in runs {
+        if !out.contains(&r.meta.label) {
+            out.push(r.meta.label.clone());
+        }
+    }
+    out
+}
+
+fn bench(label: &str, runs: &[&Run]) -> Bench {
+    use super::number::{show, Unit};
+    let mut settings: Vec<(String, String)> = Vec::new();
+    let mut calibration: Vec<String> = Vec::new();
+    let mut notes: Vec<String> = Vec::new();
+    for r in runs {
+        for (k, v) in &r.meta.settings {
+            let kv = (printable(k), printable(v));
+            if !settings.contains(&kv) {
+                settings.push(kv);
+            }
+        }
+        let c = &r.meta.calibration;
+        let mut words = Vec::new();
+        if let Some(v) = c.input_fs_vrms {
+            words.push(format!(
+                "interface input {} at full scale",
+                show(v, Unit::Volts)
+            ));
+        }
+        if let Some(a) = c.attenuation {
+            words.push(format!(
+                "attenuator {}:1",
+                super::number::significant(a, 3, 3)
+            ));
+        }
+        if let Some(l) = c.load_ohms {
+            words.push(format!("load {}", show(l, Unit::Ohms)));
+        }
+        let text = if words.is_empty() {
+            "no calibration: levels in dBFS".to_string()
+        } else {
+            words.join(", ")
+        };
+        if !calibration.contains(&text) {
+            calibration.push(text);
+        }
+        let n = printable(&r.meta.notes);
+        if !n.is_empty() && !notes.contains(&n) {
+            notes.push(n);
+        }
+    }
+    Bench {
+        label: printable(label),
+        runs: runs.len(),
+        settings,
+        calibration,
+        notes,
+    }
+}
+
+impl ReportModel {
+    /// The report of `nb`: its runs, the first two labels compared, each label's channels matched.
+    pub fn build(nb: &Notebook) -> crate::error::Result<ReportModel> {
+        let runs = nb.runs()?;
+        let labels = labels(&runs);
+        let of = |label: &str| -> Vec<Run> {
+            runs.iter()
+                .filter(|r| r.meta.label == label)
+                .cloned()
+                .collect()
+        };
+        let comparison = (labels.len() >= 2)
+            .then(|| compare(&labels[0], &of(&labels[0]), &labels[1], &of(&labels[1])));
+        let mut matches = Vec::new();
+        if nb.info.channels >= 2 {
+            for label in &labels {
+                let side = |ch: usize| -> Vec<Run> {
+                    of(label)
+                        .into_iter()
+                        .filter(|r| r.meta.channel == ch)
+                        .collect()
+                };
+                let (l, r) = (side(1), side(2));
+                if !l.is_empty() && !r.is_empty() {
+                    let m = match_channels(
+                        &format!("{label}, left"),
+                        &l,
+                        &format!("{label}, right"),
+                        &r,
+                        &MatchTolerances::default(),
+                    );
+                    matches.push((printable(label), m));
+                }
+            }
+        }
+        let benches = labels
+            .iter()
+            .map(|l| {
+                let mine: Vec<&Run> = runs.iter().filter(|r| &r.meta.label == l).collect();
+                bench(l, &mine)
+            })
+            .collect();
+        let lines = runs
+            .iter()
+            .map(|r| RunLine {
+                id: printable(&r.meta.id),
+                time: r.meta.time.clone(),
+                label: printable(&r.meta.label),
+                channel: r.meta.channel,
+                procedure: r.meta.procedure.name(),
+                figure: printable(&r.result.headline()),
+                warnings: r.result.warnings().to_vec(),
+            })
+            .collect();
+        Ok(ReportModel {
+            amplifier: printable(&nb.info.amplifier),
+            notebook: nb.dir.display().to_string(),
+            written: crate::notebook::now_utc(),
+            version: env!("CARGO_PKG_VERSION"),
+            channels: nb.info.channels,
+            run_count: runs.len(),
+            summary: comparison.as_ref().map(summary),
+            comparison,
+            matches,
+            benches,
+            runs: lines,
+        })
+    }
+
+    /// How many warnings the runs carry.
+    pub fn warning_count(&self) -> usize {
+        self.runs.iter().map(|r| r.warnings.len()).sum()
+    }
+}
