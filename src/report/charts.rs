@@ -122,8 +122,11 @@ struct LineSpec<'a> {
     curves: &'a [Curve],
     log_x: bool,
     log_y: bool,
-    /// A reference level, drawn as a thin grey line.
+    /// A reference level, drawn as a dashed dark red line, labelled (`1 % THD`).
     hline: Option<f64>,
+    hline_label: &'a str,
+    /// Mark where each curve crosses the reference level (the 1 % points of THD against power).
+    mark_crossings: bool,
     /// Text at data coordinates (harmonic labels on a spectrum).
     notes: &'a [(f64, f64, String)],
 }
@@ -183,10 +186,16 @@ fn draw_lines<DB: DrawingBackend>(
         log_x,
         log_y,
         hline,
+        hline_label,
+        mark_crossings,
         notes,
     } = *spec;
     root.fill(&WHITE).map_err(draw_err)?;
-    let mut b = ChartBuilder::on(root);
+    // The legend goes under the plotting area, never over the data: two entries per row.
+    let rows = curves.len().div_ceil(2) as u32;
+    let legend_h = if curves.is_empty() { 0 } else { rows * 20 + 12 };
+    let (plot, legend) = root.split_vertically(SIZE.1 - legend_h);
+    let mut b = ChartBuilder::on(&plot);
     b.caption(title, ("sans-serif", 18))
         .margin(12)
         .x_label_area_size(42)
@@ -198,16 +207,52 @@ fn draw_lines<DB: DrawingBackend>(
                 .configure_mesh()
                 .x_desc(x_desc)
                 .y_desc(y_desc)
+                .x_label_formatter(&|v| tick(*v))
+                .y_label_formatter(&|v| tick(*v))
                 .light_line_style(RGBColor(235, 235, 235))
                 .draw()
                 .map_err(draw_err)?;
             if let Some(h) = hline {
                 chart
-                    .draw_series(LineSeries::new(
+                    .draw_series(DashedLineSeries::new(
                         vec![(x0, h), (x1, h)],
-                        GREY.stroke_width(1),
+                        6,
+                        4,
+                        REFERENCE.stroke_width(2),
                     ))
                     .map_err(draw_err)?;
+                if !hline_label.is_empty() {
+                    chart
+                        .draw_series(std::iter::once(Text::new(
+                            hline_label.to_string(),
+                            // Just above the line (the text hangs below its anchor).
+                            (
+                                x0,
+                                if log_y {
+                                    h * 1.45
+                                } else {
+                                    h + 0.05 * (y1 - y0)
+                                },
+                            ),
+                            ("sans-serif", 13).into_font().color(&REFERENCE),
+                        )))
+                        .map_err(draw_err)?;
+                }
+                if mark_crossings {
+                    let marks: Vec<(f64, f64, RGBColor)> = curves
+                        .iter()
+                        .filter_map(|c| {
+                            crossing(&c.points, h, log_x, log_y).map(|x| (x, h, c.color))
+                        })
+                        .collect();
+                    chart
+                        .draw_series(
+                            marks
+                                .into_iter()
+                                .map(|(x, y, color)| Circle::new((x, y), 5, color.stroke_width(2))),
+                        )
+                        .map_err(draw_err)?;
+                }
             }
             for c in curves {
                 let style = c.color.stroke_width(2);
@@ -244,13 +289,6 @@ fn draw_lines<DB: DrawingBackend>(
                     )
                 }))
                 .map_err(draw_err)?;
-            chart
-                .configure_series_labels()
-                .background_style(WHITE.mix(0.85))
-                .border_style(GREY)
-                .position(SeriesLabelPosition::UpperRight)
-                .draw()
-                .map_err(draw_err)?;
         }};
     }
     match (log_x, log_y) {
@@ -265,8 +303,109 @@ fn draw_lines<DB: DrawingBackend>(
             .map_err(draw_err)?),
         (false, false) => body!(b.build_cartesian_2d(x0..x1, y0..y1).map_err(draw_err)?),
     }
+    // The legend strip: a sample of each line and its name.
+    let col_w = (SIZE.0 as i32 - 80) / 2;
+    for (i, c) in curves.iter().enumerate() {
+        let (x, y) = (70 + (i as i32 % 2) * col_w, 10 + (i as i32 / 2) * 20);
+        let style = c.color.stroke_width(2);
+        if c.dashed {
+            legend
+                .draw(&PathElement::new(vec![(x, y), (x + 9, y)], style))
+                .map_err(draw_err)?;
+            legend
+                .draw(&PathElement::new(vec![(x + 14, y), (x + 24, y)], style))
+                .map_err(draw_err)?;
+        } else {
+            legend
+                .draw(&PathElement::new(vec![(x, y), (x + 24, y)], style))
+                .map_err(draw_err)?;
+        }
+        legend
+            .draw(&Text::new(
+                c.name.clone(),
+                (x + 32, y - 7),
+                ("sans-serif", 13).into_font().color(&BLACK),
+            ))
+            .map_err(draw_err)?;
+    }
     root.present().map_err(draw_err)?;
     Ok(())
+}
+
+/// The part of a sweep's curve that is the amplifier's: the sweep's first and last twentieth of
+/// an octave hold its fade-in and the anti-alias filter's edge, which are not the amplifier's
+/// response (left out, not drawn as data).
+fn swept(r: &ResponseResult, points: impl Iterator<Item = (f64, f64)>) -> Points {
+    let (Some(lo), Some(hi)) = (
+        r.points.first().map(|p| p.frequency_hz),
+        r.points.last().map(|p| p.frequency_hz),
+    ) else {
+        return Vec::new();
+    };
+    let edge = 2f64.powf(1.0 / 20.0);
+    points
+        .filter(|(f, _)| *f >= lo * edge && *f <= hi / edge)
+        .collect()
+}
+
+/// A harmonic's curve against the excitation frequency f: only where order x f stays inside the
+/// sweep (short of its last twentieth of an octave: beyond, the harmonic left the sweep and its
+/// curve plunges), and without the points where order x f lands on a mains line of either family
+/// (50 or 60 Hz, orders 1 to 4, within 8 %: the hum spreads over a few points of the log-spaced
+/// curve): there the hum, not the harmonic, is read.
+fn harmonic_curve(
+    r: &ResponseResult,
+    order: usize,
+    points: impl Iterator<Item = (f64, f64)>,
+) -> Points {
+    let top = r.points.last().map_or(0.0, |p| p.frequency_hz) / 2f64.powf(1.0 / 20.0);
+    let on_mains = |f: f64| {
+        [50.0, 60.0]
+            .iter()
+            .any(|m| (1..=4).any(|k| ((order as f64 * f) / (k as f64 * m) - 1.0).abs() < 0.08))
+    };
+    swept(r, points)
+        .into_iter()
+        .filter(|(f, _)| order as f64 * f <= top && !on_mains(*f))
+        .collect()
+}
+
+/// The reference line's colour (dark red: it must not read as grid).
+const REFERENCE: RGBColor = RGBColor(160, 30, 30);
+
+/// An axis label as a person writes it: 20, 100, 1k, 10k, 0.1; never `10000.0` or `-0.0`.
+fn tick(v: f64) -> String {
+    let trim = |s: String| {
+        if s.contains('.') {
+            s.trim_end_matches('0').trim_end_matches('.').to_string()
+        } else {
+            s
+        }
+    };
+    let v = if v.abs() < 1e-9 { 0.0 } else { v };
+    if v.abs() >= 1000.0 {
+        format!("{}k", trim(format!("{:.1}", v / 1000.0)))
+    } else if v.abs() >= 10.0 || v == 0.0 {
+        trim(format!("{v:.1}"))
+    } else {
+        trim(crate::report::number::significant(v, 2, 4))
+    }
+}
+
+/// Where `points` (x ascending) first cross `level` going up, interpolated on the chart's
+/// scales (log-log for THD against power).
+fn crossing(points: &[(f64, f64)], level: f64, log_x: bool, log_y: bool) -> Option<f64> {
+    let (fx, fy) = (
+        |x: f64| if log_x { x.ln() } else { x },
+        |y: f64| if log_y { y.ln() } else { y },
+    );
+    let pair = points
+        .windows(2)
+        .find(|w| w[0].1 < level && w[1].1 >= level && w[0].0 > 0.0 && w[1].0 > 0.0)?;
+    let (a, b) = (pair[0], pair[1]);
+    let t = (fy(level) - fy(a.1)) / (fy(b.1) - fy(a.1));
+    let x = fx(a.0) + t * (fx(b.0) - fx(a.0));
+    Some(if log_x { x.exp() } else { x })
 }
 
 /// Labels in the order their first run was made.
@@ -496,33 +635,21 @@ pub(crate) fn build(
             .collect()
     });
     let response = curves_for(&runs, |r: &ResponseResult| {
-        r.points
-            .iter()
-            .map(|p| (p.frequency_hz, p.magnitude_db))
-            .collect()
+        swept(r, r.points.iter().map(|p| (p.frequency_hz, p.magnitude_db)))
     });
     let phase = curves_for(&runs, |r: &ResponseResult| {
-        r.points
-            .iter()
-            .map(|p| (p.frequency_hz, p.phase_deg))
-            .collect()
+        swept(r, r.points.iter().map(|p| (p.frequency_hz, p.phase_deg)))
     });
     let h2 = curves_for(&runs, |r: &ResponseResult| {
         r.harmonics
             .iter()
             .find(|h| h.order == 2)
             .map_or(Vec::new(), |h| {
-                h.points
-                    .iter()
-                    .map(|p| (p.frequency_hz, p.level_dbc))
-                    .collect()
+                harmonic_curve(r, 2, h.points.iter().map(|p| (p.frequency_hz, p.level_dbc)))
             })
     });
     let thd_f = curves_for(&runs, |r: &ResponseResult| {
-        r.thd
-            .iter()
-            .map(|p| (p.frequency_hz, p.level_dbc))
-            .collect()
+        harmonic_curve(r, 2, r.thd.iter().map(|p| (p.frequency_hz, p.level_dbc)))
     });
     let trend = |f: fn(&crate::analysis::blocks::TrendPoint) -> Option<f64>| {
         curves_for(&runs, move |t: &TrendResult| {
@@ -587,7 +714,7 @@ pub(crate) fn build(
     let png = |file: &str| out.join("charts").join(format!("{file}.png"));
     // A chart's SVG (and its PNG beside it); the spec's notes default to none.
     let chart = |file: &str, spec: LineSpec| line_chart(&spec, Some(&png(file)));
-    let spec = |title, x_desc, y_desc, curves, log_x, log_y, hline| LineSpec {
+    let spec = |title, x_desc, y_desc, curves, log_x, log_y, hline: Option<f64>| LineSpec {
         title,
         x_desc,
         y_desc,
@@ -595,6 +722,8 @@ pub(crate) fn build(
         log_x,
         log_y,
         hline,
+        hline_label: "",
+        mark_crossings: false,
         notes: &[],
     };
     let charts = [
@@ -603,15 +732,19 @@ pub(crate) fn build(
             "THD against output power",
             chart(
                 "thd-vs-power",
-                spec(
-                    "THD against output power",
-                    "Output power (W)",
-                    "THD (%)",
-                    &power,
-                    true,
-                    true,
-                    Some(1.0),
-                ),
+                LineSpec {
+                    hline_label: " 1 % THD",
+                    mark_crossings: true,
+                    ..spec(
+                        "THD against output power (circles: the 1 % points)",
+                        "Output power (W)",
+                        "THD (%)",
+                        &power,
+                        true,
+                        true,
+                        Some(1.0),
+                    )
+                },
             )?,
         ),
         (
@@ -652,7 +785,7 @@ pub(crate) fn build(
             chart(
                 "h2-vs-frequency",
                 spec(
-                    "Second harmonic against frequency (sweep)",
+                    "Second harmonic against frequency (sweep; points on mains lines left out)",
                     "Frequency (Hz)",
                     "H2 (dBc)",
                     &h2,
