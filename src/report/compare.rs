@@ -481,13 +481,14 @@ pub fn compare(name_a: &str, a: &[Run], name_b: &str, b: &[Run]) -> Comparison {
                     unlike,
                 );
             }
-            add(
-                "noise",
-                measured(Some(ta.noise_dbfs)),
-                measured(Some(tb.noise_dbfs)),
-                Unit::Dbfs,
-                None,
-            );
+            // dBV at the amplifier's output when both sides are calibrated, else dBFS.
+            let (na, nb, nu) = match (ta.noise_vrms, tb.noise_vrms) {
+                (Some(x), Some(y)) if x > 0.0 && y > 0.0 => {
+                    (20.0 * x.log10(), 20.0 * y.log10(), Unit::Dbv)
+                }
+                _ => (ta.noise_dbfs, tb.noise_dbfs, Unit::Dbfs),
+            };
+            add("noise", measured(Some(na)), measured(Some(nb)), nu, None);
             // The strongest hum line that stands above the noise, else the highest limit.
             let hum = |t: &ToneView| -> Option<Val> {
                 let real = t
@@ -547,25 +548,36 @@ pub fn compare(name_a: &str, a: &[Run], name_b: &str, b: &[Run]) -> Comparison {
             );
         }
         if let (Some(na), Some(nb)) = (latest::<NoiseView>(a, ch), latest::<NoiseView>(b, ch)) {
+            // In dBV at the amplifier's output when both sides are calibrated (comparable across
+            // interfaces and attenuators), else in dBFS through the same interface.
+            let level = |dbfs_a: f64, dbfs_b: f64, va: Option<f64>, vb: Option<f64>| match (va, vb) {
+                (Some(x), Some(y)) if x > 0.0 && y > 0.0 => {
+                    (20.0 * x.log10(), 20.0 * y.log10(), Unit::Dbv)
+                }
+                _ => (dbfs_a, dbfs_b, Unit::Dbfs),
+            };
+            let flat = level(na.noise_dbfs, nb.noise_dbfs, na.noise_vrms, nb.noise_vrms);
+            let weighted = level(
+                na.noise_a_dbfs,
+                nb.noise_a_dbfs,
+                na.noise_a_vrms,
+                nb.noise_a_vrms,
+            );
+            let all = level(
+                na.hum_and_noise_dbfs,
+                nb.hum_and_noise_dbfs,
+                na.hum_and_noise_vrms,
+                nb.hum_and_noise_vrms,
+            );
             for (fig, x, y, unit) in [
-                (
-                    "noise with no signal (flat)",
-                    Some(na.noise_dbfs),
-                    Some(nb.noise_dbfs),
-                    Unit::Dbfs,
-                ),
+                ("noise with no signal (flat)", Some(flat.0), Some(flat.1), flat.2),
                 (
                     "noise with no signal (A-weighted)",
-                    Some(na.noise_a_dbfs),
-                    Some(nb.noise_a_dbfs),
-                    Unit::Dbfs,
+                    Some(weighted.0),
+                    Some(weighted.1),
+                    weighted.2,
                 ),
-                (
-                    "hum and noise with no signal",
-                    Some(na.hum_and_noise_dbfs),
-                    Some(nb.hum_and_noise_dbfs),
-                    Unit::Dbfs,
-                ),
+                ("hum and noise with no signal", Some(all.0), Some(all.1), all.2),
                 (
                     "S/N re 1 W (A-weighted)",
                     na.snr_a_re_1w_db,
