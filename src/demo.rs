@@ -26,6 +26,9 @@ use std::path::{Path, PathBuf};
 
 /// Sample rate of the demo's stimuli.
 const RATE: u32 = 48_000;
+/// The sweep runs at twice the rate so it reaches 40 kHz and the high -3 dB point is inside it
+/// (at 48 kHz a sweep stops at 21.6 kHz, below where a good output transformer falls 3 dB).
+const SWEEP_RATE: u32 = 96_000;
 
 /// What the demo produced.
 pub struct DemoOutcome {
@@ -39,7 +42,7 @@ fn write_stimulus(dir: &Path, name: &str, s: &Stimulus) -> Result<PathBuf> {
     let path = dir.join(name);
     write_wav_described(
         &path,
-        RATE,
+        s.description.sample_rate_hz,
         &s.channel_data(),
         WavFormat::Int { bits: 24 },
         1,
@@ -49,10 +52,11 @@ fn write_stimulus(dir: &Path, name: &str, s: &Stimulus) -> Result<PathBuf> {
 }
 
 fn record(rig: &mut SimRig, ch: usize, s: &Stimulus, path: &Path) -> Result<Vec<f64>> {
-    let y = rig.play_and_record(ch, &s.signal, RATE)?;
+    let rate = s.description.sample_rate_hz;
+    let y = rig.play_and_record(ch, &s.signal, rate)?;
     write_wav(
         path,
-        RATE,
+        rate,
         std::slice::from_ref(&y),
         WavFormat::Int { bits: 24 },
         2,
@@ -124,10 +128,13 @@ pub fn run(out: &Path, mut progress: impl FnMut(&str)) -> Result<DemoOutcome> {
         &Common {
             fade_s: 0.0,
             tail_s: 0.5,
-            ..base.clone()
+            ..Common {
+                sample_rate_hz: SWEEP_RATE,
+                ..base.clone()
+            }
         },
         10.0,
-        21_600.0,
+        40_000.0,
         3.0,
     )?;
     let steps_path = write_stimulus(&work, "steps.wav", &steps)?;
@@ -209,13 +216,13 @@ pub fn run(out: &Path, mut progress: impl FnMut(&str)) -> Result<DemoOutcome> {
                 &sweep.signal,
                 sp,
                 &y,
-                RATE as f64,
+                SWEEP_RATE as f64,
                 rig.overload_threshold(),
             )?;
             save(
                 vec![("stimulus.wav", &sweep_path), ("capture.wav", &cap_path)],
                 r.into(),
-                "10 Hz - 21.6 kHz sweep",
+                "10 Hz - 40 kHz sweep at 96 kHz",
             )?;
             // Output impedance: the 1 W tone into 8 and 16 ohm.
             let b_path = work.join("capture-16.wav");

@@ -550,7 +550,8 @@ pub fn compare(name_a: &str, a: &[Run], name_b: &str, b: &[Run]) -> Comparison {
         if let (Some(na), Some(nb)) = (latest::<NoiseView>(a, ch), latest::<NoiseView>(b, ch)) {
             // In dBV at the amplifier's output when both sides are calibrated (comparable across
             // interfaces and attenuators), else in dBFS through the same interface.
-            let level = |dbfs_a: f64, dbfs_b: f64, va: Option<f64>, vb: Option<f64>| match (va, vb) {
+            let level = |dbfs_a: f64, dbfs_b: f64, va: Option<f64>, vb: Option<f64>| match (va, vb)
+            {
                 (Some(x), Some(y)) if x > 0.0 && y > 0.0 => {
                     (20.0 * x.log10(), 20.0 * y.log10(), Unit::Dbv)
                 }
@@ -570,14 +571,24 @@ pub fn compare(name_a: &str, a: &[Run], name_b: &str, b: &[Run]) -> Comparison {
                 nb.hum_and_noise_vrms,
             );
             for (fig, x, y, unit) in [
-                ("noise with no signal (flat)", Some(flat.0), Some(flat.1), flat.2),
+                (
+                    "noise with no signal (flat)",
+                    Some(flat.0),
+                    Some(flat.1),
+                    flat.2,
+                ),
                 (
                     "noise with no signal (A-weighted)",
                     Some(weighted.0),
                     Some(weighted.1),
                     weighted.2,
                 ),
-                ("hum and noise with no signal", Some(all.0), Some(all.1), all.2),
+                (
+                    "hum and noise with no signal",
+                    Some(all.0),
+                    Some(all.1),
+                    all.2,
+                ),
                 (
                     "S/N re 1 W (A-weighted)",
                     na.snr_a_re_1w_db,
