@@ -112,7 +112,8 @@ pub fn run(args: &ZoutArgs) -> Result<ExitCode, Failure> {
             fade_s: if args.sweep { 0.0 } else { 0.01 },
         };
         let stim = if args.sweep {
-            stimulus::sweep(&c, 10.0, 21_600.0, 3.0)?
+            // As `generate sweep` does: 0.45 x the rate, at most 40 kHz.
+            stimulus::sweep(&c, 10.0, (0.45 * rate as f64).min(40_000.0), 3.0)?
         } else {
             stimulus::tone(&c, args.freq, 1.5)?
         };
