@@ -248,15 +248,7 @@ fn numbers_read_as_a_person_writes_them() {
     // Every number of the demo's tables carries no exponent.
     let x = super::common::sines(48_000.0, 48_000, &[(1000.0, 0.5, 0.0), (2000.0, 5e-7, 0.0)]);
     let d = super::common::tmpdir("numbers");
-    let p = d.join("t.wav");
-    ampnote::signal::wav::write_wav(
-        &p,
-        48_000,
-        &[x],
-        ampnote::signal::wav::WavFormat::Float32,
-        1,
-    )
-    .unwrap();
+    let p = super::common::write_float(&d, "t.wav", x);
     let (code, out, err) = super::common::run(&["analyze", &p.to_string_lossy()]);
     assert_eq!(code, 0, "{err}");
     for word in out.split_whitespace() {

@@ -79,3 +79,17 @@ pub fn noise(n: usize, dbfs: f64, seed: u64) -> Vec<f64> {
         .map(|_| sigma * ((0..12).map(|_| uniform()).sum::<f64>() - 6.0))
         .collect()
 }
+
+/// Write one channel as a 32-bit float WAV at 48 kHz into `dir` (the samples exactly).
+pub fn write_float(dir: &std::path::Path, name: &str, x: Vec<f64>) -> std::path::PathBuf {
+    let p = dir.join(name);
+    ampnote::signal::wav::write_wav(
+        &p,
+        48_000,
+        &[x],
+        ampnote::signal::wav::WavFormat::Float32,
+        1,
+    )
+    .unwrap();
+    p
+}

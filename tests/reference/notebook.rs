@@ -516,15 +516,7 @@ fn warnings_carry_a_stable_code_in_json() {
         .into_iter()
         .map(|v| v.clamp(-1.0, 1.0))
         .collect();
-    let p = d.join("clipped.wav");
-    ampnote::signal::wav::write_wav(
-        &p,
-        48_000,
-        &[x],
-        ampnote::signal::wav::WavFormat::Float32,
-        1,
-    )
-    .unwrap();
+    let p = super::common::write_float(&d, "clipped.wav", x);
     let (code, out, err) = run(&["analyze", &p.to_string_lossy(), "--json"]);
     assert_eq!(code, 0, "{err}");
     let raw: serde_json::Value = serde_json::from_str(&out).unwrap();
