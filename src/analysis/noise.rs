@@ -6,10 +6,9 @@
 //! band's whole content. With a calibration and a load, the signal-to-noise ratio is referred to
 //! 1 W into the load (a common way to quote it; common practice).
 
-use super::fit::fit_lines;
 use super::spectrum::SpectrumPlanner;
 use super::tone::{
-    local_density, measure_spectrum, near_multiple, residuals, ChannelInput, Mains, GUARD_BINS,
+    local_density, measure_spectrum, near_multiple, residuals, ChannelInput, Mains,
     NOISE_FLOOR_FACTOR, TONE_WINDOW,
 };
 use super::weighting::a_weighting_power;
@@ -140,33 +139,14 @@ fn analyze_spectrum(
         Mains::Hz(f) => vec![f],
         Mains::Auto => vec![50.0, 60.0],
     };
-    let lines_for = |m: f64| -> Vec<(usize, f64)> {
-        (1..=5)
-            .map(|o| (o, m * o as f64 / bin))
-            .filter(|&(_, f)| f >= half && f <= top)
-            .collect()
-    };
-    // (mains Hz, lines as (order, bin), their joint fit, fitted power)
-    type Family = (f64, Vec<(usize, f64)>, super::fit::LineFit, f64);
-    let mut best: Option<Family> = None;
-    for &m in &families {
-        let lines = lines_for(m);
-        let freqs: Vec<f64> = lines.iter().map(|l| l.1).collect();
-        if freqs.windows(2).any(|w| w[1] - w[0] < GUARD_BINS) {
-            continue;
-        }
-        let Some(fit) = fit_lines(spec, n, &TONE_WINDOW, &freqs) else {
-            continue;
-        };
-        let p: f64 = fit.amplitudes.iter().map(|c| c.norm_sqr()).sum();
-        if best.as_ref().is_none_or(|b| p > b.3) {
-            best = Some((m, lines, fit, p));
-        }
-    }
+    let best = super::tone::fit_mains_family(spec, n, &families, 5, bin, (half, top), &[]);
     let scale = 2.0 / (n as f64 * n as f64 * TONE_WINDOW.mean_square());
     let k_lo = ((lo / bin).ceil() as usize).max(1);
     let k_hi = ((hi / bin).floor() as usize).min(n / 2);
-    let model = best.as_ref().map(|b| b.2.full_model()).unwrap_or_default();
+    let model = best
+        .as_ref()
+        .map(|b| b.fit.full_model())
+        .unwrap_or_default();
     let (mut total, mut flat, mut a_w) = (0.0, 0.0, 0.0);
     let mut mi = model.partition_point(|e| e.0 < k_lo);
     for (k, &x) in spec.iter().enumerate().take(k_hi + 1).skip(k_lo) {
@@ -184,7 +164,7 @@ fn analyze_spectrum(
     let (noise_dbfs, noise_a_dbfs, hum_and_noise_dbfs) = (dbfs(flat), dbfs(a_w), dbfs(total));
     let enbw = TONE_WINDOW.enbw_bins();
     let (mains_hz, lines, fit) = match best {
-        Some((m, l, f, _)) => (m, l, Some(f)),
+        Some(b) => (b.mains_hz, b.lines, Some(b.fit)),
         None => (families[0], Vec::new(), None),
     };
     let hum: Vec<NoiseHumLine> = lines

@@ -445,37 +445,19 @@ impl ToneAnalyzer {
             }
             tone_lines.push(f);
         }
-        let hum_lines_for = |mains_hz: f64| -> Vec<(usize, f64)> {
-            (1..=self.config.hum_orders)
-                .map(|o| (o, to_bins(mains_hz * o as f64)))
-                .filter(|&(_, f)| {
-                    f >= half && f <= top && tone_lines.iter().all(|&t| (t - f).abs() >= GUARD_BINS)
-                })
-                .collect()
-        };
-        let fit_with = |hum: &[(usize, f64)]| -> Option<LineFit> {
-            let mut freqs = tone_lines.clone();
-            freqs.extend(hum.iter().map(|h| h.1));
-            fit_lines(spec, n, &TONE_WINDOW, &freqs)
-        };
-        // (mains Hz, hum lines as (order, bin), the joint fit, fitted hum power)
-        type FamilyFit = (f64, Vec<(usize, f64)>, LineFit, f64);
-        let mut best: Option<FamilyFit> = None;
-        for &m in &mains_candidates {
-            let hum = hum_lines_for(m);
-            let Some(fit) = fit_with(&hum) else { continue };
-            let hum_power: f64 = fit.amplitudes[tone_lines.len()..]
-                .iter()
-                .map(|c| c.norm_sqr())
-                .sum();
-            if best.as_ref().is_none_or(|b| hum_power > b.3) {
-                best = Some((m, hum, fit, hum_power));
-            }
-        }
+        let best = fit_mains_family(
+            spec,
+            n,
+            &mains_candidates,
+            self.config.hum_orders,
+            bin_hz,
+            (half, top),
+            &tone_lines,
+        );
         let (mains_hz, hum_lines, fit) = match best {
-            Some((m, h, f, _)) => (m, h, f),
+            Some(b) => (b.mains_hz, b.lines, b.fit),
             None => {
-                let fit = fit_with(&[]).ok_or_else(|| {
+                let fit = fit_lines(spec, n, &TONE_WINDOW, &tone_lines).ok_or_else(|| {
                     Error::InvalidSetting("the fundamental and its harmonics could not be separated; record a longer capture".into())
                 })?;
                 (mains_candidates[0], Vec::new(), fit)
@@ -1077,6 +1059,63 @@ fn polyfit(t: &[f64], y: &[f64], deg: usize) -> Option<Vec<f64>> {
             c[2],
         ],
     })
+}
+
+/// The stronger mains family, fitted jointly with the lines already known (`fixed`: the tone and
+/// its harmonics, or none in a noise capture).
+pub(crate) struct MainsFit {
+    pub mains_hz: f64,
+    /// (order, bin) of each mains line fitted, in order after the `fixed` lines.
+    pub lines: Vec<(usize, f64)>,
+    pub fit: LineFit,
+}
+
+/// The one mains fit of the tone and the noise analyses: for each candidate mains frequency, its
+/// orders 1..=`orders` inside `[half, top]` bins and at least [`GUARD_BINS`] from every fixed
+/// line, fitted jointly with the fixed lines; the family whose lines take the more power wins.
+/// A family whose own lines crowd each other closer than the guard (a capture too short to
+/// part them) is not fitted.
+pub(crate) fn fit_mains_family(
+    spec: &[Complex64],
+    n: usize,
+    candidates: &[f64],
+    orders: usize,
+    bin_hz: f64,
+    (half, top): (f64, f64),
+    fixed: &[f64],
+) -> Option<MainsFit> {
+    let mut best: Option<(MainsFit, f64)> = None;
+    for &m in candidates {
+        let lines: Vec<(usize, f64)> = (1..=orders)
+            .map(|o| (o, m * o as f64 / bin_hz))
+            .filter(|&(_, f)| {
+                f >= half && f <= top && fixed.iter().all(|&t| (t - f).abs() >= GUARD_BINS)
+            })
+            .collect();
+        if lines.windows(2).any(|w| w[1].1 - w[0].1 < GUARD_BINS) {
+            continue;
+        }
+        let mut freqs = fixed.to_vec();
+        freqs.extend(lines.iter().map(|l| l.1));
+        let Some(fit) = fit_lines(spec, n, &TONE_WINDOW, &freqs) else {
+            continue;
+        };
+        let power: f64 = fit.amplitudes[fixed.len()..]
+            .iter()
+            .map(|c| c.norm_sqr())
+            .sum();
+        if best.as_ref().is_none_or(|b| power > b.1) {
+            best = Some((
+                MainsFit {
+                    mains_hz: m,
+                    lines,
+                    fit,
+                },
+                power,
+            ));
+        }
+    }
+    best.map(|b| b.0)
 }
 
 /// Measurement-quality warnings: what a technician must know before trusting the figures.
