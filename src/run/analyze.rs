@@ -5,7 +5,7 @@ use crate::cli::AnalyzeArgs;
 use ampnote::analysis::blocks;
 use ampnote::analysis::tone::ToneAnalyzer;
 use ampnote::capture::{select_channels, Capture};
-use ampnote::report::tone::{AnalyzeReport, ChannelError};
+use ampnote::report::tone::AnalyzeReport;
 use ampnote::report::SCHEMA_VERSION;
 use std::process::ExitCode;
 
@@ -45,33 +45,16 @@ pub fn run(args: &AnalyzeArgs) -> Result<ExitCode, Failure> {
     )?;
     let (frames, truncated) = (run.frames, run.truncated);
     let reading = run.reading_warnings(&info);
-    let mut channels = Vec::new();
-    let mut channel_errors = Vec::new();
-    for (ch, result) in run.channels {
-        match result {
-            Ok(mut r) => {
-                r.warnings.extend(reading.iter().cloned());
-                channels.push(r)
-            }
-            Err(e) => channel_errors.push(ChannelError {
-                channel: ch,
-                error: e.to_string(),
-            }),
-        }
-    }
-    ampnote::report::add_rig_notes(&mut channels, &notes);
+    let (channels, channel_errors) = super::sort_channels(run.channels, &reading, &notes);
     let mut keeper = super::Keeper::new(&args.save);
-    for r in &channels {
-        keeper.add(
-            r.channel,
-            cal,
-            Some(ampnote::notebook::AnalysisSettings::Tone(
-                analyzer.config.clone(),
-            )),
-            vec![("capture.wav", capture_path)],
-            r,
-        );
-    }
+    keeper.add_each(
+        &channels,
+        cal,
+        Some(ampnote::notebook::AnalysisSettings::Tone(
+            analyzer.config.clone(),
+        )),
+        vec![("capture.wav", capture_path)],
+    );
     let report = AnalyzeReport {
         schema_version: SCHEMA_VERSION,
         file: capture_path.display().to_string(),

@@ -6,7 +6,6 @@ use ampnote::analysis::blocks;
 use ampnote::analysis::imd::{ImdAnalyzer, PairHint};
 use ampnote::capture::{select_channels, Capture};
 use ampnote::report::imd::ImdReport;
-use ampnote::report::tone::ChannelError;
 use ampnote::report::SCHEMA_VERSION;
 use ampnote::signal::stimulus::Kind;
 use std::process::ExitCode;
@@ -62,8 +61,6 @@ pub fn run(args: &ImdArgs) -> Result<ExitCode, Failure> {
     let info = Capture::probe(capture_path)?;
     let chosen = select_channels(info.channel_count, args.channel.get())?;
     let analyzer = ImdAnalyzer::new();
-    let mut channels = Vec::new();
-    let mut channel_errors = Vec::new();
     let run = blocks::each_channel(
         capture_path,
         &info,
@@ -72,29 +69,15 @@ pub fn run(args: &ImdArgs) -> Result<ExitCode, Failure> {
         |input| analyzer.analyze(input, hint),
         |input| blocks::imd(&analyzer, input, hint, blocks::BLOCK_SAMPLES),
     )?;
+    // A truncated file (with --accept-truncated) says so beside its figures.
     let reading = run.reading_warnings(&info);
-    for (ch, result) in run.channels {
-        match result {
-            Ok(mut r) => {
-                // A truncated file (with --accept-truncated) says so beside its figures.
-                r.warnings.extend(reading.iter().cloned());
-                channels.push(r)
-            }
-            Err(err) => channel_errors.push(ChannelError {
-                channel: ch,
-                error: err.to_string(),
-            }),
-        }
-    }
-    ampnote::report::add_rig_notes(&mut channels, &notes);
+    let (channels, channel_errors) = super::sort_channels(run.channels, &reading, &notes);
     let mut keeper = super::Keeper::new(&args.save);
-    for r in &channels {
-        let mut files = vec![("capture.wav", capture_path)];
-        if let Some(st) = &stimulus {
-            files.insert(0, ("stimulus.wav", st.as_path()));
-        }
-        keeper.add(r.channel, recorded_cal, None, files, r);
+    let mut files = vec![("capture.wav", capture_path)];
+    if let Some(st) = &stimulus {
+        files.insert(0, ("stimulus.wav", st.as_path()));
     }
+    keeper.add_each(&channels, recorded_cal, None, files);
     let report = ImdReport {
         schema_version: SCHEMA_VERSION,
         file: capture_path.display().to_string(),

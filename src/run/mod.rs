@@ -123,6 +123,31 @@ impl From<&str> for Failure {
     }
 }
 
+/// The channels of a file run sorted into results and errors: each result takes the reading's
+/// warnings (a truncated file, an open length) and what the rig noticed on its channel.
+pub fn sort_channels<R: ampnote::report::ChannelResult>(
+    outcomes: Vec<(usize, ampnote::Result<R>)>,
+    reading: &[ampnote::warning::Warning],
+    notes: &[(usize, ampnote::warning::Warning)],
+) -> (Vec<R>, Vec<ampnote::report::tone::ChannelError>) {
+    let mut results = Vec::new();
+    let mut errors = Vec::new();
+    for (channel, outcome) in outcomes {
+        match outcome {
+            Ok(mut r) => {
+                r.warnings_mut().extend(reading.iter().cloned());
+                results.push(r)
+            }
+            Err(e) => errors.push(ampnote::report::tone::ChannelError {
+                channel,
+                error: e.to_string(),
+            }),
+        }
+    }
+    ampnote::report::add_rig_notes(&mut results, notes);
+    (results, errors)
+}
+
 /// How a command prints its figures: a table, JSON, or CSV (to stdout with `-`, or a file).
 pub struct Format<'a> {
     pub json: bool,
@@ -234,6 +259,22 @@ impl<'a> Keeper<'a> {
                 .collect(),
             result: result.into(),
         });
+    }
+
+    /// Every channel's result, with the same calibration, settings and files.
+    pub fn add_each<'r, R>(
+        &mut self,
+        results: &'r [R],
+        calibration: ampnote::calibration::Calibration,
+        analysis: Option<ampnote::notebook::AnalysisSettings>,
+        files: Vec<(&str, &Path)>,
+    ) where
+        R: ampnote::report::ChannelResult,
+        &'r R: Into<ampnote::results::RunResult>,
+    {
+        for r in results {
+            self.add(r.channel(), calibration, analysis.clone(), files.clone(), r);
+        }
     }
 
     /// Write every channel added, as one measurement.

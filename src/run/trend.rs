@@ -5,7 +5,6 @@ use crate::cli::TrendArgs;
 use ampnote::analysis::blocks;
 use ampnote::analysis::tone::ToneAnalyzer;
 use ampnote::capture::{select_channels, Capture};
-use ampnote::report::tone::ChannelError;
 use ampnote::report::trend::TrendReport;
 use ampnote::report::SCHEMA_VERSION;
 use std::process::ExitCode;
@@ -44,33 +43,16 @@ pub fn run(args: &TrendArgs) -> Result<ExitCode, Failure> {
         blocks::trend(&analyzer, input, &cal, args.every)
     })?;
     let reading = run.reading_warnings(&info);
-    let mut channels = Vec::new();
-    let mut channel_errors = Vec::new();
-    for (ch, result) in run.channels {
-        match result {
-            Ok(mut r) => {
-                r.warnings.extend(reading.iter().cloned());
-                channels.push(r)
-            }
-            Err(e) => channel_errors.push(ChannelError {
-                channel: ch,
-                error: e.to_string(),
-            }),
-        }
-    }
-    ampnote::report::add_rig_notes(&mut channels, &recorded.notes);
+    let (channels, channel_errors) = super::sort_channels(run.channels, &reading, &recorded.notes);
     let mut keeper = super::Keeper::new(&a.save);
-    for r in &channels {
-        keeper.add(
-            r.channel,
-            cal,
-            Some(ampnote::notebook::AnalysisSettings::Tone(
-                analyzer.config.clone(),
-            )),
-            vec![("capture.wav", path)],
-            r,
-        );
-    }
+    keeper.add_each(
+        &channels,
+        cal,
+        Some(ampnote::notebook::AnalysisSettings::Tone(
+            analyzer.config.clone(),
+        )),
+        vec![("capture.wav", path)],
+    );
     let report = TrendReport {
         schema_version: SCHEMA_VERSION,
         file: path.display().to_string(),
