@@ -71,3 +71,48 @@ channel_result!(
     crate::procedure::zout::ZoutResult,
     crate::analysis::blocks::TrendResult
 );
+
+/// A measuring command's report: its per-channel results and the channels that failed, and its
+/// three renderings (JSON, CSV, table).
+pub trait Printed {
+    type Channel: ChannelResult;
+    fn results(&self) -> &[Self::Channel];
+    fn errors(&self) -> &[tone::ChannelError];
+    fn json(&self) -> String;
+    fn csv(&self) -> String;
+    fn table(&self) -> String;
+}
+
+macro_rules! printed {
+    ($($t:ty => $channel:ty, $results:ident, $errors:ident);* $(;)?) => {$(
+        impl Printed for $t {
+            type Channel = $channel;
+            fn results(&self) -> &[$channel] {
+                &self.$results
+            }
+            fn errors(&self) -> &[tone::ChannelError] {
+                printed!(@errors self, $errors)
+            }
+            fn json(&self) -> String {
+                self.to_json()
+            }
+            fn csv(&self) -> String {
+                self.to_csv()
+            }
+            fn table(&self) -> String {
+                self.to_table()
+            }
+        }
+    )*};
+    (@errors $s:ident, none) => { &[] };
+    (@errors $s:ident, $f:ident) => { &$s.$f };
+}
+
+printed!(
+    tone::AnalyzeReport => crate::analysis::tone::ToneResult, channels, channel_errors;
+    imd::ImdReport => crate::analysis::imd::ImdResult, channels, channel_errors;
+    power::PowerReport => crate::procedure::power::PowerResult, results, channel_errors;
+    power::ZoutReport => crate::procedure::zout::ZoutResult, results, none;
+    response::ResponseReport => crate::analysis::sweep::ResponseResult, channels, channel_errors;
+    trend::TrendReport => crate::analysis::blocks::TrendResult, channels, channel_errors;
+);

@@ -66,18 +66,12 @@ pub fn run(args: &AnalyzeArgs) -> Result<ExitCode, Failure> {
         channels,
         channel_errors,
     };
-    // The figures are printed first, so a failed keep never hides what was measured.
-    let code = super::finish(
+    super::print_then_keep(
         super::Format {
             json: args.json,
             csv: args.csv.as_deref(),
         },
-        &report.channels,
-        &report.channel_errors,
-        || report.to_json(),
-        || report.to_csv(),
-        || report.to_table(),
-    );
-    keeper.commit()?;
-    code
+        &report,
+        keeper,
+    )
 }

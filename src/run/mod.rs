@@ -123,6 +123,25 @@ impl From<&str> for Failure {
     }
 }
 
+/// Print the report (table, JSON or CSV, with the warnings on stderr), then keep the runs: the
+/// figures come first, so a failed keep never hides what was measured.
+pub fn print_then_keep<P: ampnote::report::Printed>(
+    format: Format,
+    report: &P,
+    keeper: Keeper,
+) -> Result<ExitCode, Failure> {
+    let code = finish(
+        format,
+        report.results(),
+        report.errors(),
+        || report.json(),
+        || report.csv(),
+        || report.table(),
+    );
+    keeper.commit()?;
+    code
+}
+
 /// The channels of a file run sorted into results and errors: each result takes the reading's
 /// warnings (a truncated file, an open length) and what the rig noticed on its channel.
 pub fn sort_channels<R: ampnote::report::ChannelResult>(

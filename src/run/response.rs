@@ -151,19 +151,13 @@ pub fn run(args: &ResponseArgs) -> Result<ExitCode, Failure> {
     if let Some(path) = &args.csv {
         ampnote::files::write_whole(path, report.to_csv().as_bytes())?;
     }
-    // The figures are printed first, so a failed keep never hides what was measured.
     // (--csv here is a file written beside the table or JSON, see above.)
-    let code = super::finish(
+    super::print_then_keep(
         super::Format {
             json: args.json,
             csv: None,
         },
-        &report.channels,
-        &report.channel_errors,
-        || report.to_json(),
-        || report.to_csv(),
-        || report.to_table(),
-    );
-    keeper.commit()?;
-    code
+        &report,
+        keeper,
+    )
 }

@@ -60,18 +60,12 @@ pub fn run(args: &TrendArgs) -> Result<ExitCode, Failure> {
         channels,
         channel_errors,
     };
-    // The figures are printed first, so a failed keep never hides what was measured.
-    let code = super::finish(
+    super::print_then_keep(
         super::Format {
             json: a.json,
             csv: a.csv.as_deref(),
         },
-        &report.channels,
-        &report.channel_errors,
-        || report.to_json(),
-        || report.to_csv(),
-        || report.to_table(),
-    );
-    keeper.commit()?;
-    code
+        &report,
+        keeper,
+    )
 }

@@ -276,18 +276,12 @@ pub fn run(args: &ZoutArgs) -> Result<ExitCode, Failure> {
         first: results.first().cloned(),
         results,
     };
-    // The figures are printed first, so a failed keep never hides what was measured.
-    let code = super::finish(
+    super::print_then_keep(
         super::Format {
             json: args.json,
             csv: args.csv.as_deref(),
         },
-        &report.results,
-        &[],
-        || report.to_json(),
-        || report.to_csv(),
-        || report.to_table(),
-    );
-    keeper.commit()?;
-    code
+        &report,
+        keeper,
+    )
 }
