@@ -783,17 +783,18 @@ impl RigArgs {
         })
     }
 
-    /// The rig the user named, if any.
+    /// The rig the user named, if any. Its errors keep their kind (a device fault exits 3).
     pub fn open(
         &self,
         calibration: Calibration,
-    ) -> Result<Option<Box<dyn ampnote::rig::Rig>>, String> {
+    ) -> Result<Option<Box<dyn ampnote::rig::Rig>>, ampnote::Error> {
         let Some(spec) = &self.rig else {
             return Ok(None);
         };
-        ampnote::rig::parse_rig_with(spec, &self.options(calibration)?)
-            .map(Some)
-            .map_err(|e| e.to_string())
+        let options = self
+            .options(calibration)
+            .map_err(ampnote::Error::InvalidSetting)?;
+        ampnote::rig::parse_rig_with(spec, &options).map(Some)
     }
 }
 
