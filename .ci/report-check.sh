@@ -27,4 +27,13 @@ for title in "THD against output power" "Frequency response" "Harmonic profile";
   grep -q "$title" "$work/dom.html" || { echo "the report lacks the chart \"$title\""; exit 1; }
 done
 [ -s ci-artifacts/report.png ] || { echo "no screenshot was written"; exit 1; }
-echo "report check: $svgs charts, no console errors, screenshot in ci-artifacts/report.png"
+# The page opens on the summary (before the bench and every chart).
+summary=$(grep -bo "Summary: " "$work/dom.html" | head -1 | cut -d: -f1)
+first_svg=$(grep -bo "<svg" "$work/dom.html" | head -1 | cut -d: -f1)
+[ -n "$summary" ] && [ "$summary" -lt "$first_svg" ] || { echo "the report does not open on its summary"; exit 1; }
+# Printed (Chromium's default paper): it must print, in a sane number of pages; the PDF is kept.
+timeout 120 chromium "${flags[@]}" --no-pdf-header-footer --print-to-pdf=ci-artifacts/report.pdf "$page" \
+  2> /dev/null > /dev/null || true
+pages=$(python3 -c "import re,sys; print(len(re.findall(rb'/Type\s*/Page(?!s)', open(sys.argv[1],'rb').read())))" ci-artifacts/report.pdf 2>/dev/null || echo 0)
+[ "$pages" -ge 1 ] && [ "$pages" -le 20 ] || { echo "the printed report has $pages pages (expected 1 to 20)"; exit 1; }
+echo "report check: $svgs charts, opens on the summary, prints on $pages pages, no console errors, screenshot and PDF in ci-artifacts/"
