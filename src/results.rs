@@ -221,7 +221,14 @@ impl RunResult {
     }
 }
 
-macro_rules! from_result {
+/// A result type that a [`RunResult`] can hold: `ToneResult::of(&run.result)` is the tone
+/// result when the run is a tone run.
+pub trait Kept: Sized {
+    fn of(r: &RunResult) -> Option<&Self>;
+}
+
+/// Each result type into its variant (owned or cloned), and picked back out of it.
+macro_rules! variants {
     ($($t:ty => $v:ident),*) => {
         $(impl From<$t> for RunResult {
             fn from(r: $t) -> RunResult {
@@ -232,31 +239,8 @@ macro_rules! from_result {
             fn from(r: &$t) -> RunResult {
                 RunResult::$v(r.clone())
             }
-        })*
-    };
-}
-
-from_result!(
-    ToneResult => Tone,
-    PowerResult => Power,
-    ResponseResult => Response,
-    ImdResult => Imd,
-    ZoutResult => Zout,
-    NoiseResult => Noise,
-    SeparationResult => Separation,
-    TrendResult => Trend,
-    DcResult => Dc
-);
-
-/// A result type that a [`RunResult`] can hold: `ToneResult::of(&run.result)` is the tone
-/// result when the run is a tone run.
-pub trait Kept: Sized {
-    fn of(r: &RunResult) -> Option<&Self>;
-}
-
-macro_rules! kept {
-    ($($t:ty => $v:ident),*) => {
-        $(impl Kept for $t {
+        }
+        impl Kept for $t {
             fn of(r: &RunResult) -> Option<&Self> {
                 match r {
                     RunResult::$v(x) => Some(x),
@@ -267,7 +251,7 @@ macro_rules! kept {
     };
 }
 
-kept!(
+variants!(
     ToneResult => Tone,
     PowerResult => Power,
     ResponseResult => Response,
