@@ -153,22 +153,3 @@ impl fmt::Display for Warning {
         f.write_str(&self.message)
     }
 }
-
-/// A warning reads as its message (`w.contains("overload")`, `warnings.join("; ")`).
-impl std::ops::Deref for Warning {
-    type Target = str;
-    fn deref(&self) -> &str {
-        &self.message
-    }
-}
-
-impl std::borrow::Borrow<str> for Warning {
-    fn borrow(&self) -> &str {
-        &self.message
-    }
-}
-
-/// Messages of `list`, for places that print them one per line.
-pub fn messages(list: &[Warning]) -> impl Iterator<Item = &str> {
-    list.iter().map(|w| w.message.as_str())
-}

@@ -113,7 +113,13 @@ impl AnalyzeReport {
                         .unwrap_or_default(),
                 );
             }
-            row.push(csv_quote(&c.warnings.join("; ")));
+            row.push(csv_quote(
+                &c.warnings
+                    .iter()
+                    .map(|w| w.message.as_str())
+                    .collect::<Vec<_>>()
+                    .join("; "),
+            ));
             out += &(row.join(",") + "\n");
         }
         out

@@ -222,7 +222,7 @@ pub fn check_retry(s: Server) {
     assert!(
         notes
             .iter()
-            .any(|n| n.contains("had a gap and was measured again")),
+            .any(|n| n.message.contains("had a gap and was measured again")),
         "{notes:?}"
     );
     let partial: Vec<String> = std::fs::read_dir(captures_dir("gap"))

@@ -20,7 +20,7 @@ fn currents_and_dissipations_follow_ohms_law() {
     assert!(!rk.overstressed);
     // 2.025 W of 3 W is 67.5 % (shown as 68 %): over the half common practice allows, a warning.
     assert!(
-        r.warnings.iter().any(|w| w.contains("68 %")),
+        r.warnings.iter().any(|w| w.message.contains("68 %")),
         "{:?}",
         r.warnings
     );

@@ -96,7 +96,10 @@ fn blocks_combine_to_the_closed_form_and_the_one_transform_figures() {
         combined.noise_dbfs
     );
     assert!(
-        !combined.warnings.iter().any(|w| w.contains("move over")),
+        !combined
+            .warnings
+            .iter()
+            .any(|w| w.message.contains("move over")),
         "{:?}",
         combined.warnings
     );
@@ -152,7 +155,7 @@ fn a_wandering_level_is_averaged_and_named() {
     assert!(
         r.warnings
             .iter()
-            .any(|w| w.contains("move over the capture")),
+            .any(|w| w.message.contains("move over the capture")),
         "{:?}",
         r.warnings
     );

@@ -216,7 +216,7 @@ fn dropouts_and_level_jumps_are_said_and_left_out() {
     let r = analyze(&x, FS);
     // The envelope's 1 ms hops place it within a few ms.
     let said = r.warnings.iter().find_map(|w| {
-        let rest = w.strip_prefix("dropout at ")?;
+        let rest = w.message.strip_prefix("dropout at ")?;
         rest.split(' ').next()?.parse::<f64>().ok()
     });
     assert!(
@@ -243,7 +243,7 @@ fn dropouts_and_level_jumps_are_said_and_left_out() {
     );
     let r = analyze(&j, FS);
     assert!(
-        r.warnings.iter().any(|w| w.contains("level jump")),
+        r.warnings.iter().any(|w| w.message.contains("level jump")),
         "{:?}",
         r.warnings
     );
@@ -271,7 +271,8 @@ fn thd_past_the_band_is_not_a_number_it_is_absent() {
         assert!(
             r.warnings
                 .iter()
-                .any(|w| w.contains("THD not measurable") && w.contains("Hz or more")),
+                .any(|w| w.message.contains("THD not measurable")
+                    && w.message.contains("Hz or more")),
             "{f0} Hz: {:?}",
             r.warnings
         );
@@ -290,7 +291,7 @@ fn thd_past_the_band_is_not_a_number_it_is_absent() {
         r.thd_percent
     );
     assert!(
-        r.warnings.iter().any(|w| w.contains("H2 only")),
+        r.warnings.iter().any(|w| w.message.contains("H2 only")),
         "{:?}",
         r.warnings
     );
@@ -441,7 +442,7 @@ fn clock_offset_is_timed_from_the_harmonics_not_the_amplifier() {
     };
     let one = run("capture-one-clock.wav");
     assert!(
-        one.warnings.iter().all(|w| !w.contains("clocks")),
+        one.warnings.iter().all(|w| !w.message.contains("clocks")),
         "one clock, yet: {:?}",
         one.warnings
     );
@@ -454,7 +455,9 @@ fn clock_offset_is_timed_from_the_harmonics_not_the_amplifier() {
     let d = fast.clock_drift_ppm.expect("the offset is estimated");
     assert!((d - 20.0).abs() < 2.0, "20 ppm read as {d:.2} ppm");
     assert!(
-        fast.warnings.iter().any(|w| w.contains("clocks differ")),
+        fast.warnings
+            .iter()
+            .any(|w| w.message.contains("clocks differ")),
         "{:?}",
         fast.warnings
     );

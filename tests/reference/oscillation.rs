@@ -51,7 +51,7 @@ fn an_ultrasonic_line_is_found_on_and_off_the_harmonic_grid() {
         assert_eq!(o.len(), 1, "{f0} Hz: {:?}", r.oscillations);
         assert!((o[0].frequency_hz - 85_000.0).abs() < 850.0, "{:?}", o[0]);
         assert!((o[0].level_dbc.unwrap() + 40.0).abs() < 0.1, "{:?}", o[0]);
-        assert!(r.warnings.iter().any(|w| w.contains("oscillating")));
+        assert!(r.warnings.iter().any(|w| w.message.contains("oscillating")));
         assert_eq!(
             r.oscillation_search.ultrasonic_to_hz.map(|f| f > 90_000.0),
             Some(true)
@@ -81,9 +81,15 @@ fn a_pumping_level_is_named_motorboating() {
     assert!((o.modulation_percent.unwrap() - 3.0).abs() < 0.05, "{o:?}");
     // Each sideband: m/2 = 1.5 % = -36.48 dBc.
     assert!((o.level_dbc.unwrap() - 20.0 * 0.015f64.log10()).abs() < 0.1);
-    assert!(r.warnings.iter().any(|w| w.contains("motorboating")));
+    assert!(r
+        .warnings
+        .iter()
+        .any(|w| w.message.contains("motorboating")));
     // Its sidebands are not also reported as an unexplained line.
-    assert!(!r.warnings.iter().any(|w| w.contains("neither a harmonic")));
+    assert!(!r
+        .warnings
+        .iter()
+        .any(|w| w.message.contains("neither a harmonic")));
 }
 
 #[test]
@@ -243,7 +249,7 @@ fn a_staircase_names_the_drives_where_an_oscillation_starts() {
     let w = r
         .warnings
         .iter()
-        .find(|w| w.contains("ultrasonic"))
+        .find(|w| w.message.contains("ultrasonic"))
         .unwrap_or_else(|| panic!("{:?}", r.warnings));
-    assert!(w.contains("-12.0, -9.0, -6.0"), "{w}");
+    assert!(w.message.contains("-12.0, -9.0, -6.0"), "{w}");
 }

@@ -290,7 +290,7 @@ fn steps_that_overload_the_interface_are_left_out() {
         "excluded {excluded:?}"
     );
     assert!(
-        r.warnings.iter().any(|w| w.contains("overloaded")),
+        r.warnings.iter().any(|w| w.message.contains("overloaded")),
         "{:?}",
         r.warnings
     );

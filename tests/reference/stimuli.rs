@@ -409,7 +409,9 @@ fn clock_drift_is_reported() {
     let ppm = r.clock_drift_ppm.expect("drift estimated");
     assert!((ppm.abs() - 100.0).abs() < 20.0, "drift {ppm} ppm");
     assert!(
-        r.warnings.iter().any(|w| w.contains("clocks differ")),
+        r.warnings
+            .iter()
+            .any(|w| w.message.contains("clocks differ")),
         "{:?}",
         r.warnings
     );

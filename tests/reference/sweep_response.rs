@@ -171,7 +171,7 @@ fn sox_riaa_within_0_1_db_of_iec_60098_table() {
         );
     }
     assert!(
-        r.warnings.iter().all(|w| !w.contains("clocks")),
+        r.warnings.iter().all(|w| !w.message.contains("clocks")),
         "{:?}",
         r.warnings
     );

@@ -59,7 +59,7 @@ fn noise_refuses_a_tone_and_names_a_weaker_line() {
     let quiet = plus(&floor(n, 1), &sines(FS, n, &hum));
     let r = a.analyze(&input(&quiet), band, Mains::Auto, &cal).unwrap();
     assert!(
-        r.warnings.iter().all(|w| !w.contains("stands")),
+        r.warnings.iter().all(|w| !w.message.contains("stands")),
         "{:?}",
         r.warnings
     );
@@ -82,7 +82,7 @@ fn noise_refuses_a_tone_and_names_a_weaker_line() {
     );
     let r = a.analyze(&input(&weak), band, Mains::Auto, &cal).unwrap();
     assert!(
-        r.warnings.iter().any(|w| w.contains("3300.0 Hz")),
+        r.warnings.iter().any(|w| w.message.contains("3300.0 Hz")),
         "{:?}",
         r.warnings
     );
