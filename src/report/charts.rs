@@ -612,7 +612,6 @@ pub(crate) fn build(
     out: &Path,
 ) -> Result<Vec<(&'static str, &'static str, String)>> {
     let labels = labels(runs);
-    let runs = runs.to_vec();
     let deviation: Vec<Curve> = deviation
         .iter()
         .map(|d| Curve {
@@ -627,20 +626,20 @@ pub(crate) fn build(
             points: d.points.iter().map(|p| (p[0], p[1])).collect(),
         })
         .collect();
-    let power = curves_for(&runs, |p: &PowerResult| {
+    let power = curves_for(runs, |p: &PowerResult| {
         p.steps
             .iter()
             .filter(|s| !s.excluded)
             .filter_map(|s| Some((s.output_w?, s.thd_percent?)))
             .collect()
     });
-    let response = curves_for(&runs, |r: &ResponseResult| {
+    let response = curves_for(runs, |r: &ResponseResult| {
         swept(r, r.points.iter().map(|p| (p.frequency_hz, p.magnitude_db)))
     });
-    let phase = curves_for(&runs, |r: &ResponseResult| {
+    let phase = curves_for(runs, |r: &ResponseResult| {
         swept(r, r.points.iter().map(|p| (p.frequency_hz, p.phase_deg)))
     });
-    let h2 = curves_for(&runs, |r: &ResponseResult| {
+    let h2 = curves_for(runs, |r: &ResponseResult| {
         r.harmonics
             .iter()
             .find(|h| h.order == 2)
@@ -648,11 +647,11 @@ pub(crate) fn build(
                 harmonic_curve(r, 2, h.points.iter().map(|p| (p.frequency_hz, p.level_dbc)))
             })
     });
-    let thd_f = curves_for(&runs, |r: &ResponseResult| {
+    let thd_f = curves_for(runs, |r: &ResponseResult| {
         harmonic_curve(r, 2, r.thd.iter().map(|p| (p.frequency_hz, p.level_dbc)))
     });
     let trend = |f: fn(&crate::analysis::blocks::TrendPoint) -> Option<f64>| {
-        curves_for(&runs, move |t: &TrendResult| {
+        curves_for(runs, move |t: &TrendResult| {
             t.points
                 .iter()
                 .filter_map(|p| Some((p.at_s, f(p)?)))
@@ -661,7 +660,7 @@ pub(crate) fn build(
     };
     let trend_level = trend(|p| p.level_dbfs);
     // Separation: the first undriven channel of each run.
-    let separation = curves_for(&runs, |s: &SeparationResult| {
+    let separation = curves_for(runs, |s: &SeparationResult| {
         s.channels.first().map_or(Vec::new(), |c| {
             c.points
                 .iter()
@@ -862,7 +861,7 @@ pub(crate) fn build(
         (
             "harmonic-profile",
             "Harmonic profile",
-            profile_chart(&runs, Some(&png("harmonic-profile")))?,
+            profile_chart(runs, Some(&png("harmonic-profile")))?,
         ),
         (
             "response-change",

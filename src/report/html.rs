@@ -217,12 +217,12 @@ fn page(m: &ReportModel, charts: &[(&str, &str, String)]) -> Markup {
 
 /// Write the report of `nb` into `out`.
 pub fn write_report(nb: &Notebook, out: &Path) -> Result<ReportFiles> {
-    let model = ReportModel::build(nb)?;
+    let runs = nb.runs()?;
+    let model = ReportModel::build(nb, &runs);
     std::fs::create_dir_all(out.join("charts")).map_err(|source| crate::error::Error::Write {
         path: out.to_path_buf(),
         source,
     })?;
-    let runs = nb.runs()?;
     let deviation = model
         .comparison
         .as_ref()

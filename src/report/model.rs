@@ -177,7 +177,7 @@ pub fn labels(runs: &[Run]) -> Vec<String> {
     out
 }
 
-fn bench(label: &str, runs: &[&Run]) -> Bench {
+fn bench(label: &str, runs: &[Run]) -> Bench {
     use super::number::{show, Unit};
     let mut settings: Vec<(String, String)> = Vec::new();
     let mut calibration: Vec<String> = Vec::new();
@@ -229,25 +229,29 @@ fn bench(label: &str, runs: &[&Run]) -> Bench {
 }
 
 impl ReportModel {
-    /// The report of `nb`: its runs, the first two labels compared, each label's channels matched.
-    pub fn build(nb: &Notebook) -> crate::error::Result<ReportModel> {
-        let runs = nb.runs()?;
-        let labels = labels(&runs);
-        let of = |label: &str| -> Vec<Run> {
-            runs.iter()
-                .filter(|r| r.meta.label == label)
-                .cloned()
-                .collect()
-        };
+    /// The report of `nb` and its `runs` (read once by the caller): the first two labels compared,
+    /// each label's channels matched.
+    pub fn build(nb: &Notebook, runs: &[Run]) -> ReportModel {
+        let labels = labels(runs);
+        // Each label's runs, gathered once (compare and match take them as slices).
+        let by_label: Vec<Vec<Run>> = labels
+            .iter()
+            .map(|l| {
+                runs.iter()
+                    .filter(|r| &r.meta.label == l)
+                    .cloned()
+                    .collect()
+            })
+            .collect();
         let comparison = (labels.len() >= 2)
-            .then(|| compare(&labels[0], &of(&labels[0]), &labels[1], &of(&labels[1])));
+            .then(|| compare(&labels[0], &by_label[0], &labels[1], &by_label[1]));
         let mut matches = Vec::new();
         if nb.info.channels >= 2 {
-            for label in &labels {
+            for (label, mine) in labels.iter().zip(&by_label) {
                 let side = |ch: usize| -> Vec<Run> {
-                    of(label)
-                        .into_iter()
+                    mine.iter()
                         .filter(|r| r.meta.channel == ch)
+                        .cloned()
                         .collect()
                 };
                 let (l, r) = (side(1), side(2));
@@ -265,10 +269,8 @@ impl ReportModel {
         }
         let benches = labels
             .iter()
-            .map(|l| {
-                let mine: Vec<&Run> = runs.iter().filter(|r| &r.meta.label == l).collect();
-                bench(l, &mine)
-            })
+            .zip(&by_label)
+            .map(|(l, mine)| bench(l, mine))
             .collect();
         let lines = runs
             .iter()
@@ -282,7 +284,7 @@ impl ReportModel {
                 warnings: r.result.warnings().to_vec(),
             })
             .collect();
-        Ok(ReportModel {
+        ReportModel {
             amplifier: printable(&nb.info.amplifier),
             notebook: nb.dir.display().to_string(),
             written: crate::notebook::now_utc(),
@@ -294,7 +296,7 @@ impl ReportModel {
             matches,
             benches,
             runs: lines,
-        })
+        }
     }
 
     /// How many warnings the runs carry.
