@@ -66,12 +66,5 @@ pub fn run(args: &AnalyzeArgs) -> Result<ExitCode, Failure> {
         channels,
         channel_errors,
     };
-    super::print_then_keep(
-        super::Format {
-            json: args.json,
-            csv: args.csv.as_deref(),
-        },
-        &report,
-        keeper,
-    )
+    super::print_then_keep(super::Format::of(args.json, &args.csv), &report, keeper)
 }

@@ -173,6 +173,16 @@ pub struct Format<'a> {
     pub csv: Option<&'a Path>,
 }
 
+impl<'a> Format<'a> {
+    /// From a command's `--json` and `--csv [FILE]`.
+    pub fn of(json: bool, csv: &'a Option<std::path::PathBuf>) -> Format<'a> {
+        Format {
+            json,
+            csv: csv.as_deref(),
+        }
+    }
+}
+
 /// Print the report in the chosen format: JSON or the table to stdout, CSV to stdout (`-`) or
 /// written whole to its file.
 pub fn emit(

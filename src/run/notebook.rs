@@ -103,7 +103,7 @@ pub fn notebook(action: &NotebookAction) -> Result<ExitCode, Failure> {
                 fn row(r: &Run) -> LogRun<'_> {
                     LogRun {
                         meta: &r.meta,
-                        headline: headline(r),
+                        headline: r.result.headline(),
                     }
                 }
                 let log = Log {
@@ -136,7 +136,7 @@ pub fn notebook(action: &NotebookAction) -> Result<ExitCode, Failure> {
                         p(&r.meta.label),
                         r.meta.channel,
                         r.meta.procedure,
-                        headline(r)
+                        r.result.headline()
                     )
                 };
                 for r in &scan.runs {
@@ -173,11 +173,6 @@ pub fn notebook(action: &NotebookAction) -> Result<ExitCode, Failure> {
             Ok(ExitCode::SUCCESS)
         }
     }
-}
-
-/// The run's one-line figure.
-fn headline(r: &Run) -> String {
-    r.result.headline()
 }
 
 /// Runs made on the spot from a capture file (every channel, analysed as its stimulus says).

@@ -151,12 +151,5 @@ pub fn run(args: &PowerArgs) -> Result<ExitCode, Failure> {
         results,
         channel_errors,
     };
-    super::print_then_keep(
-        super::Format {
-            json: args.json,
-            csv: args.csv.as_deref(),
-        },
-        &report,
-        keeper,
-    )
+    super::print_then_keep(super::Format::of(args.json, &args.csv), &report, keeper)
 }

@@ -60,12 +60,5 @@ pub fn run(args: &TrendArgs) -> Result<ExitCode, Failure> {
         channels,
         channel_errors,
     };
-    super::print_then_keep(
-        super::Format {
-            json: a.json,
-            csv: a.csv.as_deref(),
-        },
-        &report,
-        keeper,
-    )
+    super::print_then_keep(super::Format::of(a.json, &a.csv), &report, keeper)
 }

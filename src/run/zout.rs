@@ -276,12 +276,5 @@ pub fn run(args: &ZoutArgs) -> Result<ExitCode, Failure> {
         first: results.first().cloned(),
         results,
     };
-    super::print_then_keep(
-        super::Format {
-            json: args.json,
-            csv: args.csv.as_deref(),
-        },
-        &report,
-        keeper,
-    )
+    super::print_then_keep(super::Format::of(args.json, &args.csv), &report, keeper)
 }
