@@ -83,7 +83,8 @@ impl Procedure {
 
 impl fmt::Display for Procedure {
     fn fmt(&self, f: &mut fmt::Formatter<'_>) -> fmt::Result {
-        f.write_str(self.name())
+        // `pad`, so a width (`{:<9}` in the log) lines the column up.
+        f.pad(self.name())
     }
 }
 
@@ -151,17 +152,22 @@ impl RunResult {
                 let thd = t.thd_percent.map_or("THD not measurable".to_string(), |v| {
                     format!("THD {}{v:.3} %", if t.thd_upper_bound { "< " } else { "" })
                 });
-                let at = t.output_w.map_or_else(
-                    || format!("{:.1} dBFS", t.fundamental_dbfs),
-                    |w| format!("{w:.2} W"),
-                );
+                let at = match (t.output_w, t.load_ohms) {
+                    (Some(w), Some(r)) => format!("{w:.2} W into {r} ohm"),
+                    _ => format!("{:.1} dBFS", t.fundamental_dbfs),
+                };
                 format!("{thd}, THD+N {:.3} % at {at}", t.thdn_percent)
             }
             RunResult::Power(p) => {
                 let at = p.power_at_thd.iter().find(|q| q.thd_percent == 1.0);
                 match at {
                     Some(q) => match q.output_w {
-                        Some(w) => format!("{w:.2} W at 1 % THD ({:.0} Hz)", p.frequency_hz),
+                        Some(w) => format!(
+                            "{w:.2} W{} at 1 % THD ({:.0} Hz)",
+                            p.load_ohms
+                                .map_or(String::new(), |r| format!(" into {r} ohm")),
+                            p.frequency_hz
+                        ),
                         None => format!(
                             "{:.1} dBFS at 1 % THD ({:.0} Hz)",
                             q.output_dbfs, p.frequency_hz
@@ -172,7 +178,9 @@ impl RunResult {
             }
             RunResult::Response(v) => {
                 let hz = |x: Option<f64>| {
-                    x.map_or("beyond the sweep".to_string(), |v| format!("{v:.1} Hz"))
+                    x.map_or("beyond the sweep".to_string(), |v| {
+                        crate::report::number::show(v, crate::report::number::Unit::Hz)
+                    })
                 };
                 format!("-3 dB at {} and {}", hz(v.low_3db_hz), hz(v.high_3db_hz))
             }

@@ -333,8 +333,8 @@ fn draw_lines<DB: DrawingBackend>(
 }
 
 /// The part of a sweep's curve that is the amplifier's: the sweep's first and last twentieth of
-/// an octave hold its fade-in and the anti-alias filter's edge, which are not the amplifier's
-/// response (left out, not drawn as data).
+/// an octave (our choice) hold its fade-in and the anti-alias filter's edge, which are not the
+/// amplifier's response (left out, not drawn as data).
 fn swept(r: &ResponseResult, points: impl Iterator<Item = (f64, f64)>) -> Points {
     let (Some(lo), Some(hi)) = (
         r.points.first().map(|p| p.frequency_hz),
@@ -351,7 +351,7 @@ fn swept(r: &ResponseResult, points: impl Iterator<Item = (f64, f64)>) -> Points
 /// A harmonic's curve against the excitation frequency f: only where order x f stays inside the
 /// sweep (short of its last twentieth of an octave: beyond, the harmonic left the sweep and its
 /// curve plunges), and without the points where order x f lands on a mains line of either family
-/// (50 or 60 Hz, orders 1 to 4, within 8 %: the hum spreads over a few points of the log-spaced
+/// (50 or 60 Hz, orders 1 to 4, within 8 %, our choice: the hum spreads over a few points of the log-spaced
 /// curve): there the hum, not the harmonic, is read.
 fn harmonic_curve(
     r: &ResponseResult,

@@ -65,7 +65,8 @@ pub fn better(figure: &str) -> Option<Better> {
 pub enum Verdict {
     Better,
     Worse,
-    /// Within what the measurement resolves (0.1 dB, or 2 % of a frequency or impedance).
+    /// Within what the measurement resolves (0.1 dB, or 2 % of a frequency or impedance; our
+    /// choice: about how well a bench reading repeats).
     Same,
     /// No delta (a bound, runs not like for like), or a figure with no better side.
     Unknown,

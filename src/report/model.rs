@@ -122,7 +122,9 @@ impl Headline {
     }
 }
 
-fn summary(c: &Comparison) -> Summary {
+/// The headline rows of `c`; a row in watts names the load (`load_ohms`, the first label's: compare
+/// warns when the two sides used different loads).
+fn summary(c: &Comparison, load_ohms: Option<f64>) -> Summary {
     let mut channels: Vec<usize> = c.lines.iter().map(|l| l.channel).collect();
     channels.sort();
     channels.dedup();
@@ -131,7 +133,15 @@ fn summary(c: &Comparison) -> Summary {
         .filter_map(|h| {
             let picked: Vec<Option<&CompareLine>> =
                 channels.iter().map(|&ch| h.pick(&c.lines, ch)).collect();
-            let figure = picked.iter().flatten().next()?.figure.clone();
+            let first = picked.iter().flatten().next()?;
+            let figure = match load_ohms {
+                Some(r) if first.unit == super::number::Unit::Watts => format!(
+                    "{} into {}",
+                    first.figure,
+                    super::number::show(r, super::number::Unit::Ohms)
+                ),
+                _ => first.figure.clone(),
+            };
             Some(SummaryRow {
                 figure,
                 cells: picked
@@ -291,7 +301,12 @@ impl ReportModel {
             version: env!("CARGO_PKG_VERSION"),
             channels: nb.info.channels,
             run_count: runs.len(),
-            summary: comparison.as_ref().map(summary),
+            summary: comparison.as_ref().map(|c| {
+                let load = by_label
+                    .first()
+                    .and_then(|runs| runs.iter().find_map(|r| r.meta.calibration.load_ohms));
+                summary(c, load)
+            }),
             comparison,
             matches,
             benches,
