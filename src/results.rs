@@ -44,19 +44,6 @@ pub enum Procedure {
 }
 
 impl Procedure {
-    /// Every procedure, in the order the log and the report list them.
-    pub const ALL: [Procedure; 9] = [
-        Procedure::Tone,
-        Procedure::Power,
-        Procedure::Response,
-        Procedure::Imd,
-        Procedure::Zout,
-        Procedure::Noise,
-        Procedure::Separation,
-        Procedure::Trend,
-        Procedure::Dc,
-    ];
-
     /// The name kept in `run.json` and shown in the log.
     pub fn name(self) -> &'static str {
         match self {
@@ -85,12 +72,6 @@ impl fmt::Display for Procedure {
     fn fmt(&self, f: &mut fmt::Formatter<'_>) -> fmt::Result {
         // `pad`, so a width (`{:<9}` in the log) lines the column up.
         f.pad(self.name())
-    }
-}
-
-impl PartialEq<&str> for Procedure {
-    fn eq(&self, other: &&str) -> bool {
-        self.name() == *other
     }
 }
 
