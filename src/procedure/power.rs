@@ -2,9 +2,10 @@
 //! tone, and the power where THD reaches 1 %, 3 % and 10 % (interpolated log-log between the two
 //! steps that bracket it).
 //!
-//! Two ways in: a capture of the `steps` stimulus made with any player and recorder
-//! ([`power_from_capture`]), or a rig that plays each step itself ([`run_staircase`]), which also
-//! refines the step size around each crossing and stops at a distortion or power limit.
+//! Two ways in: the whole `steps` stimulus played at once ([`staircase_from_recording`]: on the
+//! file rig, a recording made with any player and recorder), or a rig that plays each step itself
+//! ([`run_staircase`]), which also refines the step size around each crossing and stops at a
+//! distortion or power limit.
 
 use crate::analysis::tone::{ChannelInput, Mains, ToneAnalyzer, ToneConfig, ToneResult};
 use crate::calibration::Calibration;
@@ -342,9 +343,11 @@ pub fn power_from_capture(
         }
     }
     if steps.is_empty() {
-        return Err(Error::InvalidSetting(format!(
-            "channel {channel}: no step of the staircase was found in the capture; check that it is the recording of this stimulus and channel"
-        )));
+        return Err(Error::WrongKind {
+            channel,
+            found: "no step of the staircase was found in the capture".into(),
+            next: "Check that it is the recording of this stimulus and of this channel.".into(),
+        });
     }
     check_follows_drive(channel, &steps)?;
     let mut r = finish(channel, frequency_hz, sample_rate_hz, cal, steps, None);
@@ -359,6 +362,51 @@ pub fn power_from_capture(
         );
     }
     Ok(r)
+}
+
+/// Play a whole `generate steps` staircase (`stimulus`, with its step `table`) on `rig` (the
+/// file rig hands over its recording), find it in the capture by its level envelope and analyse
+/// every step.
+pub fn staircase_from_recording(
+    rig: &mut dyn Rig,
+    channel: usize,
+    (stimulus, sample_rate_hz): (&[f64], u32),
+    frequency_hz: f64,
+    table: &[Step],
+    cal: &Calibration,
+) -> Result<PowerResult> {
+    let capture = rig.play_and_record(channel, stimulus, sample_rate_hz)?;
+    let fs = sample_rate_hz as f64;
+    // Where the staircase starts in the capture: its level envelope (10 ms blocks) against the
+    // stimulus's, searched up to 2 s either way. Each step's window has its settle time to
+    // spare, so 10 ms is precise enough.
+    let block = (fs / 100.0) as usize;
+    let first = table.first().map_or(0, |s| s.start_sample);
+    let lag = crate::procedure::align::find_envelope_lag(
+        &capture,
+        stimulus,
+        block,
+        first,
+        (2.0 * fs) as usize,
+    );
+    let Some((latency, _)) = lag.filter(|&(_, r)| r > 0.5) else {
+        return Err(Error::WrongKind {
+            channel,
+            found: "the staircase's first step was not found in the capture".into(),
+            next: "Check that this is the recording of the staircase stimulus, and of the right channel.".into(),
+        });
+    };
+    power_from_capture(
+        channel,
+        &capture,
+        fs,
+        rig.overload_threshold(),
+        rig.resolution_bits(),
+        frequency_hz,
+        table,
+        latency,
+        cal,
+    )
 }
 
 /// Below 1 % THD an amplifier is close to linear: its output moves with its drive to within a

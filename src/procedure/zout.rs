@@ -6,8 +6,12 @@
 //! amplifier's output transformer must not run unloaded (common practice). The voltages may be in
 //! any unit common to both (dBFS through the same interface and attenuator will do).
 
-use crate::analysis::tone::ToneResult;
+use crate::analysis::sweep::{ResponseAnalyzer, ResponseConfig, ResponseResult, SweepParams};
+use crate::analysis::tone::{ChannelInput, ToneAnalyzer, ToneConfig, ToneResult};
+use crate::calibration::Calibration;
 use crate::error::{Error, Result};
+use crate::procedure::drive;
+use crate::rig::Rig;
 use crate::warning::WarningCode as C;
 use serde::Serialize;
 
@@ -191,4 +195,153 @@ pub fn from_tones(
     let mut r = from_levels(channel, fa, va, load_a, vb, load_b)?;
     r.zout_sigma_ohms = Some(zout_sigma(va, load_a, vb, load_b, sigma));
     Ok(r)
+}
+
+/// What the two-load measurement plays into each load.
+#[derive(Debug, Clone, Copy)]
+pub enum ZoutDrive<'a> {
+    /// A steady tone; its frequency when known (the analysis looks there first).
+    Tone {
+        signal: &'a [f64],
+        hint_hz: Option<f64>,
+    },
+    /// A sweep: Z across the band from the two responses.
+    Sweep {
+        signal: &'a [f64],
+        params: SweepParams,
+    },
+}
+
+/// A two-load measurement, the same on every rig.
+#[derive(Debug, Clone, Copy)]
+pub struct ZoutPlan<'a> {
+    /// The rated load first, then about twice it.
+    pub loads: [f64; 2],
+    pub drive: ZoutDrive<'a>,
+    pub sample_rate_hz: u32,
+    /// A tone only: rescale it per channel to give this power (W) into the first load; the
+    /// second field is the level (dBFS) the signal was made at.
+    pub watts: Option<(f64, f64)>,
+}
+
+/// Play the plan into both loads on `rig` and work out the output impedance of `channel`. The
+/// rig is left on the first (rated) load.
+pub fn measure(rig: &mut dyn Rig, channel: usize, plan: &ZoutPlan) -> Result<ZoutResult> {
+    let [ra, rb] = plan.loads;
+    check_loads(ra, rb)?;
+    let rate = plan.sample_rate_hz;
+    let scaled: Option<Vec<f64>> = match (plan.watts, plan.drive) {
+        (None, _) => None,
+        (Some(_), ZoutDrive::Sweep { .. }) => {
+            return Err(Error::InvalidSetting(
+                "--watts sets a tone's drive; drop it with --sweep (or use --level)".into(),
+            ))
+        }
+        (Some(_), ZoutDrive::Tone { hint_hz: None, .. }) => {
+            return Err(Error::InvalidSetting(
+                "--watts needs the tone's frequency (--freq)".into(),
+            ))
+        }
+        (
+            Some((w, made_at_dbfs)),
+            ZoutDrive::Tone {
+                signal,
+                hint_hz: Some(f),
+            },
+        ) => {
+            rig.set_load(ra)?;
+            let found = drive::drive_for_power(rig, channel, f, rate, w)?;
+            Some(drive::rescaled(signal, made_at_dbfs, found.drive_dbfs))
+        }
+    };
+    let played = match plan.drive {
+        ZoutDrive::Tone { signal, .. } | ZoutDrive::Sweep { signal, .. } => signal,
+    };
+    let played = scaled.as_deref().unwrap_or(played);
+    let mut caps = Vec::with_capacity(2);
+    for r in [ra, rb] {
+        rig.set_load(r)?;
+        caps.push(rig.play_and_record(channel, played, rate)?);
+    }
+    rig.set_load(ra)?;
+    if caps[0] == caps[1] {
+        return Err(Error::WrongKind {
+            channel,
+            found: "the two captures hold the same samples: one recording given twice".into(),
+            next: "Give the capture into the first load, then the one into the second.".into(),
+        });
+    }
+    let (fs, thr, bits) = (rate as f64, rig.overload_threshold(), rig.resolution_bits());
+    match plan.drive {
+        ZoutDrive::Sweep { signal, params } => {
+            let an = ResponseAnalyzer::new(ResponseConfig::default())?;
+            let a = an.analyze(channel, signal, params, &caps[0], fs, thr)?;
+            let b = an.analyze(channel, signal, params, &caps[1], fs, thr)?;
+            from_responses(channel, &a, ra, &b, rb)
+        }
+        ZoutDrive::Tone { hint_hz, .. } => {
+            let an = ToneAnalyzer::new(ToneConfig {
+                fundamental_hint_hz: hint_hz,
+                ..ToneConfig::default()
+            })?;
+            let level = |samples: &[f64]| {
+                an.analyze(
+                    &ChannelInput {
+                        channel,
+                        samples,
+                        sample_rate_hz: fs,
+                        overload_threshold: thr,
+                        resolution_bits: bits,
+                    },
+                    &Calibration::default(),
+                )
+            };
+            from_tones(channel, &level(&caps[0])?, ra, &level(&caps[1])?, rb)
+        }
+    }
+}
+
+/// Z across the band from two responses to the same sweep. The difference of the two curves
+/// must stand out of its own point-to-point scatter (a real output impedance changes smoothly
+/// with frequency; noise changes from one point to the next).
+pub fn from_responses(
+    channel: usize,
+    a: &ResponseResult,
+    ra: f64,
+    b: &ResponseResult,
+    rb: f64,
+) -> Result<ZoutResult> {
+    check_loads(ra, rb)?;
+    let lin = |r: &ResponseResult, db: f64| 10f64.powf((r.reference_gain_db + db) / 20.0);
+    let diff: Vec<f64> = a
+        .points
+        .iter()
+        .zip(&b.points)
+        .map(|(pa, pb)| {
+            (b.reference_gain_db + pb.magnitude_db) - (a.reference_gain_db + pa.magnitude_db)
+        })
+        .collect();
+    // Robust scatter of one difference: the median absolute step between neighbours, scaled to
+    // a standard deviation (1.4826 for normal data) and divided by sqrt 2 (a step holds two).
+    let mut steps: Vec<f64> = diff.windows(2).map(|w| (w[1] - w[0]).abs()).collect();
+    steps.sort_by(f64::total_cmp);
+    let sigma = steps.get(steps.len() / 2).copied().unwrap_or(0.0) * 1.4826 / 2f64.sqrt();
+    check_distinct(channel, a.reference_gain_db, b.reference_gain_db, sigma)?;
+    let mut res = from_levels(channel, a.reference_hz, lin(a, 0.0), ra, lin(b, 0.0), rb)?;
+    res.zout_sigma_ohms = Some(zout_sigma(lin(a, 0.0), ra, lin(b, 0.0), rb, sigma));
+    let nominal = res.nominal_load_ohms;
+    res.points = a
+        .points
+        .iter()
+        .zip(&b.points)
+        .filter_map(|(pa, pb)| {
+            let z = two_load(lin(a, pa.magnitude_db), ra, lin(b, pb.magnitude_db), rb).ok()?;
+            Some(ZoutPoint {
+                frequency_hz: pa.frequency_hz,
+                zout_ohms: z,
+                damping_factor: nominal / z,
+            })
+        })
+        .collect();
+    Ok(res)
 }

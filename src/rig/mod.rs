@@ -1,8 +1,11 @@
-//! Rigs turn a stimulus into a capture. `file` is the user's own player and recorder (the capture
-//! arrives as a WAV file); `sim` is the built-in simulated bench ([`sim::SimRig`]).
+//! Rigs turn a stimulus into a capture: [`file::FileRig`] is the user's own player and recorder
+//! (the capture arrives as a file), [`sim::SimRig`] the built-in simulated bench, and
+//! `card::CardRig` (feature `live`) the audio interface. A procedure written against [`Rig`]
+//! runs the same on all three.
 
 #[cfg(feature = "live")]
 pub mod card;
+pub mod file;
 pub mod framing;
 pub mod model;
 pub mod sim;
@@ -26,7 +29,8 @@ pub trait Rig {
     /// Switch the dummy load (the simulated bench does it itself; a real bench asks the user).
     fn set_load(&mut self, ohms: f64) -> Result<()>;
     /// Play `stimulus` (full scale 1.0) into amplifier channel `channel` (1-based) and return the
-    /// capture of that channel's output, same length and rate.
+    /// capture of that channel's output at that rate: the simulated and live rigs return it
+    /// aligned and of the same length, the file rig the recording as it is (see [`file`]).
     fn play_and_record(
         &mut self,
         channel: usize,

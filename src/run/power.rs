@@ -1,39 +1,43 @@
-//! `ampnote power`: a staircase from a capture, or run on a rig.
+//! `ampnote power`: a staircase recorded to a file (the file rig), or run step by step on a rig;
+//! the procedures are the library's [`ampnote::procedure::power`].
 
 use super::Failure;
 use crate::cli::PowerArgs;
-use ampnote::capture::{select_channels, Capture};
+use ampnote::capture::select_channels;
 use ampnote::error::Error;
-use ampnote::procedure::align::find_envelope_lag;
-use ampnote::procedure::power::{power_from_capture, run_staircase, StaircaseSettings};
+use ampnote::procedure::power::{run_staircase, staircase_from_recording, StaircaseSettings};
 use ampnote::report::power::PowerReport;
 use ampnote::report::tone::ChannelError;
 use ampnote::report::SCHEMA_VERSION;
-use ampnote::signal::stimulus::Kind;
+use ampnote::rig::{file::FileRig, Rig};
+use ampnote::signal::stimulus::{Kind, Step};
 use std::process::ExitCode;
 
-/// First sample of the staircase in the stimulus file (the lead silence's length).
-fn first_start(steps: &[ampnote::signal::stimulus::Step]) -> usize {
-    steps.first().map_or(0, |s| s.start_sample)
+/// What is played on each channel.
+enum Plan {
+    /// Step by step, one staircase per frequency, stopping at the limits.
+    Stepped(Vec<StaircaseSettings>),
+    /// A `generate steps` staircase played whole (on the file rig: its recording).
+    Whole {
+        signal: Vec<f64>,
+        rate: u32,
+        frequency_hz: f64,
+        table: Vec<Step>,
+    },
 }
 
 pub fn run(args: &PowerArgs) -> Result<ExitCode, Failure> {
     super::check_save(&args.save)?;
     let flags = args.calibration.resolve(&args.save)?;
-    let mut results = Vec::new();
-    let mut channel_errors = Vec::new();
-    let source;
-    // What the results were computed with: the rig's calibration on a rig run.
-    let mut used = flags;
-    match (&args.capture, &args.rig.rig) {
+    let (mut rig, plan): (Box<dyn Rig>, Plan) = match (&args.capture, &args.rig.rig) {
         (Some(_), Some(_)) => return Err("give a capture file or --rig, not both".into()),
         (None, None) => {
             return Err("give the capture of a `generate steps` stimulus (with --stimulus), or --rig sim to run on the simulated bench".into())
         }
         (None, Some(_)) => {
             // Every setting checked before the rig is opened or anything is played.
-            let freqs = &args.freq;
-            let plans: Vec<StaircaseSettings> = freqs
+            let plans = args
+                .freq
                 .iter()
                 .map(|&f| {
                     StaircaseSettings {
@@ -48,31 +52,12 @@ pub fn run(args: &PowerArgs) -> Result<ExitCode, Failure> {
                     }
                     .validated()
                 })
-                .collect::<Result<_, _>>()
-                ?;
+                .collect::<Result<_, _>>()?;
             let mut rig = args.rig.open(flags)?.expect("a rig was named");
             if let Some(l) = flags.load_ohms {
                 rig.set_load(l)?;
             }
-            source = rig.describe();
-            used = rig.calibration();
-            let chosen = select_channels(rig.channels(), args.channel.get())?;
-            let progress = ampnote::progress::Progress::new(0, "steps");
-            for settings in &plans {
-                for &ch in &chosen {
-                    match run_staircase(rig.as_mut(), ch, settings, &progress) {
-                        Ok(mut r) => {
-                            r.warnings.extend(rig.take_notes(ch));
-                            results.push(r)
-                        }
-                        Err(err @ Error::InvalidSetting(_)) => return Err(err.into()),
-                        Err(err) => channel_errors.push(ChannelError {
-                            channel: ch,
-                            error: err.to_string(),
-                        }),
-                    }
-                }
-            }
+            (rig, Plan::Stepped(plans))
         }
         (Some(path), None) => {
             let stim_path = args
@@ -88,51 +73,66 @@ pub fn run(args: &PowerArgs) -> Result<ExitCode, Failure> {
             else {
                 unreachable!("read_stimulus checked the kind");
             };
-            let info = Capture::probe(path)?;
-            if info.sample_rate_hz != desc.sample_rate_hz {
+            let files = FileRig::new(path, flags, args.accept_truncated)?;
+            if files.sample_rate_hz() != desc.sample_rate_hz {
                 return Err(Error::SampleRateMismatch {
                     stimulus_hz: desc.sample_rate_hz,
-                    capture_hz: info.sample_rate_hz,
-                }.into());
-            }
-            source = path.display().to_string();
-            let x = stim.channel(desc.signal_channels[0]).ok_or("the stimulus's signal channel is missing from it")?;
-            let chosen = select_channels(info.channel_count, args.channel.get())?;
-            for &ch in &chosen {
-                let cap = Capture::read_channels(path, args.accept_truncated, Some(&[ch]))?;
-                let fs = cap.sample_rate_hz as f64;
-                // Where the staircase starts in the capture: its level envelope (10 ms blocks)
-                // against the stimulus's, searched up to 2 s either way. Each step's window has
-                // its settle time to spare, so 10 ms is precise enough.
-                let block = (fs / 100.0) as usize;
-                let latency = find_envelope_lag(&cap.channels[0], x, block, first_start(steps), (2.0 * fs) as usize);
-                let lat = match latency {
-                    Some((lag, r)) if r > 0.5 => lag,
-                    _ => {
-                        channel_errors.push(ChannelError {
-                            channel: ch,
-                            error: format!("channel {ch}: the staircase's first step was not found in the capture; check that this is the recording of {} and of the right channel", stim_path.display()),
-                        });
-                        continue;
-                    }
-                };
-                match power_from_capture(
-                    ch,
-                    &cap.channels[0],
-                    fs,
-                    cap.encoding.overload_threshold(),
-                    cap.encoding.resolution_bits(),
-                    frequency_hz,
-                    steps,
-                    lat,
-                    &flags,
-                ) {
-                    Ok(r) => results.push(r),
-                    Err(err) => channel_errors.push(ChannelError {
-                        channel: ch,
-                        error: err.to_string(),
-                    }),
+                    capture_hz: files.sample_rate_hz(),
                 }
+                .into());
+            }
+            let signal = stim
+                .channel(desc.signal_channels[0])
+                .ok_or("the stimulus's signal channel is missing from it")?
+                .to_vec();
+            let plan = Plan::Whole {
+                signal,
+                rate: desc.sample_rate_hz,
+                frequency_hz,
+                table: steps.clone(),
+            };
+            (Box::new(files), plan)
+        }
+    };
+    let source = rig.describe();
+    // What the results were computed with: the rig's calibration on a rig run.
+    let used = rig.calibration();
+    let chosen = select_channels(rig.channels(), args.channel.get())?;
+    let progress = ampnote::progress::Progress::new(0, "steps");
+    let mut results = Vec::new();
+    let mut channel_errors = Vec::new();
+    let staircases = match &plan {
+        Plan::Stepped(each) => each.len(),
+        Plan::Whole { .. } => 1,
+    };
+    for k in 0..staircases {
+        for &ch in &chosen {
+            let outcome = match &plan {
+                Plan::Stepped(each) => run_staircase(rig.as_mut(), ch, &each[k], &progress),
+                Plan::Whole {
+                    signal,
+                    rate,
+                    frequency_hz,
+                    table,
+                } => staircase_from_recording(
+                    rig.as_mut(),
+                    ch,
+                    (signal, *rate),
+                    *frequency_hz,
+                    table,
+                    &used,
+                ),
+            };
+            match outcome {
+                Ok(mut r) => {
+                    r.warnings.extend(rig.take_notes(ch));
+                    results.push(r)
+                }
+                Err(err @ Error::InvalidSetting(_)) => return Err(err.into()),
+                Err(err) => channel_errors.push(ChannelError {
+                    channel: ch,
+                    error: err.to_string(),
+                }),
             }
         }
     }

@@ -358,3 +358,105 @@ fn noise_and_hum_with_no_signal() {
     );
     assert!(r.warnings.is_empty(), "{:?}", r.warnings);
 }
+
+/// Two recordings of a source of EMF `e` behind `z` ohm, one into 8 ohm and one into 16
+/// (voltage divider: V = E R / (R + Z)), written as float WAVs: the file rig's two takes.
+fn divider_takes(tag: &str, x: &[f64], z: f64) -> (std::path::PathBuf, std::path::PathBuf) {
+    let dir = crate::common::tmpdir(tag);
+    let take = |r: f64, name: &str| {
+        let lead = vec![0.0; 2400]; // the recorder started 50 ms before the player
+        let y: Vec<f64> = lead
+            .iter()
+            .chain(x)
+            .map(|v| v * r / (r + z))
+            .chain(std::iter::repeat(0.0).take(4800))
+            .collect();
+        crate::common::write_float(&dir, name, y)
+    };
+    (take(8.0, "a.wav"), take(16.0, "b.wav"))
+}
+
+#[test]
+fn two_load_procedure_on_the_file_rig_matches_the_divider() {
+    // Closed form (voltage divider, REFERENCES.md Output impedance): a 2 ohm source read into
+    // 8 and 16 ohm gives Z = 2 ohm and a damping factor of 4 re 8 ohm, with a tone and, across
+    // the band, with a sweep. The recordings carry a latency the procedure must not mind.
+    use ampnote::analysis::sweep::SweepParams;
+    use ampnote::procedure::zout::{measure, ZoutDrive, ZoutPlan};
+    use ampnote::rig::{file::FileRig, Rig};
+    use ampnote::signal::stimulus::{sweep, tone};
+    let c = Common::mono(48_000, -12.0);
+    let t = tone(&c, 997.0, 1.5).unwrap();
+    let (a, b) = divider_takes("zout-file-tone", &t.signal, 2.0);
+    let mut rig =
+        FileRig::with_loads(&[(&a, 8.0), (&b, 16.0)], Calibration::default(), false).unwrap();
+    let plan = ZoutPlan {
+        loads: [8.0, 16.0],
+        drive: ZoutDrive::Tone {
+            signal: &[],
+            hint_hz: None,
+        },
+        sample_rate_hz: rig.sample_rate_hz(),
+        watts: None,
+    };
+    let r = measure(&mut rig, 1, &plan).unwrap();
+    assert!((r.zout_ohms - 2.0).abs() < 0.01, "tone: Z {}", r.zout_ohms);
+    assert!(
+        (r.damping_factor - 4.0).abs() < 0.02,
+        "DF {}",
+        r.damping_factor
+    );
+
+    let c = Common {
+        fade_s: 0.0,
+        ..Common::mono(48_000, -12.0)
+    };
+    let s = sweep(&c, 10.0, 21_000.0, 2.0).unwrap();
+    let (a, b) = divider_takes("zout-file-sweep", &s.signal, 2.0);
+    let mut rig =
+        FileRig::with_loads(&[(&a, 8.0), (&b, 16.0)], Calibration::default(), false).unwrap();
+    let plan = ZoutPlan {
+        drive: ZoutDrive::Sweep {
+            signal: &s.signal,
+            params: SweepParams::from_description(&s.description).unwrap(),
+        },
+        ..plan
+    };
+    let r = measure(&mut rig, 1, &plan).unwrap();
+    assert!((r.zout_ohms - 2.0).abs() < 0.01, "sweep: Z {}", r.zout_ohms);
+    let inband: Vec<_> = r
+        .points
+        .iter()
+        .filter(|p| (20.0..=20_000.0).contains(&p.frequency_hz))
+        .collect();
+    assert!(inband.len() > 20, "{} points in band", inband.len());
+    for p in inband {
+        assert!(
+            (p.zout_ohms - 2.0).abs() < 0.02,
+            "{} Hz: Z {}",
+            p.frequency_hz,
+            p.zout_ohms
+        );
+    }
+
+    // A load with no recording, and recordings that do not go together, are refused by name.
+    let err = rig.set_load(4.0).unwrap_err().to_string();
+    assert!(
+        err.contains("no recording") && err.contains("4 ohm"),
+        "{err}"
+    );
+    let dir = crate::common::tmpdir("zout-file-mixed");
+    let stereo = dir.join("stereo.wav");
+    ampnote::signal::wav::write_wav(
+        &stereo,
+        48_000,
+        &[s.signal.clone(), s.signal.clone()],
+        ampnote::signal::wav::WavFormat::Float32,
+        1,
+    )
+    .unwrap();
+    let err = FileRig::with_loads(&[(&a, 8.0), (&stereo, 16.0)], Calibration::default(), false)
+        .unwrap_err()
+        .to_string();
+    assert!(err.contains("same channels"), "{err}");
+}
