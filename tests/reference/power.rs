@@ -369,7 +369,7 @@ fn divider_takes(tag: &str, x: &[f64], z: f64) -> (std::path::PathBuf, std::path
             .iter()
             .chain(x)
             .map(|v| v * r / (r + z))
-            .chain(std::iter::repeat(0.0).take(4800))
+            .chain(std::iter::repeat_n(0.0, 4800))
             .collect();
         crate::common::write_float(&dir, name, y)
     };
