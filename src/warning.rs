@@ -97,6 +97,17 @@ pub enum WarningCode {
     OverRating,
     /// A value that does not add up (a current with no resistor, a negative voltage...).
     DcPoint,
+    // --- comparisons and channel matches ---
+    /// The two sides were measured into different loads.
+    UnlikeLoads,
+    /// One side calibrated and the other not, or different calibrations.
+    UnlikeCalibration,
+    /// Tone runs at different levels: distortion is not compared like for like.
+    UnlikeLevels,
+    /// A figure only one side measured, or measured differently: left out.
+    NotCompared,
+    /// The two sides share no measurement.
+    NothingShared,
     /// A warning stored before codes existed.
     #[serde(other)]
     Unclassified,

@@ -139,7 +139,7 @@ fn page(m: &ReportModel, charts: &[(&str, &str, String)]) -> Markup {
                                 }
                             }
                         }
-                        @for w in &r.warnings { p.warn { (crate::notebook::printable(w)) } }
+                        @for w in &r.warnings { p.warn { (crate::notebook::printable(&w.message)) } }
                     }
                 }
                 @if !m.benches.is_empty() {
@@ -204,7 +204,7 @@ fn page(m: &ReportModel, charts: &[(&str, &str, String)]) -> Markup {
                             }
                         }
                     }
-                    @for w in &c.warnings { p.warn { (crate::notebook::printable(w)) } }
+                    @for w in &c.warnings { p.warn { (crate::notebook::printable(&w.message)) } }
                 }
                 p.note {
                     "Measurements of amplifiers involve lethal voltages inside tube equipment; \

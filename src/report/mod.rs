@@ -14,8 +14,8 @@ pub mod trend;
 use crate::warning::Warning;
 
 /// Version of the JSON layout; bumped when a field changes meaning or disappears. 4: warnings
-/// are `{"code", "message"}` objects (bare strings before).
-pub const SCHEMA_VERSION: u32 = 4;
+/// are `{"code", "message"}` objects (bare strings before); 5: so are compare's and match's.
+pub const SCHEMA_VERSION: u32 = 5;
 
 /// A CSV field for a figure that may be missing (empty when it is).
 pub fn csv_num(v: Option<f64>) -> String {
