@@ -55,12 +55,8 @@ pub struct PowerArgs {
     pub settle: f64,
     #[command(flatten)]
     pub calibration: CalibrationArgs,
-    /// Print JSON instead of the table.
-    #[arg(long)]
-    pub json: bool,
-    /// Print CSV instead (one row per channel; power: per step), to stdout or to FILE.
-    #[arg(long, value_name = "FILE", num_args = 0..=1, default_missing_value = "-", conflicts_with = "json")]
-    pub csv: Option<PathBuf>,
+    #[command(flatten)]
+    pub print: PrintArgs,
     /// Analyse what a truncated file holds instead of refusing it.
     #[arg(long)]
     pub accept_truncated: bool,
@@ -103,12 +99,8 @@ pub struct ZoutArgs {
     /// Channel to measure: a number from 1, or `all`.
     #[arg(long, default_value = "all", value_name = "N|all")]
     pub channel: ChannelChoice,
-    /// Print JSON instead of the table.
-    #[arg(long)]
-    pub json: bool,
-    /// Print CSV instead (one row per channel; power: per step), to stdout or to FILE.
-    #[arg(long, value_name = "FILE", num_args = 0..=1, default_missing_value = "-", conflicts_with = "json")]
-    pub csv: Option<PathBuf>,
+    #[command(flatten)]
+    pub print: PrintArgs,
 
     #[command(flatten)]
     pub save: SaveArgs,
@@ -230,12 +222,8 @@ pub struct SeparationArgs {
     pub driven: usize,
     #[command(flatten)]
     pub calibration: CalibrationArgs,
-    /// Print JSON instead of the table.
-    #[arg(long)]
-    pub json: bool,
-    /// Print CSV instead (one row per channel and frequency), to stdout or to FILE.
-    #[arg(long, value_name = "FILE", num_args = 0..=1, default_missing_value = "-", conflicts_with = "json")]
-    pub csv: Option<PathBuf>,
+    #[command(flatten)]
+    pub print: PrintArgs,
     /// Analyse what a truncated file holds instead of refusing it.
     #[arg(long)]
     pub accept_truncated: bool,
@@ -277,12 +265,8 @@ pub struct NoiseArgs {
     pub mains: MainsChoice,
     #[command(flatten)]
     pub calibration: CalibrationArgs,
-    /// Print JSON instead of the table.
-    #[arg(long)]
-    pub json: bool,
-    /// Print CSV instead (one row per channel; power: per step), to stdout or to FILE.
-    #[arg(long, value_name = "FILE", num_args = 0..=1, default_missing_value = "-", conflicts_with = "json")]
-    pub csv: Option<PathBuf>,
+    #[command(flatten)]
+    pub print: PrintArgs,
 
     #[command(flatten)]
     pub save: SaveArgs,
@@ -314,12 +298,8 @@ pub struct ImdArgs {
     /// Channel of the capture to analyse: a number from 1, or `all`.
     #[arg(long, default_value = "all", value_name = "N|all")]
     pub channel: ChannelChoice,
-    /// Print JSON instead of the table.
-    #[arg(long)]
-    pub json: bool,
-    /// Print CSV instead (one row per channel; power: per step), to stdout or to FILE.
-    #[arg(long, value_name = "FILE", num_args = 0..=1, default_missing_value = "-", conflicts_with = "json")]
-    pub csv: Option<PathBuf>,
+    #[command(flatten)]
+    pub print: PrintArgs,
     /// Analyse what a truncated file holds instead of refusing it.
     #[arg(long)]
     pub accept_truncated: bool,
@@ -380,13 +360,8 @@ pub struct AnalyzeArgs {
     #[command(flatten)]
     pub calibration: CalibrationArgs,
 
-    /// Print JSON instead of the table.
-    #[arg(long, conflicts_with = "csv")]
-    pub json: bool,
-
-    /// Print CSV (one row per channel), to stdout or to FILE.
-    #[arg(long, value_name = "FILE", num_args = 0..=1, default_missing_value = "-")]
-    pub csv: Option<PathBuf>,
+    #[command(flatten)]
+    pub print: PrintArgs,
 
     /// Analyse what a truncated file holds instead of refusing it.
     #[arg(long)]

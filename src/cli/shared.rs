@@ -169,3 +169,22 @@ impl CalibrationArgs {
 // --- flag values, parsed and checked by clap before a command runs ------------------------------
 // Every value below is parsed with its `FromStr` (clap's `value_parser!` picks it up), so a typo
 // in `--channel`, `--band` or `--freq` is a usage error before any file or rig is opened.
+
+/// How a measuring command prints its result (the same two flags on every one).
+#[derive(Debug, Args)]
+pub struct PrintArgs {
+    /// Print JSON instead of the table.
+    #[arg(long, conflicts_with = "csv")]
+    pub json: bool,
+    /// Print CSV instead of the table (a row per channel; per step for power, per frequency for
+    /// separation), to stdout or to FILE.
+    #[arg(long, value_name = "FILE", num_args = 0..=1, default_missing_value = "-")]
+    pub csv: Option<PathBuf>,
+}
+
+impl PrintArgs {
+    /// The output these flags ask for.
+    pub fn format(&self) -> crate::run::Format<'_> {
+        crate::run::Format::of(self.json, &self.csv)
+    }
+}

@@ -66,5 +66,5 @@ pub fn run(args: &AnalyzeArgs) -> Result<ExitCode, Failure> {
         channels,
         channel_errors,
     };
-    super::print_then_keep(super::Format::of(args.json, &args.csv), &report, keeper)
+    super::print_then_keep(args.print.format(), &report, keeper)
 }

@@ -187,7 +187,7 @@ pub fn run(args: &NoiseArgs) -> Result<ExitCode, Failure> {
     };
     // The figures are printed first, so a failed keep never hides what was measured.
     let code = super::finish(
-        super::Format::of(args.json, &args.csv),
+        args.print.format(),
         &report.channels,
         &report.channel_errors,
         || serde_json::to_string_pretty(&report).expect("serializes") + "\n",

@@ -151,5 +151,5 @@ pub fn run(args: &PowerArgs) -> Result<ExitCode, Failure> {
         results,
         channel_errors,
     };
-    super::print_then_keep(super::Format::of(args.json, &args.csv), &report, keeper)
+    super::print_then_keep(args.print.format(), &report, keeper)
 }

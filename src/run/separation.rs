@@ -201,7 +201,7 @@ pub fn run(args: &SeparationArgs) -> Result<ExitCode, Failure> {
         stimulus: args.stimulus.display().to_string(),
         result: &result,
     };
-    let format = super::Format::of(args.json, &args.csv);
+    let format = args.print.format();
     super::report_to_stderr(
         format.json || format.csv.is_some(),
         result.warnings.iter().map(|w| (args.driven, w)),

@@ -60,5 +60,5 @@ pub fn run(args: &TrendArgs) -> Result<ExitCode, Failure> {
         channels,
         channel_errors,
     };
-    super::print_then_keep(super::Format::of(a.json, &a.csv), &report, keeper)
+    super::print_then_keep(a.print.format(), &report, keeper)
 }

@@ -115,5 +115,5 @@ pub fn run(args: &ZoutArgs) -> Result<ExitCode, Failure> {
         first: results.first().cloned(),
         results,
     };
-    super::print_then_keep(super::Format::of(args.json, &args.csv), &report, keeper)
+    super::print_then_keep(args.print.format(), &report, keeper)
 }

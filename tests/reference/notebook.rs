@@ -520,7 +520,7 @@ fn warnings_carry_a_stable_code_in_json() {
     let (code, out, err) = run(&["analyze", &p.to_string_lossy(), "--json"]);
     assert_eq!(code, 0, "{err}");
     let raw: serde_json::Value = serde_json::from_str(&out).unwrap();
-    assert_eq!(raw["schema_version"], 4);
+    assert_eq!(raw["schema_version"], 5);
     assert!(
         out.contains("\"code\": \"input-overload\""),
         "the code is written in kebab-case beside the message"
