@@ -137,13 +137,11 @@ pub fn run(args: &PowerArgs) -> Result<ExitCode, Failure> {
         }
     }
     let mut keeper = super::Keeper::new(&args.save);
-    for r in &results {
-        let mut files = Vec::new();
-        if let (Some(c), Some(st)) = (&args.capture, &args.stimulus) {
-            files = vec![("stimulus.wav", st.as_path()), ("capture.wav", c.as_path())];
-        }
-        keeper.add(r.channel, used, None, files, r);
-    }
+    let files = match (&args.capture, &args.stimulus) {
+        (Some(c), Some(st)) => vec![("stimulus.wav", st.as_path()), ("capture.wav", c.as_path())],
+        _ => Vec::new(),
+    };
+    keeper.add_each(&results, used, None, files);
     let report = PowerReport {
         schema_version: SCHEMA_VERSION,
         source,

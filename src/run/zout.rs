@@ -99,16 +99,14 @@ pub fn run(args: &ZoutArgs) -> Result<ExitCode, Failure> {
         results.push(res);
     }
     let mut keeper = super::Keeper::new(&args.save);
-    for r in &results {
-        let files: Vec<(&str, &std::path::Path)> = match &args.captures[..] {
-            [a, b] => vec![
-                ("capture.wav", a.as_path()),
-                ("capture-load-b.wav", b.as_path()),
-            ],
-            _ => Vec::new(),
-        };
-        keeper.add(r.channel, cal, None, files, r);
-    }
+    let files = match &args.captures[..] {
+        [a, b] => vec![
+            ("capture.wav", a.as_path()),
+            ("capture-load-b.wav", b.as_path()),
+        ],
+        _ => Vec::new(),
+    };
+    keeper.add_each(&results, cal, None, files);
     let report = ZoutReport {
         schema_version: SCHEMA_VERSION,
         source,
