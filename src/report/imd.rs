@@ -20,10 +20,6 @@ pub struct ImdReport {
 }
 
 impl ImdReport {
-    pub fn to_json(&self) -> String {
-        serde_json::to_string_pretty(self).expect("report serializes") + "\n"
-    }
-
     /// One row per channel.
     pub fn to_csv(&self) -> String {
         let mut s = String::from("channel,method,pair_source,low_hz,high_hz,measured_ratio,dm2_percent,dm3_percent,imd_percent,dd2_percent,dd3_percent\n");

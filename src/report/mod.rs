@@ -74,6 +74,15 @@ channel_result!(
 
 /// A measuring command's report: its per-channel results and the channels that failed, and its
 /// three renderings (JSON, CSV, table).
+/// Every report prints as indented JSON ending in a newline.
+pub trait ToJson: serde::Serialize {
+    fn to_json(&self) -> String {
+        serde_json::to_string_pretty(self).expect("a report serializes") + "\n"
+    }
+}
+
+impl<T: serde::Serialize> ToJson for T {}
+
 pub trait Printed {
     type Channel: ChannelResult;
     fn results(&self) -> &[Self::Channel];

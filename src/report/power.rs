@@ -21,10 +21,6 @@ pub struct PowerReport {
 }
 
 impl PowerReport {
-    pub fn to_json(&self) -> String {
-        serde_json::to_string_pretty(self).expect("report serializes") + "\n"
-    }
-
     /// One row per step (channel and frequency in each row).
     pub fn to_csv(&self) -> String {
         use super::csv_num as n;
@@ -126,10 +122,6 @@ pub struct ZoutReport {
 }
 
 impl ZoutReport {
-    pub fn to_json(&self) -> String {
-        serde_json::to_string_pretty(self).expect("report serializes") + "\n"
-    }
-
     /// One row per channel.
     pub fn to_csv(&self) -> String {
         let mut s = String::from("channel,frequency_hz,zout_ohms,zout_sigma_ohms,damping_factor,nominal_load_ohms,load_a_ohms,load_b_ohms\n");

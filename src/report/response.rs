@@ -35,10 +35,6 @@ const THIRD_OCTAVES: [f64; 31] = [
 ];
 
 impl ResponseReport {
-    pub fn to_json(&self) -> String {
-        serde_json::to_string_pretty(self).expect("report serializes") + "\n"
-    }
-
     /// Every point of every channel: response, harmonics and THD at the same excitation frequency.
     pub fn to_csv(&self) -> String {
         let max_order = self

@@ -28,10 +28,6 @@ pub struct AnalyzeReport {
 }
 
 impl AnalyzeReport {
-    pub fn to_json(&self) -> String {
-        serde_json::to_string_pretty(self).expect("report serializes") + "\n"
-    }
-
     /// One row per channel; harmonics and hum lines as columns.
     pub fn to_csv(&self) -> String {
         let max_h = self

@@ -31,10 +31,6 @@ fn drift_line(out: &mut String, name: &str, d: &Option<Drift>, unit: &str) {
 }
 
 impl TrendReport {
-    pub fn to_json(&self) -> String {
-        serde_json::to_string_pretty(self).expect("a trend serializes") + "\n"
-    }
-
     /// The drift of each figure first, then one line per block (a long log is read top down).
     pub fn to_table(&self) -> String {
         let mut out = String::new();

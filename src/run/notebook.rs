@@ -5,6 +5,7 @@ use crate::cli::{CompareArgs, MatchArgs, NotebookAction};
 use ampnote::calibration::Profile;
 use ampnote::notebook::{Notebook, Run};
 use ampnote::report::compare::{compare as compare_runs, match_channels, MatchTolerances};
+use ampnote::report::ToJson as _;
 use ampnote::results::RunResult;
 use std::path::Path;
 use std::process::ExitCode;

@@ -216,10 +216,6 @@ pub fn match_channels(
 }
 
 impl MatchResult {
-    pub fn to_json(&self) -> String {
-        serde_json::to_string_pretty(self).expect("serializes") + "\n"
-    }
-
     pub fn to_table(&self) -> String {
         let mut s = format!(
             "{} against {}: {}\n\n",

@@ -413,10 +413,6 @@ pub fn compare(name_a: &str, a: &[Run], name_b: &str, b: &[Run]) -> Comparison {
 }
 
 impl Comparison {
-    pub fn to_json(&self) -> String {
-        serde_json::to_string_pretty(self).expect("serializes") + "\n"
-    }
-
     pub fn to_table(&self) -> String {
         let p = crate::notebook::printable;
         let mut s = format!("{} -> {}\n", p(&self.a), p(&self.b));
