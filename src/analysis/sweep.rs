@@ -108,6 +108,56 @@ pub struct HarmonicPoint {
     /// The excitation frequency f0 (the harmonic itself is at order * f0).
     pub frequency_hz: f64,
     pub level_dbc: f64,
+    /// The hum found in the capture's silence, run through the same deconvolution, reads within
+    /// [`HUM_MARGIN_DB`] of this point's level: the hum, not (only) the harmonic, may be what it
+    /// reads. Charts leave it out; the table marks it.
+    #[serde(default, skip_serializing_if = "std::ops::Not::not")]
+    pub hum_limited: bool,
+}
+
+/// Mains orders fitted in the silence: 1 to 4 of 50 and 60 Hz (our choice: the strong hum lines
+/// of a tube amplifier, the mains and its rectifier's ripple).
+const MAINS_ORDERS: usize = 4;
+
+/// A harmonic point is hum-limited when the hum alone would read less than 20 dB below it (our
+/// choice: a line 20 dB down moves the reading by up to 0.8 dB, 20 log10 1.1).
+pub const HUM_MARGIN_DB: f64 = 20.0;
+
+/// The least silence the hum is fitted in: 0.2 s, ten periods of 50 Hz (our choice: 50 and 60 Hz
+/// lines then stand two resolution widths apart).
+const MIN_SILENCE_S: f64 = 0.2;
+
+/// The mains hum in a stretch of the capture where the sweep is not (`from..to`), as a signal
+/// over the whole capture: the 50 and 60 Hz families (orders 1 to [`MAINS_ORDERS`]) fitted
+/// jointly by least squares (IEEE 1057, several known frequencies) and each line continued at
+/// its fitted amplitude and phase. Because the deconvolution is linear, this signal's own
+/// deconvolution is what the hum adds to the measured responses.
+fn hum_model(capture: &[f64], (from, to): (usize, usize), fs: f64) -> Option<Vec<f64>> {
+    let seg = capture.get(from..to)?;
+    if (seg.len() as f64) < MIN_SILENCE_S * fs {
+        return None;
+    }
+    let freqs: Vec<f64> = [50.0, 60.0]
+        .iter()
+        .flat_map(|m| (1..=MAINS_ORDERS).map(move |k| k as f64 * m / fs))
+        .collect();
+    let (lines, _dc) = super::fit::sine_fit_time_domain(seg, &freqs)?;
+    let w: Vec<f64> = freqs
+        .iter()
+        .map(|f| 2.0 * std::f64::consts::PI * f)
+        .collect();
+    Some(
+        (0..capture.len())
+            .map(|i| {
+                let t = i as f64 - from as f64;
+                lines
+                    .iter()
+                    .zip(&w)
+                    .map(|((a, b), w)| a * (w * t).cos() + b * (w * t).sin())
+                    .sum()
+            })
+            .collect(),
+    )
 }
 
 #[derive(Debug, Clone, Serialize, serde::Deserialize)]
@@ -254,7 +304,7 @@ impl ResponseAnalyzer {
                 .expect("sizes match the plan");
             out
         };
-        let (xs, mut h_spec) = std::thread::scope(|sc| {
+        let (xs, h_spec) = std::thread::scope(|sc| {
             let stim = sc.spawn(|| spectrum(stimulus));
             let cap = spectrum(capture);
             (stim.join().expect("transform thread"), cap)
@@ -269,25 +319,30 @@ impl ResponseAnalyzer {
         let lo_end = sweep.start_hz / 8.0;
         let lo_full = sweep.start_hz / 4.0;
         let hi_edge = (sweep.stop_hz * 2f64.powf(1.0 / 6.0)).min(fs / 2.0);
-        for (k, (h, x)) in h_spec.iter_mut().zip(&xs).enumerate() {
-            let f = k as f64 * bin_hz;
-            let taper = band_taper(f, lo_end, lo_full, sweep.stop_hz, hi_edge);
-            *h = if taper > 0.0 {
-                *h * x.conj() / (x.norm_sqr() + floor) * taper * guard.at(f)
-            } else {
-                Complex64::new(0.0, 0.0)
-            };
-        }
-        let mut ir = written_zeros(m, 0.0);
-        // realfft's inverse wants purely real DC and Nyquist bins.
-        h_spec[0].im = 0.0;
-        if let Some(last) = h_spec.last_mut() {
-            last.im = 0.0;
-        }
-        inv.process(&mut h_spec, &mut ir)
-            .expect("sizes match the plan");
-        let norm = 1.0 / m as f64;
-        ir.iter_mut().for_each(|v| *v *= norm);
+        // Capture spectrum over stimulus spectrum, band-limited, back to an impulse response.
+        let divide = |mut h_spec: Vec<Complex64>| -> Vec<f64> {
+            for (k, (h, x)) in h_spec.iter_mut().zip(&xs).enumerate() {
+                let f = k as f64 * bin_hz;
+                let taper = band_taper(f, lo_end, lo_full, sweep.stop_hz, hi_edge);
+                *h = if taper > 0.0 {
+                    *h * x.conj() / (x.norm_sqr() + floor) * taper * guard.at(f)
+                } else {
+                    Complex64::new(0.0, 0.0)
+                };
+            }
+            let mut ir = written_zeros(m, 0.0);
+            // realfft's inverse wants purely real DC and Nyquist bins.
+            h_spec[0].im = 0.0;
+            if let Some(last) = h_spec.last_mut() {
+                last.im = 0.0;
+            }
+            inv.process(&mut h_spec, &mut ir)
+                .expect("sizes match the plan");
+            let norm = 1.0 / m as f64;
+            ir.iter_mut().for_each(|v| *v *= norm);
+            ir
+        };
+        let ir = divide(h_spec);
 
         // --- the linear response's peak: latency and polarity --------------------------------
         // The linear response is the strongest peak among the latencies the capture allows
@@ -396,17 +451,18 @@ impl ResponseAnalyzer {
         };
 
         // --- windows and spectra of the responses ---------------------------------------------
-        let harmonic = |n: usize| {
+        let harmonic_in = |ir: &[f64], n: usize| {
             let centre = latency_samples - advance(n);
             windowed_spectrum(
                 &self.planner,
-                &ir,
+                ir,
                 centre.rem_euclid(m as f64),
                 0.5 * gap(n),
                 0.5 * gap(n - 1),
                 nf,
             )
         };
+        let harmonic = |n: usize| harmonic_in(&ir, n);
         // The higher harmonics on the second core, the linear response and H2 on this one.
         let (g1, gn) = std::thread::scope(|sc| {
             let upper = sc.spawn(|| (3..=max_order).map(harmonic).collect::<Vec<Shifted>>());
@@ -427,6 +483,28 @@ impl ResponseAnalyzer {
             let k = ((f / nf_bin).round() as usize).min(spec.spectrum.len() - 1);
             spec.bin(k) / guard.at(k as f64 * nf_bin)
         };
+
+        // --- hum: what the capture's mains lines add to the harmonic responses ----------------
+        // Fitted where the sweep is not: before it arrives, or after its response has died away
+        // (0.1 s on), whichever stretch is longer; deconvolved as the capture was.
+        let arrive = (sweep.start_sample as isize + lat - (0.01 * fs) as isize).max(0) as usize;
+        let gone = ((sweep.end_sample as isize + lat + (0.1 * fs) as isize).max(0) as usize)
+            .min(capture.len());
+        let silence = if arrive.min(capture.len()) >= capture.len() - gone {
+            (0, arrive.min(capture.len()))
+        } else {
+            (gone, capture.len())
+        };
+        let hum_gn: Option<Vec<Shifted>> = hum_model(capture, silence, fs).map(|hum| {
+            let ir_hum = divide(spectrum(&hum));
+            (2..=max_order).map(|n| harmonic_in(&ir_hum, n)).collect()
+        });
+        let hum_power = |n: usize, f: f64| {
+            hum_gn
+                .as_ref()
+                .map_or(0.0, |h| at(&h[n - 2], n as f64 * f).norm_sqr())
+        };
+        let margin = 10f64.powf(HUM_MARGIN_DB / 10.0);
 
         // --- reported points ------------------------------------------------------------------
         let f_lo = sweep.start_hz;
@@ -484,6 +562,8 @@ impl ResponseAnalyzer {
                             * (at(&gn[n - 2], n as f64 * f).norm() / at(&g1, f).norm())
                                 .max(1e-300)
                                 .log10(),
+                        hum_limited: hum_power(n, f) * margin
+                            > at(&gn[n - 2], n as f64 * f).norm_sqr(),
                     })
                     .collect(),
             })
@@ -499,6 +579,12 @@ impl ResponseAnalyzer {
                 HarmonicPoint {
                     frequency_hz: (f / nf_bin).round() * nf_bin,
                     level_dbc: 10.0 * (p / at(&g1, f).norm_sqr()).max(1e-300).log10(),
+                    hum_limited: (2..=max_order)
+                        .filter(|&n| valid(n, f))
+                        .map(|n| hum_power(n, f))
+                        .sum::<f64>()
+                        * margin
+                        > p,
                 }
             })
             .collect();

@@ -7,7 +7,7 @@
 
 use crate::analysis::blocks::TrendResult;
 use crate::analysis::separation::SeparationResult;
-use crate::analysis::sweep::ResponseResult;
+use crate::analysis::sweep::{HarmonicPoint, ResponseResult};
 use crate::analysis::tone::ToneResult;
 use crate::error::{Error, Result};
 use crate::notebook::Run;
@@ -348,26 +348,18 @@ fn swept(r: &ResponseResult, points: impl Iterator<Item = (f64, f64)>) -> Points
         .collect()
 }
 
-/// A harmonic's curve against the excitation frequency f: only where order x f stays inside the
-/// sweep (short of its last twentieth of an octave: beyond, the harmonic left the sweep and its
-/// curve plunges), and without the points where order x f lands on a mains line of either family
-/// (50 or 60 Hz, orders 1 to 4, within 8 %, our choice: the hum spreads over a few points of the log-spaced
-/// curve): there the hum, not the harmonic, is read.
-fn harmonic_curve(
-    r: &ResponseResult,
-    order: usize,
-    points: impl Iterator<Item = (f64, f64)>,
-) -> Points {
-    let top = r.points.last().map_or(0.0, |p| p.frequency_hz) / 2f64.powf(1.0 / 20.0);
-    let on_mains = |f: f64| {
-        [50.0, 60.0]
+/// A harmonic's (or THD's) curve against the excitation frequency, without the points the
+/// analysis marked as hum-limited (there the hum, not the harmonic, is read; see
+/// [`crate::analysis::sweep::HarmonicPoint::hum_limited`]). The analysis already stops each
+/// curve short of the sweep's top.
+fn harmonic_curve(r: &ResponseResult, points: &[HarmonicPoint]) -> Points {
+    swept(
+        r,
+        points
             .iter()
-            .any(|m| (1..=4).any(|k| ((order as f64 * f) / (k as f64 * m) - 1.0).abs() < 0.08))
-    };
-    swept(r, points)
-        .into_iter()
-        .filter(|(f, _)| order as f64 * f <= top && !on_mains(*f))
-        .collect()
+            .filter(|p| !p.hum_limited)
+            .map(|p| (p.frequency_hz, p.level_dbc)),
+    )
 }
 
 /// The reference line's colour (dark red: it must not read as grid).
@@ -643,13 +635,9 @@ pub(crate) fn build(
         r.harmonics
             .iter()
             .find(|h| h.order == 2)
-            .map_or(Vec::new(), |h| {
-                harmonic_curve(r, 2, h.points.iter().map(|p| (p.frequency_hz, p.level_dbc)))
-            })
+            .map_or(Vec::new(), |h| harmonic_curve(r, &h.points))
     });
-    let thd_f = curves_for(runs, |r: &ResponseResult| {
-        harmonic_curve(r, 2, r.thd.iter().map(|p| (p.frequency_hz, p.level_dbc)))
-    });
+    let thd_f = curves_for(runs, |r: &ResponseResult| harmonic_curve(r, &r.thd));
     let trend = |f: fn(&crate::analysis::blocks::TrendPoint) -> Option<f64>| {
         curves_for(runs, move |t: &TrendResult| {
             t.points

@@ -1,7 +1,7 @@
 //! The `response` report: one sweep capture against its stimulus, one result per channel.
 
 use super::tone::ChannelError;
-use crate::analysis::sweep::ResponseResult;
+use crate::analysis::sweep::{HarmonicPoint, ResponseResult};
 use serde::Serialize;
 use std::fmt::Write as _;
 
@@ -150,19 +150,19 @@ impl ResponseReport {
                         c.harmonics.iter().find(|h| h.order == *o).and_then(|h| {
                             h.points.iter().find(|q| q.frequency_hz == p.frequency_hz)
                         });
-                    let _ = write!(
-                        line,
-                        " {:>11}",
-                        h.map_or("-".into(), |q| format!("{:.1}", q.level_dbc))
-                    );
+                    let _ = write!(line, " {:>11}", h.map_or("- ".into(), dbc));
                 }
                 let t = c.thd.iter().find(|q| q.frequency_hz == p.frequency_hz);
-                let _ = write!(
-                    line,
-                    " {:>10}",
-                    t.map_or("-".into(), |q| format!("{:.1}", q.level_dbc))
-                );
+                let _ = write!(line, " {:>10}", t.map_or("- ".into(), dbc));
                 let _ = writeln!(s, "{line}");
+            }
+            let marked = |q: &[HarmonicPoint]| q.iter().any(|q| q.hum_limited);
+            if c.harmonics.iter().any(|h| marked(&h.points)) || marked(&c.thd) {
+                let _ = writeln!(
+                    s,
+                    "  * within {} dB of what the hum in the capture's silence reads there: the hum may be what it reads",
+                    crate::analysis::sweep::HUM_MARGIN_DB
+                );
             }
             for w in &c.warnings {
                 let _ = writeln!(s, "  warning: {w}");
@@ -170,6 +170,15 @@ impl ResponseReport {
         }
         s
     }
+}
+
+/// A harmonic's level for the table, `*` after it when hum may be what it reads.
+fn dbc(q: &HarmonicPoint) -> String {
+    format!(
+        "{:.1}{}",
+        q.level_dbc,
+        if q.hum_limited { "*" } else { " " }
+    )
 }
 
 /// The point closest to `f` (in log frequency) if one lies within 3 % of it.
