@@ -10,5 +10,6 @@ pub mod spectrum;
 pub mod steady;
 pub mod sweep;
 pub mod tone;
+pub mod views;
 pub mod weighting;
 pub mod window;

@@ -515,92 +515,13 @@ fn draw_profile<DB: DrawingBackend>(
     Ok(())
 }
 
-/// From a tone run's stored capture: its spectrum (dBFS per bin under the 7-term window, reduced
-/// to the peak of each of 600 log-spaced slices from 10 Hz to 20 kHz) and its distortion residual
-/// over one period (the capture minus its fitted fundamental, averaged cycle by cycle at each
-/// phase, in percent of the fundamental's peak).
-fn tone_views(run: &Run, tone: &ToneResult) -> Option<(Points, Points)> {
-    use crate::analysis::spectrum::{fast_length, SpectrumPlanner};
-    use crate::analysis::tone::TONE_WINDOW;
-    let info = crate::capture::Capture::probe(&run.dir.join("capture.wav")).ok()?;
-    let ch = if run.meta.channel <= info.channel_count {
-        run.meta.channel
-    } else {
-        1
-    };
-    let cap =
-        crate::capture::Capture::read_channels(&run.dir.join("capture.wav"), true, Some(&[ch]))
-            .ok()?;
-    let x = &cap.channels[0];
-    let fs = cap.sample_rate_hz as f64;
-    let seg = &x[x.len() / 4..x.len() * 3 / 4];
-    let n = fast_length(seg.len());
-    if n < 1024 {
-        return None;
-    }
-    let planner = SpectrumPlanner::new();
-    let plan = planner.plan(TONE_WINDOW, n);
-    let mut buf = plan.make_buffers();
-    let mean = seg[..n].iter().sum::<f64>() / n as f64;
-    plan.transform(seg, mean, &mut buf);
-    let scale = 2.0 / (n as f64 * TONE_WINDOW.coherent_gain());
-    let bin = fs / n as f64;
-    let slices = 600;
-    let (lo, hi) = (10f64, 20_000f64.min(fs / 2.0));
-    let mut spectrum = Vec::with_capacity(slices);
-    for i in 0..slices {
-        let f_a = lo * (hi / lo).powf(i as f64 / slices as f64);
-        let f_b = lo * (hi / lo).powf((i + 1) as f64 / slices as f64);
-        let (ka, kb) = (
-            (f_a / bin).ceil() as usize,
-            ((f_b / bin).floor() as usize).min(buf.output.len() - 1),
-        );
-        if kb < ka {
-            continue;
-        }
-        let peak = buf.output[ka..=kb]
-            .iter()
-            .map(|c| c.norm())
-            .fold(0.0, f64::max)
-            * scale;
-        spectrum.push(((f_a * f_b).sqrt(), 20.0 * peak.max(1e-9).log10()));
-    }
-    // Residual over one period.
-    let f0 = tone.fundamental_hz;
-    let (lines, dc) = crate::analysis::fit::sine_fit_time_domain(seg, &[f0 / fs])?;
-    let (a, b) = lines[0];
-    let peak = (a * a + b * b).sqrt();
-    let phi = a.atan2(b); // x = peak sin(w n + phi)
-    let bins = 180;
-    let mut acc = vec![(0.0, 0usize); bins];
-    for (i, &v) in seg.iter().enumerate() {
-        let wn = 2.0 * std::f64::consts::PI * f0 / fs * i as f64;
-        let r = v - dc - a * wn.cos() - b * wn.sin();
-        let theta = (wn + phi).rem_euclid(2.0 * std::f64::consts::PI);
-        let k = ((theta / (2.0 * std::f64::consts::PI)) * bins as f64) as usize % bins;
-        acc[k].0 += r;
-        acc[k].1 += 1;
-    }
-    let residual = acc
-        .iter()
-        .enumerate()
-        .filter(|(_, (_, c))| *c > 0)
-        .map(|(k, (sum, c))| {
-            (
-                (k as f64 + 0.5) * 360.0 / bins as f64,
-                100.0 * sum / *c as f64 / peak,
-            )
-        })
-        .collect();
-    Some((spectrum, residual))
-}
-
 /// Every chart of the report: (file stem, caption, SVG), an empty SVG where no run has data for
 /// it. Each is also written as PNG under `out/charts/`. `deviation` is B minus A of the first two
 /// labels' responses, per channel.
 pub(crate) fn build(
     runs: &[Run],
     deviation: &[crate::report::compare::DeviationCurve],
+    tones: &[crate::report::model::ToneChart],
     out: &Path,
 ) -> Result<Vec<(&'static str, &'static str, String)>> {
     let labels = labels(runs);
@@ -661,26 +582,19 @@ pub(crate) fn build(
     let mut spectra = Vec::new();
     let mut residuals = Vec::new();
     let mut notes = Vec::new();
-    for (li, label) in labels.iter().enumerate() {
-        let Some((run, tone)) = runs
-            .iter()
-            .rev()
-            .filter(|r| &r.meta.label == label && r.meta.channel == 1)
-            .find_map(|r| ToneResult::of(&r.result).map(|t| (r, t)))
-        else {
+    for tone in tones {
+        let Some(li) = labels.iter().position(|l| *l == tone.label) else {
             continue;
         };
-        let Some((spec, res)) = tone_views(run, tone) else {
-            continue;
-        };
+        let label = &tone.label;
         let color = PALETTE[li % PALETTE.len()];
         if li == 0 {
             let (f0, level) = (tone.fundamental_hz, tone.fundamental_dbfs);
-            for h in tone.harmonics.iter().take(4) {
+            for &(order, dbc) in tone.harmonics.iter().take(4) {
                 notes.push((
-                    h.order as f64 * f0 * 1.03,
-                    level + h.level_dbc + 4.0,
-                    format!("H{}", h.order),
+                    order as f64 * f0 * 1.03,
+                    level + dbc + 4.0,
+                    format!("H{order}"),
                 ));
             }
             notes.push((f0 * 1.03, level + 4.0, "fundamental".to_string()));
@@ -689,13 +603,13 @@ pub(crate) fn build(
             name: format!("{}, left", crate::notebook::printable(label)),
             color,
             dashed: false,
-            points: spec,
+            points: tone.views.spectrum.clone(),
         });
         residuals.push(Curve {
             name: format!("{}, left", crate::notebook::printable(label)),
             color,
             dashed: false,
-            points: res,
+            points: tone.views.residual.clone(),
         });
     }
     let png = |file: &str| out.join("charts").join(format!("{file}.png"));
@@ -772,7 +686,7 @@ pub(crate) fn build(
             chart(
                 "h2-vs-frequency",
                 spec(
-                    "Second harmonic against frequency (sweep; points on mains lines left out)",
+                    "Second harmonic against frequency (sweep; points the hum can move left out)",
                     "Frequency (Hz)",
                     "H2 (dBc)",
                     &h2,
@@ -788,7 +702,7 @@ pub(crate) fn build(
             chart(
                 "thd-vs-frequency",
                 spec(
-                    "THD against frequency (sweep, H2-H5)",
+                    "THD against frequency (sweep, H2-H5; points the hum can move left out)",
                     "Frequency (Hz)",
                     "THD (dBc)",
                     &thd_f,

@@ -230,7 +230,7 @@ pub fn write_report(nb: &Notebook, out: &Path) -> Result<ReportFiles> {
     let charts = if runs.is_empty() {
         Vec::new()
     } else {
-        super::charts::build(&runs, &deviation, out)?
+        super::charts::build(&runs, &deviation, &model.tones, out)?
     };
     let mut written = Vec::new();
     for (file, _, svg) in &charts {

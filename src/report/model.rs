@@ -9,7 +9,10 @@
 use super::compare::{
     compare, match_channels, CompareLine, Comparison, MatchResult, MatchTolerances, Verdict,
 };
+use crate::analysis::tone::ToneResult;
+use crate::analysis::views::{tone_views, ToneViews};
 use crate::notebook::{printable, Notebook, Run};
+use crate::results::Kept;
 use crate::warning::Warning;
 
 /// The report of one notebook.
@@ -28,6 +31,55 @@ pub struct ReportModel {
     pub matches: Vec<(String, MatchResult)>,
     pub benches: Vec<Bench>,
     pub runs: Vec<RunLine>,
+    /// Each label's latest left-channel tone run, as the spectrum and residual charts draw it.
+    pub tones: Vec<ToneChart>,
+}
+
+/// One label's tone run for the charts: its figures and its views.
+#[derive(Debug, Clone)]
+pub struct ToneChart {
+    pub label: String,
+    pub fundamental_hz: f64,
+    pub fundamental_dbfs: f64,
+    /// `(order, dBc)` of the first harmonics, for the spectrum's labels.
+    pub harmonics: Vec<(usize, f64)>,
+    pub views: ToneViews,
+}
+
+/// The views of a kept tone run, from the steady span its analysis used (the whole capture's
+/// middle half for runs kept before the span was recorded); `None` when its capture cannot be
+/// read (the report then leaves the chart out).
+fn tone_chart(run: &Run, tone: &ToneResult) -> Option<ToneChart> {
+    let path = run.dir.join("capture.wav");
+    let info = crate::capture::Capture::probe(&path).ok()?;
+    let ch = if run.meta.channel <= info.channel_count {
+        run.meta.channel
+    } else {
+        1
+    };
+    let cap = crate::capture::Capture::read_channels(&path, true, Some(&[ch])).ok()?;
+    let x = &cap.channels[0];
+    let fs = cap.sample_rate_hz as f64;
+    let (a, b) = (
+        (tone.analysed_from_s * fs).round() as usize,
+        (tone.analysed_to_s * fs).round() as usize,
+    );
+    let seg = if a < b && b <= x.len() {
+        &x[a..b]
+    } else {
+        &x[x.len() / 4..x.len() * 3 / 4]
+    };
+    Some(ToneChart {
+        label: run.meta.label.clone(),
+        fundamental_hz: tone.fundamental_hz,
+        fundamental_dbfs: tone.fundamental_dbfs,
+        harmonics: tone
+            .harmonics
+            .iter()
+            .map(|h| (h.order, h.level_dbc))
+            .collect(),
+        views: tone_views(seg, fs, tone.fundamental_hz)?,
+    })
 }
 
 /// The headline figures of two labels.
@@ -282,6 +334,16 @@ impl ReportModel {
             .zip(&by_label)
             .map(|(l, mine)| bench(l, mine))
             .collect();
+        let tones = labels
+            .iter()
+            .filter_map(|label| {
+                runs.iter()
+                    .rev()
+                    .filter(|r| &r.meta.label == label && r.meta.channel == 1)
+                    .find_map(|r| ToneResult::of(&r.result).map(|t| (r, t)))
+                    .and_then(|(r, t)| tone_chart(r, t))
+            })
+            .collect();
         let lines = runs
             .iter()
             .map(|r| RunLine {
@@ -311,6 +373,7 @@ impl ReportModel {
             matches,
             benches,
             runs: lines,
+            tones,
         }
     }
 
