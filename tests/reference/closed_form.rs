@@ -254,3 +254,47 @@ fn memoryless_polynomial_closed_form() {
         );
     }
 }
+
+#[test]
+fn residual_view_shows_the_added_harmonic() {
+    // x = sin(wt) + 0.01 sin(3wt + 0.5), w = 2 pi 997 Hz: with the fundamental fitted out, what remains over one
+    // period is 0.01 sin(3 theta + 0.5), theta the fundamental's phase: a peak of 1 % of the
+    // fundamental's (closed form). The spectrum's slice holding the fundamental reads its peak
+    // amplitude, 0 dB re a full-scale sine, and the one holding H3 reads -40 dB (window's coherent
+    // gain taken out).
+    // 997 Hz: the samples fall at every phase (at 1 kHz they would sit 7.5 degrees apart).
+    let fs = 48_000.0;
+    let f0 = 997.0;
+    let x: Vec<f64> = (0..48_000)
+        .map(|i| {
+            let t = i as f64 / fs;
+            let w = 2.0 * std::f64::consts::PI * f0 * t;
+            w.sin() + 0.01 * (3.0 * w + 0.5).sin()
+        })
+        .collect();
+    let v = ampnote::analysis::views::tone_views(&x, fs, f0).unwrap();
+    let peak = v.residual.iter().map(|p| p.1.abs()).fold(0.0, f64::max);
+    assert!((peak - 1.0).abs() < 0.01, "residual peak {peak} %");
+    let theta_of_peak = v
+        .residual
+        .iter()
+        .max_by(|a, b| a.1.total_cmp(&b.1))
+        .unwrap()
+        .0;
+    // 3 theta + 0.5 rad = 90 deg (mod 120 deg in theta).
+    let want = (90.0 - 0.5f64.to_degrees()) / 3.0;
+    let off = ((theta_of_peak - want) / 120.0).round() * 120.0;
+    assert!(
+        (theta_of_peak - off - want).abs() < 2.0,
+        "peak at {theta_of_peak} deg, want {want} (mod 120)"
+    );
+    let at = |f: f64| {
+        v.spectrum
+            .iter()
+            .min_by(|a, b| (a.0 / f).ln().abs().total_cmp(&(b.0 / f).ln().abs()))
+            .unwrap()
+            .1
+    };
+    assert!(at(f0).abs() < 0.1, "fundamental {} dB", at(f0));
+    assert!((at(3.0 * f0) + 40.0).abs() < 0.1, "H3 {} dB", at(3.0 * f0));
+}
