@@ -151,6 +151,33 @@ pub enum Error {
     #[error("the two readings ({a:.6} and {b:.6}) do not differ enough to give an output impedance: use loads further apart (the rated load and about twice it), or a higher level.")]
     ReadingsTooClose { a: f64, b: f64 },
 
+    #[error("{watts} W cannot be reached from channel {channel}: it would take {drive_dbfs:+.1} dBFS of drive (the probe at {probe_dbfs} dBFS read {probe_w:.3e} W, so full scale gives about {full_scale_w:.3} W if the amplifier stays linear); lower --watts, or raise the interface's output level")]
+    PowerOutOfReach {
+        watts: f64,
+        channel: usize,
+        drive_dbfs: f64,
+        probe_dbfs: f64,
+        probe_w: f64,
+        full_scale_w: f64,
+    },
+
+    #[error("the stimulus would reach {reach_dbfs:+.1} dBFS at the interface input (its peak {peak_dbfs:+.1} dBFS times a gain of {gain_db:+.1} dB): lower the level, or add attenuation")]
+    WouldClipInput {
+        reach_dbfs: f64,
+        peak_dbfs: f64,
+        gain_db: f64,
+    },
+
+    #[error("{first} and {other} were not recorded the same way ({detail}): record every load with the same rate and channels")]
+    TakesDiffer {
+        first: PathBuf,
+        other: PathBuf,
+        detail: String,
+    },
+
+    #[error("no recording was given for the {ohms} ohm load (recordings: {given}); give one capture per load, in the order of --loads")]
+    NoTakeForLoad { ohms: f64, given: String },
+
     /// The audio interface or its server failed. `retryable`: a transient fault (a stalled
     /// stream, a gap, a busy device) that running the command again may clear.
     #[error("audio interface: {detail}{}", if *retryable { " (this can be transient: run the command again; if it persists, close other audio programs or raise the buffer size)" } else { "" })]

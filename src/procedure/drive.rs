@@ -90,10 +90,13 @@ pub fn drive_for_power(
     let probe_w = power_at(rig, PROBE_DBFS)?;
     let mut drive = PROBE_DBFS + 10.0 * (watts / probe_w).log10();
     let full_scale_w = probe_w * 10f64.powf(-PROBE_DBFS / 10.0);
-    let out_of_reach = |drive: f64| {
-        Error::InvalidSetting(format!(
-            "{watts} W cannot be reached from channel {channel}: it would take {drive:+.1} dBFS of drive (the probe at {PROBE_DBFS} dBFS read {probe_w:.3e} W, so full scale gives about {full_scale_w:.3} W if the amplifier stays linear); lower --watts, or raise the interface's output level"
-        ))
+    let out_of_reach = |drive: f64| Error::PowerOutOfReach {
+        watts,
+        channel,
+        drive_dbfs: drive,
+        probe_dbfs: PROBE_DBFS,
+        probe_w,
+        full_scale_w,
     };
     if drive > 0.0 {
         return Err(out_of_reach(drive));

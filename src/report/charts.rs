@@ -59,8 +59,9 @@ fn ensure_font() -> Result<()> {
     if ok {
         Ok(())
     } else {
-        Err(Error::InvalidSetting(
-            "the bundled chart font could not be loaded".into(),
+        Err(Error::Report(
+            "the bundled chart font could not be loaded (a damaged build: reinstall ampnote)"
+                .into(),
         ))
     }
 }

@@ -68,22 +68,21 @@ impl FileRig {
             .collect::<Result<Vec<_>>>()?;
         let first = &takes[0].info;
         for t in &takes[1..] {
+            let differ = |detail: String| Error::TakesDiffer {
+                first: takes[0].path.clone(),
+                other: t.path.clone(),
+                detail,
+            };
             if t.info.sample_rate_hz != first.sample_rate_hz {
-                return Err(Error::InvalidSetting(format!(
-                    "{} is at {} Hz but {} at {} Hz: record every load the same way (same rate)",
-                    takes[0].path.display(),
-                    first.sample_rate_hz,
-                    t.path.display(),
-                    t.info.sample_rate_hz
+                return Err(differ(format!(
+                    "{} Hz against {} Hz",
+                    first.sample_rate_hz, t.info.sample_rate_hz
                 )));
             }
             if t.info.channel_count != first.channel_count {
-                return Err(Error::InvalidSetting(format!(
-                    "{} holds {} channel(s) but {} holds {}: record every load with the same channels",
-                    takes[0].path.display(),
-                    first.channel_count,
-                    t.path.display(),
-                    t.info.channel_count
+                return Err(differ(format!(
+                    "{} channel(s) against {}",
+                    first.channel_count, t.info.channel_count
                 )));
             }
         }
@@ -150,10 +149,10 @@ impl Rig for FileRig {
                 self.current = i;
                 Ok(())
             }
-            None => Err(Error::InvalidSetting(format!(
-                "no recording was given for the {ohms} ohm load (recordings: {})",
-                self.describe()
-            ))),
+            None => Err(Error::NoTakeForLoad {
+                ohms,
+                given: self.describe(),
+            }),
         }
     }
 

@@ -458,5 +458,8 @@ fn two_load_procedure_on_the_file_rig_matches_the_divider() {
     let err = FileRig::with_loads(&[(&a, 8.0), (&stereo, 16.0)], Calibration::default(), false)
         .unwrap_err()
         .to_string();
-    assert!(err.contains("same channels"), "{err}");
+    assert!(
+        err.contains("not recorded the same way") && err.contains("against 2"),
+        "{err}"
+    );
 }

@@ -304,12 +304,11 @@ impl CardRig {
         let peak = stimulus.iter().fold(0.0f64, |a, v| a.max(v.abs()));
         let gain = self.gain[k].unwrap_or(1.0);
         if peak * gain > 0.999 {
-            return Err(Error::InvalidSetting(format!(
-                "the stimulus would reach {:+.1} dBFS at the interface input (its peak {:+.1} dBFS times a gain of {:+.1} dB): lower the level, or add attenuation",
-                20.0 * (peak * gain).log10(),
-                20.0 * peak.log10(),
-                20.0 * gain.log10()
-            )));
+            return Err(Error::WouldClipInput {
+                reach_dbfs: 20.0 * (peak * gain).log10(),
+                peak_dbfs: 20.0 * peak.log10(),
+                gain_db: 20.0 * gain.log10(),
+            });
         }
         Ok(peak)
     }
