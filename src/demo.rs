@@ -13,7 +13,7 @@ use crate::calibration::{AttenuatorSection, Calibration, InterfaceSection, LoadS
 use crate::error::Result;
 use crate::notebook::{NewRun, Notebook};
 use crate::procedure::power::power_from_capture;
-use crate::procedure::zout::from_tones;
+use crate::procedure::zout::from_responses;
 use crate::report::compare::{compare, match_channels, Comparison, MatchResult, MatchTolerances};
 use crate::results::RunResult;
 use crate::rig::model::Model;
@@ -221,32 +221,39 @@ pub fn run(out: &Path, mut progress: impl FnMut(&str)) -> Result<DemoOutcome> {
             )?;
             save(
                 vec![("stimulus.wav", &sweep_path), ("capture.wav", &cap_path)],
-                r.into(),
+                r.clone().into(),
                 "10 Hz - 40 kHz sweep at 96 kHz",
             )?;
-            // Output impedance: the 1 W tone into 8 and 16 ohm.
+            // Output impedance across the band: the same sweep into twice the load, set against
+            // the one into the rated load above (the bench's one clock gives Z its phase).
             let b_path = work.join("capture-16.wav");
-            let ya = record(&mut rig, ch, &tone, &cap_path)?;
             rig.set_load(2.0 * bench.load_ohms)?;
-            let yb = record(&mut rig, ch, &tone, &b_path)?;
+            let yb = record(&mut rig, ch, &sweep, &b_path)?;
             rig.set_load(bench.load_ohms)?;
-            let la = tone_cfg.analyze(
-                &input(ch, steady(&ya, &tone), &rig),
-                &Calibration::default(),
+            let rb = resp.analyze(
+                ch,
+                &sweep.signal,
+                sp,
+                &yb,
+                SWEEP_RATE as f64,
+                rig.overload_threshold(),
             )?;
-            let lb = tone_cfg.analyze(
-                &input(ch, steady(&yb, &tone), &rig),
-                &Calibration::default(),
+            let z = from_responses(
+                ch,
+                &r,
+                bench.load_ohms,
+                &rb,
+                2.0 * bench.load_ohms,
+                rig.shares_clock().then_some(SWEEP_RATE as f64),
             )?;
-            let z = from_tones(ch, &la, bench.load_ohms, &lb, 2.0 * bench.load_ohms)?;
             save(
                 vec![
-                    ("stimulus.wav", &tone_path),
+                    ("stimulus.wav", &sweep_path),
                     ("capture.wav", &cap_path),
                     ("capture-load-b.wav", &b_path),
                 ],
                 z.into(),
-                "two loads: 8 and 16 ohm",
+                "two loads: 8 and 16 ohm, swept",
             )?;
             // Noise and hum with the input silent.
             let silence = vec![0.0; 2 * RATE as usize];

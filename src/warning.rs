@@ -108,6 +108,8 @@ pub enum WarningCode {
     NotCompared,
     /// The two sides share no measurement.
     NothingShared,
+    /// Only magnitudes were available: a phase (or a reactive part) was not measured.
+    PhaseUnknown,
     /// A warning stored before codes existed.
     #[serde(other)]
     Unclassified,

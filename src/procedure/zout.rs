@@ -6,13 +6,16 @@
 //! amplifier's output transformer must not run unloaded (common practice). The voltages may be in
 //! any unit common to both (dBFS through the same interface and attenuator will do).
 
-use crate::analysis::sweep::{ResponseAnalyzer, ResponseConfig, ResponseResult, SweepParams};
+use crate::analysis::sweep::{
+    ResponseAnalyzer, ResponseConfig, ResponsePoint, ResponseResult, SweepParams,
+};
 use crate::analysis::tone::{ChannelInput, ToneAnalyzer, ToneConfig, ToneResult};
 use crate::calibration::Calibration;
 use crate::error::{Error, Result};
 use crate::procedure::drive;
 use crate::rig::Rig;
 use crate::warning::WarningCode as C;
+use realfft::num_complex::Complex64;
 use serde::Serialize;
 
 /// The two-load formula.
@@ -46,8 +49,35 @@ pub fn check_loads(r1: f64, r2: f64) -> Result<()> {
 #[derive(Debug, Clone, Copy, Serialize, serde::Deserialize)]
 pub struct ZoutPoint {
     pub frequency_hz: f64,
+    /// |Z|.
     pub zout_ohms: f64,
+    /// The nominal load over |Z|.
     pub damping_factor: f64,
+    /// The phase of Z, degrees (positive: inductive), and its real and imaginary parts; absent
+    /// when the two captures do not share a clock (separate recordings), and |Z| then comes from
+    /// the magnitudes alone.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub phase_deg: Option<f64>,
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub resistance_ohms: Option<f64>,
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub reactance_ohms: Option<f64>,
+    /// The series inductance that gives the reactance, microhenries (inductive points only).
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub inductance_uh: Option<f64>,
+}
+
+/// The two-load formula on complex voltages (the same drive, loads `r1` and `r2`).
+pub fn two_load_complex(v1: Complex64, r1: f64, v2: Complex64, r2: f64) -> Result<Complex64> {
+    check_loads(r1, r2)?;
+    let den = v1 / r1 - v2 / r2;
+    if den.norm() < 1e-300 {
+        return Err(Error::ReadingsTooClose {
+            a: v1.norm(),
+            b: v2.norm(),
+        });
+    }
+    Ok((v2 - v1) / den)
 }
 
 /// The result of a two-load measurement.
@@ -277,7 +307,8 @@ pub fn measure(rig: &mut dyn Rig, channel: usize, plan: &ZoutPlan) -> Result<Zou
             let an = ResponseAnalyzer::new(ResponseConfig::default())?;
             let a = an.analyze(channel, signal, params, &caps[0], fs, thr)?;
             let b = an.analyze(channel, signal, params, &caps[1], fs, thr)?;
-            from_responses(channel, &a, ra, &b, rb)
+            let clock = rig.shares_clock().then_some(fs);
+            from_responses(channel, &a, ra, &b, rb, clock)
         }
         ZoutDrive::Tone { hint_hz, .. } => {
             let an = ToneAnalyzer::new(ToneConfig {
@@ -304,12 +335,19 @@ pub fn measure(rig: &mut dyn Rig, channel: usize, plan: &ZoutPlan) -> Result<Zou
 /// Z across the band from two responses to the same sweep. The difference of the two curves
 /// must stand out of its own point-to-point scatter (a real output impedance changes smoothly
 /// with frequency; noise changes from one point to the next).
+///
+/// `shared_clock`: the sample rate when both captures share one time base with the stimulus (a
+/// rig's captures): the responses are then set against each other as complex voltages, both at
+/// the first capture's latency, and Z has its phase (a transformer's leakage inductance makes it
+/// rise with frequency). Separate recordings (`None`) give |Z| from the magnitudes only, exact
+/// only where Z is resistive, and say so.
 pub fn from_responses(
     channel: usize,
     a: &ResponseResult,
     ra: f64,
     b: &ResponseResult,
     rb: f64,
+    shared_clock: Option<f64>,
 ) -> Result<ZoutResult> {
     check_loads(ra, rb)?;
     let lin = |r: &ResponseResult, db: f64| 10f64.powf((r.reference_gain_db + db) / 20.0);
@@ -330,18 +368,46 @@ pub fn from_responses(
     let mut res = from_levels(channel, a.reference_hz, lin(a, 0.0), ra, lin(b, 0.0), rb)?;
     res.zout_sigma_ohms = Some(zout_sigma(lin(a, 0.0), ra, lin(b, 0.0), rb, sigma));
     let nominal = res.nominal_load_ohms;
+    // Each response's phase has its own latency taken out; with a shared clock, the second is
+    // put back on the first's time base (a delay d turns the phase by -360 f d).
+    let voltage = |r: &ResponseResult, p: &ResponsePoint, fs: f64| {
+        let shift = -360.0 * p.frequency_hz * (r.latency_samples - a.latency_samples) / fs;
+        Complex64::from_polar(lin(r, p.magnitude_db), (p.phase_deg + shift).to_radians())
+    };
     res.points = a
         .points
         .iter()
         .zip(&b.points)
         .filter_map(|(pa, pb)| {
-            let z = two_load(lin(a, pa.magnitude_db), ra, lin(b, pb.magnitude_db), rb).ok()?;
+            let Some(fs) = shared_clock else {
+                let z = two_load(lin(a, pa.magnitude_db), ra, lin(b, pb.magnitude_db), rb).ok()?;
+                return Some(ZoutPoint {
+                    frequency_hz: pa.frequency_hz,
+                    zout_ohms: z,
+                    damping_factor: nominal / z,
+                    phase_deg: None,
+                    resistance_ohms: None,
+                    reactance_ohms: None,
+                    inductance_uh: None,
+                });
+            };
+            let z = two_load_complex(voltage(a, pa, fs), ra, voltage(b, pb, fs), rb).ok()?;
+            let w = 2.0 * std::f64::consts::PI * pa.frequency_hz;
             Some(ZoutPoint {
                 frequency_hz: pa.frequency_hz,
-                zout_ohms: z,
-                damping_factor: nominal / z,
+                zout_ohms: z.norm(),
+                damping_factor: nominal / z.norm(),
+                phase_deg: Some(z.arg().to_degrees()),
+                resistance_ohms: Some(z.re),
+                reactance_ohms: Some(z.im),
+                inductance_uh: (z.im > 0.0).then(|| z.im / w * 1e6),
             })
         })
         .collect();
+    if shared_clock.is_none() && !res.points.is_empty() {
+        res.warnings.push(C::PhaseUnknown.say(
+            "the two recordings do not share a clock, so Z across the band comes from magnitudes only: exact where it is resistive, not where it is reactive (a transformer's leakage inductance at high frequencies). Measure on a rig (--rig) for |Z| with its phase",
+        ));
+    }
     Ok(res)
 }

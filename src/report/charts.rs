@@ -12,6 +12,7 @@ use crate::analysis::tone::ToneResult;
 use crate::error::{Error, Result};
 use crate::notebook::Run;
 use crate::procedure::power::PowerResult;
+use crate::procedure::zout::{ZoutPoint, ZoutResult};
 use crate::results::Kept;
 use plotters::coord::Shift;
 use plotters::prelude::*;
@@ -343,6 +344,12 @@ fn swept(r: &ResponseResult, points: impl Iterator<Item = (f64, f64)>) -> Points
     ) else {
         return Vec::new();
     };
+    inside(lo, hi, points)
+}
+
+/// The points of a swept curve from `lo` to `hi` Hz without its first and last twentieth of an
+/// octave (see [`swept`]).
+fn inside(lo: f64, hi: f64, points: impl Iterator<Item = (f64, f64)>) -> Points {
     let edge = 2f64.powf(1.0 / 20.0);
     points
         .filter(|(f, _)| *f >= lo * edge && *f <= hi / edge)
@@ -579,6 +586,22 @@ pub(crate) fn build(
         })
     });
     let trend_thd = trend(|p| p.thd_percent.or(p.thdn_percent));
+    // Output impedance across the band (sweep runs), and its phase where it was measured.
+    let zout_curve = |z: &ZoutResult, y: fn(&ZoutPoint) -> Option<f64>| match (
+        z.points.first(),
+        z.points.last(),
+    ) {
+        (Some(a), Some(b)) => inside(
+            a.frequency_hz,
+            b.frequency_hz,
+            z.points
+                .iter()
+                .filter_map(|p| Some((p.frequency_hz, y(p)?))),
+        ),
+        _ => Vec::new(),
+    };
+    let zout = curves_for(runs, |z: &ZoutResult| zout_curve(z, |p| Some(p.zout_ohms)));
+    let zout_phase = curves_for(runs, |z: &ZoutResult| zout_curve(z, |p| p.phase_deg));
     // Spectrum and residual of each label's left-channel tone run (the latest).
     let mut spectra = Vec::new();
     let mut residuals = Vec::new();
@@ -726,6 +749,38 @@ pub(crate) fn build(
                     true,
                     false,
                     Some(60.0),
+                ),
+            )?,
+        ),
+        (
+            "zout",
+            "Output impedance",
+            chart(
+                "zout",
+                spec(
+                    "Output impedance against frequency (two-load method)",
+                    "Frequency (Hz)",
+                    "|Z| (ohm)",
+                    &zout,
+                    true,
+                    false,
+                    None,
+                ),
+            )?,
+        ),
+        (
+            "zout-phase",
+            "Output impedance phase",
+            chart(
+                "zout-phase",
+                spec(
+                    "Phase of the output impedance (positive: inductive)",
+                    "Frequency (Hz)",
+                    "Phase (degrees)",
+                    &zout_phase,
+                    true,
+                    false,
+                    None,
                 ),
             )?,
         ),

@@ -159,17 +159,40 @@ impl ZoutReport {
                 r.load_b_ohms
             );
             if !r.points.is_empty() {
-                let _ = writeln!(s, "  Frequency     Z out   Damping");
-                for p in r.points.iter().filter(|p| {
-                    [
-                        20.0, 50.0, 100.0, 200.0, 500.0, 1000.0, 2000.0, 5000.0, 10000.0, 20000.0,
-                    ]
-                    .iter()
-                    .any(|f| (p.frequency_hz / f).ln().abs() < 0.02)
-                }) {
+                let phased = r.points.iter().any(|p| p.phase_deg.is_some());
+                let _ = writeln!(
+                    s,
+                    "  Frequency     Z out{}   Damping",
+                    if phased {
+                        "      Phase  Inductance"
+                    } else {
+                        ""
+                    }
+                );
+                // The point nearest each of these frequencies, if one lies within 3 %.
+                let near = |f: f64| {
+                    r.points
+                        .iter()
+                        .min_by(|a, b| {
+                            (a.frequency_hz / f)
+                                .ln()
+                                .abs()
+                                .total_cmp(&(b.frequency_hz / f).ln().abs())
+                        })
+                        .filter(|p| (p.frequency_hz / f).ln().abs() < 0.03)
+                };
+                let rows = [
+                    20.0, 50.0, 100.0, 200.0, 500.0, 1000.0, 2000.0, 5000.0, 10000.0, 20000.0,
+                ];
+                for p in rows.iter().filter_map(|&f| near(f)) {
+                    let phase = match (p.phase_deg, p.inductance_uh) {
+                        (Some(ph), Some(l)) => format!(" {ph:>+6.1} deg {l:>8.1} uH"),
+                        (Some(ph), None) => format!(" {ph:>+6.1} deg {:>11}", "-"),
+                        _ => String::new(),
+                    };
                     let _ = writeln!(
                         s,
-                        "  {:>7.0} Hz {:>7.3} {:>9.2}",
+                        "  {:>7.0} Hz {:>7.3}{phase} {:>9.2}",
                         p.frequency_hz, p.zout_ohms, p.damping_factor
                     );
                 }

@@ -193,6 +193,10 @@ impl Rig for FileRig {
         Ok(cap.channels.into_iter().next().unwrap_or_default())
     }
 
+    fn shares_clock(&self) -> bool {
+        false
+    }
+
     fn take_notes(&mut self, channel: usize) -> Vec<Warning> {
         self.notes.remove(&channel).unwrap_or_default()
     }

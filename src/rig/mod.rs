@@ -38,6 +38,13 @@ pub trait Rig {
         sample_rate_hz: u32,
     ) -> Result<Vec<f64>>;
 
+    /// Whether every capture shares one time base with the stimulus (the simulated bench and the
+    /// live rig align each capture to what they played), so phases of two captures can be set
+    /// against each other. Separate recordings do not: their relative timing is unknown.
+    fn shares_clock(&self) -> bool {
+        true
+    }
+
     /// What the rig noticed on `channel` since the last call (a retried capture, clock drift),
     /// for the result's warnings.
     fn take_notes(&mut self, channel: usize) -> Vec<crate::warning::Warning> {
