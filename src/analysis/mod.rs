@@ -7,6 +7,7 @@ pub mod noise;
 pub mod oscillation;
 pub mod separation;
 pub mod spectrum;
+pub mod square;
 pub mod steady;
 pub mod sweep;
 pub mod tone;

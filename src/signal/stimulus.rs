@@ -61,6 +61,13 @@ pub enum Kind {
         fade_in_s: f64,
         fade_out_s: f64,
     },
+    /// A square wave smoothed by a Gaussian filter whose -3 dB point is `bandwidth_hz`: no
+    /// overshoot of its own, no aliasing (the filter is 60 dB down at the Nyquist frequency by
+    /// default), a 10-90 % rise time of 0.3399 / `bandwidth_hz`.
+    Square {
+        frequency_hz: f64,
+        bandwidth_hz: f64,
+    },
     TwoTone {
         method: TwoToneMethod,
         low_hz: f64,
@@ -78,6 +85,7 @@ impl Kind {
             Kind::Steps { .. } => "steps",
             Kind::Sweep { .. } => "sweep",
             Kind::TwoTone { .. } => "twotone",
+            Kind::Square { .. } => "square",
         }
     }
 }
@@ -240,6 +248,13 @@ impl Description {
         let signal_s = self.signal_samples as f64 / fs;
         match &self.kind {
             Kind::Tone { frequency_hz } => freq("frequency_hz", *frequency_hz)?,
+            Kind::Square {
+                frequency_hz,
+                bandwidth_hz,
+            } => {
+                freq("frequency_hz", *frequency_hz)?;
+                freq("bandwidth_hz", *bandwidth_hz)?;
+            }
             Kind::TwoTone {
                 low_hz,
                 high_hz,
@@ -575,6 +590,84 @@ pub fn tone(c: &Common, frequency_hz: f64, seconds: f64) -> Result<Stimulus> {
     let f = secs(c, c.fade_s);
     fade(&mut x, f, f);
     Ok(finish(c, Kind::Tone { frequency_hz }, x))
+}
+
+/// The Gaussian filter's standard deviation in time (seconds) for a -3 dB point at `f3` Hz: its
+/// response exp(-2 pi^2 sigma^2 f^2) is 1/sqrt 2 at f3 (Gaussian filter, closed form).
+pub fn gaussian_sigma_s(f3: f64) -> f64 {
+    (2f64.ln()).sqrt() / (2.0 * PI * f3)
+}
+
+/// A Gaussian filter's 10-90 % rise time, seconds: 2 x 1.2816 sigma (the normal distribution's
+/// 10 % and 90 % points).
+pub fn gaussian_rise_s(f3: f64) -> f64 {
+    2.0 * 1.281_551_565_5 * gaussian_sigma_s(f3)
+}
+
+/// The default bandwidth of a square wave at `rate` Hz: the Gaussian filter then stands 60 dB
+/// down at the Nyquist frequency (exp(-2 pi^2 sigma^2 (rate/2)^2) = 1e-3), so sampling it
+/// aliases nothing that matters.
+pub fn square_bandwidth(rate: u32) -> f64 {
+    let nyquist = rate as f64 / 2.0;
+    // sigma from G(nyquist) = 1e-3, then f3 from sigma.
+    let sigma = (1e3f64.ln() / 2.0).sqrt() / (PI * nyquist);
+    (2f64.ln()).sqrt() / (2.0 * PI * sigma)
+}
+
+/// A square wave at `frequency_hz` (RMS `c.level_dbfs` re a full-scale sine, so its peak is
+/// that level minus 3.01 dB), its edges smoothed by a Gaussian filter with its -3 dB point at
+/// `bandwidth_hz` (default [`square_bandwidth`]). Each sample is the ideal square convolved with
+/// the Gaussian: far from an edge it is exactly the level, near one the sum of the edges' error
+/// functions. It starts and ends at a rising edge's centre (zero), so it needs no fade.
+pub fn square(
+    c: &Common,
+    frequency_hz: f64,
+    bandwidth_hz: Option<f64>,
+    seconds: f64,
+) -> Result<Stimulus> {
+    check_common(c)?;
+    check_freq(c, "--freq", frequency_hz)?;
+    check_seconds(c, "--seconds", seconds)?;
+    let fs = c.sample_rate_hz as f64;
+    let f3 = bandwidth_hz.unwrap_or_else(|| square_bandwidth(c.sample_rate_hz));
+    check_freq(c, "--bandwidth", f3)?;
+    let half = 0.5 / frequency_hz;
+    // Whole periods, at least one.
+    let periods = (seconds * frequency_hz).round().max(1.0);
+    let n = (periods / frequency_hz * fs).round() as usize;
+    let a = amplitude_of(c.level_dbfs) / 2f64.sqrt();
+    let sigma = gaussian_sigma_s(f3);
+    // Beyond 9 sigma a smoothed step is whole to 1e-18 (erfc(9 / sqrt 2)).
+    let reach = 9.0 * sigma;
+    let phi = |t: f64| 0.5 * (1.0 + libm::erf(t / (2f64.sqrt() * sigma)));
+    let x: Vec<f64> = (0..n)
+        .map(|i| {
+            let t = i as f64 / fs;
+            // Edges at k half-periods: rising for even k, falling for odd. Edges passed by more
+            // than `reach` count whole; those within it count by their smoothed step.
+            let passed = ((t - reach) / half).floor();
+            let mut v = if passed < 0.0 || passed as i64 % 2 == 1 {
+                -1.0
+            } else {
+                1.0
+            };
+            let first = (passed + 1.0).max(0.0) as i64;
+            let last = ((t + reach) / half).floor() as i64;
+            for k in first..=last {
+                let sign = if k % 2 == 0 { 2.0 } else { -2.0 };
+                v += sign * phi(t - k as f64 * half);
+            }
+            a * v
+        })
+        .collect();
+    Ok(finish(
+        c,
+        Kind::Square {
+            frequency_hz,
+            bandwidth_hz: f3,
+        },
+        x,
+    ))
 }
 
 /// A staircase of tone levels from `start_dbfs` to `stop_dbfs` in `step_db` steps, each held

@@ -21,6 +21,7 @@ mod properties;
 mod quantization;
 mod safety;
 mod separation;
+mod square;
 mod stimuli;
 mod store;
 mod sweep_response;

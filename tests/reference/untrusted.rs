@@ -89,6 +89,8 @@ fn apply(d: &mut Description, s: &Spoil) {
                 steps[0].analyse_to_sample = (v.abs().min(1e18)) as usize
             }
             (Kind::Tone { frequency_hz }, _) => *frequency_hz = v,
+            (Kind::Square { frequency_hz, .. }, 2..=4) => *frequency_hz = v,
+            (Kind::Square { bandwidth_hz, .. }, _) => *bandwidth_hz = v,
         },
     }
 }
@@ -103,6 +105,7 @@ fn exercise(kind: usize, s: &Spoil, path: &std::path::Path) {
     let stim = match kind {
         0 => sweep(&c, 20.0, 20_000.0, 0.5).unwrap(),
         1 => two_tone(&c, TwoToneMethod::Modulation, 60.0, 7000.0, 4.0, 0.5).unwrap(),
+        3 => ampnote::signal::stimulus::square(&c, 1000.0, None, 0.5).unwrap(),
         _ => steps(&c, 1000.0, -20.0, -12.0, 4.0, 0.2, 0.05).unwrap(),
     };
     let mut d = stim.description.clone();
@@ -168,13 +171,24 @@ fn exercise(kind: usize, s: &Spoil, path: &std::path::Path) {
             );
         }
         Kind::Tone { .. } => {}
+        Kind::Square {
+            frequency_hz,
+            bandwidth_hz,
+        } => {
+            let _ = ampnote::analysis::square::from_recording(
+                x,
+                48_000.0,
+                *frequency_hz,
+                *bandwidth_hz,
+            );
+        }
     }
 }
 
 proptest! {
     #![proptest_config(ProptestConfig { cases: 300, ..ProptestConfig::default() })]
     #[test]
-    fn a_spoiled_description_is_refused_or_harmless(kind in 0usize..3, s in spoil()) {
+    fn a_spoiled_description_is_refused_or_harmless(kind in 0usize..4, s in spoil()) {
         let d = tmpdir("descfuzz");
         exercise(kind, &s, &d.join("stim.wav"));
     }

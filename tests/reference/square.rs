@@ -1,0 +1,194 @@
+//! Square-wave response against the closed forms of first- and second-order networks
+//! (textbook step responses: overshoot exp(-pi zeta / sqrt(1 - zeta^2)), ringing at
+//! w_n sqrt(1 - zeta^2) decaying with 1 / (zeta w_n), a first-order low-pass's 10-90 % rise
+//! tau ln 9, a first-order high-pass's tilt 1 - exp(-T / (2 tau))), from a recorded square and
+//! from a sweep.
+
+use ampnote::analysis::square::{from_recording, from_response, SquareFigures};
+use ampnote::analysis::sweep::{ResponseAnalyzer, ResponseConfig, SweepParams};
+use ampnote::signal::stimulus::{self, Common, Kind};
+use realfft::num_complex::Complex64;
+use std::f64::consts::PI;
+
+const FS: f64 = 96_000.0;
+
+/// `x` through the analog transfer function `h` (of frequency in Hz), applied exactly on the
+/// DFT grid: circular (a periodic steady state) when `pad` is false, linear (zero-padded) when
+/// true.
+fn through(x: &[f64], h: &dyn Fn(f64) -> Complex64, pad: bool) -> Vec<f64> {
+    let n = if pad {
+        (2 * x.len()).next_power_of_two()
+    } else {
+        x.len()
+    };
+    let mut planner = realfft::RealFftPlanner::<f64>::new();
+    let (fwd, inv) = (planner.plan_fft_forward(n), planner.plan_fft_inverse(n));
+    let mut buf = vec![0.0; n];
+    buf[..x.len()].copy_from_slice(x);
+    let mut spec = fwd.make_output_vec();
+    fwd.process(&mut buf, &mut spec).unwrap();
+    for (k, c) in spec.iter_mut().enumerate() {
+        *c *= h(k as f64 * FS / n as f64) / n as f64;
+    }
+    spec[0].im = 0.0;
+    if n % 2 == 0 {
+        spec[n / 2].im = 0.0;
+    }
+    inv.process(&mut spec, &mut buf).unwrap();
+    buf.truncate(x.len());
+    buf
+}
+
+fn low_pass_2(fn_hz: f64, zeta: f64) -> impl Fn(f64) -> Complex64 {
+    move |f: f64| {
+        let s = Complex64::new(0.0, f / fn_hz);
+        Complex64::new(1.0, 0.0) / (s * s + 2.0 * zeta * s + 1.0)
+    }
+}
+
+fn low_pass_1(tau: f64) -> impl Fn(f64) -> Complex64 {
+    move |f: f64| Complex64::new(1.0, 0.0) / Complex64::new(1.0, 2.0 * PI * f * tau)
+}
+
+fn high_pass_1(tau: f64) -> impl Fn(f64) -> Complex64 {
+    move |f: f64| {
+        let s = Complex64::new(0.0, 2.0 * PI * f * tau);
+        s / (s + 1.0)
+    }
+}
+
+/// A recorded square at `f0` (a whole number of periods, so the circular filter is the
+/// periodic steady state) through `h`, analysed.
+fn recorded(f0: f64, h: &dyn Fn(f64) -> Complex64) -> SquareFigures {
+    let c = Common::mono(FS as u32, -12.0);
+    let s = stimulus::square(&c, f0, None, 1.0).unwrap();
+    let Kind::Square { bandwidth_hz, .. } = s.description.kind else {
+        unreachable!()
+    };
+    let y = through(&s.signal, h, false);
+    from_recording(&y, FS, f0, bandwidth_hz).unwrap()
+}
+
+/// A sweep through `h`, its response measured, and the square at `f0` predicted from it.
+fn from_sweep(f0: f64, h: &dyn Fn(f64) -> Complex64) -> SquareFigures {
+    let c = Common {
+        lead_s: 0.05,
+        tail_s: 0.6,
+        ..Common::mono(FS as u32, -12.0)
+    };
+    let s = stimulus::sweep(&c, 5.0, 40_000.0, 4.0).unwrap();
+    let sp = SweepParams::from_description(&s.description).unwrap();
+    let y = through(&s.signal, h, true);
+    let r = ResponseAnalyzer::new(ResponseConfig {
+        points_per_octave: 48,
+        ..ResponseConfig::default()
+    })
+    .unwrap()
+    .analyze(1, &s.signal, sp, &y, FS, 1.0)
+    .unwrap();
+    from_response(&r, f0, 40_000.0 / 4.46).unwrap()
+}
+
+fn within(got: f64, want: f64, rel: f64, what: &str) {
+    assert!(
+        (got / want - 1.0).abs() < rel,
+        "{what}: {got} against the closed form {want}"
+    );
+}
+
+#[test]
+fn second_order_low_pass_overshoot_and_ringing() {
+    // 100 Hz: the ringing (decay time 212 us) has died to 1e-5 well before the top's level is
+    // read, in the later part of the 5 ms half period.
+    let (fn_hz, zeta) = (1500.0, 0.5);
+    let want = 100.0 * (-PI * zeta / (1.0 - zeta * zeta).sqrt()).exp();
+    let ring = fn_hz * (1.0 - zeta * zeta).sqrt();
+    let decay_us = 1e6 / (zeta * 2.0 * PI * fn_hz);
+    for (how, sq) in [
+        ("recorded", recorded(100.0, &low_pass_2(fn_hz, zeta))),
+        (
+            "from the sweep",
+            from_sweep(100.0, &low_pass_2(fn_hz, zeta)),
+        ),
+    ] {
+        println!(
+            "{how}: {:?}",
+            SquareFigures {
+                trace: vec![],
+                ..sq.clone()
+            }
+        );
+        within(
+            sq.overshoot_percent,
+            want,
+            0.01,
+            &format!("{how}: overshoot %"),
+        );
+        within(
+            sq.ringing_hz.unwrap(),
+            ring,
+            0.01,
+            &format!("{how}: ringing Hz"),
+        );
+        within(
+            sq.ringing_decay_us.unwrap(),
+            decay_us,
+            0.02,
+            &format!("{how}: decay us"),
+        );
+        assert!(
+            sq.tilt_percent.abs() < 0.1,
+            "{how}: tilt {}",
+            sq.tilt_percent
+        );
+    }
+}
+
+#[test]
+fn first_order_low_pass_rise_time() {
+    let tau = 50e-6;
+    let want = tau * 9f64.ln() * 1e6;
+    for (how, sq) in [
+        ("recorded", recorded(200.0, &low_pass_1(tau))),
+        ("from the sweep", from_sweep(200.0, &low_pass_1(tau))),
+    ] {
+        println!(
+            "{how}: {:?}",
+            SquareFigures {
+                trace: vec![],
+                ..sq.clone()
+            }
+        );
+        within(
+            sq.rise_time_us.unwrap(),
+            want,
+            0.01,
+            &format!("{how}: rise us"),
+        );
+        assert!(
+            sq.overshoot_percent < 0.1,
+            "{how}: {}",
+            sq.overshoot_percent
+        );
+        assert!(sq.ringing_hz.is_none(), "{how}: no ringing");
+    }
+}
+
+#[test]
+fn first_order_high_pass_tilt() {
+    let (f0, tau): (f64, f64) = (40.0, 0.05);
+    let want = 100.0 * (1.0 - (-1.0 / f0 / (2.0 * tau)).exp());
+    for (how, sq) in [
+        ("recorded", recorded(f0, &high_pass_1(tau))),
+        ("from the sweep", from_sweep(f0, &high_pass_1(tau))),
+    ] {
+        println!(
+            "{how}: {:?}",
+            SquareFigures {
+                trace: vec![],
+                ..sq.clone()
+            }
+        );
+        within(sq.tilt_percent, want, 0.01, &format!("{how}: tilt %"));
+    }
+}
