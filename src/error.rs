@@ -178,6 +178,14 @@ pub enum Error {
     #[error("no recording was given for the {ohms} ohm load (recordings: {given}); give one capture per load, in the order of --loads")]
     NoTakeForLoad { ohms: f64, given: String },
 
+    #[error("a {frequency_hz} Hz square is not square here: its edge alone takes {edge_us:.1} us of its {half_us:.1} us half period (at most a quarter of it is usable); use {max_hz:.0} Hz or lower, or a higher sample rate and a sweep reaching higher")]
+    SquareTooFast {
+        frequency_hz: f64,
+        edge_us: f64,
+        half_us: f64,
+        max_hz: f64,
+    },
+
     /// The audio interface or its server failed. `retryable`: a transient fault (a stalled
     /// stream, a gap, a busy device) that running the command again may clear.
     #[error("audio interface: {detail}{}", if *retryable { " (this can be transient: run the command again; if it persists, close other audio programs or raise the buffer size)" } else { "" })]

@@ -17,6 +17,7 @@ fn main() -> ExitCode {
         Command::Response(args) => run::response::run(args),
         Command::Imd(args) => run::imd::run(args),
         Command::Separation(args) => run::separation::run(args),
+        Command::Square(args) => run::square::run(args),
         Command::Noise(args) => run::noise::run(args),
         Command::Trend(args) => run::trend::run(args),
         Command::Power(args) => run::power::run(args),

@@ -11,6 +11,7 @@ use crate::analysis::blocks::TrendResult;
 use crate::analysis::imd::ImdResult;
 use crate::analysis::noise::NoiseResult;
 use crate::analysis::separation::SeparationResult;
+use crate::analysis::square::SquareResult;
 use crate::analysis::sweep::ResponseResult;
 use crate::analysis::tone::ToneResult;
 use crate::procedure::dc::DcResult;
@@ -41,6 +42,8 @@ pub enum Procedure {
     Trend,
     /// DC operating points typed in (`notebook dc`).
     Dc,
+    /// Square-wave response (`square`).
+    Square,
 }
 
 impl Procedure {
@@ -56,6 +59,7 @@ impl Procedure {
             Procedure::Separation => "separation",
             Procedure::Trend => "trend",
             Procedure::Dc => "dc",
+            Procedure::Square => "square",
         }
     }
 
@@ -89,6 +93,7 @@ pub enum RunResult {
     Separation(SeparationResult),
     Trend(TrendResult),
     Dc(DcResult),
+    Square(SquareResult),
 }
 
 impl RunResult {
@@ -104,6 +109,7 @@ impl RunResult {
             RunResult::Separation(_) => Procedure::Separation,
             RunResult::Trend(_) => Procedure::Trend,
             RunResult::Dc(_) => Procedure::Dc,
+            RunResult::Square(_) => Procedure::Square,
         }
     }
 
@@ -123,6 +129,7 @@ impl RunResult {
             Procedure::Separation => RunResult::Separation(read(value)?),
             Procedure::Trend => RunResult::Trend(read(value)?),
             Procedure::Dc => RunResult::Dc(read(value)?),
+            Procedure::Square => RunResult::Square(read(value)?),
         })
     }
 
@@ -191,6 +198,21 @@ impl RunResult {
                 .join("; "),
             RunResult::Dc(d) => d.headline(),
             RunResult::Trend(t) => t.headline(),
+            RunResult::Square(q) => q
+                .squares
+                .iter()
+                .map(|f| {
+                    use crate::report::number::{show, Unit};
+                    format!(
+                        "{}: rise {}, overshoot {}, tilt {}",
+                        show(f.frequency_hz, Unit::Hz),
+                        f.rise_time_us.map_or("-".into(), |v| show(v, Unit::Us)),
+                        show(f.overshoot_percent, Unit::Percent),
+                        show(f.tilt_percent, Unit::Percent)
+                    )
+                })
+                .collect::<Vec<_>>()
+                .join("; "),
         }
     }
 
@@ -206,6 +228,7 @@ impl RunResult {
             RunResult::Separation(r) => &r.warnings,
             RunResult::Trend(r) => &r.warnings,
             RunResult::Dc(r) => &r.warnings,
+            RunResult::Square(r) => &r.warnings,
         }
     }
 }
@@ -248,6 +271,7 @@ variants!(
     ZoutResult => Zout,
     NoiseResult => Noise,
     SeparationResult => Separation,
+    SquareResult => Square,
     TrendResult => Trend,
     DcResult => Dc
 );

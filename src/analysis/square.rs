@@ -332,6 +332,22 @@ pub fn figures(y: &[f64], f0: f64, stimulus_rise_s: f64) -> Result<SquareFigures
     })
 }
 
+/// A square whose edge (10-90 %, `rise_s`) takes more than a quarter of its half period has
+/// too few harmonics to show overshoot, settling or tilt apart (our choice: the edge's own
+/// width then blurs them).
+fn check_square(f0: f64, rise_s: f64) -> Result<()> {
+    let half = 0.5 / f0;
+    if rise_s > half / 4.0 {
+        return Err(Error::SquareTooFast {
+            frequency_hz: f0,
+            edge_us: rise_s * 1e6,
+            half_us: half * 1e6,
+            max_hz: 0.5 / (4.0 * rise_s),
+        });
+    }
+    Ok(())
+}
+
 /// Points on the rebuilt period: enough for 0.5 us steps or 8 per harmonic, a power of two,
 /// at most 2^20.
 fn grid(f0: f64, harmonics: usize) -> usize {
@@ -345,6 +361,7 @@ fn grid(f0: f64, harmonics: usize) -> usize {
 /// up to the response's top frequency (the Gaussian must be negligible there; see
 /// [`crate::signal::stimulus::square_bandwidth`]).
 pub fn from_response(r: &ResponseResult, f0: f64, bandwidth_hz: f64) -> Result<SquareFigures> {
+    check_square(f0, crate::signal::stimulus::gaussian_rise_s(bandwidth_hz))?;
     let top = r.points.last().map_or(0.0, |p| p.frequency_hz);
     let bottom = r.points.first().map_or(f64::INFINITY, |p| p.frequency_hz);
     if f0 < bottom {
@@ -400,6 +417,10 @@ pub fn from_recording(
     f0_measured: f64,
     bandwidth_hz: f64,
 ) -> Result<SquareFigures> {
+    check_square(
+        f0_measured,
+        crate::signal::stimulus::gaussian_rise_s(bandwidth_hz),
+    )?;
     let p = fs / f0_measured;
     let max_k = (x.len() as f64 / p).floor() as usize;
     if max_k < 4 {

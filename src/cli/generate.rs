@@ -15,6 +15,22 @@ pub enum GenerateKind {
         #[command(flatten)]
         common: GenerateCommon,
     },
+    /// A square wave for the square-wave response (`ampnote square`): its edges smoothed by a
+    /// Gaussian filter, so it neither overshoots nor aliases by itself.
+    Square {
+        /// Frequency in Hz (a low one shows tilt, a high one overshoot and ringing).
+        #[arg(long, default_value_t = 1000.0, value_name = "HZ")]
+        freq: f64,
+        /// The edge filter's -3 dB point (default: 60 dB down at the Nyquist frequency, 0.112 x
+        /// the rate); the edge's 10-90 % rise time is 0.34 / this.
+        #[arg(long, value_name = "HZ")]
+        bandwidth: Option<f64>,
+        /// Length (whole periods).
+        #[arg(long, default_value_t = 5.0, value_name = "S")]
+        seconds: f64,
+        #[command(flatten)]
+        common: GenerateCommon,
+    },
     /// A staircase of tone levels for the output-power procedure.
     Steps {
         /// The staircase's tone, Hz.

@@ -232,6 +232,31 @@ pub struct SeparationArgs {
 }
 
 #[derive(Debug, Args)]
+pub struct SquareArgs {
+    /// The recording of the amplifier's output while the stimulus played.
+    pub capture: PathBuf,
+    /// What was played: a square (`ampnote generate square`), or a sweep (`ampnote generate
+    /// sweep`), from whose measured response the squares are predicted.
+    #[arg(long, value_name = "FILE.wav")]
+    pub stimulus: PathBuf,
+    /// With a sweep: the square waves to predict, Hz.
+    #[arg(long, value_name = "HZ,...", value_delimiter = ',', value_parser = hertz, default_value = "40,1000")]
+    pub freq: Vec<f64>,
+    /// Channel to analyse: a number from 1, or `all`.
+    #[arg(long, default_value = "all", value_name = "N|all")]
+    pub channel: ChannelChoice,
+    #[command(flatten)]
+    pub calibration: CalibrationArgs,
+    #[command(flatten)]
+    pub print: PrintArgs,
+    /// Analyse what a truncated file holds instead of refusing it.
+    #[arg(long)]
+    pub accept_truncated: bool,
+    #[command(flatten)]
+    pub save: SaveArgs,
+}
+
+#[derive(Debug, Args)]
 pub struct TrendArgs {
     /// Block length in seconds: one line of figures per block.
     #[arg(long, default_value_t = 1.0, value_name = "S")]

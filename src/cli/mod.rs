@@ -47,6 +47,9 @@ pub enum Command {
     /// Channel separation (IEC 60268-3 crosstalk) from a sweep played into one channel with every
     /// channel recorded: each other channel's level below it, against frequency.
     Separation(SeparationArgs),
+    /// Square-wave response (rise time, overshoot, ringing, settling, tilt) from a recorded
+    /// square, or predicted from a recorded sweep.
+    Square(SquareArgs),
     /// Intermodulation distortion from a recorded two-tone pair (IEC 60268-3).
     Imd(ImdArgs),
     /// Follow a steady tone over a long capture (a warm-up, a hum log): level, THD, THD+N, H2, H3

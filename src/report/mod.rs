@@ -8,6 +8,7 @@ pub mod model;
 pub mod number;
 pub mod power;
 pub mod response;
+pub mod square;
 pub mod tone;
 pub mod trend;
 
@@ -69,7 +70,8 @@ channel_result!(
     crate::analysis::noise::NoiseResult,
     crate::procedure::power::PowerResult,
     crate::procedure::zout::ZoutResult,
-    crate::analysis::blocks::TrendResult
+    crate::analysis::blocks::TrendResult,
+    crate::analysis::square::SquareResult
 );
 
 /// A measuring command's report: its per-channel results and the channels that failed, and its
@@ -124,4 +126,5 @@ printed!(
     power::ZoutReport => crate::procedure::zout::ZoutResult, results, none;
     response::ResponseReport => crate::analysis::sweep::ResponseResult, channels, channel_errors;
     trend::TrendReport => crate::analysis::blocks::TrendResult, channels, channel_errors;
+    square::SquareReport => crate::analysis::square::SquareResult, channels, channel_errors;
 );

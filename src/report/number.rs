@@ -41,6 +41,8 @@ pub enum Unit {
     Ratio,
     #[serde(rename = "ms")]
     Ms,
+    #[serde(rename = "us")]
+    Us,
     #[serde(rename = "ppm")]
     Ppm,
     #[serde(rename = "deg")]
@@ -65,6 +67,7 @@ impl Unit {
             Unit::Ohms => "ohm",
             Unit::Ratio => "",
             Unit::Ms => "ms",
+            Unit::Us => "us",
             Unit::Ppm => "ppm",
             Unit::Degrees => "deg",
         }

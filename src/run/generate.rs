@@ -16,6 +16,15 @@ pub fn run(kind: &GenerateKind) -> Result<ExitCode, Failure> {
             stimulus::tone(&common.common(0.01)?, *freq, *seconds)?,
             common,
         ),
+        GenerateKind::Square {
+            freq,
+            bandwidth,
+            seconds,
+            common,
+        } => (
+            stimulus::square(&common.common(0.0)?, *freq, *bandwidth, *seconds)?,
+            common,
+        ),
         GenerateKind::Steps {
             freq,
             start,

@@ -10,6 +10,7 @@ pub mod notebook;
 pub mod power;
 pub mod response;
 pub mod separation;
+pub mod square;
 pub mod trend;
 pub mod watch;
 pub mod zout;
@@ -228,7 +229,8 @@ pub fn finish<T: ampnote::report::ChannelResult>(
 }
 
 /// A stimulus file `ampnote generate` wrote: its samples and its description, which must be of
-/// the `wanted` kind (`tone`, `steps`, `sweep`, `twotone`).
+/// the `wanted` kind (`tone`, `steps`, `sweep`, `twotone`, `square`, or alternatives such as
+/// `square or sweep`).
 pub fn read_stimulus(path: &Path, wanted: &'static str) -> Result<(Capture, Description), Failure> {
     let cap = Capture::read(path, false)?;
     let not = |why: String| Error::NotAStimulus {
@@ -237,7 +239,7 @@ pub fn read_stimulus(path: &Path, wanted: &'static str) -> Result<(Capture, Desc
         why,
     };
     let desc = Description::of_capture(&cap).map_err(not)?;
-    if desc.kind.name() != wanted {
+    if !wanted.split(" or ").any(|w| w == desc.kind.name()) {
         return Err(not(format!("it is a {} stimulus", desc.kind.name())).into());
     }
     Ok((cap, desc))

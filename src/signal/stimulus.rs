@@ -608,9 +608,13 @@ pub fn gaussian_rise_s(f3: f64) -> f64 {
 /// down at the Nyquist frequency (exp(-2 pi^2 sigma^2 (rate/2)^2) = 1e-3), so sampling it
 /// aliases nothing that matters.
 pub fn square_bandwidth(rate: u32) -> f64 {
-    let nyquist = rate as f64 / 2.0;
-    // sigma from G(nyquist) = 1e-3, then f3 from sigma.
-    let sigma = (1e3f64.ln() / 2.0).sqrt() / (PI * nyquist);
+    square_bandwidth_below(rate as f64 / 2.0)
+}
+
+/// The Gaussian edge filter's -3 dB point that puts it 60 dB down at `top_hz` (0.224 x it).
+pub fn square_bandwidth_below(top_hz: f64) -> f64 {
+    // sigma from G(top) = 1e-3, then f3 from sigma.
+    let sigma = (1e3f64.ln() / 2.0).sqrt() / (PI * top_hz);
     (2f64.ln()).sqrt() / (2.0 * PI * sigma)
 }
 

@@ -192,3 +192,91 @@ fn first_order_high_pass_tilt() {
         within(sq.tilt_percent, want, 0.01, &format!("{how}: tilt %"));
     }
 }
+
+#[test]
+fn square_command_reads_a_recording_and_keeps_the_run() {
+    // The command end to end on a recording of a square through a first-order high-pass
+    // (tau = 20 ms; closed form tilt at 50 Hz: 1 - exp(-10 ms / 20 ms) = 39.35 %), kept in a
+    // notebook and read back typed; a 10 kHz square at 48 kHz is refused with the reason.
+    use super::common::{run, tmpdir};
+    let d = tmpdir("square-cmd");
+    let c = Common::mono(48_000, -12.0);
+    let s = stimulus::square(&c, 50.0, None, 2.0).unwrap();
+    let stim_path = d.join("square.wav");
+    ampnote::signal::wav::write_wav_described(
+        &stim_path,
+        48_000,
+        std::slice::from_ref(&s.signal),
+        ampnote::signal::wav::WavFormat::Float32,
+        1,
+        Some(&s.description.to_json()),
+    )
+    .unwrap();
+    let tau = 0.02;
+    let n = s.signal.len();
+    let mut planner = realfft::RealFftPlanner::<f64>::new();
+    let (fwd, inv) = (planner.plan_fft_forward(n), planner.plan_fft_inverse(n));
+    let mut buf = s.signal.clone();
+    let mut spec = fwd.make_output_vec();
+    fwd.process(&mut buf, &mut spec).unwrap();
+    for (k, v) in spec.iter_mut().enumerate() {
+        let w = Complex64::new(0.0, 2.0 * PI * k as f64 * 48_000.0 / n as f64 * tau);
+        *v *= w / (w + 1.0) / n as f64;
+    }
+    spec[0].im = 0.0;
+    spec[n / 2].im = 0.0;
+    inv.process(&mut spec, &mut buf).unwrap();
+    let cap = super::common::write_float(&d, "cap.wav", buf);
+    let nb = d.join("nb");
+    let (code, _, err) = run(&[
+        "notebook",
+        "init",
+        &nb.to_string_lossy(),
+        "--amplifier",
+        "test",
+    ]);
+    assert_eq!(code, 0, "{err}");
+    let (code, out, err) = run(&[
+        "square",
+        &cap.to_string_lossy(),
+        "--stimulus",
+        &stim_path.to_string_lossy(),
+        "--json",
+        "--notebook",
+        &nb.to_string_lossy(),
+        "--label",
+        "stock",
+    ]);
+    assert_eq!(code, 0, "{err}");
+    let r: ampnote::report::square::SquareReport = serde_json::from_str(&out).unwrap();
+    let q = &r.channels[0].squares[0];
+    within(
+        q.tilt_percent,
+        100.0 * (1.0 - (-0.5f64).exp()),
+        0.01,
+        "tilt %",
+    );
+    let kept = ampnote::notebook::Notebook::open(&nb)
+        .unwrap()
+        .runs()
+        .unwrap();
+    let k = kept
+        .iter()
+        .find_map(|run| {
+            <ampnote::analysis::square::SquareResult as ampnote::results::Kept>::of(&run.result)
+        })
+        .expect("the square run kept");
+    assert_eq!(k.squares[0].tilt_percent, q.tilt_percent);
+
+    let fast = stimulus::square(&c, 10_000.0, None, 1.0).unwrap();
+    let Kind::Square { bandwidth_hz, .. } = fast.description.kind else {
+        unreachable!()
+    };
+    let err = from_recording(&fast.signal, 48_000.0, 10_000.0, bandwidth_hz)
+        .unwrap_err()
+        .to_string();
+    assert!(
+        err.contains("not square here") && err.contains("Hz or lower"),
+        "{err}"
+    );
+}
