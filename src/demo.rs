@@ -224,6 +224,25 @@ pub fn run(out: &Path, mut progress: impl FnMut(&str)) -> Result<DemoOutcome> {
                 r.clone().into(),
                 "10 Hz - 40 kHz sweep at 96 kHz",
             )?;
+            // The square-wave response predicted from the sweep's: 40 Hz (tilt) and 1 kHz (edge).
+            let bw = crate::signal::stimulus::square_bandwidth_below(
+                r.points.last().map_or(20_000.0, |p| p.frequency_hz),
+            );
+            let squares = [40.0, 1000.0]
+                .iter()
+                .map(|&f| crate::analysis::square::from_response(&r, f, bw))
+                .collect::<Result<Vec<_>>>()?;
+            save(
+                vec![("stimulus.wav", &sweep_path), ("capture.wav", &cap_path)],
+                crate::analysis::square::SquareResult {
+                    channel: ch,
+                    source: crate::analysis::square::SquareSource::FromSweep,
+                    squares,
+                    warnings: Vec::new(),
+                }
+                .into(),
+                "squares at 40 Hz and 1 kHz from the sweep's response",
+            )?;
             // Output impedance across the band: the same sweep into twice the load, set against
             // the one into the rated load above (the bench's one clock gives Z its phase).
             let b_path = work.join("capture-16.wav");

@@ -12,6 +12,7 @@ use crate::analysis::tone::ToneResult;
 use crate::error::{Error, Result};
 use crate::notebook::Run;
 use crate::procedure::power::PowerResult;
+use crate::analysis::square::{SquareFigures, SquareResult};
 use crate::procedure::zout::{ZoutPoint, ZoutResult};
 use crate::results::Kept;
 use plotters::coord::Shift;
@@ -586,6 +587,36 @@ pub(crate) fn build(
         })
     });
     let trend_thd = trend(|p| p.thd_percent.or(p.thdn_percent));
+    // One period of each square run's lowest and highest square, the rising edge in the middle.
+    let square_at = |pick: fn(&[SquareFigures]) -> Option<&SquareFigures>| {
+        curves_for(runs, move |q: &SquareResult| {
+            pick(&q.squares).map_or(Vec::new(), |f| {
+                let half = 0.5e6 / f.frequency_hz;
+                f.trace
+                    .iter()
+                    .map(|&(t, v)| (t / half, v))
+                    .collect()
+            })
+        })
+    };
+    let square_low = square_at(|s| s.iter().min_by(|a, b| a.frequency_hz.total_cmp(&b.frequency_hz)));
+    let square_high = square_at(|s| {
+        s.iter()
+            .max_by(|a, b| a.frequency_hz.total_cmp(&b.frequency_hz))
+            .filter(|_| s.len() > 1)
+    });
+    let square_title = |pick: fn(&[SquareFigures]) -> Option<&SquareFigures>| {
+        runs.iter()
+            .find_map(|r| SquareResult::of(&r.result).and_then(|q| pick(&q.squares)))
+            .map_or("Square wave".to_string(), |f| {
+                format!(
+                    "Square wave at {} (one period, rising edge at 0)",
+                    crate::report::number::show(f.frequency_hz, crate::report::number::Unit::Hz)
+                )
+            })
+    };
+    let low_title = square_title(|s| s.iter().min_by(|a, b| a.frequency_hz.total_cmp(&b.frequency_hz)));
+    let high_title = square_title(|s| s.iter().max_by(|a, b| a.frequency_hz.total_cmp(&b.frequency_hz)));
     // Output impedance across the band (sweep runs), and its phase where it was measured.
     let zout_curve = |z: &ZoutResult, y: fn(&ZoutPoint) -> Option<f64>| match (
         z.points.first(),
@@ -749,6 +780,38 @@ pub(crate) fn build(
                     true,
                     false,
                     Some(60.0),
+                ),
+            )?,
+        ),
+        (
+            "square-low",
+            "Square wave, low frequency",
+            chart(
+                "square-low",
+                spec(
+                    &low_title,
+                    "Time (half periods from the rising edge)",
+                    "Level (half steps)",
+                    &square_low,
+                    false,
+                    false,
+                    None,
+                ),
+            )?,
+        ),
+        (
+            "square-high",
+            "Square wave, high frequency",
+            chart(
+                "square-high",
+                spec(
+                    &high_title,
+                    "Time (half periods from the rising edge)",
+                    "Level (half steps)",
+                    &square_high,
+                    false,
+                    false,
+                    None,
                 ),
             )?,
         ),
