@@ -148,7 +148,6 @@ pub fn run(out: &Path, mut progress: impl FnMut(&str)) -> Result<DemoOutcome> {
     let Kind::Steps { steps: table, .. } = &steps.description.kind else {
         unreachable!("steps() makes a staircase")
     };
-    let mut runs = 0;
     for (label, model_name) in [("stock", "stock"), ("driver reworked", "reworked")] {
         let model = Model::load(model_name)?;
         let mut rig = SimRig::new(model);
@@ -291,7 +290,6 @@ pub fn run(out: &Path, mut progress: impl FnMut(&str)) -> Result<DemoOutcome> {
                 &cal,
             )?;
             save(vec![("capture.wav", &cap_path)], nr.into(), "input silent")?;
-            runs += 5;
         }
     }
     // DC operating points read with a meter (invented values for the invented amplifier): B+,
@@ -325,7 +323,6 @@ pub fn run(out: &Path, mut progress: impl FnMut(&str)) -> Result<DemoOutcome> {
             blobs: Vec::new(),
             result: dc.into(),
         })?;
-        runs += 1;
     }
     // The reworked amplifier switched on cold and logged for 20 s at 1 W (left channel): the
     // trend of its warm-up.
@@ -385,7 +382,6 @@ pub fn run(out: &Path, mut progress: impl FnMut(&str)) -> Result<DemoOutcome> {
         blobs: Vec::new(),
         result: t.into(),
     })?;
-    runs += 1;
     let a = nb.select("stock", None)?;
     let b = nb.select("driver reworked", None)?;
     let comparison = compare("stock", &a, "driver reworked", &b);
@@ -409,6 +405,7 @@ pub fn run(out: &Path, mut progress: impl FnMut(&str)) -> Result<DemoOutcome> {
         notebook: nb.dir.clone(),
         comparison,
         matches,
-        runs,
+        // Counted from the notebook itself, so a procedure added to the demo is counted too.
+        runs: nb.runs()?.len(),
     })
 }

@@ -166,11 +166,11 @@ fn demo_runs_end_to_end() {
     let out = d.join("demo");
     let (code, stdout, err) = run(&["demo", "--out", &out.to_string_lossy()]);
     assert_eq!(code, 0, "{err}");
-    assert!(stdout.contains("23 runs kept"), "{stdout}");
+    assert!(stdout.contains("27 runs kept"), "{stdout}");
     assert!(stdout.contains("power at 1 % THD"), "{stdout}");
     let nb = Notebook::open(&out.join("notebook")).unwrap();
     let runs = nb.runs().unwrap();
-    assert_eq!(runs.len(), 23);
+    assert_eq!(runs.len(), 27);
     // The cold start's trend: the simulated gain starts 2 dB low and settles as e^(-t / 6 s), so
     // the level moves by 2 (e^(-t1/6) - e^(-t2/6)) dB between the first and last block's middles
     // (closed form of the invented warm-up; 0.15 dB for the amplifier's own compression at 1 W).
