@@ -7,12 +7,12 @@
 
 use crate::analysis::blocks::TrendResult;
 use crate::analysis::separation::SeparationResult;
+use crate::analysis::square::{SquareFigures, SquareResult};
 use crate::analysis::sweep::{HarmonicPoint, ResponseResult};
 use crate::analysis::tone::ToneResult;
 use crate::error::{Error, Result};
 use crate::notebook::Run;
 use crate::procedure::power::PowerResult;
-use crate::analysis::square::{SquareFigures, SquareResult};
 use crate::procedure::zout::{ZoutPoint, ZoutResult};
 use crate::results::Kept;
 use plotters::coord::Shift;
@@ -592,14 +592,14 @@ pub(crate) fn build(
         curves_for(runs, move |q: &SquareResult| {
             pick(&q.squares).map_or(Vec::new(), |f| {
                 let half = 0.5e6 / f.frequency_hz;
-                f.trace
-                    .iter()
-                    .map(|&(t, v)| (t / half, v))
-                    .collect()
+                f.trace.iter().map(|&(t, v)| (t / half, v)).collect()
             })
         })
     };
-    let square_low = square_at(|s| s.iter().min_by(|a, b| a.frequency_hz.total_cmp(&b.frequency_hz)));
+    let square_low = square_at(|s| {
+        s.iter()
+            .min_by(|a, b| a.frequency_hz.total_cmp(&b.frequency_hz))
+    });
     let square_high = square_at(|s| {
         s.iter()
             .max_by(|a, b| a.frequency_hz.total_cmp(&b.frequency_hz))
@@ -615,8 +615,14 @@ pub(crate) fn build(
                 )
             })
     };
-    let low_title = square_title(|s| s.iter().min_by(|a, b| a.frequency_hz.total_cmp(&b.frequency_hz)));
-    let high_title = square_title(|s| s.iter().max_by(|a, b| a.frequency_hz.total_cmp(&b.frequency_hz)));
+    let low_title = square_title(|s| {
+        s.iter()
+            .min_by(|a, b| a.frequency_hz.total_cmp(&b.frequency_hz))
+    });
+    let high_title = square_title(|s| {
+        s.iter()
+            .max_by(|a, b| a.frequency_hz.total_cmp(&b.frequency_hz))
+    });
     // Output impedance across the band (sweep runs), and its phase where it was measured.
     let zout_curve = |z: &ZoutResult, y: fn(&ZoutPoint) -> Option<f64>| match (
         z.points.first(),

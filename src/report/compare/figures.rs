@@ -340,3 +340,58 @@ pub(super) fn sweep_harmonic(r: &ResponseView, order: usize, f: f64) -> Option<f
         .filter(|p| (p.frequency_hz / f).ln().abs() < 0.05)
         .map(|p| p.level_dbc)
 }
+
+/// Square-wave responses at the same frequencies and from the same kind of source (a recorded
+/// square and a predicted one have different edges): rise time, overshoot, settling, tilt.
+pub(super) fn compare_square(s: &mut Sink, a: &[Run], b: &[Run]) {
+    use crate::analysis::square::SquareResult;
+    let ch = s.ch;
+    let (Some(qa), Some(qb)) = (latest::<SquareResult>(a, ch), latest::<SquareResult>(b, ch))
+    else {
+        return;
+    };
+    if qa.source != qb.source {
+        s.skipped.push(C::NotCompared.say(format!(
+            "channel {ch}: one square run was recorded and the other predicted from a sweep (their edges differ): not compared"
+        )));
+        return;
+    }
+    for x in &qa.squares {
+        let Some(y) = qb
+            .squares
+            .iter()
+            .find(|y| (y.frequency_hz / x.frequency_hz - 1.0).abs() < 0.01)
+        else {
+            continue;
+        };
+        let at = number::show(x.frequency_hz, Unit::Hz);
+        s.add(
+            &format!("rise time, {at} square"),
+            measured(x.rise_time_us),
+            measured(y.rise_time_us),
+            Unit::Us,
+            None,
+        );
+        s.add(
+            &format!("overshoot, {at} square"),
+            measured(Some(x.overshoot_percent)),
+            measured(Some(y.overshoot_percent)),
+            Unit::Percent,
+            None,
+        );
+        s.add(
+            &format!("settling, {at} square"),
+            measured(x.settling_us),
+            measured(y.settling_us),
+            Unit::Us,
+            None,
+        );
+        s.add(
+            &format!("tilt, {at} square"),
+            measured(Some(x.tilt_percent)),
+            measured(Some(y.tilt_percent)),
+            Unit::Percent,
+            None,
+        );
+    }
+}
