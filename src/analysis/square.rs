@@ -239,16 +239,9 @@ pub fn figures(y: &[f64], f0: f64, stimulus_rise_s: f64) -> Result<SquareFigures
     // its midpoint).
     let first = edge(&y, mid, range, half / 20)?;
     let rise_points = (first.t90 - first.t10).max(0.0) as usize;
-    let Edge {
-        top,
-        top_start,
-        top_end,
-        step,
-        c50,
-        t10,
-        t50,
-        t90,
-    } = edge(&y, mid, range, (half / 20).max(3 * rise_points))?;
+    let found = edge(&y, mid, range, (half / 20).max(3 * rise_points))?;
+    let (top, step, c50, t50) = (&found.top, found.step, found.c50, found.t50);
+    let (top_start, top_end, t10, t90) = (found.top_start, found.top_end, found.t10, found.t90);
     let measured_rise = (t90 - t10) * dt;
     // Overshoot: the highest point over the top's line in the first half of the high half.
     let (peak_i, over) = (c50..e + half / 2)

@@ -76,6 +76,16 @@ channel_result!(
 
 /// A measuring command's report: its per-channel results and the channels that failed, and its
 /// three renderings (JSON, CSV, table).
+/// The item of `items` whose frequency (`freq`) lies nearest `f` in log terms, if one lies
+/// within 3 % of it: the row a table shows for a round frequency.
+pub fn nearest<T>(items: &[T], f: f64, freq: impl Fn(&T) -> f64) -> Option<&T> {
+    let off = |x: &T| (freq(x) / f).ln().abs();
+    items
+        .iter()
+        .min_by(|a, b| off(a).total_cmp(&off(b)))
+        .filter(|x| off(x) < 0.03)
+}
+
 /// Every report prints as indented JSON ending in a newline.
 pub trait ToJson: serde::Serialize {
     fn to_json(&self) -> String {

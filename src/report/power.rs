@@ -169,18 +169,7 @@ impl ZoutReport {
                         ""
                     }
                 );
-                // The point nearest each of these frequencies, if one lies within 3 %.
-                let near = |f: f64| {
-                    r.points
-                        .iter()
-                        .min_by(|a, b| {
-                            (a.frequency_hz / f)
-                                .ln()
-                                .abs()
-                                .total_cmp(&(b.frequency_hz / f).ln().abs())
-                        })
-                        .filter(|p| (p.frequency_hz / f).ln().abs() < 0.03)
-                };
+                let near = |f: f64| super::nearest(&r.points, f, |p| p.frequency_hz);
                 let rows = [
                     20.0, 50.0, 100.0, 200.0, 500.0, 1000.0, 2000.0, 5000.0, 10000.0, 20000.0,
                 ];

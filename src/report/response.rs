@@ -186,15 +186,7 @@ fn nearest(
     points: &[crate::analysis::sweep::ResponsePoint],
     f: f64,
 ) -> Option<&crate::analysis::sweep::ResponsePoint> {
-    points
-        .iter()
-        .min_by(|a, b| {
-            (a.frequency_hz / f)
-                .ln()
-                .abs()
-                .total_cmp(&(b.frequency_hz / f).ln().abs())
-        })
-        .filter(|p| (p.frequency_hz / f).ln().abs() < 0.03)
+    super::nearest(points, f, |p| p.frequency_hz)
 }
 
 fn fmt_hz(f: f64) -> String {

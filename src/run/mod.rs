@@ -245,6 +245,31 @@ pub fn read_stimulus(path: &Path, wanted: &'static str) -> Result<(Capture, Desc
     Ok((cap, desc))
 }
 
+/// The stimulus file (of the `wanted` kind, as [`read_stimulus`]) for the recording at
+/// `capture`: both read, and refused unless they share a sample rate.
+pub fn stimulus_for(
+    stimulus: &Path,
+    wanted: &'static str,
+    capture: &Path,
+) -> Result<(Capture, Description, ampnote::capture::SourceInfo), Failure> {
+    let (stim, desc) = read_stimulus(stimulus, wanted)?;
+    let info = Capture::probe(capture)?;
+    same_rate(desc.sample_rate_hz, info.sample_rate_hz)?;
+    Ok((stim, desc, info))
+}
+
+/// Refuse a capture at another rate than its stimulus.
+pub fn same_rate(stimulus_hz: u32, capture_hz: u32) -> Result<(), Failure> {
+    if stimulus_hz != capture_hz {
+        return Err(Error::SampleRateMismatch {
+            stimulus_hz,
+            capture_hz,
+        }
+        .into());
+    }
+    Ok(())
+}
+
 /// The results of one command, kept in the notebook the user named (if any) as one
 /// measurement: every channel, or none (see [`ampnote::notebook::Notebook::save_measurement`]).
 pub struct Keeper<'a> {

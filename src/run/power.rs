@@ -74,13 +74,7 @@ pub fn run(args: &PowerArgs) -> Result<ExitCode, Failure> {
                 unreachable!("read_stimulus checked the kind");
             };
             let files = FileRig::new(path, flags, args.accept_truncated)?;
-            if files.sample_rate_hz() != desc.sample_rate_hz {
-                return Err(Error::SampleRateMismatch {
-                    stimulus_hz: desc.sample_rate_hz,
-                    capture_hz: files.sample_rate_hz(),
-                }
-                .into());
-            }
+            super::same_rate(desc.sample_rate_hz, files.sample_rate_hz())?;
             let signal = stim
                 .channel(desc.signal_channels[0])
                 .ok_or("the stimulus's signal channel is missing from it")?

@@ -4,7 +4,6 @@ use super::Failure;
 use crate::cli::ResponseArgs;
 use ampnote::analysis::sweep::{ResponseAnalyzer, ResponseConfig, SweepParams};
 use ampnote::capture::{select_channels, Capture};
-use ampnote::error::Error;
 use ampnote::report::response::ResponseReport;
 use ampnote::report::tone::ChannelError;
 use ampnote::report::SCHEMA_VERSION;
@@ -90,13 +89,7 @@ pub fn run(args: &ResponseArgs) -> Result<ExitCode, Failure> {
         .ok_or("the stimulus's signal channel is missing from it")?;
 
     let info = Capture::probe(capture_path)?;
-    if info.sample_rate_hz != desc.sample_rate_hz {
-        return Err(Error::SampleRateMismatch {
-            stimulus_hz: desc.sample_rate_hz,
-            capture_hz: info.sample_rate_hz,
-        }
-        .into());
-    }
+    super::same_rate(desc.sample_rate_hz, info.sample_rate_hz)?;
     let chosen = select_channels(info.channel_count, args.channel.get())?;
     let mut channels = Vec::new();
     let mut channel_errors = Vec::new();

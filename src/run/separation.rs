@@ -99,19 +99,11 @@ fn window_levels(x: &[f64], range: std::ops::Range<usize>, w: usize) -> Vec<f64>
 pub fn run(args: &SeparationArgs) -> Result<ExitCode, Failure> {
     super::check_save(&args.save)?;
     let cal = args.calibration.resolve(&args.save)?;
-    let (stim, desc) = super::read_stimulus(&args.stimulus, "sweep")?;
+    let (stim, desc, info) = super::stimulus_for(&args.stimulus, "sweep", &args.capture)?;
     let sweep = SweepParams::from_description(&desc).expect("a sweep");
     let x = stim
         .channel(desc.signal_channels.first().copied().unwrap_or(1))
         .ok_or("the stimulus's signal channel is missing from it")?;
-    let info = Capture::probe(&args.capture)?;
-    if info.sample_rate_hz != desc.sample_rate_hz {
-        return Err(Error::SampleRateMismatch {
-            stimulus_hz: desc.sample_rate_hz,
-            capture_hz: info.sample_rate_hz,
-        }
-        .into());
-    }
     if info.channel_count < 2 {
         return Err(format!(
             "{} has one channel: separation needs the driven channel and at least one other, recorded together",

@@ -34,15 +34,7 @@ fn about_the_recording(code: C) -> bool {
 pub fn run(args: &SquareArgs) -> Result<ExitCode, Failure> {
     super::check_save(&args.save)?;
     let cal = args.calibration.resolve(&args.save)?;
-    let (stim, desc) = super::read_stimulus(&args.stimulus, "square or sweep")?;
-    let info = Capture::probe(&args.capture)?;
-    if info.sample_rate_hz != desc.sample_rate_hz {
-        return Err(Error::SampleRateMismatch {
-            stimulus_hz: desc.sample_rate_hz,
-            capture_hz: info.sample_rate_hz,
-        }
-        .into());
-    }
+    let (stim, desc, info) = super::stimulus_for(&args.stimulus, "square or sweep", &args.capture)?;
     let fs = info.sample_rate_hz as f64;
     let chosen = select_channels(info.channel_count, args.channel.get())?;
     let mut channels = Vec::new();

@@ -53,13 +53,7 @@ pub fn run(args: &ZoutArgs) -> Result<ExitCode, Failure> {
                 let (signal, sp) = match &args.stimulus {
                     Some(p) => {
                         let (stim, desc) = super::read_stimulus(p, "sweep")?;
-                        if desc.sample_rate_hz != rate {
-                            return Err(ampnote::Error::SampleRateMismatch {
-                                stimulus_hz: desc.sample_rate_hz,
-                                capture_hz: rate,
-                            }
-                            .into());
-                        }
+                        super::same_rate(desc.sample_rate_hz, rate)?;
                         let x = stim
                             .channel(desc.signal_channels[0])
                             .ok_or("the stimulus's signal channel is missing from it")?;
