@@ -233,12 +233,23 @@ pub struct SeparationArgs {
 
 #[derive(Debug, Args)]
 pub struct SquareArgs {
-    /// The recording of the amplifier's output while the stimulus played.
-    pub capture: PathBuf,
+    /// The recording of the amplifier's output while the stimulus played (or use --rig).
+    pub capture: Option<PathBuf>,
     /// What was played: a square (`ampnote generate square`), or a sweep (`ampnote generate
     /// sweep`), from whose measured response the squares are predicted.
     #[arg(long, value_name = "FILE.wav")]
-    pub stimulus: PathBuf,
+    pub stimulus: Option<PathBuf>,
+    /// Measure on a rig: it plays a sweep (10 Hz to 0.45 x the rate, at most 40 kHz) and the
+    /// squares are predicted from the response it measures.
+    #[command(flatten)]
+    pub rig: RigArgs,
+    /// With --rig: the sweep's RMS level, dBFS.
+    #[arg(long, default_value_t = -20.0, value_name = "DBFS", allow_negative_numbers = true)]
+    pub level: f64,
+    /// With --rig: the sample rate, Hz (96 kHz: the sweep then reaches 40 kHz and the squares'
+    /// edges are sharper).
+    #[arg(long, default_value_t = 96_000, value_name = "HZ")]
+    pub rate: u32,
     /// With a sweep: the square waves to predict, Hz.
     #[arg(long, value_name = "HZ,...", value_delimiter = ',', value_parser = hertz, default_value = "40,1000")]
     pub freq: Vec<f64>,

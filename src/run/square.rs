@@ -34,13 +34,38 @@ fn about_the_recording(code: C) -> bool {
 pub fn run(args: &SquareArgs) -> Result<ExitCode, Failure> {
     super::check_save(&args.save)?;
     let cal = args.calibration.resolve(&args.save)?;
-    let (stim, desc, info) = super::stimulus_for(&args.stimulus, "square or sweep", &args.capture)?;
+    let recorded = super::capture_or_record(
+        &args.capture,
+        &args.rig,
+        cal,
+        "square",
+        args.channel.get(),
+        None,
+        || {
+            let c = ampnote::signal::stimulus::Common {
+                tail_s: 0.5,
+                ..super::rig_common(args.rate, args.level, 0.0)
+            };
+            let top = ampnote::signal::stimulus::default_sweep_stop_hz(args.rate);
+            super::to_played(ampnote::signal::stimulus::sweep(&c, 10.0, top, 3.0))
+        },
+    )?;
+    let cal = recorded.calibration_or(cal);
+    let capture = recorded.capture.as_path();
+    let stimulus = match (&recorded.stimulus, &args.stimulus) {
+        (Some(p), _) | (None, Some(p)) => p.clone(),
+        (None, None) => return Err(
+            "give what was played with --stimulus (a square or a sweep `ampnote generate` wrote)"
+                .into(),
+        ),
+    };
+    let (stim, desc, info) = super::stimulus_for(&stimulus, "square or sweep", capture)?;
     let fs = info.sample_rate_hz as f64;
     let chosen = select_channels(info.channel_count, args.channel.get())?;
     let mut channels = Vec::new();
     let mut channel_errors = Vec::new();
     for &ch in &chosen {
-        let cap = Capture::read_channels(&args.capture, args.accept_truncated, Some(&[ch]))?;
+        let cap = Capture::read_channels(capture, args.accept_truncated, Some(&[ch]))?;
         let x = &cap.channels[0];
         let outcome = match desc.kind {
             Kind::Square {
@@ -119,19 +144,20 @@ pub fn run(args: &SquareArgs) -> Result<ExitCode, Failure> {
             }),
         }
     }
+    ampnote::report::add_rig_notes(&mut channels, &recorded.notes);
     let mut keeper = super::Keeper::new(&args.save);
     keeper.add_each(
         &channels,
         cal,
         None,
         vec![
-            ("stimulus.wav", args.stimulus.as_path()),
-            ("capture.wav", args.capture.as_path()),
+            ("stimulus.wav", stimulus.as_path()),
+            ("capture.wav", capture),
         ],
     );
     let report = SquareReport {
         schema_version: SCHEMA_VERSION,
-        file: args.capture.display().to_string(),
+        file: capture.display().to_string(),
         first: channels.first().cloned(),
         channels,
         channel_errors,

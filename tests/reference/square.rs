@@ -280,3 +280,35 @@ fn square_command_reads_a_recording_and_keeps_the_run() {
         "{err}"
     );
 }
+
+#[test]
+fn square_on_the_simulated_bench() {
+    // On a rig the squares are predicted from the sweep it plays; the simulated amplifier's
+    // output transformer loses the bass, so its 40 Hz square droops far more than its 1 kHz one
+    // (a first-order high-pass's tilt grows with the half period: 1 - exp(-T / (2 tau)); closed
+    // form), and both channels are measured.
+    let captures = super::common::tmpdir("square-rig");
+    let (code, out, err) = super::common::run(&[
+        "square",
+        "--rig",
+        "sim",
+        "--freq",
+        "40,1000",
+        "--json",
+        "--captures-dir",
+        &captures.to_string_lossy(),
+    ]);
+    assert_eq!(code, 0, "{err}");
+    let r: ampnote::report::square::SquareReport = serde_json::from_str(&out).unwrap();
+    assert_eq!(r.channels.len(), 2);
+    for c in &r.channels {
+        assert_eq!(c.source, ampnote::analysis::square::SquareSource::FromSweep);
+        let (low, high) = (&c.squares[0], &c.squares[1]);
+        assert!(
+            low.tilt_percent > 5.0 * high.tilt_percent && high.tilt_percent > 0.0,
+            "tilt {} % at 40 Hz, {} % at 1 kHz",
+            low.tilt_percent,
+            high.tilt_percent
+        );
+    }
+}
