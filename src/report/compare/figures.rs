@@ -395,3 +395,46 @@ pub(super) fn compare_square(s: &mut Sink, a: &[Run], b: &[Run]) {
         );
     }
 }
+
+/// Channel separation with the same channel driven: each other channel's separation at 1 kHz and
+/// its worst over 20 Hz-20 kHz (more is better). A side where the crosstalk sank under the noise
+/// gives only a lower bound: that channel is left out and said so.
+pub(super) fn compare_separation(s: &mut Sink, a: &[Run], b: &[Run]) {
+    use crate::analysis::separation::SeparationResult;
+    let ch = s.ch;
+    let (Some(sa), Some(sb)) = (
+        latest::<SeparationResult>(a, ch),
+        latest::<SeparationResult>(b, ch),
+    ) else {
+        return;
+    };
+    for x in &sa.channels {
+        let Some(y) = sb.channels.iter().find(|y| y.channel == x.channel) else {
+            continue;
+        };
+        if x.at_least_db.is_some() || y.at_least_db.is_some() {
+            s.skipped.push(C::NotCompared.say(format!(
+                "channel {ch} driven: the separation of channel {} is under the noise on one side (only a lower bound): not compared",
+                x.channel
+            )));
+            continue;
+        }
+        s.add(
+            &format!("separation at 1 kHz, ch{} from ch{ch}", x.channel),
+            measured(x.at_1khz_db),
+            measured(y.at_1khz_db),
+            Unit::Db,
+            None,
+        );
+        s.add(
+            &format!(
+                "separation, worst 20 Hz-20 kHz, ch{} from ch{ch}",
+                x.channel
+            ),
+            measured(x.worst_db),
+            measured(y.worst_db),
+            Unit::Db,
+            None,
+        );
+    }
+}

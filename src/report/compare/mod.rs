@@ -55,6 +55,7 @@ pub const FIGURES: &[(&str, Option<Better>)] = &[
     ("d3", Some(Better::Lower)),
     ("output impedance", Some(Better::Lower)),
     ("damping factor", Some(Better::Higher)),
+    ("separation", Some(Better::Higher)),
     ("rise time", Some(Better::Lower)),
     ("overshoot", Some(Better::Lower)),
     ("settling", Some(Better::Lower)),
@@ -402,6 +403,7 @@ pub fn compare(name_a: &str, a: &[Run], name_b: &str, b: &[Run]) -> Comparison {
         compare_imd(&mut s, a, b);
         compare_zout(&mut s, a, b);
         compare_square(&mut s, a, b);
+        compare_separation(&mut s, a, b);
     }
     warnings.extend(skipped);
     if lines.is_empty() {
