@@ -93,3 +93,35 @@ pub fn write_float(dir: &std::path::Path, name: &str, x: Vec<f64>) -> std::path:
     .unwrap();
     p
 }
+
+/// `x` (at `fs`) through the analog transfer function `h` (of frequency in Hz), applied exactly on the
+/// DFT grid: circular (a periodic steady state) when `pad` is false, linear (zero-padded) when
+/// true.
+pub fn through(
+    x: &[f64],
+    fs: f64,
+    h: &dyn Fn(f64) -> realfft::num_complex::Complex64,
+    pad: bool,
+) -> Vec<f64> {
+    let n = if pad {
+        (2 * x.len()).next_power_of_two()
+    } else {
+        x.len()
+    };
+    let mut planner = realfft::RealFftPlanner::<f64>::new();
+    let (fwd, inv) = (planner.plan_fft_forward(n), planner.plan_fft_inverse(n));
+    let mut buf = vec![0.0; n];
+    buf[..x.len()].copy_from_slice(x);
+    let mut spec = fwd.make_output_vec();
+    fwd.process(&mut buf, &mut spec).unwrap();
+    for (k, c) in spec.iter_mut().enumerate() {
+        *c *= h(k as f64 * fs / n as f64) / n as f64;
+    }
+    spec[0].im = 0.0;
+    if n % 2 == 0 {
+        spec[n / 2].im = 0.0;
+    }
+    inv.process(&mut spec, &mut buf).unwrap();
+    buf.truncate(x.len());
+    buf
+}

@@ -504,24 +504,13 @@ impl ampnote::rig::Rig for InductiveSource {
     }
     fn play_and_record(&mut self, _: usize, x: &[f64], rate: u32) -> ampnote::Result<Vec<f64>> {
         use realfft::num_complex::Complex64;
-        let n = (2 * x.len()).next_power_of_two();
-        let mut planner = realfft::RealFftPlanner::<f64>::new();
-        let (fwd, inv) = (planner.plan_fft_forward(n), planner.plan_fft_inverse(n));
-        let mut buf = vec![0.0; n];
-        buf[..x.len()].copy_from_slice(x);
-        let mut spec = fwd.make_output_vec();
-        fwd.process(&mut buf, &mut spec).unwrap();
-        for (k, c) in spec.iter_mut().enumerate() {
-            let w = 2.0 * PI * k as f64 * rate as f64 / n as f64;
-            *c *= Complex64::new(self.load, 0.0) / Complex64::new(self.load + self.r, w * self.l)
-                * Complex64::from_polar(1.0, -w * self.delay / rate as f64);
-            *c /= n as f64;
-        }
-        spec[0].im = 0.0;
-        spec[n / 2].im = 0.0;
-        inv.process(&mut spec, &mut buf).unwrap();
-        buf.truncate(x.len());
-        Ok(buf)
+        let fs = rate as f64;
+        let h = |f: f64| {
+            let w = 2.0 * PI * f;
+            Complex64::new(self.load, 0.0) / Complex64::new(self.load + self.r, w * self.l)
+                * Complex64::from_polar(1.0, -w * self.delay / fs)
+        };
+        Ok(crate::common::through(x, fs, &h, true))
     }
 }
 

@@ -12,31 +12,9 @@ use std::f64::consts::PI;
 
 const FS: f64 = 96_000.0;
 
-/// `x` through the analog transfer function `h` (of frequency in Hz), applied exactly on the
-/// DFT grid: circular (a periodic steady state) when `pad` is false, linear (zero-padded) when
-/// true.
+/// `x` through `h` at this file's rate (see [`super::common::through`]).
 fn through(x: &[f64], h: &dyn Fn(f64) -> Complex64, pad: bool) -> Vec<f64> {
-    let n = if pad {
-        (2 * x.len()).next_power_of_two()
-    } else {
-        x.len()
-    };
-    let mut planner = realfft::RealFftPlanner::<f64>::new();
-    let (fwd, inv) = (planner.plan_fft_forward(n), planner.plan_fft_inverse(n));
-    let mut buf = vec![0.0; n];
-    buf[..x.len()].copy_from_slice(x);
-    let mut spec = fwd.make_output_vec();
-    fwd.process(&mut buf, &mut spec).unwrap();
-    for (k, c) in spec.iter_mut().enumerate() {
-        *c *= h(k as f64 * FS / n as f64) / n as f64;
-    }
-    spec[0].im = 0.0;
-    if n % 2 == 0 {
-        spec[n / 2].im = 0.0;
-    }
-    inv.process(&mut spec, &mut buf).unwrap();
-    buf.truncate(x.len());
-    buf
+    super::common::through(x, FS, h, pad)
 }
 
 fn low_pass_2(fn_hz: f64, zeta: f64) -> impl Fn(f64) -> Complex64 {
@@ -213,19 +191,7 @@ fn square_command_reads_a_recording_and_keeps_the_run() {
     )
     .unwrap();
     let tau = 0.02;
-    let n = s.signal.len();
-    let mut planner = realfft::RealFftPlanner::<f64>::new();
-    let (fwd, inv) = (planner.plan_fft_forward(n), planner.plan_fft_inverse(n));
-    let mut buf = s.signal.clone();
-    let mut spec = fwd.make_output_vec();
-    fwd.process(&mut buf, &mut spec).unwrap();
-    for (k, v) in spec.iter_mut().enumerate() {
-        let w = Complex64::new(0.0, 2.0 * PI * k as f64 * 48_000.0 / n as f64 * tau);
-        *v *= w / (w + 1.0) / n as f64;
-    }
-    spec[0].im = 0.0;
-    spec[n / 2].im = 0.0;
-    inv.process(&mut spec, &mut buf).unwrap();
+    let buf = super::common::through(&s.signal, 48_000.0, &high_pass_1(tau), false);
     let cap = super::common::write_float(&d, "cap.wav", buf);
     let nb = d.join("nb");
     let (code, _, err) = run(&[
