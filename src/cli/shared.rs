@@ -29,6 +29,10 @@ pub struct RigArgs {
     /// Live rig: frames per buffer to ask the host for.
     #[arg(long, value_name = "FRAMES")]
     pub buffer: Option<u32>,
+    /// Simulated bench: a capacitance across the dummy load, microfarads (a long cable or an
+    /// electrostatic speaker), to see the ringing it causes with the transformer's leakage.
+    #[arg(long, value_name = "UF")]
+    pub load_uf: Option<f64>,
     /// Where rig runs keep their stimulus and capture files (and partial captures).
     #[arg(long, default_value = "ampnote-captures", value_name = "DIR")]
     pub captures_dir: PathBuf,
@@ -46,6 +50,7 @@ impl RigArgs {
             buffer_frames: self.buffer,
             keep_dir: self.captures_dir.clone(),
             calibration,
+            load_uf: self.load_uf,
             test_drop_frames: 0,
         })
     }

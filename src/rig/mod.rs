@@ -127,6 +127,8 @@ pub struct RigOptions {
     pub keep_dir: std::path::PathBuf,
     /// The user's calibration (profile and flags).
     pub calibration: Calibration,
+    /// The simulated bench only: a capacitance across the dummy load, microfarads.
+    pub load_uf: Option<f64>,
     /// For tests of the gap detection only: the live rig throws away this many input frames
     /// once, half way through the first stimulus after the pre-flight (0: never).
     pub test_drop_frames: usize,
@@ -143,6 +145,7 @@ impl Default for RigOptions {
             buffer_frames: None,
             keep_dir: "ampnote-captures".into(),
             calibration: Calibration::default(),
+            load_uf: None,
             test_drop_frames: 0,
         }
     }
@@ -160,8 +163,14 @@ pub fn parse_rig_with(spec: &str, options: &RigOptions) -> Result<Box<dyn Rig>> 
     match kind {
         "sim" => {
             let name = if arg.is_empty() { "stock" } else { arg };
-            Ok(Box::new(sim::SimRig::new(model::Model::load(name)?)))
+            let rig = sim::SimRig::new(model::Model::load(name)?)
+                .with_load_capacitance(options.load_uf.unwrap_or(0.0))?;
+            Ok(Box::new(rig))
         }
+        #[cfg(feature = "live")]
+        "card" if options.load_uf.is_some() => Err(crate::error::Error::InvalidSetting(
+            "--load-uf sets the simulated bench's load; on a real bench, connect the capacitor across the dummy load (amplifier off)".into(),
+        )),
         #[cfg(feature = "live")]
         "card" => {
             let name = (!arg.is_empty()).then_some(arg);

@@ -96,6 +96,49 @@ pub struct Warmup {
     pub tau_s: f64,
 }
 
+/// The output transformer's leakage inductance (H) the simulated channel implies: the one whose
+/// corner against the rated load and the winding resistance is the model's treble corner.
+pub fn leakage_h(ch: &Channel, load_ohms: f64) -> f64 {
+    (load_ohms + ch.winding_ohms) / (2.0 * PI * ch.treble_corner_hz)
+}
+
+/// What a capacitance `farads` across the load (`load_ohms`) does to the channel's output: the
+/// leakage inductance L and winding resistance Rw into R || C over the same into R alone,
+/// `(R + Rw + sL) / (R + Rw + s (L + Rw R C) + s^2 L R C)` (circuit closed form); 1 at DC, a
+/// resonance near 1 / (2 pi sqrt(L C)).
+pub fn capacitive_load(
+    ch: &Channel,
+    load_ohms: f64,
+    farads: f64,
+    f: f64,
+) -> realfft::num_complex::Complex64 {
+    let (r, rw, l, c) = (load_ohms, ch.winding_ohms, leakage_h(ch, load_ohms), farads);
+    let s = realfft::num_complex::Complex64::new(0.0, 2.0 * PI * f);
+    (s * l + (r + rw)) / (s * s * (l * r * c) + s * (l + rw * r * c) + (r + rw))
+}
+
+/// `v` (at `fs`) through [`capacitive_load`], exactly at every frequency: in the frequency
+/// domain, zero-padded so nothing wraps round (the network is linear and follows everything
+/// nonlinear in the channel).
+fn through_capacitive_load(v: &mut [f64], ch: &Channel, load_ohms: f64, farads: f64, fs: f64) {
+    let n = (2 * v.len()).next_power_of_two();
+    let mut planner = realfft::RealFftPlanner::<f64>::new();
+    let (fwd, inv) = (planner.plan_fft_forward(n), planner.plan_fft_inverse(n));
+    let mut buf = vec![0.0; n];
+    buf[..v.len()].copy_from_slice(v);
+    let mut spec = fwd.make_output_vec();
+    fwd.process(&mut buf, &mut spec)
+        .expect("sizes match the plan");
+    for (k, c) in spec.iter_mut().enumerate() {
+        *c *= capacitive_load(ch, load_ohms, farads, k as f64 * fs / n as f64) / n as f64;
+    }
+    spec[0].im = 0.0;
+    spec[n / 2].im = 0.0;
+    inv.process(&mut spec, &mut buf)
+        .expect("sizes match the plan");
+    v.copy_from_slice(&buf[..v.len()]);
+}
+
 /// The simulated bench as a [`Rig`].
 pub struct SimRig {
     pub model: Model,
@@ -107,6 +150,9 @@ pub struct SimRig {
     /// Load-line tables already built, by channel and load: a staircase plays dozens of steps
     /// into the same load, and each table costs thousands of load-line solutions.
     transfers: Vec<((usize, u64), std::sync::Arc<Transfer>)>,
+    /// A capacitance across the dummy load (F), as a long speaker cable or an electrostatic
+    /// speaker puts there; 0 for none.
+    load_farads: f64,
 }
 
 impl SimRig {
@@ -119,7 +165,19 @@ impl SimRig {
             warmup: None,
             clock_s: 0.0,
             transfers: Vec::new(),
+            load_farads: 0.0,
         }
+    }
+
+    /// The bench with `microfarads` across the dummy load (0 to 100 uF).
+    pub fn with_load_capacitance(mut self, microfarads: f64) -> Result<Self> {
+        if !(microfarads.is_finite() && (0.0..=100.0).contains(&microfarads)) {
+            return Err(Error::InvalidSetting(format!(
+                "--load-uf must lie between 0 and 100 uF, got {microfarads}"
+            )));
+        }
+        self.load_farads = microfarads * 1e-6;
+        Ok(self)
     }
 
     /// The bench switched on cold: see [`Warmup`].
@@ -144,8 +202,13 @@ impl SimRig {
 
 impl Rig for SimRig {
     fn describe(&self) -> String {
+        let c = if self.load_farads > 0.0 {
+            format!(" || {} uF", self.load_farads * 1e6)
+        } else {
+            String::new()
+        };
         format!(
-            "simulated bench: {} into {} ohm",
+            "simulated bench: {} into {} ohm{c}",
             self.model.name, self.load_ohms
         )
     }
@@ -220,7 +283,7 @@ impl Rig for SimRig {
             &transfer,
             &self.model.bench,
             &ch,
-            self.load_ohms,
+            (self.load_ohms, self.load_farads),
             stimulus,
             fs,
             seed,
@@ -241,7 +304,7 @@ pub fn simulate(
         &Transfer::new(ch, load_ohms),
         bench,
         ch,
-        load_ohms,
+        (load_ohms, 0.0),
         stimulus,
         fs,
         seed,
@@ -253,7 +316,7 @@ fn simulate_with(
     transfer: &Transfer,
     bench: &Bench,
     ch: &Channel,
-    load_ohms: f64,
+    (load_ohms, load_farads): (f64, f64),
     stimulus: &[f64],
     fs: f64,
     seed: u64,
@@ -284,32 +347,50 @@ fn simulate_with(
     let noise_sigma = ch.noise_vrms * ((fs / 2.0) / 20_000.0).sqrt();
     let (wh, wr) = (2.0 * PI * ch.mains_hz / fs, 4.0 * PI * ch.mains_hz / fs);
     let full_in = bench.input_fs_vrms * SQRT_2;
+    // The channel up to its output (the interface's DAC noise drawn here), then what is added at
+    // the output and the ADC (hum, noise, quantisation). Without a capacitive load each sample
+    // goes through both at once, so the noise draws keep their order.
+    let mut front = |rng: &mut Rng, s: f64| {
+        let dac = q(s, bench.bits) + dac_sigma * rng.gaussian();
+        let v_in = dac * bench.output_fs_vrms * SQRT_2;
+        let g = ch.driver_gain * v_in;
+        let vg = ch.bias_v + g + ch.driver_h2_per_v * g * g;
+        // Above 0 V the grid conducts: a smooth knee (0.5 V wide) into the divided slope.
+        let over = 0.5 * (vg / 0.5).exp().ln_1p();
+        let vg = vg - (1.0 - k_grid) * if vg > 20.0 { vg } else { over };
+        let v_sec = transfer.at(vg) / n * divider;
+        // Output transformer: bass roll-off, core distortion growing as flux (V / f) grows,
+        // treble roll-off.
+        let hp = hp_a * (hp_prev_out + v_sec - hp_prev_in);
+        hp_prev_in = v_sec;
+        hp_prev_out = hp;
+        flux = flux * leak + hp / fs;
+        let phi = flux / flux_ref;
+        let cored = hp - 4.0 * ch.core_h3_at_20hz * core_peak * phi * phi * phi;
+        lp.run(cored)
+    };
+    let back = |rng: &mut Rng, i: usize, mut v: f64| {
+        v += ch.hum_vrms * SQRT_2 * (wh * i as f64 + 0.4).sin()
+            + ch.ripple_vrms * SQRT_2 * (wr * i as f64 + 1.3).sin()
+            + noise_sigma * rng.gaussian();
+        let x = v / bench.attenuation / full_in + adc_sigma * rng.gaussian();
+        q(x, bench.bits)
+    };
+    if load_farads > 0.0 {
+        let mut v: Vec<f64> = stimulus.iter().map(|&s| front(&mut rng, s)).collect();
+        through_capacitive_load(&mut v, ch, load_ohms, load_farads, fs);
+        return v
+            .into_iter()
+            .enumerate()
+            .map(|(i, v)| back(&mut rng, i, v))
+            .collect();
+    }
     stimulus
         .iter()
         .enumerate()
         .map(|(i, &s)| {
-            let dac = q(s, bench.bits) + dac_sigma * rng.gaussian();
-            let v_in = dac * bench.output_fs_vrms * SQRT_2;
-            let g = ch.driver_gain * v_in;
-            let vg = ch.bias_v + g + ch.driver_h2_per_v * g * g;
-            // Above 0 V the grid conducts: a smooth knee (0.5 V wide) into the divided slope.
-            let over = 0.5 * (vg / 0.5).exp().ln_1p();
-            let vg = vg - (1.0 - k_grid) * if vg > 20.0 { vg } else { over };
-            let v_sec = transfer.at(vg) / n * divider;
-            // Output transformer: bass roll-off, core distortion growing as flux (V / f) grows,
-            // treble roll-off.
-            let hp = hp_a * (hp_prev_out + v_sec - hp_prev_in);
-            hp_prev_in = v_sec;
-            hp_prev_out = hp;
-            flux = flux * leak + hp / fs;
-            let phi = flux / flux_ref;
-            let cored = hp - 4.0 * ch.core_h3_at_20hz * core_peak * phi * phi * phi;
-            let mut v = lp.run(cored);
-            v += ch.hum_vrms * SQRT_2 * (wh * i as f64 + 0.4).sin()
-                + ch.ripple_vrms * SQRT_2 * (wr * i as f64 + 1.3).sin()
-                + noise_sigma * rng.gaussian();
-            let x = v / bench.attenuation / full_in + adc_sigma * rng.gaussian();
-            q(x, bench.bits)
+            let v = front(&mut rng, s);
+            back(&mut rng, i, v)
         })
         .collect()
 }

@@ -710,3 +710,61 @@ fn inconsistent_descriptions_are_refused_not_followed() {
     }
     std::fs::remove_dir_all(&d).ok();
 }
+
+#[test]
+fn a_capacitive_load_on_the_simulated_bench_follows_its_circuit() {
+    // 2 uF across the 8 ohm load: the response changes by exactly the leakage-inductance network
+    // (R + Rw + sL) / (R + Rw + s(L + Rw R C) + s^2 L R C) (circuit closed form; both curves are
+    // relative to 1 kHz, so the ratio is too), within 0.1 dB from 100 Hz to 12.5 kHz; and the
+    // square predicted from it rings where it did not.
+    use ampnote::analysis::sweep::{ResponseAnalyzer, ResponseConfig, SweepParams};
+    use ampnote::rig::model::Model;
+    use ampnote::rig::sim::{capacitive_load, SimRig};
+    use ampnote::rig::Rig;
+    use ampnote::signal::stimulus::{sweep, Common};
+    let c = Common {
+        tail_s: 0.5,
+        ..Common::mono(96_000, -20.0)
+    };
+    let s = sweep(&c, 10.0, 40_000.0, 3.0).unwrap();
+    let sp = SweepParams::from_description(&s.description).unwrap();
+    let measure = |uf: f64| {
+        let mut rig = SimRig::new(Model::load("stock").unwrap())
+            .with_load_capacitance(uf)
+            .unwrap();
+        let y = rig.play_and_record(1, &s.signal, 96_000).unwrap();
+        ResponseAnalyzer::new(ResponseConfig::default())
+            .unwrap()
+            .analyze(1, &s.signal, sp, &y, 96_000.0, 1.0)
+            .unwrap()
+    };
+    let (plain, loaded) = (measure(0.0), measure(2.0));
+    let ch = Model::load("stock").unwrap().left;
+    let at = |r: &ampnote::analysis::sweep::ResponseResult, f: f64| {
+        let pairs: Vec<(f64, f64)> = r
+            .points
+            .iter()
+            .map(|p| (p.frequency_hz, p.magnitude_db))
+            .collect();
+        ampnote::analysis::sweep::interpolate_log(&pairs, f)
+    };
+    let db = |f: f64| 20.0 * capacitive_load(&ch, 8.0, 2e-6, f).norm().log10();
+    for f in [100.0, 1000.0, 5000.0, 8000.0, 10_000.0, 12_500.0] {
+        let got = at(&loaded, f) - at(&plain, f);
+        let want = db(f) - db(1000.0);
+        assert!(
+            (got - want).abs() < 0.1,
+            "{f} Hz: {got:.3} dB vs {want:.3} dB"
+        );
+    }
+    let bw = ampnote::signal::stimulus::square_bandwidth_below(40_000.0 * 0.95);
+    let sq = |r| ampnote::analysis::square::from_response(r, 1000.0, bw).unwrap();
+    let (q0, q2) = (sq(&plain), sq(&loaded));
+    assert!(
+        q2.overshoot_percent > q0.overshoot_percent + 5.0 && q2.ringing_hz.is_some(),
+        "overshoot {} % -> {} %, ringing {:?}",
+        q0.overshoot_percent,
+        q2.overshoot_percent,
+        q2.ringing_hz
+    );
+}
