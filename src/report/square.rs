@@ -95,9 +95,6 @@ impl SquareReport {
                 let _ = writeln!(s, "  warning: {w}");
             }
         }
-        for e in &self.channel_errors {
-            let _ = writeln!(s, "\nChannel {}: {}", e.channel, e.error);
-        }
         s
     }
 }

@@ -173,7 +173,8 @@ impl SimRig {
     pub fn with_load_capacitance(mut self, microfarads: f64) -> Result<Self> {
         if !(microfarads.is_finite() && (0.0..=100.0).contains(&microfarads)) {
             return Err(Error::InvalidSetting(format!(
-                "--load-uf must lie between 0 and 100 uF, got {microfarads}"
+                "--load-uf must lie between 0 and 100 uF, got {}",
+                crate::error::shown(microfarads)
             )));
         }
         self.load_farads = microfarads * 1e-6;

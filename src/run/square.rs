@@ -34,6 +34,16 @@ fn about_the_recording(code: C) -> bool {
 pub fn run(args: &SquareArgs) -> Result<ExitCode, Failure> {
     super::check_save(&args.save)?;
     let cal = args.calibration.resolve(&args.save)?;
+    if args.rig.rig.is_some() {
+        // The rig's sweep runs from 10 Hz to 0.45 x the rate: say so before anything plays.
+        let top = ampnote::signal::stimulus::default_sweep_stop_hz(args.rate);
+        if let Some(f) = args.freq.iter().find(|&&f| !(10.0..top).contains(&f)) {
+            return Err(format!(
+                "--freq {f} Hz lies outside the sweep a rig plays here (10 Hz to {top:.0} Hz)"
+            )
+            .into());
+        }
+    }
     let recorded = super::capture_or_record(
         &args.capture,
         &args.rig,

@@ -21,6 +21,9 @@ pub fn run(args: &ZoutArgs) -> Result<ExitCode, Failure> {
         )
         .into());
     };
+    if args.rig.load_uf.is_some() {
+        return Err("--load-uf cannot go with zout: the two-load method needs loads that are the resistances --loads names, and a capacitance across them is not".into());
+    }
     let cal = args.calibration.resolve(&args.save)?;
     // The rig, the signal it plays and how to read it: a stimulus made here for a rig, the
     // stimulus file (a sweep) or none (steady tones at any frequency) for recordings.
