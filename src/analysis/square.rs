@@ -211,7 +211,7 @@ fn edge(y: &[f64], mid: f64, range: f64, guard: usize) -> Result<Edge> {
     })
 }
 
-/// The figures of one period `y` (`m` points over the period `1 / f0`) of the response to a
+/// The figures of one period `y` (errors name channel 0: the caller knows the channel) (`m` points over the period `1 / f0`) of the response to a
 /// square whose own rise time is `stimulus_rise_s`.
 pub fn figures(y: &[f64], f0: f64, stimulus_rise_s: f64) -> Result<SquareFigures> {
     let m = y.len();

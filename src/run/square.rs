@@ -145,6 +145,19 @@ pub fn run(args: &SquareArgs) -> Result<ExitCode, Failure> {
             }
             _ => unreachable!("read_stimulus checked the kind"),
         };
+        // The square analysis speaks of a period, not a channel: name it here.
+        let outcome = outcome.map_err(|e| match e {
+            Error::WrongKind {
+                channel: 0,
+                found,
+                next,
+            } => Error::WrongKind {
+                channel: ch,
+                found,
+                next,
+            },
+            e => e,
+        });
         match outcome {
             Ok(r) => channels.push(r),
             Err(err @ Error::InvalidSetting(_)) => return Err(err.into()),
