@@ -177,6 +177,7 @@ def main():
         ("steps", ["steps", "--from", "-20", "--to", "-10", "--step", "5", "--dwell", "0.3",
                    "--settle", "0.1"]),
         ("tone", ["tone", "--seconds", "1"]),
+        ("square", ["square", "--seconds", "1"]),
     ]:
         path = os.path.join(tmp, kind + ".wav")
         subprocess.run([binary, "generate"] + args + ["--out", path], check=True,
@@ -186,6 +187,7 @@ def main():
         "sweep": lambda s, c: ["response", c, "--stimulus", s],
         "twotone": lambda s, c: ["imd", c, "--stimulus", s],
         "steps": lambda s, c: ["power", c, "--stimulus", s],
+        "square": lambda s, c: ["square", c, "--stimulus", s],
     }
     here = os.path.dirname(os.path.abspath(__file__))
     coded = {}
@@ -257,6 +259,10 @@ def main():
             (["trend", tone], ["--every", "--harmonics"]),
             (["separation", tone, "--stimulus", sw], ["--driven"]),
             (["watch", "--rig", "sim", "--seconds", "0.3", "--json"], ["--refresh"]),
+            (["square"] + rig, ["--freq", "--level", "--rate", "--load-uf"]),
+            (["square", tone, "--stimulus", sw], ["--freq"]),
+            (["generate", "square", "--out", tt + ".sq"], ["--freq", "--bandwidth", "--seconds",
+                                                          "--level", "--rate"]),
         ]
         for base_cmd, flags in plans:
             for flag in flags:
