@@ -287,7 +287,8 @@ pub fn solve_spd(g: &mut [f64], b: &[f64], m: usize) -> Option<Vec<f64>> {
 /// frequencies at once (the three-parameter fit when `freqs` has one entry): finds `A_i, B_i, C`
 /// minimising `sum_n (x[n] - sum_i (A_i cos(w_i n) + B_i sin(w_i n)) - C)^2`, with `w_i = 2 pi
 /// freqs[i]` (cycles per sample). Returns `([(A_i, B_i)], C)`. Costs `O(N m^2)`: it is the slow,
-/// independent check of [`fit_lines`] in the tests, not the engine.
+/// independent check of [`fit_lines`] in the tests, and the engine only where N and m are small
+/// (the mains lines in a sweep's fraction of a second of silence).
 pub fn sine_fit_time_domain(x: &[f64], freqs: &[f64]) -> Option<(Vec<(f64, f64)>, f64)> {
     let m = 2 * freqs.len() + 1;
     let mut g = vec![0.0f64; m * m];

@@ -112,36 +112,51 @@ fn line(t: &[f64], y: &[f64]) -> (f64, f64) {
     (my - b * mt, b)
 }
 
-/// A level along a half period: a straight line fitted over `from..to`, in log terms (an
-/// exponential droop, as a coupling network gives) when every point there lies on one side of
-/// the midline by more than 1 % of `scale`.
-fn level_fit(
-    y: &[f64],
-    from: usize,
-    to: usize,
+/// A level along a half period: a straight line, in log terms about the midline (an exponential
+/// droop, as a coupling network gives) when `log`.
+#[derive(Debug, Clone, Copy)]
+struct Level {
+    a: f64,
+    b: f64,
     mid: f64,
-    scale: f64,
-) -> impl Fn(f64) -> f64 + 'static {
-    let idx: Vec<f64> = (from..to).map(|i| i as f64).collect();
-    let vals: Vec<f64> = (from..to).map(|i| y[i] - mid).collect();
-    let positive = vals.iter().all(|v| *v > 0.01 * scale);
-    let negative = vals.iter().all(|v| *v < -0.01 * scale);
-    let (log, sign) = (positive || negative, if negative { -1.0 } else { 1.0 });
-    let fitted: Vec<f64> = if log {
-        vals.iter().map(|v| (v * sign).ln()).collect()
-    } else {
-        vals.clone()
-    };
-    let (a, b) = line(&idx, &fitted);
-    move |i: f64| {
-        let v = a + b * i;
-        mid + if log { sign * v.exp() } else { v }
+    log: bool,
+    sign: f64,
+}
+
+impl Level {
+    /// Fitted over `from..to`, in log terms when every point there lies on one side of the
+    /// midline by more than 1 % of `scale`.
+    fn fit(y: &[f64], from: usize, to: usize, mid: f64, scale: f64) -> Level {
+        let idx: Vec<f64> = (from..to).map(|i| i as f64).collect();
+        let vals: Vec<f64> = (from..to).map(|i| y[i] - mid).collect();
+        let positive = vals.iter().all(|v| *v > 0.01 * scale);
+        let negative = vals.iter().all(|v| *v < -0.01 * scale);
+        let (log, sign) = (positive || negative, if negative { -1.0 } else { 1.0 });
+        let fitted: Vec<f64> = if log {
+            vals.iter().map(|v| (v * sign).ln()).collect()
+        } else {
+            vals
+        };
+        let (a, b) = line(&idx, &fitted);
+        Level {
+            a,
+            b,
+            mid,
+            log,
+            sign,
+        }
+    }
+
+    /// The level at point `i`.
+    fn at(&self, i: f64) -> f64 {
+        let v = self.a + self.b * i;
+        self.mid + if self.log { self.sign * v.exp() } else { v }
     }
 }
 
 /// The rising edge of a period whose rising edge is in the middle, and the levels either side.
 struct Edge {
-    top: Box<dyn Fn(f64) -> f64>,
+    top: Level,
     top_start: f64,
     top_end: f64,
     step: f64,
@@ -159,9 +174,9 @@ fn edge(y: &[f64], mid: f64, range: f64, guard: usize) -> Result<Edge> {
     let (e, half) = (m / 2, m / 2);
     let to = half.saturating_sub(guard).max(half / 10 + 1);
     let from = (half * 55 / 100).min(to - half / 10);
-    let base = level_fit(y, from, to, mid, range);
-    let top = level_fit(y, e + from, e + to, mid, range);
-    let (top_start, top_end, base_end) = (top(e as f64), top(m as f64), base(e as f64));
+    let base = Level::fit(y, from, to, mid, range);
+    let top = Level::fit(y, e + from, e + to, mid, range);
+    let (top_start, top_end, base_end) = (top.at(e as f64), top.at(m as f64), base.at(e as f64));
     let step = top_start - base_end;
     if step.is_nan() || step <= 0.0 {
         return Err(Error::WrongKind {
@@ -200,7 +215,7 @@ fn edge(y: &[f64], mid: f64, range: f64, guard: usize) -> Result<Edge> {
     }
     let t90 = cross(i, l90);
     Ok(Edge {
-        top: Box::new(top),
+        top,
         top_start,
         top_end,
         step,
@@ -240,12 +255,12 @@ pub fn figures(y: &[f64], f0: f64, stimulus_rise_s: f64) -> Result<SquareFigures
     let first = edge(&y, mid, range, half / 20)?;
     let rise_points = (first.t90 - first.t10).max(0.0) as usize;
     let found = edge(&y, mid, range, (half / 20).max(3 * rise_points))?;
-    let (top, step, c50, t50) = (&found.top, found.step, found.c50, found.t50);
+    let (top, step, c50, t50) = (found.top, found.step, found.c50, found.t50);
     let (top_start, top_end, t10, t90) = (found.top_start, found.top_end, found.t10, found.t90);
     let measured_rise = (t90 - t10) * dt;
     // Overshoot: the highest point over the top's line in the first half of the high half.
     let (peak_i, over) = (c50..e + half / 2)
-        .map(|i| (i, y[i] - top(i as f64)))
+        .map(|i| (i, y[i] - top.at(i as f64)))
         .max_by(|a, b| a.1.total_cmp(&b.1))
         .unwrap_or((c50, 0.0));
     let overshoot_percent = 100.0 * over.max(0.0) / step;
@@ -253,7 +268,7 @@ pub fn figures(y: &[f64], f0: f64, stimulus_rise_s: f64) -> Result<SquareFigures
     // the line by more than 1 % of the step.
     let settled_from = (c50..e + half * 95 / 100)
         .rev()
-        .find(|&i| (y[i] - top(i as f64)).abs() > 0.01 * step)
+        .find(|&i| (y[i] - top.at(i as f64)).abs() > 0.01 * step)
         .map(|i| i + 1);
     let settling_us = settled_from
         .filter(|&i| i < e + half * 95 / 100)
@@ -261,7 +276,7 @@ pub fn figures(y: &[f64], f0: f64, stimulus_rise_s: f64) -> Result<SquareFigures
     // Ringing: sign changes of the top about its line after the peak, while they stand above
     // 0.1 % of the step.
     let r: Vec<f64> = (peak_i..e + half * 95 / 100)
-        .map(|i| y[i] - top(i as f64))
+        .map(|i| y[i] - top.at(i as f64))
         .collect();
     let mut zeros = Vec::new();
     for k in 0..r.len().saturating_sub(1) {
@@ -278,7 +293,7 @@ pub fn figures(y: &[f64], f0: f64, stimulus_rise_s: f64) -> Result<SquareFigures
         let (a, b) = (start as usize, z as usize);
         if b > a {
             let (k, v) = (a..=b)
-                .map(|i| (i, (y[i] - top(i as f64)).abs()))
+                .map(|i| (i, (y[i] - top.at(i as f64)).abs()))
                 .max_by(|p, q| p.1.total_cmp(&q.1))
                 .expect("a stretch");
             if v > RINGING_FLOOR * step {

@@ -371,6 +371,19 @@ fn harmonic_curve(r: &ResponseResult, points: &[HarmonicPoint]) -> Points {
     )
 }
 
+/// A run's lowest square.
+fn lowest_square(s: &[SquareFigures]) -> Option<&SquareFigures> {
+    s.iter()
+        .min_by(|a, b| a.frequency_hz.total_cmp(&b.frequency_hz))
+}
+
+/// A run's highest square, when it has more than one (else the lowest chart shows it).
+fn highest_square(s: &[SquareFigures]) -> Option<&SquareFigures> {
+    s.iter()
+        .max_by(|a, b| a.frequency_hz.total_cmp(&b.frequency_hz))
+        .filter(|_| s.len() > 1)
+}
+
 /// The reference line's colour (dark red: it must not read as grid).
 const REFERENCE: RGBColor = RGBColor(160, 30, 30);
 
@@ -587,42 +600,28 @@ pub(crate) fn build(
         })
     });
     let trend_thd = trend(|p| p.thd_percent.or(p.thdn_percent));
-    // One period of each square run's lowest and highest square, the rising edge in the middle.
+    // One period of each square run's lowest and highest square, the rising edge in the middle;
+    // one pick serves the curves and the chart's title.
     let square_at = |pick: fn(&[SquareFigures]) -> Option<&SquareFigures>| {
-        curves_for(runs, move |q: &SquareResult| {
+        let curves = curves_for(runs, move |q: &SquareResult| {
             pick(&q.squares).map_or(Vec::new(), |f| {
                 let half = 0.5e6 / f.frequency_hz;
                 f.trace.iter().map(|&(t, v)| (t / half, v)).collect()
             })
-        })
-    };
-    let square_low = square_at(|s| {
-        s.iter()
-            .min_by(|a, b| a.frequency_hz.total_cmp(&b.frequency_hz))
-    });
-    let square_high = square_at(|s| {
-        s.iter()
-            .max_by(|a, b| a.frequency_hz.total_cmp(&b.frequency_hz))
-            .filter(|_| s.len() > 1)
-    });
-    let square_title = |pick: fn(&[SquareFigures]) -> Option<&SquareFigures>| {
-        runs.iter()
+        });
+        let title = runs
+            .iter()
             .find_map(|r| SquareResult::of(&r.result).and_then(|q| pick(&q.squares)))
             .map_or("Square wave".to_string(), |f| {
                 format!(
                     "Square wave at {} (one period, rising edge at 0)",
                     crate::report::number::show(f.frequency_hz, crate::report::number::Unit::Hz)
                 )
-            })
+            });
+        (curves, title)
     };
-    let low_title = square_title(|s| {
-        s.iter()
-            .min_by(|a, b| a.frequency_hz.total_cmp(&b.frequency_hz))
-    });
-    let high_title = square_title(|s| {
-        s.iter()
-            .max_by(|a, b| a.frequency_hz.total_cmp(&b.frequency_hz))
-    });
+    let (square_low, low_title) = square_at(lowest_square);
+    let (square_high, high_title) = square_at(highest_square);
     // Output impedance across the band (sweep runs), and its phase where it was measured.
     let zout_curve = |z: &ZoutResult, y: fn(&ZoutPoint) -> Option<f64>| match (
         z.points.first(),

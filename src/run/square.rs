@@ -72,22 +72,28 @@ pub fn run(args: &SquareArgs) -> Result<ExitCode, Failure> {
     let (stim, desc, info) = super::stimulus_for(&stimulus, "square or sweep", capture)?;
     let fs = info.sample_rate_hz as f64;
     let chosen = select_channels(info.channel_count, args.channel.get())?;
+    // One analyser for every channel (the sweep's caches its transform plans across them).
+    let hint = match desc.kind {
+        Kind::Square { frequency_hz, .. } => Some(frequency_hz),
+        _ => None,
+    };
+    let tone_analyzer = ToneAnalyzer::new(ToneConfig {
+        fundamental_hint_hz: hint,
+        ..ToneConfig::default()
+    })?;
+    let sweep_analyzer = ResponseAnalyzer::new(ResponseConfig::default())?;
+    let played = stim
+        .channel(desc.signal_channels[0])
+        .ok_or("the stimulus's signal channel is missing from it")?;
     let mut channels = Vec::new();
     let mut channel_errors = Vec::new();
     for &ch in &chosen {
         let cap = Capture::read_channels(capture, args.accept_truncated, Some(&[ch]))?;
         let x = &cap.channels[0];
         let outcome = match desc.kind {
-            Kind::Square {
-                frequency_hz,
-                bandwidth_hz,
-            } => {
+            Kind::Square { bandwidth_hz, .. } => {
                 // The steady span and the fundamental as the recorder's clock has it.
-                let tone = ToneAnalyzer::new(ToneConfig {
-                    fundamental_hint_hz: Some(frequency_hz),
-                    ..ToneConfig::default()
-                })?
-                .analyze(
+                let tone = tone_analyzer.analyze(
                     &ChannelInput {
                         channel: ch,
                         samples: x,
@@ -115,10 +121,7 @@ pub fn run(args: &SquareArgs) -> Result<ExitCode, Failure> {
             }
             Kind::Sweep { .. } => {
                 let sp = SweepParams::from_description(&desc).expect("a sweep");
-                let played = stim
-                    .channel(desc.signal_channels[0])
-                    .ok_or("the stimulus's signal channel is missing from it")?;
-                ResponseAnalyzer::new(ResponseConfig::default())?
+                sweep_analyzer
                     .analyze(ch, played, sp, x, fs, cap.encoding.overload_threshold())
                     .and_then(|r| {
                         let top = r.points.last().map_or(fs / 2.0, |p| p.frequency_hz);
