@@ -186,6 +186,9 @@ pub enum Error {
         max_hz: f64,
     },
 
+    #[error("{rig} records one channel at a time; channel separation needs every channel recorded while one is driven. Use --rig sim or --rig card with --inputs naming every channel, or record all channels at once and give the file")]
+    RecordsOneChannel { rig: String },
+
     /// The audio interface or its server failed. `retryable`: a transient fault (a stalled
     /// stream, a gap, a busy device) that running the command again may clear.
     #[error("audio interface: {detail}{}", if *retryable { " (this can be transient: run the command again; if it persists, close other audio programs or raise the buffer size)" } else { "" })]
@@ -204,7 +207,7 @@ impl Error {
     /// everything the user gave (usage and input).
     pub fn exit_code(&self) -> u8 {
         match self {
-            Error::Device { .. } => 3,
+            Error::Device { .. } | Error::RecordsOneChannel { .. } => 3,
             Error::Interrupted(_) => 130,
             _ => 2,
         }

@@ -101,6 +101,31 @@ pub struct ResponsePoint {
     pub magnitude_db: f64,
     /// With the latency removed.
     pub phase_deg: f64,
+    /// What the capture's own floor would read here within [`HUM_MARGIN_DB`] of this point:
+    /// the point may be (partly) that floor, not the response. Set only when there is a floor to
+    /// measure (see [`Floor`]).
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub limited_by: Option<Floor>,
+}
+
+/// A floor a response point can sit on.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize, serde::Deserialize)]
+#[serde(rename_all = "lowercase")]
+pub enum Floor {
+    /// The mains hum found in the capture's silence, run through the same deconvolution.
+    Hum,
+    /// The noise of the impulse response (away from every response in it), in the same window
+    /// and averaged over a sixth of an octave.
+    Noise,
+}
+
+impl Floor {
+    pub fn as_str(self) -> &'static str {
+        match self {
+            Floor::Hum => "hum",
+            Floor::Noise => "noise",
+        }
+    }
 }
 
 #[derive(Debug, Clone, Copy, Serialize, serde::Deserialize)]
@@ -257,6 +282,57 @@ impl ResponseAnalyzer {
         fs: f64,
         overload_threshold: f64,
     ) -> Result<ResponseResult> {
+        self.analyze_checked(
+            channel,
+            stimulus,
+            sweep,
+            capture,
+            fs,
+            overload_threshold,
+            None,
+        )
+    }
+
+    /// [`Self::analyze`] for a channel the sweep was not played into (crosstalk), recorded
+    /// with the driven one on one clock: its response is read at the driven channel's latency
+    /// (`latency_samples`, from its own analysis; crosstalk adds no delay that matters), since
+    /// the crosstalk may stand too little above the channel's own hum and noise to be found by
+    /// itself; nor is the capture, mostly that hum and noise, required to be explained by the
+    /// response. The points' [`ResponsePoint::limited_by`] say where the crosstalk is under them.
+    #[allow(clippy::too_many_arguments)]
+    pub fn analyze_undriven(
+        &self,
+        channel: usize,
+        stimulus: &[f64],
+        sweep: SweepParams,
+        capture: &[f64],
+        fs: f64,
+        overload_threshold: f64,
+        latency_samples: f64,
+    ) -> Result<ResponseResult> {
+        self.analyze_checked(
+            channel,
+            stimulus,
+            sweep,
+            capture,
+            fs,
+            overload_threshold,
+            Some(latency_samples),
+        )
+    }
+
+    #[allow(clippy::too_many_arguments)]
+    fn analyze_checked(
+        &self,
+        channel: usize,
+        stimulus: &[f64],
+        sweep: SweepParams,
+        capture: &[f64],
+        fs: f64,
+        overload_threshold: f64,
+        known_latency: Option<f64>,
+    ) -> Result<ResponseResult> {
+        let must_be_explained = known_latency.is_none();
         if let Some((i, _)) = capture.iter().enumerate().find(|(_, v)| !v.is_finite()) {
             return Err(Error::NotFinite {
                 channel,
@@ -364,7 +440,13 @@ impl ResponseAnalyzer {
             .filter(|&i| plausible(i))
             .max_by(|&a, &b| ir[a].abs().total_cmp(&ir[b].abs()))
             .expect("latency zero is always plausible");
+        if let Some(l) = known_latency {
+            peak = (l.round() as isize).rem_euclid(m as isize) as usize;
+        }
         'later: loop {
+            if known_latency.is_some() {
+                break;
+            }
             for n in 2..=max_order + 1 {
                 let at = (peak as f64 + advance(n)).round() as isize;
                 let best = (at - 3..=at + 3)
@@ -400,7 +482,7 @@ impl ResponseAnalyzer {
             }
         };
         let impulse_snr_db = 20.0 * (peak_val.abs() / noise_rms.max(1e-300)).log10();
-        if impulse_snr_db < MIN_IMPULSE_SNR_DB {
+        if impulse_snr_db < MIN_IMPULSE_SNR_DB && known_latency.is_none() {
             // Nothing where the response could be. If a strong response sits before the earliest
             // possible latency, the recorder started after the sweep had begun.
             let global = (0..m)
@@ -427,23 +509,27 @@ impl ResponseAnalyzer {
         // The stimulus through the linear response found must reproduce the capture, less the
         // distortion and the noise. Another sweep (another length, start or rate) deconvolves to
         // something, but that something does not reproduce what was recorded.
-        let fit = explained_by_response(
-            &ExplainInput {
-                capture,
-                stimulus_spectrum: &xs,
-                ir: &ir,
-                latency: lat,
-                before: pre1 as usize,
-                after: post1 as usize,
-                fs,
-                guard: &guard,
-            },
-            &*fwd,
-            &*inv,
-        );
-        check_explained(channel, &fit)?;
-        let frac = parabolic_peak(&ir, peak);
-        let latency_samples = lat as f64 + frac;
+        if must_be_explained {
+            let fit = explained_by_response(
+                &ExplainInput {
+                    capture,
+                    stimulus_spectrum: &xs,
+                    ir: &ir,
+                    latency: lat,
+                    before: pre1 as usize,
+                    after: post1 as usize,
+                    fs,
+                    guard: &guard,
+                },
+                &*fwd,
+                &*inv,
+            );
+            check_explained(channel, &fit)?;
+        }
+        let latency_samples = match known_latency {
+            Some(l) => l,
+            None => lat as f64 + parabolic_peak(&ir, peak),
+        };
         let polarity = if peak_val < 0.0 {
             "inverting"
         } else {
@@ -495,16 +581,68 @@ impl ResponseAnalyzer {
         } else {
             (gone, capture.len())
         };
-        let hum_gn: Option<Vec<Shifted>> = hum_model(capture, silence, fs).map(|hum| {
-            let ir_hum = divide(spectrum(&hum));
-            (2..=max_order).map(|n| harmonic_in(&ir_hum, n)).collect()
-        });
+        let hum = hum_model(capture, silence, fs);
+        let (hum_g1, hum_gn): (Option<Shifted>, Option<Vec<Shifted>>) =
+            match &hum {
+                Some(hum) => {
+                    let ir_hum = divide(spectrum(hum));
+                    let g1 = windowed_spectrum(
+                        &self.planner,
+                        &ir_hum,
+                        latency_samples.rem_euclid(m as f64),
+                        pre1,
+                        post1,
+                        nf,
+                    );
+                    let gn = (2..=max_order).map(|n| harmonic_in(&ir_hum, n)).collect();
+                    (Some(g1), Some(gn))
+                }
+                None => (None, None),
+            };
         let hum_power = |n: usize, f: f64| {
             hum_gn
                 .as_ref()
                 .map_or(0.0, |h| at(&h[n - 2], n as f64 * f).norm_sqr())
         };
         let margin = 10f64.powf(HUM_MARGIN_DB / 10.0);
+        // --- noise: what the capture's noise puts into the linear response -----------------------
+        // Not read off the response itself: there, noise at f exists only at the offsets its
+        // capture time maps to (a log sweep's deconvolution moves each frequency by its own
+        // time), so away from the responses the top octaves have none. Instead: the noise's
+        // spectrum in the capture's silence (hum lines taken out), through the deconvolution in
+        // closed form: white noise of variance s2 gives E|G(f)|^2 = s2 sum(w^2) / |X(f)|^2 for a
+        // window w on the response, X the stimulus's transform (Parseval on the circular
+        // correlation of the noise with the inverse filter).
+        let noise_psd = silence_noise_psd(capture, silence, hum.as_deref(), fs);
+        let w2 = window_energy(pre1, post1);
+        let noise_power = |f: f64| -> Option<f64> {
+            let psd = noise_psd.as_ref()?;
+            let band = |hz: f64, scale: f64| {
+                (
+                    ((hz * 2f64.powf(-1.0 / 12.0)) / scale).floor() as usize,
+                    ((hz * 2f64.powf(1.0 / 12.0)) / scale).ceil() as usize,
+                )
+            };
+            // 1 / |X|^2 averaged over a sixth of an octave of the stimulus's bins.
+            let (lo, hi) = band(f, bin_hz);
+            let (lo, hi) = (lo.max(1).min(xs.len() - 1), hi.max(1).min(xs.len() - 1));
+            let inv_x = (lo..=hi)
+                .map(|k| 1.0 / xs[k].norm_sqr().max(floor))
+                .sum::<f64>()
+                / (hi - lo + 1) as f64;
+            Some(psd.at(f) * w2 * inv_x)
+        };
+        let floor_at = |f: f64, signal_power: f64| -> Option<Floor> {
+            let hum = hum_g1.as_ref().map_or(0.0, |h| at(h, f).norm_sqr());
+            let noise = noise_power(f).unwrap_or(0.0);
+            if hum.max(noise) * margin <= signal_power {
+                None
+            } else if hum >= noise {
+                Some(Floor::Hum)
+            } else {
+                Some(Floor::Noise)
+            }
+        };
 
         // --- reported points ------------------------------------------------------------------
         let f_lo = sweep.start_hz;
@@ -531,6 +669,7 @@ impl ResponseAnalyzer {
                     magnitude_db: 20.0 * (mag / h_ref).max(1e-300).log10()
                         - (correction(f) - corr_ref),
                     phase_deg: g.arg().to_degrees(),
+                    limited_by: floor_at(f, g.norm_sqr()),
                 }
             })
             .collect();
@@ -802,6 +941,103 @@ fn check_explained(channel: usize, e: &Explained) -> Result<()> {
         channel,
         found: format!("{found}: this is a recording of another signal (a different sweep?)"),
         next: "Give the sweep file this capture was recorded from with --stimulus, or record this sweep again (one sweep per capture).".into(),
+    })
+}
+
+/// Sum of the squared window [`windowed_spectrum`] lays on a response (`pre` and `post`
+/// samples either side of the peak).
+fn window_energy(pre: f64, post: f64) -> f64 {
+    let pre_n = pre.floor() as isize;
+    let post_n = post.floor() as isize;
+    let fall = (post_n / 5).max(1);
+    (-pre_n..=post_n)
+        .map(|off| {
+            let w = if off < 0 {
+                0.5 - 0.5 * (PI * (off + pre_n) as f64 / pre_n.max(1) as f64).cos()
+            } else if off > post_n - fall {
+                0.5 + 0.5 * (PI * (off - (post_n - fall)) as f64 / fall as f64).cos()
+            } else {
+                1.0
+            };
+            w * w
+        })
+        .sum()
+}
+
+/// A noise spectrum as variance per sample at each frequency (white noise of variance s2 reads
+/// s2 everywhere), on a grid of `step` Hz.
+struct NoisePsd {
+    power: Vec<f64>,
+    step: f64,
+}
+
+impl NoisePsd {
+    /// Averaged over a sixth of an octave around `f` (at least the bins either side).
+    fn at(&self, f: f64) -> f64 {
+        let last = self.power.len() - 1;
+        let c = ((f / self.step).round() as usize).min(last);
+        let lo = ((f * 2f64.powf(-1.0 / 12.0) / self.step).floor() as usize)
+            .min(c.saturating_sub(1))
+            .max(1)
+            .min(last);
+        let hi = ((f * 2f64.powf(1.0 / 12.0) / self.step).ceil() as usize)
+            .max(c + 1)
+            .min(last);
+        let lo = lo.min(hi);
+        self.power[lo..=hi].iter().sum::<f64>() / (hi - lo + 1) as f64
+    }
+}
+
+/// The least silence the noise spectrum is read from: 0.1 s (our choice: 10 Hz resolution).
+const MIN_NOISE_SILENCE_S: f64 = 0.1;
+
+/// The noise in the capture's silence (`from..to`), the fitted `hum` taken out: Welch's method
+/// (Hann segments of a power of two up to 65536 samples, half overlapping), each segment's
+/// periodogram divided by the window's energy so that white noise of variance s2 reads s2.
+fn silence_noise_psd(
+    capture: &[f64],
+    (from, to): (usize, usize),
+    hum: Option<&[f64]>,
+    fs: f64,
+) -> Option<NoisePsd> {
+    let seg = capture.get(from..to)?;
+    if (seg.len() as f64) < MIN_NOISE_SILENCE_S * fs {
+        return None;
+    }
+    let clean: Vec<f64> = match hum {
+        Some(h) => seg.iter().zip(&h[from..to]).map(|(v, h)| v - h).collect(),
+        None => seg.to_vec(),
+    };
+    let mut n = 1usize << (usize::BITS - 1 - clean.len().leading_zeros());
+    n = n.min(65_536);
+    let window: Vec<f64> = (0..n)
+        .map(|i| 0.5 - 0.5 * (2.0 * PI * (i as f64 + 0.5) / n as f64).cos())
+        .collect();
+    let energy: f64 = window.iter().map(|w| w * w).sum();
+    let mut planner = realfft::RealFftPlanner::<f64>::new();
+    let fft = planner.plan_fft_forward(n);
+    let mut power = vec![0.0; n / 2 + 1];
+    let mut count = 0usize;
+    let mut start = 0;
+    while start + n <= clean.len() {
+        let mut buf: Vec<f64> = clean[start..start + n]
+            .iter()
+            .zip(&window)
+            .map(|(v, w)| v * w)
+            .collect();
+        let mut out = fft.make_output_vec();
+        fft.process(&mut buf, &mut out)
+            .expect("sizes match the plan");
+        for (p, c) in power.iter_mut().zip(&out) {
+            *p += c.norm_sqr() / energy;
+        }
+        count += 1;
+        start += n / 2;
+    }
+    power.iter_mut().for_each(|p| *p /= count.max(1) as f64);
+    Some(NoisePsd {
+        power,
+        step: fs / n as f64,
     })
 }
 

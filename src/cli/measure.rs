@@ -212,14 +212,28 @@ pub struct ResponseArgs {
 
 #[derive(Debug, Args)]
 pub struct SeparationArgs {
-    /// The recording of every channel while the sweep played into one of them.
-    pub capture: PathBuf,
-    /// The sweep file `ampnote generate sweep` wrote.
+    /// The recording of every channel while the sweep played into one of them (or use --rig).
+    pub capture: Option<PathBuf>,
+    /// The sweep file `ampnote generate sweep` wrote (a rig run writes its own).
     #[arg(long, value_name = "SWEEP.wav")]
-    pub stimulus: PathBuf,
-    /// The channel the sweep was played into (1-based).
+    pub stimulus: Option<PathBuf>,
+    /// The channel the sweep is played into (1-based); every other channel is recorded with it.
     #[arg(long, value_name = "N")]
     pub driven: usize,
+    /// Measure on a rig: it plays a sweep (10 Hz to 0.45 x the rate, at most 40 kHz) into
+    /// --driven and records every channel at once.
+    #[command(flatten)]
+    pub rig: RigArgs,
+    /// With --rig: the sweep's RMS level, dBFS.
+    #[arg(long, default_value_t = -20.0, value_name = "DBFS", allow_negative_numbers = true)]
+    pub level: f64,
+    /// With --rig: the sample rate, Hz.
+    #[arg(long, default_value_t = 48_000, value_name = "HZ")]
+    pub rate: u32,
+    /// With --rig: play the sweep at the drive that gives this power (W) at 1 kHz, found with
+    /// a tone first, instead of at --level (common practice: separation at 1 W or rated power).
+    #[arg(long, value_name = "W", conflicts_with = "level")]
+    pub watts: Option<f64>,
     #[command(flatten)]
     pub calibration: CalibrationArgs,
     #[command(flatten)]

@@ -386,7 +386,7 @@ pub fn assess(capture: &[f64], framed: &Framed, rate: u32, reported_gaps: u64) -
     if start < 0.0 || start as usize + framed.stimulus_len > capture.len() {
         return Verdict::Broken("the capture does not hold the whole stimulus".into());
     }
-    let start = start as usize;
+    let start = stimulus_start(&located, framed);
     let aligned = capture[start..start + framed.stimulus_len].to_vec();
     let stim = &framed.signal[framed.stimulus_start..framed.stimulus_start + framed.stimulus_len];
     let holes = find_holes(&aligned, stim, rate);
@@ -398,6 +398,14 @@ pub fn assess(capture: &[f64], framed: &Framed, rate: u32, reported_gaps: u64) -
         ));
     }
     Verdict::Whole { aligned, located }
+}
+
+/// Where the stimulus starts in a capture whose markers were `located` (every input recorded in
+/// the same stream shares it); [`assess`] has checked it lies inside the capture.
+pub fn stimulus_start(located: &Located, framed: &Framed) -> usize {
+    (located.latency_samples + framed.stimulus_start as f64)
+        .round()
+        .max(0.0) as usize
 }
 
 /// What the pre-flight chirp found wrong.

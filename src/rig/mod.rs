@@ -38,6 +38,22 @@ pub trait Rig {
         sample_rate_hz: u32,
     ) -> Result<Vec<f64>>;
 
+    /// Play `stimulus` into amplifier channel `channel` and record every channel's output at once
+    /// (channel separation): one capture per amplifier channel, index 0 for channel 1, each
+    /// aligned and of the stimulus's length like [`Rig::play_and_record`]'s. A rig that records
+    /// one channel at a time refuses.
+    fn play_and_record_all(
+        &mut self,
+        channel: usize,
+        stimulus: &[f64],
+        sample_rate_hz: u32,
+    ) -> Result<Vec<Vec<f64>>> {
+        let _ = (channel, stimulus, sample_rate_hz);
+        Err(crate::error::Error::RecordsOneChannel {
+            rig: self.describe(),
+        })
+    }
+
     /// Whether every capture shares one time base with the stimulus (the simulated bench and the
     /// live rig align each capture to what they played), so phases of two captures can be set
     /// against each other. Separate recordings do not: their relative timing is unknown.

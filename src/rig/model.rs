@@ -67,7 +67,28 @@ pub struct Channel {
     pub noise_vrms: f64,
 }
 
-/// A whole model: its name, the bench, and the two channels.
+/// What of one channel's output reaches the other channel's output terminals (both ways
+/// alike): a flat part (a shared supply and ground return) and a part through the stray
+/// capacitance between the channels' wiring, rising 6 dB per octave. At f the path is
+/// `flat + j capacitive (f / 1 kHz)` (amplitudes from the dB values).
+#[derive(Debug, Clone, Copy, PartialEq, Serialize, Deserialize)]
+#[serde(deny_unknown_fields)]
+pub struct Crosstalk {
+    pub flat_db: f64,
+    pub capacitive_db_at_1khz: f64,
+}
+
+impl Crosstalk {
+    /// The path's complex gain at `f` Hz.
+    pub fn at(&self, f: f64) -> realfft::num_complex::Complex64 {
+        realfft::num_complex::Complex64::new(
+            10f64.powf(self.flat_db / 20.0),
+            10f64.powf(self.capacitive_db_at_1khz / 20.0) * f / 1000.0,
+        )
+    }
+}
+
+/// A whole model: its name, the bench, the two channels and what leaks between them.
 #[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
 #[serde(deny_unknown_fields)]
 pub struct Model {
@@ -75,6 +96,9 @@ pub struct Model {
     pub bench: Bench,
     pub left: Channel,
     pub right: Channel,
+    /// None: the channels share nothing (the separation is the converters' own).
+    #[serde(default)]
+    pub crosstalk: Option<Crosstalk>,
 }
 
 /// The models shipped inside the binary.
@@ -130,6 +154,18 @@ impl Model {
         }
         if !(8..=32).contains(&b.bits) {
             return Err(format!("bench.bits must be 8..32, got {}", b.bits));
+        }
+        if let Some(x) = &self.crosstalk {
+            for (name, v) in [
+                ("crosstalk.flat_db", x.flat_db),
+                ("crosstalk.capacitive_db_at_1khz", x.capacitive_db_at_1khz),
+            ] {
+                if !(v.is_finite() && v <= -20.0) {
+                    return Err(format!(
+                        "{name} must be -20 dB or below (a leak, not a second drive), got {v}"
+                    ));
+                }
+            }
         }
         for (side, c) in [("left", &self.left), ("right", &self.right)] {
             for (name, v) in [

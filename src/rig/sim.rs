@@ -117,10 +117,10 @@ pub fn capacitive_load(
     (s * l + (r + rw)) / (s * s * (l * r * c) + s * (l + rw * r * c) + (r + rw))
 }
 
-/// `v` (at `fs`) through [`capacitive_load`], exactly at every frequency: in the frequency
-/// domain, zero-padded so nothing wraps round (the network is linear and follows everything
-/// nonlinear in the channel).
-fn through_capacitive_load(v: &mut [f64], ch: &Channel, load_ohms: f64, farads: f64, fs: f64) {
+/// `v` (at `fs`) through the linear network `h` (its complex gain against frequency), exactly at
+/// every frequency: in the frequency domain, zero-padded so nothing wraps round. Used for what
+/// follows everything nonlinear in a channel ([`capacitive_load`], [`super::model::Crosstalk`]).
+fn through(v: &mut [f64], fs: f64, h: impl Fn(f64) -> realfft::num_complex::Complex64) {
     let n = (2 * v.len()).next_power_of_two();
     let mut planner = realfft::RealFftPlanner::<f64>::new();
     let (fwd, inv) = (planner.plan_fft_forward(n), planner.plan_fft_inverse(n));
@@ -130,7 +130,7 @@ fn through_capacitive_load(v: &mut [f64], ch: &Channel, load_ohms: f64, farads: 
     fwd.process(&mut buf, &mut spec)
         .expect("sizes match the plan");
     for (k, c) in spec.iter_mut().enumerate() {
-        *c *= capacitive_load(ch, load_ohms, farads, k as f64 * fs / n as f64) / n as f64;
+        *c *= h(k as f64 * fs / n as f64) / n as f64;
     }
     spec[0].im = 0.0;
     spec[n / 2].im = 0.0;
@@ -288,7 +288,54 @@ impl Rig for SimRig {
             stimulus,
             fs,
             seed,
+            None,
         ))
+    }
+
+    /// The driven channel as [`Rig::play_and_record`] gives it; every other channel idle (its
+    /// input silent: its own hum and noise) with the model's [`super::model::Crosstalk`] of the driven
+    /// channel's output voltage added at its output terminals.
+    fn play_and_record_all(
+        &mut self,
+        channel: usize,
+        stimulus: &[f64],
+        sample_rate_hz: u32,
+    ) -> Result<Vec<Vec<f64>>> {
+        let driven = self.play_and_record(channel, stimulus, sample_rate_hz)?;
+        let fs = sample_rate_hz as f64;
+        let bench = self.model.bench;
+        // The driven channel's voltage at the load, read back from its capture (the converter's
+        // own noise in it is 100 dB and more below, and leaks as little as the rest).
+        let volts = bench.attenuation * bench.input_fs_vrms * SQRT_2;
+        let leak: Vec<f64> = match self.model.crosstalk {
+            Some(x) => {
+                let mut v: Vec<f64> = driven.iter().map(|y| y * volts).collect();
+                through(&mut v, fs, |f| x.at(f));
+                v
+            }
+            None => vec![0.0; driven.len()],
+        };
+        let silent = vec![0.0; stimulus.len()];
+        let mut all = Vec::with_capacity(self.channels());
+        for other in 1..=self.channels() {
+            if other == channel {
+                all.push(driven.clone());
+                continue;
+            }
+            let ch = *self.channel(other)?;
+            let seed = self.model.bench.seed ^ (self.runs << 8) ^ ((other as u64) << 4);
+            all.push(simulate_with(
+                &Transfer::new(&ch, self.load_ohms),
+                &bench,
+                &ch,
+                (self.load_ohms, self.load_farads),
+                &silent,
+                fs,
+                seed,
+                Some(&leak),
+            ));
+        }
+        Ok(all)
     }
 }
 
@@ -309,10 +356,13 @@ pub fn simulate(
         stimulus,
         fs,
         seed,
+        None,
     )
 }
 
-/// [`simulate`] with the channel's load-line table already built for `load_ohms`.
+/// [`simulate`] with the channel's load-line table already built for `load_ohms`; `added`
+/// (volts, as long as `stimulus`) is added at the output terminals (another channel's crosstalk).
+#[allow(clippy::too_many_arguments)]
 fn simulate_with(
     transfer: &Transfer,
     bench: &Bench,
@@ -321,6 +371,7 @@ fn simulate_with(
     stimulus: &[f64],
     fs: f64,
     seed: u64,
+    added: Option<&[f64]>,
 ) -> Vec<f64> {
     let mut rng = Rng::new(seed);
     let line = ch.load_line(load_ohms);
@@ -377,9 +428,16 @@ fn simulate_with(
         let x = v / bench.attenuation / full_in + adc_sigma * rng.gaussian();
         q(x, bench.bits)
     };
-    if load_farads > 0.0 {
+    if load_farads > 0.0 || added.is_some() {
         let mut v: Vec<f64> = stimulus.iter().map(|&s| front(&mut rng, s)).collect();
-        through_capacitive_load(&mut v, ch, load_ohms, load_farads, fs);
+        if load_farads > 0.0 {
+            through(&mut v, fs, |f| {
+                capacitive_load(ch, load_ohms, load_farads, f)
+            });
+        }
+        if let Some(a) = added {
+            v.iter_mut().zip(a).for_each(|(v, a)| *v += a);
+        }
         return v
             .into_iter()
             .enumerate()

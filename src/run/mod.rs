@@ -449,58 +449,22 @@ pub fn capture_or_record(
     watts: Option<f64>,
     make_stimulus: impl FnOnce() -> Result<Played, Failure>,
 ) -> Result<Recorded, Failure> {
-    let rig = rig_args.open(calibration)?;
-    let mut rig = match (capture, rig) {
-        (Some(_), Some(_)) => return Err("give a capture file or --rig, not both".into()),
-        (Some(path), None) => {
-            if watts.is_some() {
-                return Err("--watts sets the drive of a rig run; a capture file was recorded at whatever drive it was: drop --watts".into());
-            }
-            return Ok(Recorded {
-                capture: path.clone(),
-                stimulus: None,
-                notes: Vec::new(),
-                calibration: None,
-            });
-        }
-        (None, None) => {
-            return Err(format!(
-                "give a capture file to analyse, or --rig sim (the simulated bench) or --rig card (the audio interface) to measure one ({procedure})"
-            ).into())
-        }
-        (None, Some(rig)) => rig,
+    let mut run = match prepare(
+        capture,
+        rig_args,
+        calibration,
+        procedure,
+        watts.is_some(),
+        make_stimulus,
+    )? {
+        Ready::File(recorded) => return Ok(recorded),
+        Ready::Rig(run) => run,
     };
-    let stim = make_stimulus()?;
+    let (rig, stim) = (&mut run.rig, &run.stim);
     let rate = stim.rate;
     let chosen = ampnote::capture::select_channels(rig.channels(), channel)?;
-    let dir = &rig_args.captures_dir;
-    std::fs::create_dir_all(dir)
-        .map_err(|e| format!("cannot create the captures folder {}: {e}", dir.display()))?;
-    let stamp = ampnote::notebook::timestamp_for_file();
-    let stim_path = dir.join(format!("{procedure}-{stamp}-stimulus.wav"));
-    let cap_path = dir.join(format!("{procedure}-{stamp}-capture.wav"));
-    let description = stim.description.as_ref().map(|d| d.to_json());
-    ampnote::signal::wav::write_wav_described(
-        &stim_path,
-        rate,
-        std::slice::from_ref(&stim.signal),
-        ampnote::signal::wav::WavFormat::Float32,
-        1,
-        description.as_deref(),
-    )?;
-    eprintln!("{}", rig.describe());
     let n = *chosen.iter().max().expect("at least one channel");
     let mut chans = vec![vec![0.0; stim.signal.len()]; n];
-    let write = |path: &std::path::Path, chans: &[Vec<f64>]| {
-        ampnote::signal::wav::write_wav(
-            path,
-            rate,
-            chans,
-            ampnote::signal::wav::WavFormat::Float32,
-            1,
-        )
-        .map_err(|e| e.to_string())
-    };
     let mut notes = Vec::new();
     let tone_hz = match stim.description.as_ref().map(|d| &d.kind) {
         Some(ampnote::signal::stimulus::Kind::Tone { frequency_hz }) => Some(*frequency_hz),
@@ -516,7 +480,7 @@ pub fn capture_or_record(
             (None, _) => &stim.signal,
             (Some(_), None) => return Err("--watts applies to a tone".into()),
             (Some(w), Some(f)) => {
-                let found = ampnote::procedure::drive::drive_for_power(&mut *rig, ch, f, rate, w)?;
+                let found = ampnote::procedure::drive::drive_for_power(&mut **rig, ch, f, rate, w)?;
                 eprintln!("channel {ch}: {}", found.describe(w));
                 let miss = 10.0 * (found.confirmed_w / w).log10();
                 if miss.abs() > ampnote::procedure::drive::TOLERANCE_DB {
@@ -540,8 +504,8 @@ pub fn capture_or_record(
                 let code = err.exit_code();
                 let mut msg = err.to_string();
                 if done > 0 {
-                    let partial = dir.join(format!("{procedure}-{stamp}-capture.partial.wav"));
-                    write(&partial, &chans)?;
+                    let partial = run.partial_path();
+                    write_float(&partial, rate, &chans)?;
                     msg.push_str(&format!(
                         "; the channel(s) measured before it are kept in {} (partial)",
                         partial.display()
@@ -552,16 +516,191 @@ pub fn capture_or_record(
         }
     }
     progress.finish();
-    write(&cap_path, &chans)?;
-    eprintln!(
-        "recorded {} (stimulus {})",
-        cap_path.display(),
-        stim_path.display()
-    );
-    Ok(Recorded {
-        capture: cap_path,
-        stimulus: Some(stim_path),
-        notes,
-        calibration: Some(rig.calibration()),
-    })
+    run.finish(&chans, notes)
+}
+
+/// [`capture_or_record`] for channel separation: the stimulus played into `driven` only and
+/// every channel recorded at once ([`ampnote::rig::Rig::play_and_record_all`]). With `watts`,
+/// the stimulus is played at the drive a 1 kHz tone of that power needs (its RMS level then
+/// matches the tone's).
+pub fn capture_or_record_all(
+    capture: &Option<std::path::PathBuf>,
+    rig_args: &crate::cli::RigArgs,
+    calibration: ampnote::calibration::Calibration,
+    procedure: &str,
+    driven: usize,
+    watts: Option<f64>,
+    make_stimulus: impl FnOnce() -> Result<Played, Failure>,
+) -> Result<Recorded, Failure> {
+    let mut run = match prepare(
+        capture,
+        rig_args,
+        calibration,
+        procedure,
+        watts.is_some(),
+        make_stimulus,
+    )? {
+        Ready::File(recorded) => return Ok(recorded),
+        Ready::Rig(run) => run,
+    };
+    let channels = run.rig.channels();
+    if driven == 0 || driven > channels {
+        return Err(ampnote::error::Error::NoSuchChannel {
+            requested: driven,
+            available: channels,
+        }
+        .into());
+    }
+    let rate = run.stim.rate;
+    let mut notes = Vec::new();
+    if let Some(w) = watts {
+        let found =
+            ampnote::procedure::drive::drive_for_power(&mut *run.rig, driven, 1000.0, rate, w)?;
+        eprintln!("channel {driven}: {}", found.describe(w));
+        let miss = 10.0 * (found.confirmed_w / w).log10();
+        if miss.abs() > ampnote::procedure::drive::TOLERANCE_DB {
+            notes.push((driven, ampnote::warning::WarningCode::Rig.say(format!(
+                "the drive found for {w} W gives {:.3} W ({miss:+.1} dB): the amplifier is not linear there; the sweep played at that drive"
+            , found.confirmed_w))));
+        }
+        let level = run.stim.description.as_ref().map_or(0.0, |d| d.level_dbfs);
+        run.stim.signal =
+            ampnote::procedure::drive::rescaled(&run.stim.signal, level, found.drive_dbfs);
+        if let Some(d) = run.stim.description.as_mut() {
+            d.level_dbfs = found.drive_dbfs;
+        }
+        run.rewrite_stimulus()?;
+    }
+    let seconds = run.stim.signal.len() as f64 / rate as f64;
+    eprintln!("channel {driven} driven, {channels} recorded: playing {seconds:.1} s");
+    let chans = run
+        .rig
+        .play_and_record_all(driven, &run.stim.signal, rate)?;
+    notes.extend(run.rig.take_notes(driven).into_iter().map(|n| (driven, n)));
+    run.finish(&chans, notes)
+}
+
+/// A rig run made ready: the rig open, the stimulus made and written to the captures folder,
+/// and where its capture goes.
+pub struct RigRun {
+    rig: Box<dyn ampnote::rig::Rig>,
+    stim: Played,
+    dir: std::path::PathBuf,
+    stamp: String,
+    procedure: String,
+    stim_path: std::path::PathBuf,
+}
+
+impl RigRun {
+    /// Write the stimulus again after its level was changed (a drive found for a power).
+    fn rewrite_stimulus(&self) -> Result<(), Failure> {
+        let description = self.stim.description.as_ref().map(|d| d.to_json());
+        ampnote::signal::wav::write_wav_described(
+            &self.stim_path,
+            self.stim.rate,
+            std::slice::from_ref(&self.stim.signal),
+            ampnote::signal::wav::WavFormat::Float32,
+            1,
+            description.as_deref(),
+        )?;
+        Ok(())
+    }
+
+    fn partial_path(&self) -> std::path::PathBuf {
+        self.dir.join(format!(
+            "{}-{}-capture.partial.wav",
+            self.procedure, self.stamp
+        ))
+    }
+
+    /// Write the capture and say where it and its stimulus are.
+    fn finish(
+        self,
+        chans: &[Vec<f64>],
+        notes: Vec<(usize, ampnote::warning::Warning)>,
+    ) -> Result<Recorded, Failure> {
+        let cap_path = self
+            .dir
+            .join(format!("{}-{}-capture.wav", self.procedure, self.stamp));
+        write_float(&cap_path, self.stim.rate, chans)?;
+        eprintln!(
+            "recorded {} (stimulus {})",
+            cap_path.display(),
+            self.stim_path.display()
+        );
+        Ok(Recorded {
+            capture: cap_path,
+            stimulus: Some(self.stim_path),
+            notes,
+            calibration: Some(self.rig.calibration()),
+        })
+    }
+}
+
+/// What [`prepare`] found: the user's file, or a rig run made ready.
+pub enum Ready {
+    File(Recorded),
+    Rig(RigRun),
+}
+
+/// The start of every capture a command analyses: the file the user gave (refused with
+/// `--watts`, which sets a rig's drive), or the rig opened, the stimulus made and written.
+fn prepare(
+    capture: &Option<std::path::PathBuf>,
+    rig_args: &crate::cli::RigArgs,
+    calibration: ampnote::calibration::Calibration,
+    procedure: &str,
+    watts: bool,
+    make_stimulus: impl FnOnce() -> Result<Played, Failure>,
+) -> Result<Ready, Failure> {
+    let rig = rig_args.open(calibration)?;
+    let rig = match (capture, rig) {
+        (Some(_), Some(_)) => return Err("give a capture file or --rig, not both".into()),
+        (Some(path), None) => {
+            if watts {
+                return Err("--watts sets the drive of a rig run; a capture file was recorded at whatever drive it was: drop --watts".into());
+            }
+            return Ok(Ready::File(Recorded {
+                capture: path.clone(),
+                stimulus: None,
+                notes: Vec::new(),
+                calibration: None,
+            }));
+        }
+        (None, None) => {
+            return Err(format!(
+                "give a capture file to analyse, or --rig sim (the simulated bench) or --rig card (the audio interface) to measure one ({procedure})"
+            ).into())
+        }
+        (None, Some(rig)) => rig,
+    };
+    let stim = make_stimulus()?;
+    let dir = rig_args.captures_dir.clone();
+    std::fs::create_dir_all(&dir)
+        .map_err(|e| format!("cannot create the captures folder {}: {e}", dir.display()))?;
+    let stamp = ampnote::notebook::timestamp_for_file();
+    let stim_path = dir.join(format!("{procedure}-{stamp}-stimulus.wav"));
+    eprintln!("{}", rig.describe());
+    let run = RigRun {
+        rig,
+        stim,
+        dir,
+        stamp,
+        procedure: procedure.to_string(),
+        stim_path,
+    };
+    run.rewrite_stimulus()?;
+    Ok(Ready::Rig(run))
+}
+
+/// A rig's capture as 32-bit float WAV.
+fn write_float(path: &std::path::Path, rate: u32, chans: &[Vec<f64>]) -> Result<(), Failure> {
+    ampnote::signal::wav::write_wav(
+        path,
+        rate,
+        chans,
+        ampnote::signal::wav::WavFormat::Float32,
+        1,
+    )
+    .map_err(|e| e.to_string().into())
 }

@@ -10,10 +10,6 @@ use ampnote::error::Error;
 use std::fmt::Write as _;
 use std::process::ExitCode;
 
-/// Below this impulse-response signal-to-noise ratio an undriven channel's response is its noise,
-/// not its crosstalk (our choice: 20 dB, where the noise moves a reading by 1 dB at most).
-const MIN_CROSSTALK_SNR_DB: f64 = 20.0;
-
 /// What `ampnote separation --json` prints.
 #[derive(serde::Serialize)]
 struct SeparationReport<'a> {
@@ -33,10 +29,16 @@ fn table(file: &str, r: &SeparationResult) -> String {
             c.channel, r.driven_channel
         );
         match (c.at_least_db, c.at_1khz_db) {
-            (Some(b), _) => {
+            (Some(b), _) if c.points.is_empty() => {
                 let _ = writeln!(
                     s,
                     "  separation  > {b:.1} dB over the sweep (its crosstalk is under its own noise)"
+                );
+            }
+            (Some(b), _) => {
+                let _ = writeln!(
+                    s,
+                    "  at 1 kHz    > {b:.1} dB (its crosstalk there is under its own floor)"
                 );
             }
             (None, Some(k)) => {
@@ -58,7 +60,18 @@ fn table(file: &str, r: &SeparationResult) -> String {
             for f in [20.0, 100.0, 1000.0, 10_000.0, 20_000.0] {
                 if f >= lo.0 && f <= hi.0 {
                     let v = ampnote::analysis::sweep::interpolate_log(&pairs, f);
-                    let _ = writeln!(s, "  {f:>8.0} Hz {v:>7.1} dB");
+                    // Read between two points: under the floor if either is.
+                    let floored = c
+                        .points
+                        .windows(2)
+                        .find(|w| w[0].frequency_hz <= f && w[1].frequency_hz >= f)
+                        .is_some_and(|w| w[0].limited_by.is_some() || w[1].limited_by.is_some());
+                    let mark = if floored {
+                        "  (at least: under the floor)"
+                    } else {
+                        ""
+                    };
+                    let _ = writeln!(s, "  {f:>8.0} Hz {v:>7.1} dB{mark}");
                 }
             }
         }
@@ -70,36 +83,51 @@ fn table(file: &str, r: &SeparationResult) -> String {
 }
 
 fn csv(r: &SeparationResult) -> String {
-    let mut s = String::from("driven_channel,channel,frequency_hz,separation_db\n");
+    let mut s = String::from("driven_channel,channel,frequency_hz,separation_db,limited_by\n");
     for c in &r.channels {
         for p in &c.points {
             let _ = writeln!(
                 s,
-                "{},{},{},{}",
-                r.driven_channel, c.channel, p.frequency_hz, p.separation_db
+                "{},{},{},{},{}",
+                r.driven_channel,
+                c.channel,
+                p.frequency_hz,
+                p.separation_db,
+                p.limited_by.map_or("", |f| f.as_str())
             );
         }
     }
     s
 }
 
-/// RMS level, dBFS, of `x[range]` in windows of `w` samples.
-fn window_levels(x: &[f64], range: std::ops::Range<usize>, w: usize) -> Vec<f64> {
-    let end = range.end.min(x.len());
-    (range.start..end)
-        .step_by(w.max(1))
-        .map(|a| {
-            let part = &x[a..(a + w).min(end)];
-            let ms = part.iter().map(|v| v * v).sum::<f64>() / part.len().max(1) as f64;
-            10.0 * (ms / 0.5).max(1e-300).log10()
-        })
-        .collect()
-}
-
 pub fn run(args: &SeparationArgs) -> Result<ExitCode, Failure> {
     super::check_save(&args.save)?;
     let cal = args.calibration.resolve(&args.save)?;
-    let (stim, desc, info) = super::stimulus_for(&args.stimulus, "sweep", &args.capture)?;
+    let recorded = super::capture_or_record_all(
+        &args.capture,
+        &args.rig,
+        cal,
+        "separation",
+        args.driven,
+        args.watts,
+        || {
+            let c = ampnote::signal::stimulus::Common {
+                tail_s: 0.5,
+                ..super::rig_common(args.rate, args.level, 0.0)
+            };
+            let top = ampnote::signal::stimulus::default_sweep_stop_hz(args.rate);
+            super::to_played(ampnote::signal::stimulus::sweep(&c, 10.0, top, 3.0))
+        },
+    )?;
+    let cal = recorded.calibration_or(cal);
+    let capture_path = recorded.capture.as_path();
+    let stimulus = match (&recorded.stimulus, &args.stimulus) {
+        (Some(p), _) | (None, Some(p)) => p.clone(),
+        (None, None) => {
+            return Err("give the sweep that was played with --stimulus (the file `ampnote generate sweep` wrote)".into())
+        }
+    };
+    let (stim, desc, info) = super::stimulus_for(&stimulus, "sweep", capture_path)?;
     let sweep = SweepParams::from_description(&desc).expect("a sweep");
     let x = stim
         .channel(desc.signal_channels.first().copied().unwrap_or(1))
@@ -107,7 +135,7 @@ pub fn run(args: &SeparationArgs) -> Result<ExitCode, Failure> {
     if info.channel_count < 2 {
         return Err(format!(
             "{} has one channel: separation needs the driven channel and at least one other, recorded together",
-            args.capture.display()
+            capture_path.display()
         ).into());
     }
     if args.driven == 0 || args.driven > info.channel_count {
@@ -117,80 +145,37 @@ pub fn run(args: &SeparationArgs) -> Result<ExitCode, Failure> {
         )
         .into());
     }
-    let capture = Capture::read(&args.capture, args.accept_truncated)?;
-    let fs = capture.sample_rate_hz as f64;
+    let capture = Capture::read(capture_path, args.accept_truncated)?;
     let analyzer = ResponseAnalyzer::new(ResponseConfig::default())?;
-    let analyse = |ch: usize| {
-        analyzer.analyze(
-            ch,
-            x,
+    let captures: Vec<&[f64]> = capture.channels.iter().map(Vec::as_slice).collect();
+    let mut result = separation::from_recording(
+        &analyzer,
+        &separation::Recording {
+            stimulus: x,
             sweep,
-            capture.channel(ch).expect("read"),
-            fs,
-            capture.encoding.overload_threshold(),
-        )
-    };
-    let driven = analyse(args.driven).map_err(|err| {
-        format!(
-            "the driven channel {} could not be measured: {err}",
+            captures: &captures,
+            driven: args.driven,
+            fs: capture.sample_rate_hz as f64,
+            overload_threshold: capture.encoding.overload_threshold(),
+            resolution_bits: capture.encoding.resolution_bits(),
+        },
+    )
+    .map_err(|err| match err {
+        e @ (Error::WrongKind { .. } | Error::NoSuchChannel { .. }) => Failure::from(e),
+        e => format!(
+            "the driven channel {} could not be measured: {e}",
             args.driven
         )
+        .into(),
     })?;
-    // Where the sweep lies in the capture, for the level bound of an unmeasurable channel.
-    let lat = driven.latency_samples.round() as isize;
-    let shift = |i: usize| (i as isize + lat).max(0) as usize;
-    let span = shift(sweep.start_sample)..shift(sweep.end_sample);
-    let w = (0.05 * fs) as usize;
-    let driven_levels = window_levels(capture.channel(args.driven).expect("read"), span.clone(), w);
-    let mut result = SeparationResult {
-        driven_channel: args.driven,
-        channels: Vec::new(),
-        warnings: driven.warnings.clone(),
-    };
-    for ch in (1..=capture.channel_count).filter(|&c| c != args.driven) {
-        let measured = analyse(ch)
-            .ok()
-            .filter(|r| r.impulse_snr_db >= MIN_CROSSTALK_SNR_DB);
-        let c = match measured {
-            Some(r) => separation::between(&driven, &r),
-            None => {
-                // Over the windows where the sweep plays at full level (the fade-in and the
-                // band edges left out): in each, the crosstalk is at most all the channel holds.
-                let other = window_levels(capture.channel(ch).expect("read"), span.clone(), w);
-                let top = driven_levels
-                    .iter()
-                    .copied()
-                    .fold(f64::NEG_INFINITY, f64::max);
-                let bound = driven_levels
-                    .iter()
-                    .zip(&other)
-                    .filter(|(d, _)| **d >= top - 10.0)
-                    .map(|(d, o)| d - o)
-                    .fold(f64::INFINITY, f64::min);
-                separation::at_least(ch, 0.0, -bound)
-            }
-        };
-        if c.at_1khz_db.is_some_and(|s| s < 0.0) {
-            return Err(Error::WrongKind {
-                channel: ch,
-                found: format!(
-                    "it carries the sweep {:.1} dB louder than channel {} at 1 kHz",
-                    -c.at_1khz_db.unwrap_or(0.0),
-                    args.driven
-                ),
-                next: format!(
-                    "Check --driven: the channel the sweep was played into is probably {ch}."
-                ),
-            }
-            .into());
-        }
-        result.channels.push(c);
-    }
-    let file = args.capture.display().to_string();
+    result
+        .warnings
+        .extend(recorded.notes.iter().map(|(_, w)| w.clone()));
+    let file = capture_path.display().to_string();
     let report = SeparationReport {
         schema_version: ampnote::report::SCHEMA_VERSION,
         file: file.clone(),
-        stimulus: args.stimulus.display().to_string(),
+        stimulus: stimulus.display().to_string(),
         result: &result,
     };
     let format = args.print.format();
@@ -211,10 +196,7 @@ pub fn run(args: &SeparationArgs) -> Result<ExitCode, Failure> {
         args.driven,
         cal,
         None,
-        vec![
-            ("stimulus.wav", &args.stimulus),
-            ("capture.wav", &args.capture),
-        ],
+        vec![("stimulus.wav", &stimulus), ("capture.wav", capture_path)],
         &result,
     );
     keeper.commit()?;

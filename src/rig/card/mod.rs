@@ -503,14 +503,53 @@ impl Rig for CardRig {
         stimulus: &[f64],
         sample_rate_hz: u32,
     ) -> Result<Vec<f64>> {
+        let mut all = self.capture(channel, stimulus, sample_rate_hz, false)?;
+        Ok(all.swap_remove(0))
+    }
+
+    /// Every amplifier channel's input recorded while `channel`'s output plays; the markers
+    /// come back on the driven channel's input only, and its alignment (one clock, one stream)
+    /// holds for every input.
+    fn play_and_record_all(
+        &mut self,
+        channel: usize,
+        stimulus: &[f64],
+        sample_rate_hz: u32,
+    ) -> Result<Vec<Vec<f64>>> {
+        self.capture(channel, stimulus, sample_rate_hz, true)
+    }
+}
+
+impl CardRig {
+    /// Play `stimulus` framed by its markers into `channel` and record its input (with `all`,
+    /// every amplifier channel's input too, in channel order); judged and aligned by the markers
+    /// on the driven channel's input, retried once when broken.
+    fn capture(
+        &mut self,
+        channel: usize,
+        stimulus: &[f64],
+        sample_rate_hz: u32,
+        all: bool,
+    ) -> Result<Vec<Vec<f64>>> {
         catch_interrupt();
         let (out, inp) = self.mapping(channel)?;
         let k = channel - 1;
         let peak = self.ready(channel, sample_rate_hz, stimulus)?;
         let framed = framing::frame(stimulus, sample_rate_hz);
+        // The inputs recorded and which of them is the driven channel's.
+        let (ins, mine): (Vec<usize>, usize) = if all {
+            (self.opts.inputs.iter().map(|i| i - 1).collect(), k)
+        } else {
+            (vec![inp], 0)
+        };
         for attempt in 0..2 {
-            let raw = self.run_signal(out, &[inp], &framed.signal, sample_rate_hz)?;
-            match framing::assess(&raw.channels[0], &framed, sample_rate_hz, raw.reported_gaps) {
+            let raw = self.run_signal(out, &ins, &framed.signal, sample_rate_hz)?;
+            match framing::assess(
+                &raw.channels[mine],
+                &framed,
+                sample_rate_hz,
+                raw.reported_gaps,
+            ) {
                 Verdict::Whole { aligned, located } => {
                     let fs = sample_rate_hz as f64;
                     if located.drift_ppm.abs() >= 1.0 {
@@ -538,7 +577,19 @@ impl Rig for CardRig {
                     if peak > 1e-3 {
                         self.gain[k] = Some(out_peak / peak);
                     }
-                    return Ok(aligned);
+                    let start = framing::stimulus_start(&located, &framed);
+                    return Ok(raw
+                        .channels
+                        .iter()
+                        .enumerate()
+                        .map(|(i, c)| {
+                            if i == mine {
+                                aligned.clone()
+                            } else {
+                                c[start..start + framed.stimulus_len].to_vec()
+                            }
+                        })
+                        .collect());
                 }
                 Verdict::Broken(why) => {
                     let kept =
