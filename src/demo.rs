@@ -1,7 +1,8 @@
 //! The demo: the whole bench on the simulated bench, as a user would run it. An invented stereo
 //! single-ended amplifier is measured stock (both channels: a tone at 1 W, the power staircase,
-//! a sweep, output impedance, noise and hum with no signal), reworked, measured again; every run goes into a notebook, then the
-//! before/after comparison and the channel match.
+//! a sweep and the square waves it predicts, output impedance, channel separation, noise and hum
+//! with no signal; DC operating points), reworked, measured again; every run goes into a
+//! notebook, then the before/after comparison and the channel match.
 //!
 //! Each measurement goes the way it would at a bench without the live rig: ampnote writes the
 //! stimulus file, the simulated bench "plays and records" it, and the capture file is analysed.
@@ -272,6 +273,39 @@ pub fn run(out: &Path, mut progress: impl FnMut(&str)) -> Result<DemoOutcome> {
                 ],
                 z.into(),
                 "two loads: 8 and 16 ohm, swept",
+            )?;
+            // Channel separation: a sweep at the 1 W drive into this channel, both recorded.
+            let sep = stimulus::sweep(
+                &Common {
+                    level_dbfs: drive.min(-1.0),
+                    fade_s: 0.0,
+                    tail_s: 0.5,
+                    ..base.clone()
+                },
+                10.0,
+                stimulus::default_sweep_stop_hz(RATE),
+                4.0,
+            )?;
+            let sep_path = write_stimulus(&work, "separation-sweep.wav", &sep)?;
+            let all = rig.play_and_record_all(ch, &sep.signal, RATE)?;
+            write_wav(&cap_path, RATE, &all, WavFormat::Int { bits: 24 }, 2)?;
+            let captures: Vec<&[f64]> = all.iter().map(Vec::as_slice).collect();
+            let separation = crate::analysis::separation::from_recording(
+                &resp,
+                &crate::analysis::separation::Recording {
+                    stimulus: &sep.signal,
+                    sweep: SweepParams::from_description(&sep.description).expect("a sweep"),
+                    captures: &captures,
+                    driven: ch,
+                    fs: RATE as f64,
+                    overload_threshold: rig.overload_threshold(),
+                    resolution_bits: rig.resolution_bits(),
+                },
+            )?;
+            save(
+                vec![("stimulus.wav", &sep_path), ("capture.wav", &cap_path)],
+                separation.into(),
+                "sweep at the 1 W drive into this channel, both channels recorded",
             )?;
             // Noise and hum with the input silent.
             let silence = vec![0.0; 2 * RATE as usize];

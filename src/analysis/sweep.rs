@@ -582,23 +582,22 @@ impl ResponseAnalyzer {
             (gone, capture.len())
         };
         let hum = hum_model(capture, silence, fs);
-        let (hum_g1, hum_gn): (Option<Shifted>, Option<Vec<Shifted>>) =
-            match &hum {
-                Some(hum) => {
-                    let ir_hum = divide(spectrum(hum));
-                    let g1 = windowed_spectrum(
-                        &self.planner,
-                        &ir_hum,
-                        latency_samples.rem_euclid(m as f64),
-                        pre1,
-                        post1,
-                        nf,
-                    );
-                    let gn = (2..=max_order).map(|n| harmonic_in(&ir_hum, n)).collect();
-                    (Some(g1), Some(gn))
-                }
-                None => (None, None),
-            };
+        let (hum_g1, hum_gn): (Option<Shifted>, Option<Vec<Shifted>>) = match &hum {
+            Some(hum) => {
+                let ir_hum = divide(spectrum(hum));
+                let g1 = windowed_spectrum(
+                    &self.planner,
+                    &ir_hum,
+                    latency_samples.rem_euclid(m as f64),
+                    pre1,
+                    post1,
+                    nf,
+                );
+                let gn = (2..=max_order).map(|n| harmonic_in(&ir_hum, n)).collect();
+                (Some(g1), Some(gn))
+            }
+            None => (None, None),
+        };
         let hum_power = |n: usize, f: f64| {
             hum_gn
                 .as_ref()
@@ -777,6 +776,17 @@ impl ResponseAnalyzer {
             warnings.push(C::ReferenceOutsideSweep.say(format!(
                 "the reference frequency {} Hz lies outside the sweep ({f_lo:.0}-{f_hi:.0} Hz): magnitudes are relative to {reference_hz:.0} Hz, the sweep's geometric centre, instead. Give --reference inside the sweep.",
                 crate::error::shown(self.config.reference_hz)
+            )));
+        }
+        let in_band: Vec<&ResponsePoint> = points
+            .iter()
+            .filter(|p| p.frequency_hz >= dlo && p.frequency_hz <= dhi)
+            .collect();
+        let floored = in_band.iter().filter(|p| p.limited_by.is_some()).count();
+        if must_be_explained && floored > 0 {
+            warnings.push(C::NoisySweep.say(format!(
+                "{floored} of {} points from {dlo:.0} Hz to {dhi:.0} Hz read within {HUM_MARGIN_DB:.0} dB of the capture's own hum or noise (marked): there the response is partly that floor. Raise the level, or use a longer sweep.",
+                in_band.len()
             )));
         }
         if dlo < f_lo || dhi > f_hi {

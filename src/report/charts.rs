@@ -590,11 +590,13 @@ pub(crate) fn build(
         })
     };
     let trend_level = trend(|p| p.level_dbfs);
-    // Separation: the first undriven channel of each run.
+    // Separation: the first undriven channel of each run; points under the channel's own floor
+    // (lower bounds, not readings) left out.
     let separation = curves_for(runs, |s: &SeparationResult| {
         s.channels.first().map_or(Vec::new(), |c| {
             c.points
                 .iter()
+                .filter(|p| p.limited_by.is_none())
                 .map(|p| (p.frequency_hz, p.separation_db))
                 .collect()
         })
@@ -778,7 +780,7 @@ pub(crate) fn build(
             chart(
                 "separation",
                 spec(
-                    "Channel separation (the undriven channel below the driven one)",
+                    "Channel separation (the undriven channel below the driven one; readings under its own hum or noise left out)",
                     "Frequency (Hz)",
                     "Separation (dB)",
                     &separation,

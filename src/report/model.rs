@@ -221,11 +221,22 @@ fn summary(c: &Comparison, load_ohms: Option<f64>) -> Summary {
     }
 }
 
-/// Each side of a line as shown (a detection limit as `< limit`).
+/// Each side of a line as shown (a detection limit as `< limit`, a lower bound as `> bound`).
 pub fn shown_sides(l: &CompareLine) -> (String, String) {
-    use super::number::{bound, show};
-    let side = |v: f64, b: bool| if b { bound(v, l.unit) } else { show(v, l.unit) };
-    (side(l.a, l.a_upper_bound), side(l.b, l.b_upper_bound))
+    use super::number::{bound, lower_bound, show};
+    let side = |v: f64, upper: bool, lower: bool| {
+        if upper {
+            bound(v, l.unit)
+        } else if lower {
+            lower_bound(v, l.unit)
+        } else {
+            show(v, l.unit)
+        }
+    };
+    (
+        side(l.a, l.a_upper_bound, l.a_lower_bound),
+        side(l.b, l.b_upper_bound, l.b_lower_bound),
+    )
 }
 
 /// Labels in the order their first run was made.

@@ -198,10 +198,15 @@ pub fn bound(x: f64, unit: Unit) -> String {
     format!("< {}", show(x, unit))
 }
 
+/// A lower bound: the figure is at least this.
+pub fn lower_bound(x: f64, unit: Unit) -> String {
+    format!("> {}", show(x, unit))
+}
+
 /// A change with its sign: `+1.25 dB`, `-3.0 Hz`.
 pub fn change(delta: f64, unit: Unit) -> String {
     let body = show(delta, unit);
-    if delta > 0.0 && !body.starts_with('<') {
+    if delta > 0.0 && !body.starts_with(['<', '>']) {
         format!("+{body}")
     } else {
         body

@@ -129,7 +129,7 @@ impl ResponseReport {
                 .map(|h| h.order)
                 .filter(|&o| o <= 3)
                 .collect();
-            let mut head = String::from("\n  Frequency    Magnitude      Phase");
+            let mut head = String::from("\n  Frequency    Magnitude       Phase");
             for o in &orders {
                 let _ = write!(head, "     H{o} dBc");
             }
@@ -140,9 +140,10 @@ impl ResponseReport {
                     continue;
                 };
                 let mut line = format!(
-                    "  {:>9} {:>+9.2} dB {:>+8.1} deg",
+                    "  {:>9} {:>+9.2} dB{} {:>+8.1} deg",
                     fmt_hz(f),
                     p.magnitude_db,
+                    if p.limited_by.is_some() { "!" } else { " " },
                     p.phase_deg
                 );
                 for o in &orders {
@@ -155,6 +156,13 @@ impl ResponseReport {
                 let t = c.thd.iter().find(|q| q.frequency_hz == p.frequency_hz);
                 let _ = write!(line, " {:>10}", t.map_or("- ".into(), dbc));
                 let _ = writeln!(s, "{line}");
+            }
+            if c.points.iter().any(|p| p.limited_by.is_some()) {
+                let _ = writeln!(
+                    s,
+                    "  ! within {} dB of the capture's own hum or noise there: partly that floor, not the response",
+                    crate::analysis::sweep::HUM_MARGIN_DB
+                );
             }
             let marked = |q: &[HarmonicPoint]| q.iter().any(|q| q.hum_limited);
             if c.harmonics.iter().any(|h| marked(&h.points)) || marked(&c.thd) {

@@ -118,6 +118,7 @@ pub(super) fn compare_tone(s: &mut Sink, a: &[Run], b: &[Run]) {
             t.thd_percent.map(|v| Val {
                 v,
                 bound: t.thd_upper_bound,
+                lower: false,
             })
         };
         s.add(&format!("THD{at}"), thd(ta), thd(tb), Unit::Percent, unlike);
@@ -154,13 +155,21 @@ pub(super) fn compare_tone(s: &mut Sink, a: &[Run], b: &[Run]) {
                 .map(|h| h.level_dbc)
                 .reduce(f64::max);
             match real {
-                Some(v) => Some(Val { v, bound: false }),
+                Some(v) => Some(Val {
+                    v,
+                    bound: false,
+                    lower: false,
+                }),
                 None => t
                     .hum
                     .iter()
                     .map(|h| h.level_dbc)
                     .reduce(f64::max)
-                    .map(|v| Val { v, bound: true }),
+                    .map(|v| Val {
+                        v,
+                        bound: true,
+                        lower: false,
+                    }),
             }
         };
         s.add("strongest hum line", hum(ta), hum(tb), Unit::Dbc, None);
@@ -397,10 +406,10 @@ pub(super) fn compare_square(s: &mut Sink, a: &[Run], b: &[Run]) {
 }
 
 /// Channel separation with the same channel driven: each other channel's separation at 1 kHz and
-/// its worst over 20 Hz-20 kHz (more is better). A side where the crosstalk sank under the noise
-/// gives only a lower bound: that channel is left out and said so.
+/// its worst over 20 Hz-20 kHz (more is better). Where the crosstalk at 1 kHz sank under the
+/// channel's own floor the side is a lower bound (at least), and the change is read one way only.
 pub(super) fn compare_separation(s: &mut Sink, a: &[Run], b: &[Run]) {
-    use crate::analysis::separation::SeparationResult;
+    use crate::analysis::separation::{ChannelSeparation, SeparationResult};
     let ch = s.ch;
     let (Some(sa), Some(sb)) = (
         latest::<SeparationResult>(a, ch),
@@ -408,21 +417,18 @@ pub(super) fn compare_separation(s: &mut Sink, a: &[Run], b: &[Run]) {
     ) else {
         return;
     };
+    let at_1k = |c: &ChannelSeparation| match c.at_1khz_db {
+        Some(v) => measured(Some(v)),
+        None => super::at_least(c.at_least_db),
+    };
     for x in &sa.channels {
         let Some(y) = sb.channels.iter().find(|y| y.channel == x.channel) else {
             continue;
         };
-        if x.at_least_db.is_some() || y.at_least_db.is_some() {
-            s.skipped.push(C::NotCompared.say(format!(
-                "channel {ch} driven: the separation of channel {} is under the noise on one side (only a lower bound): not compared",
-                x.channel
-            )));
-            continue;
-        }
         s.add(
             &format!("separation at 1 kHz, ch{} from ch{ch}", x.channel),
-            measured(x.at_1khz_db),
-            measured(y.at_1khz_db),
+            at_1k(x),
+            at_1k(y),
             Unit::Db,
             None,
         );

@@ -93,6 +93,12 @@ pub struct CompareLine {
     /// The side's value is a detection limit (the figure is at most this): no delta is given.
     pub a_upper_bound: bool,
     pub b_upper_bound: bool,
+    /// The side's value is a lower bound (the figure is at least this: a separation whose
+    /// crosstalk sank under the floor).
+    #[serde(default, skip_serializing_if = "std::ops::Not::not")]
+    pub a_lower_bound: bool,
+    #[serde(default, skip_serializing_if = "std::ops::Not::not")]
+    pub b_lower_bound: bool,
     pub unit: Unit,
     /// B relative to A, in `delta_unit` (dB for powers, levels and ratios; the unit itself for
     /// dB figures and impedances); `null` when a side is a bound or the runs are not like for
@@ -111,8 +117,28 @@ pub struct CompareLine {
 impl CompareLine {
     /// Better, worse or the same, following the figure's direction.
     pub fn verdict(&self) -> Verdict {
-        let (Some(d), Some(dir)) = (self.delta, self.better) else {
+        let Some(dir) = self.better else {
             return Verdict::Unknown;
+        };
+        let Some(d) = self.delta else {
+            // A bound on one side can still tell the direction: from a value to under a
+            // detection limit below it is down; from a value to a lower bound above it is up.
+            let d = self.b - self.a;
+            let up = match (
+                self.a_upper_bound || self.a_lower_bound,
+                self.b_upper_bound,
+                self.b_lower_bound,
+            ) {
+                (false, true, _) if d < 0.0 => false,
+                (false, _, true) if d > 0.0 => true,
+                (true, false, false) if d > 0.0 && self.a_upper_bound => true,
+                (true, false, false) if d < 0.0 && self.a_lower_bound => false,
+                _ => return Verdict::Unknown,
+            };
+            return match (up, dir) {
+                (true, Better::Higher) | (false, Better::Lower) => Verdict::Better,
+                _ => Verdict::Worse,
+            };
         };
         let same = if self.delta_unit == Unit::Db {
             d.abs() < 0.1
@@ -190,15 +216,29 @@ fn power_runs(runs: &[Run], channel: usize) -> Vec<&PowerView> {
     out
 }
 
-/// A value, and whether it is only an upper bound (a detection limit).
+/// A value, and whether it is only an upper bound (a detection limit) or a lower bound.
 #[derive(Debug, Clone, Copy)]
 struct Val {
     v: f64,
     bound: bool,
+    lower: bool,
 }
 
 fn measured(v: Option<f64>) -> Option<Val> {
-    v.map(|v| Val { v, bound: false })
+    v.map(|v| Val {
+        v,
+        bound: false,
+        lower: false,
+    })
+}
+
+/// At least `v`.
+fn at_least(v: Option<f64>) -> Option<Val> {
+    v.map(|v| Val {
+        v,
+        bound: false,
+        lower: true,
+    })
 }
 
 fn harmonic(lines: &[Harmonic], order: usize) -> Option<Val> {
@@ -208,6 +248,7 @@ fn harmonic(lines: &[Harmonic], order: usize) -> Option<Val> {
         .map(|h| Val {
             v: h.level_dbc,
             bound: h.upper_bound,
+            lower: false,
         })
 }
 
@@ -262,6 +303,8 @@ fn line(
     let shown = |x: Val| {
         if x.bound {
             number::bound(x.v, unit)
+        } else if x.lower {
+            number::lower_bound(x.v, unit)
         } else {
             fmt(x.v, unit)
         }
@@ -270,6 +313,25 @@ fn line(
     let magnitude = fmt(d.abs(), delta_unit);
     let (delta, tail) = match (a.bound, b.bound, unlike) {
         (_, _, Some(why)) => (None, format!("not compared: {why}")),
+        // Lower bounds (at least): the change is known one way only.
+        _ if a.lower || b.lower => match (a.lower, b.lower) {
+            (false, true) if d > 0.0 => (
+                None,
+                format!("now under the floor: up by at least {magnitude}"),
+            ),
+            (true, false) if d < 0.0 => (
+                None,
+                format!("was under the floor: down by at least {magnitude}"),
+            ),
+            (true, true) => (
+                None,
+                "both under the floor: no change can be read".to_string(),
+            ),
+            _ => (
+                None,
+                "one side is under the floor: no change can be read".to_string(),
+            ),
+        },
         (false, false, None) => (Some(d), number::change(d, delta_unit)),
         (true, true, None) => (
             None,
@@ -295,6 +357,8 @@ fn line(
         b: b.v,
         a_upper_bound: a.bound,
         b_upper_bound: b.bound,
+        a_lower_bound: a.lower,
+        b_lower_bound: b.lower,
         unit,
         delta,
         delta_unit,
