@@ -187,3 +187,13 @@ fn devices_lists_the_running_server_as_json() {
         "the JACK server's device is listed: {jack:?}"
     );
 }
+
+#[test]
+fn separation_of_two_wires_is_a_word_length_bound() {
+    live_common::check_separation(JACK);
+}
+
+#[test]
+fn square_through_the_loopback_is_the_stimulus() {
+    live_common::check_square(JACK);
+}

@@ -34,3 +34,13 @@ fn twenty_runs_without_a_dropout() {
 fn a_capture_with_lost_frames_is_kept_as_partial_and_retried_once() {
     live_common::check_retry(PULSE);
 }
+
+#[test]
+fn separation_of_two_wires_is_a_word_length_bound() {
+    live_common::check_separation(PULSE);
+}
+
+#[test]
+fn square_through_the_null_sink_is_the_stimulus() {
+    live_common::check_square(PULSE);
+}

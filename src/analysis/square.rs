@@ -249,12 +249,38 @@ pub fn figures(y: &[f64], f0: f64, stimulus_rise_s: f64) -> Result<SquareFigures
     let y: Vec<f64> = (0..m).map(|i| y[(i + shift) % m]).collect();
     let e = m / 2;
     let half = m / 2;
-    // The top's and base's lines, fitted short of the next edge by `guard` points: first 5 % of
-    // the half period, then three measured rise times (a slow edge's foot starts well before
-    // its midpoint).
-    let first = edge(&y, mid, range, half / 20)?;
-    let rise_points = (first.t90 - first.t10).max(0.0) as usize;
-    let found = edge(&y, mid, range, (half / 20).max(3 * rise_points))?;
+    // The top's and base's lines, fitted short of the next edge by `guard` points: three rise
+    // times (a slow edge's foot starts well before its midpoint), at least 5 % of the half
+    // period. First the stimulus's own rise (the amplifier only slows it), then the measured
+    // one, until the guard settles.
+    let guard_for = |rise_points: f64| (half / 20).max((3.0 * rise_points).ceil() as usize);
+    let mut guard = guard_for(stimulus_rise_s / dt);
+    let mut found = edge(&y, mid, range, guard)?;
+    for _ in 0..4 {
+        let next = guard_for(found.t90 - found.t10);
+        if next == guard {
+            break;
+        }
+        guard = next;
+        found = edge(&y, mid, range, guard)?;
+    }
+    // The levels need room: the edge and its guard at most 3/4 of the half period, and the
+    // crossings in order inside the period.
+    let rise = (found.t90 - found.t10) * dt;
+    if guard > half * 3 / 4
+        || !(0.0 < found.t10 && found.t10 < found.t50 && found.t50 < found.t90)
+        || found.t90 >= m as f64
+    {
+        return Err(Error::WrongKind {
+            channel: 0,
+            found: format!(
+                "the {f0} Hz square's edge could not be read apart from its levels (its rise takes about {:.0} us of a {:.0} us half period)",
+                rise.max(0.0) * 1e6,
+                0.5e6 / f0
+            ),
+            next: "Use a lower square frequency, or check that the capture holds the square wave.".into(),
+        });
+    }
     let (top, step, c50, t50) = (found.top, found.step, found.c50, found.t50);
     let (top_start, top_end, t10, t90) = (found.top_start, found.top_end, found.t10, found.t90);
     let measured_rise = (t90 - t10) * dt;

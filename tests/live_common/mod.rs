@@ -66,10 +66,16 @@ impl Server {
 
     /// Run ampnote on this server's loopback (channel 1: output 1 -> input 1).
     pub fn run(&self, tag: &str, args: &[&str]) -> (i32, String, String) {
+        self.run_io(tag, args, "1")
+    }
+
+    /// Run ampnote with amplifier channels on `io` (the same list for outputs and inputs:
+    /// "1,2" loops output 1 to input 1 and output 2 to input 2).
+    pub fn run_io(&self, tag: &str, args: &[&str], io: &str) -> (i32, String, String) {
         self.ensure_running();
         let dir = captures_dir(tag);
         let mut all: Vec<&str> = args.to_vec();
-        all.extend(["--rig", "card", "--outputs", "1", "--inputs", "1"]);
+        all.extend(["--rig", "card", "--outputs", io, "--inputs", io]);
         all.extend(self.flags);
         all.extend(["--captures-dir", &dir]);
         let out = Command::new(env!("CARGO_BIN_EXE_ampnote"))
@@ -301,5 +307,57 @@ pub fn check_staircase(s: Server) {
             "{s}"
         );
         assert!(f(s, "thdn_percent") < 1e-4, "{s}"); // below -120 dB
+    }
+}
+
+/// Closed form (two digital wires side by side): a sweep into channel 1 with both inputs recorded
+/// comes back on input 1 only; input 2 is digitally silent, so its separation is a bound set by
+/// the word length (32-bit float: 24-bit mantissa, -146.2 dBFS, 6.02 N + 1.76 dB) less the
+/// sweep's level, never a made-up curve.
+pub fn check_separation(s: Server) {
+    let (code, out, err) = s.run_io(
+        "separation",
+        &["separation", "--driven", "1", "--level", "-20", "--json"],
+        "1,2",
+    );
+    assert_eq!(code, 0, "{err}");
+    let r: ampnote::analysis::separation::SeparationResult =
+        serde_json::from_str(&out).unwrap_or_else(|e| panic!("{e}: {out}"));
+    assert_eq!(r.driven_channel, 1);
+    assert_eq!(r.channels.len(), 1, "{r:?}");
+    let c = &r.channels[0];
+    assert_eq!(c.channel, 2);
+    assert!(c.points.is_empty(), "{c:?}");
+    let bound = c.at_least_db.expect("a bound");
+    assert!(
+        bound > 146.24 - 20.0 - 10.0 && bound < 146.24 - 20.0 + 1.0,
+        "{bound}"
+    );
+}
+
+/// Closed form: through a wire the square predicted from the sweep is the stimulus's own
+/// (a Gaussian edge: no overshoot, no tilt).
+pub fn check_square(s: Server) {
+    let (code, out, err) = s.run(
+        "square",
+        &[
+            "square",
+            "--channel",
+            "1",
+            "--rate",
+            "48000",
+            "--freq",
+            "100,1000",
+            "--json",
+        ],
+    );
+    assert_eq!(code, 0, "{err}");
+    let r: ampnote::report::square::SquareReport =
+        serde_json::from_str(&out).unwrap_or_else(|e| panic!("{e}: {out}"));
+    let c = &r.channels[0];
+    assert_eq!(c.squares.len(), 2, "{c:?}");
+    for q in &c.squares {
+        assert!(q.overshoot_percent < 0.5, "{q:?}");
+        assert!(q.tilt_percent.abs() < 0.5, "{q:?}");
     }
 }

@@ -278,3 +278,50 @@ fn square_on_the_simulated_bench() {
         );
     }
 }
+
+/// A wire at 48 kHz, where the square's own edge is slow against a 1 kHz half period (72 us of
+/// 500 us: the sweep stops at 21.6 kHz): the predicted and the recorded square are the
+/// stimulus's own, closed form: rise 2 x 1.2816 sigma of the Gaussian edge within 1 %, no
+/// overshoot, no tilt. (A guard set from 5 % of the half period fitted the levels over the next
+/// edge's foot here and read a rise of -269 us and a tilt of -9198 %.) A square whose edge takes
+/// more than a quarter of its half period is refused, not read.
+#[test]
+fn a_slow_edge_against_its_half_period_is_read_or_refused() {
+    const RATE: u32 = 48_000;
+    let c = Common {
+        lead_s: 0.05,
+        tail_s: 0.5,
+        ..Common::mono(RATE, -12.0)
+    };
+    let top = stimulus::default_sweep_stop_hz(RATE);
+    let s = stimulus::sweep(&c, 10.0, top, 3.0).unwrap();
+    let sp = SweepParams::from_description(&s.description).unwrap();
+    let r = ResponseAnalyzer::new(ResponseConfig::default())
+        .unwrap()
+        .analyze(1, &s.signal, sp, &s.signal, RATE as f64, 1.0)
+        .unwrap();
+    let bw = stimulus::square_bandwidth_below(r.points.last().unwrap().frequency_hz);
+    let edge_us = stimulus::gaussian_rise_s(bw) * 1e6;
+    let q = from_response(&r, 1000.0, bw).unwrap();
+    within(
+        q.measured_rise_time_us,
+        edge_us,
+        0.01,
+        "rise through a wire",
+    );
+    assert!(q.overshoot_percent < 0.1, "{q:?}");
+    assert!(q.tilt_percent.abs() < 0.1, "{q:?}");
+    // Recorded: a square at the same bandwidth, through nothing.
+    let sq = stimulus::square(&Common::mono(RATE, -12.0), 1000.0, Some(bw), 1.0).unwrap();
+    let q = from_recording(&sq.signal, RATE as f64, 1000.0, bw).unwrap();
+    within(q.measured_rise_time_us, edge_us, 0.01, "recorded rise");
+    assert!(
+        q.overshoot_percent < 0.1 && q.tilt_percent.abs() < 0.1,
+        "{q:?}"
+    );
+    // Twice as fast: the edge takes 29 % of the half period.
+    assert!(matches!(
+        from_response(&r, 2000.0, bw),
+        Err(ampnote::error::Error::SquareTooFast { .. })
+    ));
+}
