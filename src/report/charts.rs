@@ -259,28 +259,36 @@ fn draw_lines<DB: DrawingBackend>(
             }
             for c in curves {
                 let style = c.color.stroke_width(2);
-                let pts: Vec<(f64, f64)> = c
+                // A point that is not finite breaks the line (a stretch left out is not
+                // bridged, so nothing is drawn where nothing was read).
+                let pieces: Vec<Vec<(f64, f64)>> = c
                     .points
-                    .iter()
-                    .copied()
-                    .filter(|p| p.0.is_finite() && p.1.is_finite())
+                    .split(|p| !(p.0.is_finite() && p.1.is_finite()))
+                    .filter(|piece| !piece.is_empty())
+                    .map(<[(f64, f64)]>::to_vec)
                     .collect();
-                if c.dashed {
-                    chart
-                        .draw_series(DashedLineSeries::new(pts, 7, 5, style))
-                        .map_err(draw_err)?
-                        .label(c.name.clone())
-                        .legend(move |(x, y)| {
-                            EmptyElement::at((x, y))
-                                + PathElement::new(vec![(0, 0), (8, 0)], style)
-                                + PathElement::new(vec![(13, 0), (22, 0)], style)
-                        });
-                } else {
-                    chart
-                        .draw_series(LineSeries::new(pts, style))
-                        .map_err(draw_err)?
-                        .label(c.name.clone())
-                        .legend(move |(x, y)| PathElement::new(vec![(x, y), (x + 22, y)], style));
+                for (k, pts) in pieces.into_iter().enumerate() {
+                    if c.dashed {
+                        let drawn = chart
+                            .draw_series(DashedLineSeries::new(pts, 7, 5, style))
+                            .map_err(draw_err)?;
+                        if k == 0 {
+                            drawn.label(c.name.clone()).legend(move |(x, y)| {
+                                EmptyElement::at((x, y))
+                                    + PathElement::new(vec![(0, 0), (8, 0)], style)
+                                    + PathElement::new(vec![(13, 0), (22, 0)], style)
+                            });
+                        }
+                    } else {
+                        let drawn = chart
+                            .draw_series(LineSeries::new(pts, style))
+                            .map_err(draw_err)?;
+                        if k == 0 {
+                            drawn.label(c.name.clone()).legend(move |(x, y)| {
+                                PathElement::new(vec![(x, y), (x + 22, y)], style)
+                            });
+                        }
+                    }
                 }
             }
             chart
@@ -357,17 +365,19 @@ fn inside(lo: f64, hi: f64, points: impl Iterator<Item = (f64, f64)>) -> Points 
         .collect()
 }
 
-/// A harmonic's (or THD's) curve against the excitation frequency, without the points the
-/// analysis marked as hum-limited (there the hum, not the harmonic, is read; see
+/// A harmonic's (or THD's) curve against the excitation frequency, broken where the analysis
+/// marked points as hum-limited (there the hum, not the harmonic, is read; see
 /// [`crate::analysis::sweep::HarmonicPoint::hum_limited`]). The analysis already stops each
 /// curve short of the sweep's top.
 fn harmonic_curve(r: &ResponseResult, points: &[HarmonicPoint]) -> Points {
     swept(
         r,
-        points
-            .iter()
-            .filter(|p| !p.hum_limited)
-            .map(|p| (p.frequency_hz, p.level_dbc)),
+        points.iter().map(|p| {
+            (
+                p.frequency_hz,
+                if p.hum_limited { f64::NAN } else { p.level_dbc },
+            )
+        }),
     )
 }
 
@@ -457,7 +467,7 @@ fn curves_for<T: Kept>(runs: &[Run], f: impl Fn(&T) -> Vec<(f64, f64)>) -> Vec<C
                 points: f(t),
             }
         })
-        .filter(|c| !c.points.is_empty())
+        .filter(|c| c.points.iter().any(|p| p.0.is_finite() && p.1.is_finite()))
         .collect()
 }
 
@@ -590,14 +600,20 @@ pub(crate) fn build(
         })
     };
     let trend_level = trend(|p| p.level_dbfs);
-    // Separation: the first undriven channel of each run; points under the channel's own floor
-    // (lower bounds, not readings) left out.
+    // Separation: the first undriven channel of each run; the line broken where points sit
+    // under the channel's own floor (lower bounds, not readings).
     let separation = curves_for(runs, |s: &SeparationResult| {
         s.channels.first().map_or(Vec::new(), |c| {
             c.points
                 .iter()
-                .filter(|p| p.limited_by.is_none())
-                .map(|p| (p.frequency_hz, p.separation_db))
+                .map(|p| {
+                    let v = if p.limited_by.is_some() {
+                        f64::NAN
+                    } else {
+                        p.separation_db
+                    };
+                    (p.frequency_hz, v)
+                })
                 .collect()
         })
     });
@@ -780,7 +796,7 @@ pub(crate) fn build(
             chart(
                 "separation",
                 spec(
-                    "Channel separation (the undriven channel below the driven one; readings under its own hum or noise left out)",
+                    "Channel separation (gaps: under the channel's own hum or noise)",
                     "Frequency (Hz)",
                     "Separation (dB)",
                     &separation,
