@@ -206,7 +206,7 @@ impl RunResult {
                     format!(
                         "{}: rise {}, overshoot {}, tilt {}",
                         show(f.frequency_hz, Unit::Hz),
-                        f.rise_time_us.map_or("-".into(), |v| show(v, Unit::Us)),
+                        crate::report::square::rise_shown(f),
                         show(f.overshoot_percent, Unit::Percent),
                         show(f.tilt_percent, Unit::Percent)
                     )

@@ -71,12 +71,7 @@ impl SquareReport {
                     s,
                     "  {:>9} {:>10} {:>10} {:>10} {:>10} {:>10} {:>9}",
                     show(q.frequency_hz, Unit::Hz),
-                    // Faster than the stimulus's edge resolves: below 14 % of it (a measured
-                    // edge within 1 % of the stimulus's).
-                    q.rise_time_us.map_or_else(
-                        || format!("< {}", show(0.14 * q.stimulus_rise_time_us, Unit::Us)),
-                        |v| show(v, Unit::Us)
-                    ),
+                    rise_shown(q),
                     show(q.overshoot_percent, Unit::Percent),
                     opt(q.ringing_hz, Unit::Hz),
                     opt(q.ringing_decay_us, Unit::Us),
@@ -86,7 +81,7 @@ impl SquareReport {
             }
             let _ = writeln!(
                 s,
-                "  (rise: the amplifier's own, the square's edge of {} taken out in quadrature)",
+                "  (rise: the amplifier's own, the square's edge of {} taken out in quadrature; unresolved where\n  the amplifier's edge is too fast for that edge to show: a higher rate gives a faster edge)",
                 c.squares
                     .first()
                     .map_or("-".into(), |q| show(q.stimulus_rise_time_us, Unit::Us))
@@ -97,6 +92,12 @@ impl SquareReport {
         }
         s
     }
+}
+
+/// The amplifier's own rise as shown, or why not: faster than the stimulus's edge shows.
+pub fn rise_shown(q: &crate::analysis::square::SquareFigures) -> String {
+    q.rise_time_us
+        .map_or_else(|| "unresolved".to_string(), |v| show(v, Unit::Us))
 }
 
 fn source(s: SquareSource) -> &'static str {
