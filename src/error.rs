@@ -186,6 +186,15 @@ pub enum Error {
         max_hz: f64,
     },
 
+    #[error("ngspice was not found (`{binary}`): the circuit rig runs the system's ngspice. Install it (Debian and Ubuntu: `apt install ngspice`), or name the binary with AMPNOTE_NGSPICE=/path/to/ngspice")]
+    SpiceMissing { binary: String },
+
+    #[error("the circuit simulation failed: {detail}. Check the netlist (ngspice's own messages name the part or node)")]
+    Spice { detail: String },
+
+    #[error("the circuit simulation took longer than {seconds:.0} s and was stopped (the deck is {deck}); a netlist that does not converge, or a time step far too small, does this: check the circuit, or allow more time")]
+    SpiceTimedOut { seconds: f64, deck: PathBuf },
+
     #[error("{rig} records one channel at a time; channel separation needs every channel recorded while one is driven. Use --rig sim or --rig card with --inputs naming every channel, or record all channels at once and give the file")]
     RecordsOneChannel { rig: String },
 
@@ -207,7 +216,11 @@ impl Error {
     /// everything the user gave (usage and input).
     pub fn exit_code(&self) -> u8 {
         match self {
-            Error::Device { .. } | Error::RecordsOneChannel { .. } => 3,
+            Error::Device { .. }
+            | Error::RecordsOneChannel { .. }
+            | Error::SpiceMissing { .. }
+            | Error::Spice { .. }
+            | Error::SpiceTimedOut { .. } => 3,
             Error::Interrupted(_) => 130,
             _ => 2,
         }

@@ -9,6 +9,7 @@ pub mod file;
 pub mod framing;
 pub mod model;
 pub mod sim;
+pub mod spice;
 pub mod triode;
 
 use crate::calibration::Calibration;

@@ -21,6 +21,7 @@ mod properties;
 mod quantization;
 mod safety;
 mod separation;
+mod spice_raw;
 mod square;
 mod stimuli;
 mod store;
