@@ -6,9 +6,11 @@ use super::*;
 #[derive(Debug, Args)]
 pub struct RigArgs {
     /// Measure on a rig instead of a capture file: sim[:MODEL] (the simulated bench; models
-    /// stock, reworked, or a model file) or card[:NAME] (the audio interface; needs a build
-    /// with --features live). On a real amplifier: attenuator and dummy load first.
-    #[arg(long, value_name = "sim[:MODEL]|card[:NAME]")]
+    /// stock, reworked, or a model file), card[:NAME] (the audio interface; needs a build
+    /// with --features live) or spice:CIRCUIT.cir (a netlist defining `.subckt amp IN OUT`, run
+    /// through the system's ngspice: a prediction). On a real amplifier: attenuator and dummy
+    /// load first.
+    #[arg(long, value_name = "sim[:MODEL]|card[:NAME]|spice:FILE")]
     pub rig: Option<String>,
     /// Live rig: the audio host (alsa, jack, pulseaudio, ...; `ampnote devices` lists them).
     #[arg(long, value_name = "NAME")]

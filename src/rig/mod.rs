@@ -200,8 +200,19 @@ pub fn parse_rig_with(spec: &str, options: &RigOptions) -> Result<Box<dyn Rig>> 
                 "the live rig (`--rig card`) needs a build with the `live` feature: `cargo install --path . --features live` (see README, Live rig); meanwhile record with any recorder and analyse the file, or use --rig sim".into(),
             ))
         }
+        "spice" if arg.is_empty() => Err(crate::error::Error::InvalidSetting(
+            "--rig spice needs the netlist: --rig spice:CIRCUIT.cir (a file defining `.subckt amp IN OUT`; see examples/circuits/)".into(),
+        )),
+        "spice" if options.load_uf.is_some() => Err(crate::error::Error::InvalidSetting(
+            "--load-uf sets the simulated bench's load; in a netlist, put the capacitor in the circuit".into(),
+        )),
+        "spice" => Ok(Box::new(spice::rig::SpiceRig::open(
+            std::path::Path::new(arg),
+            options.calibration,
+            &options.keep_dir.join("spice"),
+        )?)),
         other => Err(crate::error::Error::InvalidSetting(format!(
-            "unknown rig `{other}`: use sim[:MODEL] (the simulated bench), card[:NAME] (the audio interface), or analyse a capture file"
+            "unknown rig `{other}`: use sim[:MODEL] (the simulated bench), card[:NAME] (the audio interface), spice:CIRCUIT.cir (a netlist through ngspice), or analyse a capture file"
         ))),
     }
 }

@@ -8,6 +8,7 @@
 //! beside the plots, for the result's warnings.
 
 pub mod raw;
+pub mod rig;
 
 use crate::error::{Error, Result};
 use std::path::{Path, PathBuf};
@@ -64,6 +65,11 @@ pub fn run(deck: &str, dir: &Path, limit: Duration) -> Result<Outcome> {
 /// [`run`] with a named ngspice binary.
 pub fn run_with(bin: &Path, deck: &str, dir: &Path, limit: Duration) -> Result<Outcome> {
     std::fs::create_dir_all(dir).map_err(|source| Error::Write {
+        path: dir.to_path_buf(),
+        source,
+    })?;
+    // Absolute: ngspice runs in `dir`, and the deck may name files beside it.
+    let dir = &std::fs::canonicalize(dir).map_err(|source| Error::Write {
         path: dir.to_path_buf(),
         source,
     })?;
