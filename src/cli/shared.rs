@@ -10,7 +10,7 @@ pub struct RigArgs {
     /// with --features live) or spice:CIRCUIT.cir (a netlist defining `.subckt amp IN OUT`, run
     /// through the system's ngspice: a prediction). On a real amplifier: attenuator and dummy
     /// load first.
-    #[arg(long, value_name = "sim[:MODEL]|card[:NAME]|spice:FILE")]
+    #[arg(long, value_name = "KIND[:NAME]")]
     pub rig: Option<String>,
     /// Live rig: the audio host (alsa, jack, pulseaudio, ...; `ampnote devices` lists them).
     #[arg(long, value_name = "NAME")]

@@ -15,6 +15,18 @@ pub mod triode;
 use crate::calibration::Calibration;
 use crate::error::Result;
 
+/// A dummy load a rig can switch to: above 0 ohm and finite.
+pub fn checked_load(ohms: f64) -> Result<f64> {
+    if ohms.is_finite() && ohms > 0.0 {
+        Ok(ohms)
+    } else {
+        Err(crate::error::Error::InvalidSetting(format!(
+            "the dummy load must be above 0 ohm, got {}",
+            crate::error::shown(ohms)
+        )))
+    }
+}
+
 /// Something that can play a stimulus into the amplifier and record its output.
 pub trait Rig {
     /// A line saying what the rig is.

@@ -235,12 +235,7 @@ impl Rig for SimRig {
     }
 
     fn set_load(&mut self, ohms: f64) -> Result<()> {
-        if !(ohms.is_finite() && ohms > 0.0) {
-            return Err(Error::InvalidSetting(format!(
-                "the dummy load must be above 0 ohm, got {ohms}"
-            )));
-        }
-        self.load_ohms = ohms;
+        self.load_ohms = super::checked_load(ohms)?;
         Ok(())
     }
 

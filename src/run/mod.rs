@@ -407,6 +407,18 @@ pub fn rig_common(rate_hz: u32, level_dbfs: f64, fade_s: f64) -> ampnote::signal
     }
 }
 
+/// The sweep a rig plays where a command needs a response (square, separation): 10 Hz to the
+/// rate's default top (0.45 x the rate, at most 40 kHz), 3 s, with 0.5 s of tail for the
+/// hum and noise checks.
+pub fn rig_sweep(rate_hz: u32, level_dbfs: f64) -> Result<Played, Failure> {
+    let c = ampnote::signal::stimulus::Common {
+        tail_s: 0.5,
+        ..rig_common(rate_hz, level_dbfs, 0.0)
+    };
+    let top = ampnote::signal::stimulus::default_sweep_stop_hz(rate_hz);
+    to_played(ampnote::signal::stimulus::sweep(&c, 10.0, top, 3.0))
+}
+
 /// A generated stimulus, ready for [`capture_or_record`].
 pub fn to_played(
     s: ampnote::error::Result<ampnote::signal::stimulus::Stimulus>,

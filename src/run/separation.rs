@@ -110,14 +110,7 @@ pub fn run(args: &SeparationArgs) -> Result<ExitCode, Failure> {
         "separation",
         args.driven,
         args.watts,
-        || {
-            let c = ampnote::signal::stimulus::Common {
-                tail_s: 0.5,
-                ..super::rig_common(args.rate, args.level, 0.0)
-            };
-            let top = ampnote::signal::stimulus::default_sweep_stop_hz(args.rate);
-            super::to_played(ampnote::signal::stimulus::sweep(&c, 10.0, top, 3.0))
-        },
+        || super::rig_sweep(args.rate, args.level),
     )?;
     let cal = recorded.calibration_or(cal);
     let capture_path = recorded.capture.as_path();

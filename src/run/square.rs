@@ -51,14 +51,7 @@ pub fn run(args: &SquareArgs) -> Result<ExitCode, Failure> {
         "square",
         args.channel.get(),
         None,
-        || {
-            let c = ampnote::signal::stimulus::Common {
-                tail_s: 0.5,
-                ..super::rig_common(args.rate, args.level, 0.0)
-            };
-            let top = ampnote::signal::stimulus::default_sweep_stop_hz(args.rate);
-            super::to_played(ampnote::signal::stimulus::sweep(&c, 10.0, top, 3.0))
-        },
+        || super::rig_sweep(args.rate, args.level),
     )?;
     let cal = recorded.calibration_or(cal);
     let capture = recorded.capture.as_path();

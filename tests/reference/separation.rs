@@ -40,6 +40,28 @@ fn filtered(x: &[f64], fc: f64) -> Vec<f64> {
         .collect()
 }
 
+/// `ampnote generate sweep` (10 Hz to 21 kHz, 4 s, -10 dBFS) into `d`: its path and signal.
+fn sweep_in(d: &std::path::Path) -> (std::path::PathBuf, Vec<f64>) {
+    let sweep = d.join("sweep.wav");
+    let (code, _, err) = run(&[
+        "generate",
+        "sweep",
+        "--from",
+        "10",
+        "--to",
+        "21000",
+        "--seconds",
+        "4",
+        "--level",
+        "-10",
+        "--out",
+        sweep.to_str().unwrap(),
+    ]);
+    assert_eq!(code, 0, "{err}");
+    let x = Capture::read(&sweep, false).unwrap().channels.remove(0);
+    (sweep, x)
+}
+
 /// `ampnote separation FILE --stimulus SWEEP --driven N [extra...]`: exit code, stdout, stderr.
 fn separation(
     file: &std::path::Path,
@@ -62,23 +84,7 @@ fn separation(
 #[test]
 fn crosstalk_through_a_coupling_capacitance_reads_its_closed_form() {
     let d = tmpdir("separation");
-    let sweep = d.join("sweep.wav");
-    let (code, _, err) = run(&[
-        "generate",
-        "sweep",
-        "--from",
-        "10",
-        "--to",
-        "21000",
-        "--seconds",
-        "4",
-        "--level",
-        "-10",
-        "--out",
-        sweep.to_str().unwrap(),
-    ]);
-    assert_eq!(code, 0, "{err}");
-    let x = Capture::read(&sweep, false).unwrap().channels.remove(0);
+    let (sweep, x) = sweep_in(&d);
     // A 100-sample latency, channel 1 at -6 dB, channel 2 the -60 dB coupled copy.
     let delay = |v: Vec<f64>| {
         let mut out = vec![0.0; 100];
@@ -267,23 +273,7 @@ fn crosstalk_through_a_coupling_capacitance_reads_its_closed_form() {
 #[test]
 fn crosstalk_under_hum_and_noise_is_marked_not_trusted() {
     let d = tmpdir("separation-floors");
-    let sweep = d.join("sweep.wav");
-    let (code, _, err) = run(&[
-        "generate",
-        "sweep",
-        "--from",
-        "10",
-        "--to",
-        "21000",
-        "--seconds",
-        "4",
-        "--level",
-        "-10",
-        "--out",
-        sweep.to_str().unwrap(),
-    ]);
-    assert_eq!(code, 0, "{err}");
-    let x = Capture::read(&sweep, false).unwrap().channels.remove(0);
+    let (sweep, x) = sweep_in(&d);
     let ch1: Vec<f64> = x.iter().map(|v| 0.5 * v).collect();
     let n = ch1.len();
     let hum = 10f64.powf(-70.0 / 20.0);

@@ -251,13 +251,7 @@ impl crate::rig::Rig for SpiceRig {
     }
 
     fn set_load(&mut self, ohms: f64) -> Result<()> {
-        if !(ohms.is_finite() && ohms > 0.0) {
-            return Err(Error::InvalidSetting(format!(
-                "the dummy load must be above 0 ohm, got {}",
-                crate::error::shown(ohms)
-            )));
-        }
-        self.load_ohms = ohms;
+        self.load_ohms = crate::rig::checked_load(ohms)?;
         Ok(())
     }
 
