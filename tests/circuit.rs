@@ -236,3 +236,60 @@ fn a_netlist_without_the_amp_subcircuit_is_refused() {
     .expect("refused");
     assert!(err.to_string().contains(".subckt amp IN OUT"), "{err}");
 }
+
+/// `--set-part` against closed form: an RC low-pass (1 kohm, 100 nF, fc = 1591.5 Hz) with C1
+/// changed to 220 nF for the run (fc = 723.4 Hz) reads its -3 dB point within 0.5 %, the netlist
+/// file untouched; the change is in the rig's description (kept with the run).
+#[test]
+fn a_part_changed_for_one_run_moves_the_corner_to_its_closed_form() {
+    use ampnote::analysis::sweep::{ResponseAnalyzer, ResponseConfig, SweepParams};
+    use ampnote::rig::Rig;
+    let text = "* RC\n.subckt amp in out\nE1 a 0 in 0 1\nR1 a out 1k\nC1 out 0 100n\n.ends\n";
+    let path = netlist("part", text);
+    let change: ampnote::rig::spice::rig::PartChange = "C1=220n".parse().unwrap();
+    let mut rig = ampnote::rig::spice::rig::SpiceRig::open_with(
+        &path,
+        &[change],
+        ampnote::calibration::Calibration::default(),
+        &dir("part").join("work"),
+    )
+    .unwrap();
+    // A load far above the network's impedance: the corner is the RC's own.
+    rig.set_load(1e9).unwrap();
+    assert!(rig.describe().contains("C1=220n"), "{}", rig.describe());
+    let s = ampnote::signal::stimulus::sweep(
+        &ampnote::signal::stimulus::Common {
+            lead_s: 0.05,
+            tail_s: 0.3,
+            ..ampnote::signal::stimulus::Common::mono(48_000, -20.0)
+        },
+        10.0,
+        21_000.0,
+        1.0,
+    )
+    .unwrap();
+    let y = rig.play_and_record(1, &s.signal, 48_000).unwrap();
+    let r = ResponseAnalyzer::new(ResponseConfig {
+        reference_hz: 20.0,
+        ..ResponseConfig::default()
+    })
+    .unwrap()
+    .analyze(
+        1,
+        &s.signal,
+        SweepParams::from_description(&s.description).unwrap(),
+        &y,
+        48_000.0,
+        1.0,
+    )
+    .unwrap();
+    let fc = 1.0 / (2.0 * PI * 1e3 * 220e-9);
+    // Relative to 20 Hz, where the RC is down only 0.0033 dB: the -3 dB point is fc's.
+    let f3 = r.high_3db_hz.expect("a -3 dB point");
+    assert!((f3 / fc - 1.0).abs() < 0.005, "{f3} Hz against {fc} Hz");
+    assert_eq!(
+        std::fs::read_to_string(&path).unwrap(),
+        text,
+        "the file is untouched"
+    );
+}

@@ -35,6 +35,10 @@ pub struct RigArgs {
     /// electrostatic speaker), to see the ringing it causes with the transformer's leakage.
     #[arg(long, value_name = "UF")]
     pub load_uf: Option<f64>,
+    /// Circuit rig: change one part for this run without editing the file, e.g.
+    /// --set-part R7=470 --set-part C4=100u (resistors, capacitors, inductors; kept with the run).
+    #[arg(long, value_name = "NAME=VALUE")]
+    pub set_part: Vec<ampnote::rig::spice::rig::PartChange>,
     /// Where rig runs keep their stimulus and capture files (and partial captures).
     #[arg(long, default_value = "ampnote-captures", value_name = "DIR")]
     pub captures_dir: PathBuf,
@@ -53,6 +57,7 @@ impl RigArgs {
             keep_dir: self.captures_dir.clone(),
             calibration,
             load_uf: self.load_uf,
+            parts: self.set_part.clone(),
             test_drop_frames: 0,
         })
     }

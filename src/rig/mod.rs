@@ -158,6 +158,8 @@ pub struct RigOptions {
     pub calibration: Calibration,
     /// The simulated bench only: a capacitance across the dummy load, microfarads.
     pub load_uf: Option<f64>,
+    /// The circuit rig only: parts changed for this run.
+    pub parts: Vec<spice::rig::PartChange>,
     /// For tests of the gap detection only: the live rig throws away this many input frames
     /// once, half way through the first stimulus after the pre-flight (0: never).
     pub test_drop_frames: usize,
@@ -175,6 +177,7 @@ impl Default for RigOptions {
             keep_dir: "ampnote-captures".into(),
             calibration: Calibration::default(),
             load_uf: None,
+            parts: Vec::new(),
             test_drop_frames: 0,
         }
     }
@@ -189,6 +192,11 @@ pub fn parse_rig(spec: &str) -> Result<Box<dyn Rig>> {
 /// (the audio interface, by name or the default one; needs the `live` feature).
 pub fn parse_rig_with(spec: &str, options: &RigOptions) -> Result<Box<dyn Rig>> {
     let (kind, arg) = spec.split_once(':').unwrap_or((spec, ""));
+    if !options.parts.is_empty() && kind != "spice" {
+        return Err(crate::error::Error::InvalidSetting(
+            "--set-part changes a part of a netlist: use it with --rig spice:CIRCUIT.cir".into(),
+        ));
+    }
     match kind {
         "sim" => {
             let name = if arg.is_empty() { "stock" } else { arg };
@@ -218,8 +226,9 @@ pub fn parse_rig_with(spec: &str, options: &RigOptions) -> Result<Box<dyn Rig>> 
         "spice" if options.load_uf.is_some() => Err(crate::error::Error::InvalidSetting(
             "--load-uf sets the simulated bench's load; in a netlist, put the capacitor in the circuit".into(),
         )),
-        "spice" => Ok(Box::new(spice::rig::SpiceRig::open(
+        "spice" => Ok(Box::new(spice::rig::SpiceRig::open_with(
             std::path::Path::new(arg),
+            &options.parts,
             options.calibration,
             &options.keep_dir.join("spice"),
         )?)),

@@ -46,7 +46,7 @@ pub fn run(args: &AnalyzeArgs) -> Result<ExitCode, Failure> {
     let (frames, truncated) = (run.frames, run.truncated);
     let reading = run.reading_warnings(&info);
     let (channels, channel_errors) = super::sort_channels(run.channels, &reading, &notes);
-    let mut keeper = super::Keeper::new(&args.save);
+    let mut keeper = super::Keeper::new(&args.save).with_rig(recorded.rig.clone());
     keeper.add_each(
         &channels,
         cal,

@@ -275,6 +275,8 @@ pub fn same_rate(stimulus_hz: u32, capture_hz: u32) -> Result<(), Failure> {
 pub struct Keeper<'a> {
     save: &'a crate::cli::SaveArgs,
     pending: Vec<Pending>,
+    /// What measured it (the rig's own description), kept as the `rig` setting.
+    rig: Option<String>,
 }
 
 struct Pending {
@@ -290,7 +292,15 @@ impl<'a> Keeper<'a> {
         Keeper {
             save,
             pending: Vec::new(),
+            rig: None,
         }
+    }
+
+    /// Keep what measured the runs (a rig's description; nothing for a user's file) as the
+    /// `rig` setting, unless `--set rig=...` said otherwise: a predicted run must say so.
+    pub fn with_rig(mut self, rig: Option<String>) -> Self {
+        self.rig = rig;
+        self
     }
 
     /// One channel's result, with the files that made it.
@@ -342,7 +352,12 @@ impl<'a> Keeper<'a> {
             return Ok(());
         }
         let nb = ampnote::notebook::Notebook::open(dir)?;
-        let settings = self.save.settings_map()?;
+        let mut settings = self.save.settings_map()?;
+        if let Some(rig) = &self.rig {
+            settings
+                .entry("rig".to_string())
+                .or_insert_with(|| rig.clone());
+        }
         let runs: Vec<ampnote::notebook::NewRun> = self
             .pending
             .iter()
@@ -432,6 +447,8 @@ pub fn to_played(
 pub struct Recorded {
     pub capture: std::path::PathBuf,
     pub stimulus: Option<std::path::PathBuf>,
+    /// The rig's description on a rig run.
+    pub rig: Option<String>,
     pub notes: Vec<(usize, ampnote::warning::Warning)>,
     pub calibration: Option<ampnote::calibration::Calibration>,
 }
@@ -643,6 +660,7 @@ impl RigRun {
         Ok(Recorded {
             capture: cap_path,
             stimulus: Some(self.stim_path),
+            rig: Some(self.rig.describe()),
             notes,
             calibration: Some(self.rig.calibration()),
         })
@@ -675,6 +693,7 @@ fn prepare(
             return Ok(Ready::File(Recorded {
                 capture: path.clone(),
                 stimulus: None,
+                rig: None,
                 notes: Vec::new(),
                 calibration: None,
             }));

@@ -130,7 +130,7 @@ pub fn run(args: &PowerArgs) -> Result<ExitCode, Failure> {
             }
         }
     }
-    let mut keeper = super::Keeper::new(&args.save);
+    let mut keeper = super::Keeper::new(&args.save).with_rig(Some(source.clone()));
     let files = match (&args.capture, &args.stimulus) {
         (Some(c), Some(st)) => vec![("stimulus.wav", st.as_path()), ("capture.wav", c.as_path())],
         _ => Vec::new(),

@@ -184,7 +184,7 @@ pub fn run(args: &SeparationArgs) -> Result<ExitCode, Failure> {
         || csv(&result),
         || table(&file, &result),
     );
-    let mut keeper = super::Keeper::new(&args.save);
+    let mut keeper = super::Keeper::new(&args.save).with_rig(recorded.rig.clone());
     keeper.add(
         args.driven,
         cal,

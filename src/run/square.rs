@@ -164,7 +164,7 @@ pub fn run(args: &SquareArgs) -> Result<ExitCode, Failure> {
         }
     }
     ampnote::report::add_rig_notes(&mut channels, &recorded.notes);
-    let mut keeper = super::Keeper::new(&args.save);
+    let mut keeper = super::Keeper::new(&args.save).with_rig(recorded.rig.clone());
     keeper.add_each(
         &channels,
         cal,

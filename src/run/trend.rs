@@ -44,7 +44,7 @@ pub fn run(args: &TrendArgs) -> Result<ExitCode, Failure> {
     })?;
     let reading = run.reading_warnings(&info);
     let (channels, channel_errors) = super::sort_channels(run.channels, &reading, &recorded.notes);
-    let mut keeper = super::Keeper::new(&a.save);
+    let mut keeper = super::Keeper::new(&a.save).with_rig(recorded.rig.clone());
     keeper.add_each(
         &channels,
         cal,

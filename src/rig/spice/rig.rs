@@ -32,7 +32,11 @@ pub const OVERSAMPLE: usize = 16;
 
 /// The circuit rig.
 pub struct SpiceRig {
+    /// The netlist the deck includes: the user's file, or its copy with the parts changed.
     netlist: PathBuf,
+    /// The user's file, and the parts changed for this run.
+    source: PathBuf,
+    changes: Vec<PartChange>,
     calibration: Calibration,
     load_ohms: f64,
     work: PathBuf,
@@ -74,6 +78,16 @@ impl SpiceRig {
     /// scales, the attenuator and the load; a simulated bench of 2 V rms full scale both ways,
     /// a 20 dB attenuator and 8 ohm where the calibration says nothing).
     pub fn open(path: &Path, calibration: Calibration, work: &Path) -> Result<SpiceRig> {
+        Self::open_with(path, &[], calibration, work)
+    }
+
+    /// [`Self::open`] with parts changed for this run (a copy of the netlist, in `work`).
+    pub fn open_with(
+        path: &Path,
+        changes: &[PartChange],
+        calibration: Calibration,
+        work: &Path,
+    ) -> Result<SpiceRig> {
         let text = std::fs::read_to_string(path).map_err(|source| Error::Open {
             path: path.to_path_buf(),
             source,
@@ -81,10 +95,29 @@ impl SpiceRig {
         amp_ports(&text).map_err(|why| Error::Spice {
             detail: format!("{}: {why}", path.display()),
         })?;
-        let netlist = std::fs::canonicalize(path).map_err(|source| Error::Open {
+        let source = std::fs::canonicalize(path).map_err(|source| Error::Open {
             path: path.to_path_buf(),
             source,
         })?;
+        let netlist = if changes.is_empty() {
+            source.clone()
+        } else {
+            let dir = source.parent().unwrap_or(Path::new("/"));
+            let changed = with_changes(&text, dir, changes)?;
+            std::fs::create_dir_all(work).map_err(|e| Error::Write {
+                path: work.to_path_buf(),
+                source: e,
+            })?;
+            let copy = work.join("netlist-changed.cir");
+            std::fs::write(&copy, changed).map_err(|e| Error::Write {
+                path: copy.clone(),
+                source: e,
+            })?;
+            std::fs::canonicalize(&copy).map_err(|e| Error::Open {
+                path: copy.clone(),
+                source: e,
+            })?
+        };
         let calibration = Calibration {
             output_fs_vrms: calibration.output_fs_vrms.or(Some(2.0)),
             input_fs_vrms: calibration.input_fs_vrms.or(Some(2.0)),
@@ -94,6 +127,8 @@ impl SpiceRig {
         };
         Ok(SpiceRig {
             netlist,
+            source,
+            changes: changes.to_vec(),
             load_ohms: calibration.load_ohms.unwrap_or(8.0),
             calibration,
             work: work.to_path_buf(),
@@ -221,9 +256,21 @@ pub fn resample_cubic(t: &[f64], y: &[f64], fs: f64, n: usize) -> Vec<f64> {
 
 impl crate::rig::Rig for SpiceRig {
     fn describe(&self) -> String {
+        let parts = if self.changes.is_empty() {
+            String::new()
+        } else {
+            format!(
+                " with {}",
+                self.changes
+                    .iter()
+                    .map(|c| format!("{}={}", c.name, c.value))
+                    .collect::<Vec<_>>()
+                    .join(", ")
+            )
+        };
         format!(
-            "circuit rig: {} through ngspice into {} ohm",
-            self.netlist.display(),
+            "circuit rig: {}{parts} through ngspice into {} ohm",
+            self.source.display(),
             self.load_ohms
         )
     }
@@ -408,6 +455,160 @@ mod tests {
                 (seen - want).norm() < 1e-9 * want.norm(),
                 "{f} Hz: {seen} against {want}"
             );
+        }
+    }
+}
+
+/// A part's value changed for one run (`--set-part R7=470`).
+#[derive(Debug, Clone, PartialEq)]
+pub struct PartChange {
+    pub name: String,
+    pub value: String,
+}
+
+impl std::str::FromStr for PartChange {
+    type Err = String;
+    fn from_str(text: &str) -> std::result::Result<Self, String> {
+        let (name, value) = text
+            .split_once('=')
+            .map(|(n, v)| (n.trim(), v.trim()))
+            .ok_or_else(|| {
+                format!("--set-part takes NAME=VALUE (R7=470, C4=100u), got `{text}`")
+            })?;
+        let kind = name.chars().next().map(|c| c.to_ascii_uppercase());
+        if !matches!(kind, Some('R' | 'C' | 'L')) || name.contains(char::is_whitespace) {
+            return Err(format!(
+                "--set-part changes a resistor, capacitor or inductor (a name starting R, C or L), got `{name}`"
+            ));
+        }
+        // A SPICE number: digits, a point, an exponent, then a scale suffix and unit letters.
+        let numeric: String = value
+            .chars()
+            .take_while(|c| c.is_ascii_digit() || matches!(c, '.' | 'e' | 'E' | '+' | '-'))
+            .collect();
+        let rest = &value[numeric.len()..];
+        if numeric
+            .parse::<f64>()
+            .map_or(true, |v| !(v.is_finite() && v > 0.0))
+            || !rest.chars().all(|c| c.is_ascii_alphabetic())
+        {
+            return Err(format!(
+                "--set-part {name}: `{value}` is not a part value (a positive number with an optional suffix: 470, 4.7k, 100u, 2.2meg)"
+            ));
+        }
+        Ok(PartChange {
+            name: name.to_string(),
+            value: value.to_string(),
+        })
+    }
+}
+
+/// The netlist `text` (from the folder `dir`) with `changes` made: each names exactly one
+/// element line, whose value (its fourth field) is replaced; `.include` and `.lib` paths made
+/// absolute, so the copy works from anywhere.
+pub fn with_changes(text: &str, dir: &Path, changes: &[PartChange]) -> Result<String> {
+    let mut lines: Vec<String> = text.lines().map(str::to_string).collect();
+    for line in lines.iter_mut() {
+        let t = line.trim_start();
+        let lower = t.to_ascii_lowercase();
+        if let Some(kw) = [".include", ".inc", ".lib"]
+            .iter()
+            .find(|k| lower.starts_with(*k) && lower[k.len()..].starts_with(char::is_whitespace))
+        {
+            let rest = t[kw.len()..].trim();
+            let (path, tail) = match rest.strip_prefix('"') {
+                Some(r) => r.split_once('"').map_or((r, ""), |(p, t)| (p, t)),
+                None => rest.split_once(char::is_whitespace).unwrap_or((rest, "")),
+            };
+            if !Path::new(path).is_absolute() {
+                *line = format!("{kw} \"{}\"{tail}", dir.join(path).display());
+            }
+        }
+    }
+    for c in changes {
+        let hits: Vec<usize> = lines
+            .iter()
+            .enumerate()
+            .filter(|(_, l)| {
+                l.split_whitespace()
+                    .next()
+                    .is_some_and(|w| w.eq_ignore_ascii_case(&c.name))
+            })
+            .map(|(i, _)| i)
+            .collect();
+        let i = match hits.as_slice() {
+            [i] => *i,
+            [] => {
+                return Err(Error::Spice {
+                    detail: format!(
+                        "--set-part {}: the netlist has no part of that name",
+                        c.name
+                    ),
+                })
+            }
+            many => {
+                return Err(Error::Spice {
+                    detail: format!(
+                    "--set-part {}: the netlist has {} parts of that name (lines {}); rename one",
+                    c.name,
+                    many.len(),
+                    many.iter()
+                        .map(|i| (i + 1).to_string())
+                        .collect::<Vec<_>>()
+                        .join(", ")
+                ),
+                })
+            }
+        };
+        let mut words: Vec<String> = lines[i].split_whitespace().map(str::to_string).collect();
+        if words.len() < 4 {
+            return Err(Error::Spice {
+                detail: format!(
+                    "--set-part {}: line {} has no value to change: `{}`",
+                    c.name,
+                    i + 1,
+                    lines[i].trim()
+                ),
+            });
+        }
+        words[3] = c.value.clone();
+        lines[i] = words.join(" ");
+    }
+    Ok(lines.join("\n") + "\n")
+}
+
+#[cfg(test)]
+mod part_tests {
+    use super::*;
+
+    #[test]
+    fn a_part_change_finds_its_one_line() {
+        let text =
+            "* amp\n.include models/triode.inc\n.subckt amp in out\nR7 a b 1k\nC4 b 0 10u\n.ends\n";
+        let changes: Vec<PartChange> = ["r7=470", "C4=100u"]
+            .iter()
+            .map(|s| s.parse().unwrap())
+            .collect();
+        let out = with_changes(text, Path::new("/work/c"), &changes).unwrap();
+        assert!(out.contains("R7 a b 470"), "{out}");
+        assert!(out.contains("C4 b 0 100u"), "{out}");
+        assert!(
+            out.contains(".include \"/work/c/models/triode.inc\""),
+            "{out}"
+        );
+        let missing: PartChange = "R9=1k".parse().unwrap();
+        assert!(with_changes(text, Path::new("/"), &[missing])
+            .unwrap_err()
+            .to_string()
+            .contains("no part"));
+        let twice = "R1 a b 1k\nr1 c d 2k\n";
+        let c: PartChange = "R1=3k".parse().unwrap();
+        assert!(with_changes(twice, Path::new("/"), &[c])
+            .unwrap_err()
+            .to_string()
+            .contains("2 parts"));
+        for bad in ["R7", "Q1=3", "R7=-5", "R7=abc", "R7=1k5x!", "R7=nan"] {
+            assert!(bad.parse::<PartChange>().is_err(), "{bad}");
         }
     }
 }
