@@ -293,3 +293,46 @@ fn a_part_changed_for_one_run_moves_the_corner_to_its_closed_form() {
         "the file is untouched"
     );
 }
+
+/// A hard-driven soft limiter (10 % THD and more) is no oscillator: the simulation's own
+/// numerical floor must not read as a parasitic oscillation.
+#[test]
+fn a_hard_driven_limiter_raises_no_oscillation() {
+    use ampnote::analysis::tone::{ChannelInput, ToneAnalyzer, ToneConfig};
+    use ampnote::rig::Rig;
+    let text = "* limiter\n.subckt amp in out\nB1 a 0 V = 12 * tanh((10 * V(in) + 0.05 * V(in) * V(in)) / 12)\nR1 a out 1\n.ends\n";
+    let path = netlist("limiter", text);
+    let mut rig = ampnote::rig::spice::rig::SpiceRig::open(
+        &path,
+        ampnote::calibration::Calibration::default(),
+        &dir("limiter").join("work"),
+    )
+    .unwrap();
+    let tone = ampnote::signal::stimulus::tone(
+        &ampnote::signal::stimulus::Common {
+            lead_s: 0.0,
+            tail_s: 0.0,
+            fade_s: 0.0,
+            ..ampnote::signal::stimulus::Common::mono(48_000, -5.0)
+        },
+        997.0,
+        0.5,
+    )
+    .unwrap();
+    let y = rig.play_and_record(1, &tone.signal, 48_000).unwrap();
+    let r = ToneAnalyzer::new(ToneConfig::default())
+        .unwrap()
+        .analyze(
+            &ChannelInput {
+                channel: 1,
+                samples: &y,
+                sample_rate_hz: 48_000.0,
+                overload_threshold: rig.overload_threshold(),
+                resolution_bits: rig.resolution_bits(),
+            },
+            &rig.calibration(),
+        )
+        .unwrap();
+    assert!(r.thd_percent.unwrap() > 5.0, "{:?}", r.thd_percent);
+    assert!(r.oscillations.is_empty(), "{:?}", r.oscillations);
+}
