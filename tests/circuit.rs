@@ -89,6 +89,54 @@ fn netlist(tag: &str, text: &str) -> std::path::PathBuf {
     p
 }
 
+/// A half-second tone at `freq` and `level_dbfs` (no lead, fade or tail) through the netlist
+/// `text` on the circuit rig, analysed: the rig (for its notes) and the tone result.
+fn tone_through(
+    tag: &str,
+    text: &str,
+    freq: f64,
+    level_dbfs: f64,
+) -> (
+    ampnote::rig::spice::rig::SpiceRig,
+    ampnote::analysis::tone::ToneResult,
+) {
+    use ampnote::analysis::tone::{ChannelInput, ToneAnalyzer, ToneConfig};
+    use ampnote::rig::Rig;
+    let path = netlist(tag, text);
+    let mut rig = ampnote::rig::spice::rig::SpiceRig::open(
+        &path,
+        ampnote::calibration::Calibration::default(),
+        &dir(tag).join("work"),
+    )
+    .unwrap();
+    let tone = ampnote::signal::stimulus::tone(
+        &ampnote::signal::stimulus::Common {
+            lead_s: 0.0,
+            tail_s: 0.0,
+            fade_s: 0.0,
+            ..ampnote::signal::stimulus::Common::mono(48_000, level_dbfs)
+        },
+        freq,
+        0.5,
+    )
+    .unwrap();
+    let y = rig.play_and_record(1, &tone.signal, 48_000).unwrap();
+    let r = ToneAnalyzer::new(ToneConfig::default())
+        .unwrap()
+        .analyze(
+            &ChannelInput {
+                channel: 1,
+                samples: &y,
+                sample_rate_hz: 48_000.0,
+                overload_threshold: rig.overload_threshold(),
+                resolution_bits: rig.resolution_bits(),
+            },
+            &rig.calibration(),
+        )
+        .unwrap();
+    (rig, r)
+}
+
 /// The circuit rig's sweep response against ngspice's own `.ac` of the same circuit and load:
 /// the magnitude relative to 1 kHz within 0.02 dB from 20 Hz to 20 kHz, and the absolute gain
 /// through the default bench (2 V rms full scale both ways, 20 dB attenuator) within 0.01 dB.
@@ -166,43 +214,11 @@ fn the_circuit_rigs_sweep_reads_ngspices_own_ac() {
 /// fundamental; read through the circuit rig and the tone analysis within 0.05 dB, and no third.
 #[test]
 fn a_square_law_stage_gives_its_closed_form_second_harmonic() {
-    use ampnote::analysis::tone::{ChannelInput, ToneAnalyzer, ToneConfig};
     use ampnote::rig::Rig;
     let text =
         "* square law\n.subckt amp in out\nB1 out 0 V = V(in) + 0.02 * V(in) * V(in)\n.ends\n";
-    let path = netlist("h2", text);
-    let mut rig = ampnote::rig::spice::rig::SpiceRig::open(
-        &path,
-        ampnote::calibration::Calibration::default(),
-        &dir("h2").join("work"),
-    )
-    .unwrap();
     // -6 dBFS RMS of a 2 V rms full scale: 1 V rms, A = sqrt(2) V at the amplifier's input.
-    let tone = ampnote::signal::stimulus::tone(
-        &ampnote::signal::stimulus::Common {
-            lead_s: 0.0,
-            tail_s: 0.0,
-            fade_s: 0.0,
-            ..ampnote::signal::stimulus::Common::mono(48_000, -6.0)
-        },
-        1000.0,
-        0.5,
-    )
-    .unwrap();
-    let y = rig.play_and_record(1, &tone.signal, 48_000).unwrap();
-    let r = ToneAnalyzer::new(ToneConfig::default())
-        .unwrap()
-        .analyze(
-            &ChannelInput {
-                channel: 1,
-                samples: &y,
-                sample_rate_hz: 48_000.0,
-                overload_threshold: rig.overload_threshold(),
-                resolution_bits: rig.resolution_bits(),
-            },
-            &rig.calibration(),
-        )
-        .unwrap();
+    let (mut rig, r) = tone_through("h2", text, 1000.0, -6.0);
     let a = 10f64.powf(-6.0 / 20.0) * 2.0 * std::f64::consts::SQRT_2;
     let want = 20.0 * (0.02 * a / 2.0).log10();
     let h2 = r.harmonics.iter().find(|h| h.order == 2).unwrap();
@@ -298,41 +314,8 @@ fn a_part_changed_for_one_run_moves_the_corner_to_its_closed_form() {
 /// numerical floor must not read as a parasitic oscillation.
 #[test]
 fn a_hard_driven_limiter_raises_no_oscillation() {
-    use ampnote::analysis::tone::{ChannelInput, ToneAnalyzer, ToneConfig};
-    use ampnote::rig::Rig;
     let text = "* limiter\n.subckt amp in out\nB1 a 0 V = 12 * tanh((10 * V(in) + 0.05 * V(in) * V(in)) / 12)\nR1 a out 1\n.ends\n";
-    let path = netlist("limiter", text);
-    let mut rig = ampnote::rig::spice::rig::SpiceRig::open(
-        &path,
-        ampnote::calibration::Calibration::default(),
-        &dir("limiter").join("work"),
-    )
-    .unwrap();
-    let tone = ampnote::signal::stimulus::tone(
-        &ampnote::signal::stimulus::Common {
-            lead_s: 0.0,
-            tail_s: 0.0,
-            fade_s: 0.0,
-            ..ampnote::signal::stimulus::Common::mono(48_000, -5.0)
-        },
-        997.0,
-        0.5,
-    )
-    .unwrap();
-    let y = rig.play_and_record(1, &tone.signal, 48_000).unwrap();
-    let r = ToneAnalyzer::new(ToneConfig::default())
-        .unwrap()
-        .analyze(
-            &ChannelInput {
-                channel: 1,
-                samples: &y,
-                sample_rate_hz: 48_000.0,
-                overload_threshold: rig.overload_threshold(),
-                resolution_bits: rig.resolution_bits(),
-            },
-            &rig.calibration(),
-        )
-        .unwrap();
+    let (_, r) = tone_through("limiter", text, 997.0, -5.0);
     assert!(r.thd_percent.unwrap() > 5.0, "{:?}", r.thd_percent);
     assert!(r.oscillations.is_empty(), "{:?}", r.oscillations);
 }
