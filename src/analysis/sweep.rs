@@ -612,7 +612,7 @@ impl ResponseAnalyzer {
         // closed form: white noise of variance s2 gives E|G(f)|^2 = s2 sum(w^2) / |X(f)|^2 for a
         // window w on the response, X the stimulus's transform (Parseval on the circular
         // correlation of the noise with the inverse filter).
-        let noise_psd = silence_noise_psd(capture, silence, hum.as_deref(), fs);
+        let noise_psd = silence_noise_psd(&self.planner, capture, silence, hum.as_deref(), fs);
         let w2 = window_energy(pre1, post1);
         let noise_power = |f: f64| -> Option<f64> {
             let psd = noise_psd.as_ref()?;
@@ -1005,6 +1005,7 @@ const MIN_NOISE_SILENCE_S: f64 = 0.1;
 /// (Hann segments of a power of two up to 65536 samples, half overlapping), each segment's
 /// periodogram divided by the window's energy so that white noise of variance s2 reads s2.
 fn silence_noise_psd(
+    planner: &SpectrumPlanner,
     capture: &[f64],
     (from, to): (usize, usize),
     hum: Option<&[f64]>,
@@ -1024,18 +1025,16 @@ fn silence_noise_psd(
         .map(|i| 0.5 - 0.5 * (2.0 * PI * (i as f64 + 0.5) / n as f64).cos())
         .collect();
     let energy: f64 = window.iter().map(|w| w * w).sum();
-    let mut planner = realfft::RealFftPlanner::<f64>::new();
-    let fft = planner.plan_fft_forward(n);
+    let fft = planner.forward(n);
     let mut power = vec![0.0; n / 2 + 1];
     let mut count = 0usize;
     let mut start = 0;
+    let mut buf = vec![0.0; n];
+    let mut out = fft.make_output_vec();
     while start + n <= clean.len() {
-        let mut buf: Vec<f64> = clean[start..start + n]
-            .iter()
-            .zip(&window)
-            .map(|(v, w)| v * w)
-            .collect();
-        let mut out = fft.make_output_vec();
+        for ((b, v), w) in buf.iter_mut().zip(&clean[start..start + n]).zip(&window) {
+            *b = v * w;
+        }
         fft.process(&mut buf, &mut out)
             .expect("sizes match the plan");
         for (p, c) in power.iter_mut().zip(&out) {

@@ -189,6 +189,18 @@ impl SimRig {
         }
     }
 
+    /// The channel's load-line table for the present load, built once per channel and load.
+    fn transfer(&mut self, channel: usize) -> Result<std::sync::Arc<Transfer>> {
+        let ch = *self.channel(channel)?;
+        let key = (channel, self.load_ohms.to_bits());
+        if let Some((_, t)) = self.transfers.iter().find(|(k, _)| *k == key) {
+            return Ok(std::sync::Arc::clone(t));
+        }
+        let t = std::sync::Arc::new(Transfer::new(&ch, self.load_ohms));
+        self.transfers.push((key, std::sync::Arc::clone(&t)));
+        Ok(t)
+    }
+
     fn channel(&self, ch: usize) -> Result<&Channel> {
         match ch {
             1 => Ok(&self.model.left),
@@ -248,15 +260,7 @@ impl Rig for SimRig {
         let ch = *self.channel(channel)?;
         self.runs += 1;
         let seed = self.model.bench.seed ^ (self.runs << 8) ^ channel as u64;
-        let key = (channel, self.load_ohms.to_bits());
-        let transfer = match self.transfers.iter().find(|(k, _)| *k == key) {
-            Some((_, t)) => std::sync::Arc::clone(t),
-            None => {
-                let t = std::sync::Arc::new(Transfer::new(&ch, self.load_ohms));
-                self.transfers.push((key, std::sync::Arc::clone(&t)));
-                t
-            }
-        };
+        let transfer = self.transfer(channel)?;
         let fs = sample_rate_hz as f64;
         let warmed: Vec<f64>;
         let stimulus = match self.warmup {
@@ -318,9 +322,10 @@ impl Rig for SimRig {
                 continue;
             }
             let ch = *self.channel(other)?;
+            let transfer = self.transfer(other)?;
             let seed = self.model.bench.seed ^ (self.runs << 8) ^ ((other as u64) << 4);
             all.push(simulate_with(
-                &Transfer::new(&ch, self.load_ohms),
+                &transfer,
                 &bench,
                 &ch,
                 (self.load_ohms, self.load_farads),
