@@ -19,7 +19,7 @@
 //!   charged; noise and hum are whatever sources the netlist itself has (none, usually: a
 //!   predicted noise figure is then the interface's floor only, and the result says so).
 
-use super::{run, Outcome};
+use super::run;
 use crate::calibration::Calibration;
 use crate::error::{Error, Result};
 use crate::warning::{Warning, WarningCode};
@@ -39,12 +39,20 @@ pub struct SpiceRig {
     changes: Vec<PartChange>,
     calibration: Calibration,
     load_ohms: f64,
+    /// This rig's own folder for its decks, drive files and ngspice's output (one per rig, so
+    /// two runs at once never share one).
     work: PathBuf,
-    limit: Duration,
     notes: Vec<Warning>,
-    /// Wall-clock seconds of the last simulation.
-    pub last_seconds: f64,
 }
+
+/// The bench the circuit rig assumes where the calibration says nothing: 2 V rms full scale
+/// both ways, a 20 dB attenuator, 8 ohm.
+const DEFAULT_FULL_SCALE_VRMS: f64 = 2.0;
+const DEFAULT_ATTENUATION: f64 = 10.0;
+const DEFAULT_LOAD_OHMS: f64 = 8.0;
+
+/// A simulation that outlasts this is stopped.
+const TIME_LIMIT: Duration = Duration::from_secs(600);
 
 /// Read `text` for `.subckt amp IN OUT ...`: the subcircuit's ports, or why the file does not
 /// follow the convention.
@@ -99,49 +107,48 @@ impl SpiceRig {
             path: path.to_path_buf(),
             source,
         })?;
+        let work = work.join(format!(
+            "{}-{}",
+            crate::notebook::timestamp_for_file(),
+            std::process::id()
+        ));
+        std::fs::create_dir_all(&work).map_err(|e| Error::Write {
+            path: work.clone(),
+            source: e,
+        })?;
+        let work = std::fs::canonicalize(&work).map_err(|e| Error::Write {
+            path: work.clone(),
+            source: e,
+        })?;
         let netlist = if changes.is_empty() {
             source.clone()
         } else {
             let dir = source.parent().unwrap_or(Path::new("/"));
             let changed = with_changes(&text, dir, changes)?;
-            std::fs::create_dir_all(work).map_err(|e| Error::Write {
-                path: work.to_path_buf(),
-                source: e,
-            })?;
             let copy = work.join("netlist-changed.cir");
             std::fs::write(&copy, changed).map_err(|e| Error::Write {
                 path: copy.clone(),
                 source: e,
             })?;
-            std::fs::canonicalize(&copy).map_err(|e| Error::Open {
-                path: copy.clone(),
-                source: e,
-            })?
+            copy
         };
+        let load_ohms = calibration.load_ohms.unwrap_or(DEFAULT_LOAD_OHMS);
         let calibration = Calibration {
-            output_fs_vrms: calibration.output_fs_vrms.or(Some(2.0)),
-            input_fs_vrms: calibration.input_fs_vrms.or(Some(2.0)),
-            attenuation: calibration.attenuation.or(Some(10.0)),
-            load_ohms: calibration.load_ohms.or(Some(8.0)),
+            output_fs_vrms: calibration.output_fs_vrms.or(Some(DEFAULT_FULL_SCALE_VRMS)),
+            input_fs_vrms: calibration.input_fs_vrms.or(Some(DEFAULT_FULL_SCALE_VRMS)),
+            attenuation: calibration.attenuation.or(Some(DEFAULT_ATTENUATION)),
+            load_ohms: Some(load_ohms),
             ..calibration
         };
         Ok(SpiceRig {
             netlist,
             source,
             changes: changes.to_vec(),
-            load_ohms: calibration.load_ohms.unwrap_or(8.0),
+            load_ohms,
             calibration,
-            work: work.to_path_buf(),
-            limit: Duration::from_secs(600),
+            work,
             notes: Vec::new(),
-            last_seconds: 0.0,
         })
-    }
-
-    /// Stop a simulation after `limit` (600 s unless set).
-    pub fn with_time_limit(mut self, limit: Duration) -> Self {
-        self.limit = limit;
-        self
     }
 
     /// The deck that plays `source` (a filesource text file) into the netlist for `seconds`,
@@ -195,6 +202,30 @@ pub fn upsample_for_linear_hold(x: &[f64], k: usize) -> Vec<f64> {
     let scale = 1.0 / (n * k) as f64;
     out.truncate(x.len() * k);
     out.iter_mut().for_each(|v| *v *= scale);
+    out
+}
+
+/// The filesource's text file: one `time value` line per point of `up` (`step` apart), volts
+/// (`scale` times the sample).
+fn write_drive(path: &Path, up: &[f64], step: f64, scale: f64) -> std::io::Result<()> {
+    use std::io::Write as _;
+    let mut w = std::io::BufWriter::new(std::fs::File::create(path)?);
+    for (i, v) in up.iter().enumerate() {
+        writeln!(w, "{:.12e} {:.12e}", i as f64 * step, v * scale)?;
+    }
+    w.flush()
+}
+
+/// The simulator's points with time strictly rising (a repeated time point, as a breakpoint
+/// can leave, would divide by zero in the interpolation).
+fn rising(t: &[f64], v: &[f64]) -> (Vec<f64>, Vec<f64>) {
+    let mut out = (Vec::with_capacity(t.len()), Vec::with_capacity(t.len()));
+    for (&a, &b) in t.iter().zip(v) {
+        if out.0.last().is_none_or(|&last| a > last) {
+            out.0.push(a);
+            out.1.push(b);
+        }
+    }
     out
 }
 
@@ -318,61 +349,25 @@ impl crate::rig::Rig for SpiceRig {
         }
         let fs = sample_rate_hz as f64;
         let cal = self.calibration();
-        let out_peak = cal.output_fs_vrms.unwrap_or(2.0) * std::f64::consts::SQRT_2;
-        let in_peak = cal.input_fs_vrms.unwrap_or(2.0) * std::f64::consts::SQRT_2;
-        let atten = cal.attenuation.unwrap_or(10.0);
+        let full = |v: Option<f64>| v.unwrap_or(DEFAULT_FULL_SCALE_VRMS) * std::f64::consts::SQRT_2;
+        let (out_peak, in_peak) = (full(cal.output_fs_vrms), full(cal.input_fs_vrms));
+        let atten = cal.attenuation.unwrap_or(DEFAULT_ATTENUATION);
         let up = upsample_for_linear_hold(stimulus, OVERSAMPLE);
         let step = 1.0 / (fs * OVERSAMPLE as f64);
-        std::fs::create_dir_all(&self.work).map_err(|source| Error::Write {
-            path: self.work.clone(),
-            source,
+        let source = self.work.join("drive.txt");
+        write_drive(&source, &up, step, out_peak).map_err(|e| Error::Write {
+            path: source.clone(),
+            source: e,
         })?;
-        let work = std::fs::canonicalize(&self.work).map_err(|source| Error::Write {
-            path: self.work.clone(),
-            source,
-        })?;
-        let source = work.join("drive.txt");
-        {
-            use std::io::Write as _;
-            let file = std::fs::File::create(&source).map_err(|source_err| Error::Write {
-                path: source.clone(),
-                source: source_err,
-            })?;
-            let mut w = std::io::BufWriter::new(file);
-            for (i, v) in up.iter().enumerate() {
-                writeln!(w, "{:.12e} {:.12e}", i as f64 * step, v * out_peak).map_err(
-                    |source_err| Error::Write {
-                        path: source.clone(),
-                        source: source_err,
-                    },
-                )?;
-            }
-            w.flush().map_err(|source_err| Error::Write {
-                path: source.clone(),
-                source: source_err,
-            })?;
-        }
         let seconds = (stimulus.len() as f64 - 1.0) / fs;
-        let deck = self.deck(&source, step, seconds);
-        let Outcome {
-            plots,
-            warnings,
-            seconds: took,
-        } = run(&deck, &self.work, self.limit)?;
-        self.last_seconds = took;
-        for w in warnings {
+        let outcome = run(&self.deck(&source, step, seconds), &self.work, TIME_LIMIT)?;
+        for w in &outcome.warnings {
             // ngspice notes its own treatment of the XSPICE source; not the user's concern.
-            if w.contains("Interpolated raw file data") {
-                continue;
+            if !w.contains("Interpolated raw file data") {
+                self.notes
+                    .push(WarningCode::Rig.say(format!("ngspice: {w}")));
             }
-            self.notes
-                .push(WarningCode::Rig.say(format!("ngspice: {w}")));
         }
-        let outcome = Outcome {
-            plots,
-            warnings: Vec::new(),
-            seconds: took,
-        };
         if !self
             .notes
             .iter()
@@ -383,8 +378,7 @@ impl crate::rig::Rig for SpiceRig {
             ));
         }
         let tran = outcome.plot("Transient")?;
-        let t = tran.real("time")?;
-        let v = tran.real("v(ampnote_out)")?;
+        let (t, v) = rising(&tran.real("time")?, &tran.real("v(ampnote_out)")?);
         if t.len() < 4 {
             return Err(Error::Spice {
                 detail: format!("ngspice returned {} time points", t.len()),
