@@ -105,6 +105,11 @@ pub struct CompareLine {
     /// like (the sentence says why).
     pub delta: Option<f64>,
     pub delta_unit: Unit,
+    /// When a bound on one side still tells the direction (from a value to under a detection
+    /// limit below it; from a value to a lower bound above it; and the reverse), the change is
+    /// at least this, signed, in `delta_unit`; `null` otherwise.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub at_least_change: Option<f64>,
     /// Which way the figure is better, when it has a better side.
     #[serde(default)]
     pub better: Option<Better>,
@@ -121,22 +126,10 @@ impl CompareLine {
             return Verdict::Unknown;
         };
         let Some(d) = self.delta else {
-            // A bound on one side can still tell the direction: from a value to under a
-            // detection limit below it is down; from a value to a lower bound above it is up.
-            let d = self.b - self.a;
-            let up = match (
-                self.a_upper_bound || self.a_lower_bound,
-                self.b_upper_bound,
-                self.b_lower_bound,
-            ) {
-                (false, true, _) if d < 0.0 => false,
-                (false, _, true) if d > 0.0 => true,
-                (true, false, false) if d > 0.0 && self.a_upper_bound => true,
-                (true, false, false) if d < 0.0 && self.a_lower_bound => false,
-                _ => return Verdict::Unknown,
-            };
-            return match (up, dir) {
-                (true, Better::Higher) | (false, Better::Lower) => Verdict::Better,
+            // A bound on one side can still tell the direction (see `at_least_change`).
+            return match (self.at_least_change.map(|c| c > 0.0), dir) {
+                (None, _) => Verdict::Unknown,
+                (Some(true), Better::Higher) | (Some(false), Better::Lower) => Verdict::Better,
                 _ => Verdict::Worse,
             };
         };
@@ -311,41 +304,50 @@ fn line(
     };
     let (d, delta_unit) = change(a.v, b.v, unit);
     let magnitude = fmt(d.abs(), delta_unit);
-    let (delta, tail) = match (a.bound, b.bound, unlike) {
-        (_, _, Some(why)) => (None, format!("not compared: {why}")),
+    // (delta, the change known one way only, the words).
+    let (delta, at_least, tail) = match (a.bound, b.bound, unlike) {
+        (_, _, Some(why)) => (None, None, format!("not compared: {why}")),
         // Lower bounds (at least): the change is known one way only.
         _ if a.lower || b.lower => match (a.lower, b.lower) {
             (false, true) if d > 0.0 => (
                 None,
+                Some(d),
                 format!("now under the floor: up by at least {magnitude}"),
             ),
             (true, false) if d < 0.0 => (
                 None,
+                Some(d),
                 format!("was under the floor: down by at least {magnitude}"),
             ),
             (true, true) => (
+                None,
                 None,
                 "both under the floor: no change can be read".to_string(),
             ),
             _ => (
                 None,
+                None,
                 "one side is under the floor: no change can be read".to_string(),
             ),
         },
-        (false, false, None) => (Some(d), number::change(d, delta_unit)),
+        (false, false, None) => (Some(d), None, number::change(d, delta_unit)),
         (true, true, None) => (
+            None,
             None,
             "both under the noise: no change can be read".to_string(),
         ),
         (false, true, None) if d < 0.0 => (
             None,
+            Some(d),
             format!("now under the noise: down by at least {magnitude}"),
         ),
         (true, false, None) if d > 0.0 => (
             None,
+            Some(d),
             format!("now above the noise: up by at least {magnitude}"),
         ),
         _ => (
+            None,
             None,
             "one side is under the noise: no change can be read".to_string(),
         ),
@@ -362,6 +364,7 @@ fn line(
         unit,
         delta,
         delta_unit,
+        at_least_change: at_least,
         better: better(figure),
         sentence: format!("{figure}: {} -> {}, {tail}", shown(a), shown(b)),
         change: tail,
@@ -499,5 +502,56 @@ impl Comparison {
             s += &format!("  warning: {}\n", p(&w.message));
         }
         s
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    /// A bound on one side tells the direction only for runs that are like for like: H3 from
+    /// -100 dBc to under a -110 dBc detection limit is down by at least 10 dB (lower is better:
+    /// better), the same between runs at unlike levels is not compared (no verdict); a
+    /// separation from 73 dB to at least 80 dB is up by at least 7 dB (better).
+    #[test]
+    fn a_one_way_change_gets_a_verdict_only_when_compared() {
+        let value = |v| Val {
+            v,
+            bound: false,
+            lower: false,
+        };
+        let limit = Val {
+            v: -110.0,
+            bound: true,
+            lower: false,
+        };
+        let l = line(1, "H3 at 1.00 W", value(-100.0), limit, Unit::Dbc, None);
+        assert_eq!((l.delta, l.at_least_change), (None, Some(-10.0)));
+        assert_eq!(l.verdict(), Verdict::Better);
+        let l = line(
+            1,
+            "H3 at 1.00 W",
+            value(-100.0),
+            limit,
+            Unit::Dbc,
+            Some("levels differ"),
+        );
+        assert_eq!(l.at_least_change, None);
+        assert_eq!(l.verdict(), Verdict::Unknown);
+        let at_least = Val {
+            v: 80.0,
+            bound: false,
+            lower: true,
+        };
+        let l = line(
+            1,
+            "separation at 1 kHz, ch2 from ch1",
+            value(73.0),
+            at_least,
+            Unit::Db,
+            None,
+        );
+        assert_eq!(l.at_least_change, Some(7.0));
+        assert_eq!(l.verdict(), Verdict::Better);
     }
 }
