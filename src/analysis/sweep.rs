@@ -634,7 +634,8 @@ impl ResponseAnalyzer {
         let floor_at = |f: f64, signal_power: f64| -> Option<Floor> {
             let hum = hum_g1.as_ref().map_or(0.0, |h| at(h, f).norm_sqr());
             let noise = noise_power(f).unwrap_or(0.0);
-            if hum.max(noise) * margin <= signal_power {
+            // Their powers add: the two together must stand 20 dB under the point.
+            if (hum + noise) * margin <= signal_power {
                 None
             } else if hum >= noise {
                 Some(Floor::Hum)
