@@ -54,15 +54,7 @@ pub struct PowerArgs {
     #[arg(long, default_value_t = 0.25, value_name = "S")]
     pub settle: f64,
     #[command(flatten)]
-    pub calibration: CalibrationArgs,
-    #[command(flatten)]
-    pub print: PrintArgs,
-    /// Analyse what a truncated file holds instead of refusing it.
-    #[arg(long)]
-    pub accept_truncated: bool,
-
-    #[command(flatten)]
-    pub save: SaveArgs,
+    pub common: ReadingArgs,
 }
 
 #[derive(Debug, Args)]
@@ -149,8 +141,7 @@ pub struct CalibrateArgs {
     /// Never ask: fail when a value is missing (for scripts).
     #[arg(long)]
     pub no_prompt: bool,
-    /// With --rig card: play the calibration tone through the interface, output 1 wired straight
-    /// to input 1 (no amplifier), and read the input full scale and the floor from it.
+    // With --rig card the calibration tone is played through the interface (the command's help).
     #[command(flatten)]
     pub rig: RigArgs,
 }
@@ -220,8 +211,7 @@ pub struct SeparationArgs {
     /// The channel the sweep is played into (1-based); every other channel is recorded with it.
     #[arg(long, value_name = "N")]
     pub driven: usize,
-    /// Measure on a rig: it plays a sweep (10 Hz to 0.45 x the rate, at most 40 kHz) into
-    /// --driven and records every channel at once.
+    // On a rig: the sweep into --driven, every channel recorded (the command's help).
     #[command(flatten)]
     pub rig: RigArgs,
     /// With --rig: the sweep's RMS level, dBFS.
@@ -235,14 +225,7 @@ pub struct SeparationArgs {
     #[arg(long, value_name = "W", conflicts_with = "level")]
     pub watts: Option<f64>,
     #[command(flatten)]
-    pub calibration: CalibrationArgs,
-    #[command(flatten)]
-    pub print: PrintArgs,
-    /// Analyse what a truncated file holds instead of refusing it.
-    #[arg(long)]
-    pub accept_truncated: bool,
-    #[command(flatten)]
-    pub save: SaveArgs,
+    pub common: ReadingArgs,
 }
 
 #[derive(Debug, Args)]
@@ -253,8 +236,7 @@ pub struct SquareArgs {
     /// sweep`), from whose measured response the squares are predicted.
     #[arg(long, value_name = "FILE.wav")]
     pub stimulus: Option<PathBuf>,
-    /// Measure on a rig: it plays a sweep (10 Hz to 0.45 x the rate, at most 40 kHz) and the
-    /// squares are predicted from the response it measures.
+    // On a rig: a sweep, the squares predicted from it (the command's help).
     #[command(flatten)]
     pub rig: RigArgs,
     /// With --rig: the sweep's RMS level, dBFS.
@@ -271,14 +253,7 @@ pub struct SquareArgs {
     #[arg(long, default_value = "all", value_name = "N|all")]
     pub channel: ChannelChoice,
     #[command(flatten)]
-    pub calibration: CalibrationArgs,
-    #[command(flatten)]
-    pub print: PrintArgs,
-    /// Analyse what a truncated file holds instead of refusing it.
-    #[arg(long)]
-    pub accept_truncated: bool,
-    #[command(flatten)]
-    pub save: SaveArgs,
+    pub common: ReadingArgs,
 }
 
 #[derive(Debug, Args)]
@@ -286,8 +261,7 @@ pub struct TrendArgs {
     /// Block length in seconds: one line of figures per block.
     #[arg(long, default_value_t = 1.0, value_name = "S")]
     pub every: f64,
-    /// The tone's settings, the rig (with --rig, --seconds is the length of the log), the
-    /// calibration and the notebook, as for `analyze`.
+    // The tone's settings, rig, calibration and notebook, as for `analyze` (the command's help).
     #[command(flatten)]
     pub tone: AnalyzeArgs,
 }
@@ -340,8 +314,6 @@ pub struct ImdArgs {
     /// With --rig: the sample rate, Hz.
     #[arg(long, default_value_t = 48_000, value_name = "HZ")]
     pub rate: u32,
-    #[command(flatten)]
-    pub calibration: CalibrationArgs,
     /// The two-tone file `ampnote generate twotone` wrote (tells the method and frequencies).
     #[arg(long, value_name = "FILE.wav")]
     pub stimulus: Option<PathBuf>,
@@ -349,13 +321,7 @@ pub struct ImdArgs {
     #[arg(long, default_value = "all", value_name = "N|all")]
     pub channel: ChannelChoice,
     #[command(flatten)]
-    pub print: PrintArgs,
-    /// Analyse what a truncated file holds instead of refusing it.
-    #[arg(long)]
-    pub accept_truncated: bool,
-
-    #[command(flatten)]
-    pub save: SaveArgs,
+    pub common: ReadingArgs,
 }
 
 #[derive(Debug, Args)]
@@ -408,17 +374,7 @@ pub struct AnalyzeArgs {
     pub fundamental: Option<f64>,
 
     #[command(flatten)]
-    pub calibration: CalibrationArgs,
-
-    #[command(flatten)]
-    pub print: PrintArgs,
-
-    /// Analyse what a truncated file holds instead of refusing it.
-    #[arg(long)]
-    pub accept_truncated: bool,
-
-    #[command(flatten)]
-    pub save: SaveArgs,
+    pub common: ReadingArgs,
 }
 
 #[derive(Debug, Args)]

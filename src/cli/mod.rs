@@ -45,15 +45,19 @@ pub enum Command {
     /// recorded sweep.
     Response(ResponseArgs),
     /// Channel separation (IEC 60268-3 crosstalk) from a sweep played into one channel with every
-    /// channel recorded: each other channel's level below it, against frequency.
+    /// channel recorded: each other channel's level below it, against frequency. On a rig the
+    /// sweep (10 Hz to 0.45 x the rate, at most 40 kHz) goes into --driven and every channel is
+    /// recorded at once.
     Separation(SeparationArgs),
     /// Square-wave response (rise time, overshoot, ringing, settling, tilt) from a recorded
-    /// square, or predicted from a recorded sweep.
+    /// square, or predicted from a recorded sweep. On a rig a sweep is played (10 Hz to 0.45 x the
+    /// rate, at most 40 kHz) and the squares are predicted from the response it measures.
     Square(SquareArgs),
     /// Intermodulation distortion from a recorded two-tone pair (IEC 60268-3).
     Imd(ImdArgs),
     /// Follow a steady tone over a long capture (a warm-up, a hum log): level, THD, THD+N, H2, H3
-    /// and the strongest hum line per block, with the drift of each.
+    /// and the strongest hum line per block, with the drift of each. The tone's settings, the rig
+    /// (with --rig, --seconds is the log's length), calibration and notebook are as for `analyze`.
     Trend(TrendArgs),
     /// Noise and hum with no signal (input shorted or silent): flat and A-weighted, mains lines,
     /// and S/N re 1 W when calibrated.
@@ -63,6 +67,8 @@ pub enum Command {
     /// Output impedance and damping factor by the two-load method.
     Zout(ZoutArgs),
     /// Build a calibration profile: interface full scales, attenuator, load, loopback floor.
+    /// With `--rig card`, the calibration tone is played through the interface (output 1 wired
+    /// straight to input 1, no amplifier) and the input full scale and floor are read from it.
     Calibrate(CalibrateArgs),
     /// List the audio hosts and interfaces the live rig can use: channels, rates, formats.
     Devices {

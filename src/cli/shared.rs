@@ -182,6 +182,30 @@ impl CalibrationArgs {
 // Every value below is parsed with its `FromStr` (clap's `value_parser!` picks it up), so a typo
 // in `--channel`, `--band` or `--freq` is a usage error before any file or rig is opened.
 
+/// What the measuring commands that read a recording (or take one from a rig) share: the
+/// calibration, how the result is printed, truncated files, and where the run is kept.
+#[derive(Debug, Args)]
+pub struct ReadingArgs {
+    #[command(flatten)]
+    pub calibration: CalibrationArgs,
+    #[command(flatten)]
+    pub print: PrintArgs,
+    /// Analyse what a truncated file holds instead of refusing it.
+    #[arg(long)]
+    pub accept_truncated: bool,
+    #[command(flatten)]
+    pub save: SaveArgs,
+}
+
+impl ReadingArgs {
+    /// Checks the notebook, label and settings (before anything is played or read, so a typo
+    /// costs no measurement), then gives the calibration the run uses.
+    pub fn prepare(&self) -> Result<Calibration, crate::run::Failure> {
+        crate::run::check_save(&self.save)?;
+        Ok(self.calibration.resolve(&self.save)?)
+    }
+}
+
 /// How a measuring command prints its result (the same two flags on every one).
 #[derive(Debug, Args)]
 pub struct PrintArgs {

@@ -10,9 +10,8 @@ use ampnote::report::SCHEMA_VERSION;
 use std::process::ExitCode;
 
 pub fn run(args: &AnalyzeArgs) -> Result<ExitCode, Failure> {
-    super::check_save(&args.save)?;
+    let cal = args.common.prepare()?;
     let config = args.tone_config()?;
-    let cal = args.calibration.resolve(&args.save)?;
     let channel = args.channel_choice()?;
     let analyzer = ToneAnalyzer::new(config)?;
     let recorded = super::capture_or_record(
@@ -39,14 +38,14 @@ pub fn run(args: &AnalyzeArgs) -> Result<ExitCode, Failure> {
         capture_path,
         &info,
         &chosen,
-        args.accept_truncated,
+        args.common.accept_truncated,
         |input| analyzer.analyze(input, &cal),
         |input| blocks::tone(&analyzer, input, &cal, blocks::BLOCK_SAMPLES),
     )?;
     let (frames, truncated) = (run.frames, run.truncated);
     let reading = run.reading_warnings(&info);
     let (channels, channel_errors) = super::sort_channels(run.channels, &reading, &notes);
-    let mut keeper = super::Keeper::new(&args.save).with_rig(recorded.rig.clone());
+    let mut keeper = super::Keeper::new(&args.common.save).with_rig(recorded.rig.clone());
     keeper.add_each(
         &channels,
         cal,
@@ -66,5 +65,5 @@ pub fn run(args: &AnalyzeArgs) -> Result<ExitCode, Failure> {
         channels,
         channel_errors,
     };
-    super::print_then_keep(args.print.format(), &report, keeper)
+    super::print_then_keep(args.common.print.format(), &report, keeper)
 }

@@ -11,8 +11,7 @@ use ampnote::signal::stimulus::Kind;
 use std::process::ExitCode;
 
 pub fn run(args: &ImdArgs) -> Result<ExitCode, Failure> {
-    super::check_save(&args.save)?;
-    let cal = args.calibration.resolve(&args.save)?;
+    let cal = args.common.prepare()?;
     let recorded = super::capture_or_record(
         &args.capture,
         &args.rig,
@@ -65,14 +64,14 @@ pub fn run(args: &ImdArgs) -> Result<ExitCode, Failure> {
         capture_path,
         &info,
         &chosen,
-        args.accept_truncated,
+        args.common.accept_truncated,
         |input| analyzer.analyze(input, hint),
         |input| blocks::imd(&analyzer, input, hint, blocks::BLOCK_SAMPLES),
     )?;
     // A truncated file (with --accept-truncated) says so beside its figures.
     let reading = run.reading_warnings(&info);
     let (channels, channel_errors) = super::sort_channels(run.channels, &reading, &notes);
-    let mut keeper = super::Keeper::new(&args.save).with_rig(recorded.rig.clone());
+    let mut keeper = super::Keeper::new(&args.common.save).with_rig(recorded.rig.clone());
     let mut files = vec![("capture.wav", capture_path)];
     if let Some(st) = &stimulus {
         files.insert(0, ("stimulus.wav", st.as_path()));
@@ -86,5 +85,5 @@ pub fn run(args: &ImdArgs) -> Result<ExitCode, Failure> {
         channels,
         channel_errors,
     };
-    super::print_then_keep(args.print.format(), &report, keeper)
+    super::print_then_keep(args.common.print.format(), &report, keeper)
 }

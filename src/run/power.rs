@@ -27,8 +27,7 @@ enum Plan {
 }
 
 pub fn run(args: &PowerArgs) -> Result<ExitCode, Failure> {
-    super::check_save(&args.save)?;
-    let flags = args.calibration.resolve(&args.save)?;
+    let flags = args.common.prepare()?;
     let (mut rig, plan): (Box<dyn Rig>, Plan) = match (&args.capture, &args.rig.rig) {
         (Some(_), Some(_)) => return Err("give a capture file or --rig, not both".into()),
         (None, None) => {
@@ -73,7 +72,7 @@ pub fn run(args: &PowerArgs) -> Result<ExitCode, Failure> {
             else {
                 unreachable!("read_stimulus checked the kind");
             };
-            let files = FileRig::new(path, flags, args.accept_truncated)?;
+            let files = FileRig::new(path, flags, args.common.accept_truncated)?;
             super::same_rate(desc.sample_rate_hz, files.sample_rate_hz())?;
             let signal = stim
                 .channel(desc.signal_channels[0])
@@ -130,7 +129,7 @@ pub fn run(args: &PowerArgs) -> Result<ExitCode, Failure> {
             }
         }
     }
-    let mut keeper = super::Keeper::new(&args.save).with_rig(Some(source.clone()));
+    let mut keeper = super::Keeper::new(&args.common.save).with_rig(Some(source.clone()));
     let files = match (&args.capture, &args.stimulus) {
         (Some(c), Some(st)) => vec![("stimulus.wav", st.as_path()), ("capture.wav", c.as_path())],
         _ => Vec::new(),
@@ -143,5 +142,5 @@ pub fn run(args: &PowerArgs) -> Result<ExitCode, Failure> {
         results,
         channel_errors,
     };
-    super::print_then_keep(args.print.format(), &report, keeper)
+    super::print_then_keep(args.common.print.format(), &report, keeper)
 }

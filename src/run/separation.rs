@@ -101,8 +101,7 @@ fn csv(r: &SeparationResult) -> String {
 }
 
 pub fn run(args: &SeparationArgs) -> Result<ExitCode, Failure> {
-    super::check_save(&args.save)?;
-    let cal = args.calibration.resolve(&args.save)?;
+    let cal = args.common.prepare()?;
     let recorded = super::capture_or_record_all(
         &args.capture,
         &args.rig,
@@ -138,7 +137,7 @@ pub fn run(args: &SeparationArgs) -> Result<ExitCode, Failure> {
         )
         .into());
     }
-    let capture = Capture::read(capture_path, args.accept_truncated)?;
+    let capture = Capture::read(capture_path, args.common.accept_truncated)?;
     let analyzer = ResponseAnalyzer::new(ResponseConfig::default())?;
     let captures: Vec<&[f64]> = capture.channels.iter().map(Vec::as_slice).collect();
     let mut result = separation::from_recording(
@@ -171,7 +170,7 @@ pub fn run(args: &SeparationArgs) -> Result<ExitCode, Failure> {
         stimulus: stimulus.display().to_string(),
         result: &result,
     };
-    let format = args.print.format();
+    let format = args.common.print.format();
     super::report_to_stderr(
         format.json || format.csv.is_some(),
         result.warnings.iter().map(|w| (args.driven, w)),
@@ -184,7 +183,7 @@ pub fn run(args: &SeparationArgs) -> Result<ExitCode, Failure> {
         || csv(&result),
         || table(&file, &result),
     );
-    let mut keeper = super::Keeper::new(&args.save).with_rig(recorded.rig.clone());
+    let mut keeper = super::Keeper::new(&args.common.save).with_rig(recorded.rig.clone());
     keeper.add(
         args.driven,
         cal,

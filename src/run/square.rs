@@ -32,8 +32,7 @@ fn about_the_recording(code: C) -> bool {
 }
 
 pub fn run(args: &SquareArgs) -> Result<ExitCode, Failure> {
-    super::check_save(&args.save)?;
-    let cal = args.calibration.resolve(&args.save)?;
+    let cal = args.common.prepare()?;
     if args.rig.rig.is_some() {
         // The rig's sweep runs from 10 Hz to 0.45 x the rate: say so before anything plays.
         let top = ampnote::signal::stimulus::default_sweep_stop_hz(args.rate);
@@ -81,7 +80,7 @@ pub fn run(args: &SquareArgs) -> Result<ExitCode, Failure> {
     let mut channels = Vec::new();
     let mut channel_errors = Vec::new();
     for &ch in &chosen {
-        let cap = Capture::read_channels(capture, args.accept_truncated, Some(&[ch]))?;
+        let cap = Capture::read_channels(capture, args.common.accept_truncated, Some(&[ch]))?;
         let x = &cap.channels[0];
         let outcome = match desc.kind {
             Kind::Square { bandwidth_hz, .. } => {
@@ -164,7 +163,7 @@ pub fn run(args: &SquareArgs) -> Result<ExitCode, Failure> {
         }
     }
     ampnote::report::add_rig_notes(&mut channels, &recorded.notes);
-    let mut keeper = super::Keeper::new(&args.save).with_rig(recorded.rig.clone());
+    let mut keeper = super::Keeper::new(&args.common.save).with_rig(recorded.rig.clone());
     keeper.add_each(
         &channels,
         cal,
@@ -181,5 +180,5 @@ pub fn run(args: &SquareArgs) -> Result<ExitCode, Failure> {
         channels,
         channel_errors,
     };
-    super::print_then_keep(args.print.format(), &report, keeper)
+    super::print_then_keep(args.common.print.format(), &report, keeper)
 }

@@ -24,9 +24,8 @@ pub fn run(args: &TrendArgs) -> Result<ExitCode, Failure> {
         )
         .into());
     }
-    super::check_save(&a.save)?;
+    let cal = a.common.prepare()?;
     let config = a.tone_config()?;
-    let cal = a.calibration.resolve(&a.save)?;
     let channel = a.channel_choice()?;
     let analyzer = ToneAnalyzer::new(config)?;
     let recorded =
@@ -39,12 +38,13 @@ pub fn run(args: &TrendArgs) -> Result<ExitCode, Failure> {
     let info = Capture::probe(path)?;
     let chosen = select_channels(info.channel_count, channel)?;
     // One channel at a time in compact storage; its blocks on every core.
-    let run = blocks::each_stored_channel(path, &info, &chosen, a.accept_truncated, |input| {
-        blocks::trend(&analyzer, input, &cal, args.every)
-    })?;
+    let run =
+        blocks::each_stored_channel(path, &info, &chosen, a.common.accept_truncated, |input| {
+            blocks::trend(&analyzer, input, &cal, args.every)
+        })?;
     let reading = run.reading_warnings(&info);
     let (channels, channel_errors) = super::sort_channels(run.channels, &reading, &recorded.notes);
-    let mut keeper = super::Keeper::new(&a.save).with_rig(recorded.rig.clone());
+    let mut keeper = super::Keeper::new(&a.common.save).with_rig(recorded.rig.clone());
     keeper.add_each(
         &channels,
         cal,
@@ -60,5 +60,5 @@ pub fn run(args: &TrendArgs) -> Result<ExitCode, Failure> {
         channels,
         channel_errors,
     };
-    super::print_then_keep(a.print.format(), &report, keeper)
+    super::print_then_keep(a.common.print.format(), &report, keeper)
 }
