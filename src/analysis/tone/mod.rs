@@ -485,8 +485,17 @@ impl ToneAnalyzer {
         let p_noise = sums.noise_weighted * scale;
         let enbw = TONE_WINDOW.enbw_bins();
 
-        // Noise expected in one fitted line near bin `f`: local residual density times ENBW.
-        let line_noise = |f: f64| -> f64 { local_density(spec, &all_model, f, n) * scale * enbw };
+        // Noise expected in one fitted line near bin `f`: local residual density times ENBW,
+        // and never less than the share of one line of the quantisation noise the source
+        // declares (a step q = 2^(1-B) of the +/-1 full scale, power q^2/12 spread evenly up
+        // to half the rate; Bennett's classic model): a capture computed in double precision
+        // (a circuit simulation) has a residual far under what its arithmetic can stand behind,
+        // and no line is read below that.
+        let q = 2f64.powi(1 - input.resolution_bits.min(1000) as i32);
+        let quantisation_line = q * q / 12.0 * enbw * 2.0 / n as f64;
+        let line_noise = |f: f64| -> f64 {
+            (local_density(spec, &all_model, f, n) * scale * enbw).max(quantisation_line)
+        };
 
         let a1 = fit.amplitudes[0].norm();
         let p1 = a1 * a1 / 2.0;
