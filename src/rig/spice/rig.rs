@@ -7,14 +7,19 @@
 //!
 //! What the simulator sees, and how the capture is read back, so that the rig adds nothing of
 //! its own:
-//! - The stimulus is upsampled [`OVERSAMPLE`] times in the frequency domain (band-limited) and
+//! - The stimulus is upsampled k times ([`oversample_for`]: 4, 8 or 16) in the frequency domain (band-limited) and
 //!   handed to an XSPICE `filesource`, which interpolates linearly between its points wherever
 //!   the simulator evaluates it: that is the samples convolved with a triangle, a response of
 //!   sinc^2(f T) on the band, which the upsampled stimulus is divided by beforehand (exactly).
 //! - The time step is held at most one stimulus point (`TMAX`), and the output is read at the
 //!   capture's sample times by cubic interpolation through the simulator's own points (they lie
-//!   at most one stimulus point apart, 1/768 kHz at 48 kHz: the interpolation error is
-//!   (2 pi f h)^4 / 384 of the signal, 2e-7 at 20 kHz).
+//!   at most one stimulus point apart, h = 1/(k fs): the interpolation error is (2 pi f h)^4 / 384
+//!   of a component at f, 2e-7 at 20 kHz with k = 16 at 48 kHz).
+//! - The trapezoidal rule is the bilinear transform: a linear circuit stepped at h answers at f
+//!   as the real one does at tan(pi f h) / (pi h), (pi f h)^2 / 3 higher. k is chosen from the
+//!   stimulus's own top frequency so that this stays under 0.25 % there: a 1 kHz tone runs at
+//!   k = 4 (its tenth harmonic then sits 0.9 % high in frequency, where an amplifier's response
+//!   is flat), a sweep to 20 kHz at k = 16 (0.22 %).
 //! - The DC operating point comes first (ngspice's default), so coupling capacitors start
 //!   charged; noise and hum are whatever sources the netlist itself has (none, usually: a
 //!   predicted noise figure is then the interface's floor only, and the result says so).
@@ -27,8 +32,48 @@ use std::f64::consts::PI;
 use std::path::{Path, PathBuf};
 use std::time::Duration;
 
-/// Stimulus points per capture sample handed to the simulator.
-pub const OVERSAMPLE: usize = 16;
+/// The fewest stimulus points per capture sample handed to the simulator.
+pub const OVERSAMPLE_MIN: usize = 4;
+/// The most.
+pub const OVERSAMPLE_MAX: usize = 16;
+/// The trapezoidal rule's frequency warping allowed at the stimulus's top frequency (0.25 %,
+/// our choice: 0.01 dB on a first-order corner at that frequency).
+const WARPING_LIMIT: f64 = 0.0025;
+
+/// Stimulus points per sample (4, 8 or 16) for `stimulus` at `fs`: the fewest that keep the
+/// trapezoidal rule's warping, (pi f h)^2 / 3 with h = 1 / (k fs), under [`WARPING_LIMIT`] at
+/// the stimulus's top frequency (its highest component within 80 dB of its strongest).
+pub fn oversample_for(stimulus: &[f64], fs: f64) -> usize {
+    let top = top_frequency(stimulus, fs);
+    let mut k = OVERSAMPLE_MIN;
+    while k < OVERSAMPLE_MAX && (PI * top / (k as f64 * fs)).powi(2) / 3.0 > WARPING_LIMIT {
+        k *= 2;
+    }
+    k
+}
+
+/// The highest frequency at which `x`'s spectrum comes within 80 dB of its strongest bin
+/// (half the rate for a signal with nothing in it).
+fn top_frequency(x: &[f64], fs: f64) -> f64 {
+    if x.len() < 2 {
+        return fs / 2.0;
+    }
+    let n = x.len() + x.len() % 2;
+    let mut planner = realfft::RealFftPlanner::<f64>::new();
+    let fwd = planner.plan_fft_forward(n);
+    let mut buf = vec![0.0; n];
+    buf[..x.len()].copy_from_slice(x);
+    let mut spec = fwd.make_output_vec();
+    fwd.process(&mut buf, &mut spec)
+        .expect("sizes match the plan");
+    let mags: Vec<f64> = spec.iter().map(|c| c.norm()).collect();
+    let peak = mags.iter().cloned().fold(0.0, f64::max);
+    if peak == 0.0 {
+        return fs / 2.0;
+    }
+    let last = mags.iter().rposition(|&m| m >= 1e-4 * peak).unwrap_or(mags.len() - 1);
+    last as f64 * fs / n as f64
+}
 
 /// The circuit rig.
 pub struct SpiceRig {
@@ -358,8 +403,9 @@ impl crate::rig::Rig for SpiceRig {
         let full = |v: Option<f64>| v.unwrap_or(DEFAULT_FULL_SCALE_VRMS) * std::f64::consts::SQRT_2;
         let (out_peak, in_peak) = (full(cal.output_fs_vrms), full(cal.input_fs_vrms));
         let atten = cal.attenuation.unwrap_or(DEFAULT_ATTENUATION);
-        let up = upsample_for_linear_hold(stimulus, OVERSAMPLE);
-        let step = 1.0 / (fs * OVERSAMPLE as f64);
+        let k = oversample_for(stimulus, fs);
+        let up = upsample_for_linear_hold(stimulus, k);
+        let step = 1.0 / (fs * k as f64);
         let source = self.work.join("drive.txt");
         write_drive(&source, &up, step, out_peak).map_err(|e| Error::Write {
             path: source.clone(),
@@ -393,8 +439,8 @@ impl crate::rig::Rig for SpiceRig {
         // Read on the stimulus's fine grid, then down to the capture's rate through an ideal
         // anti-alias filter, as an interface's converter does: harmonics above half the rate
         // must not fold back into the band.
-        let fine = resample_cubic(&t, &v, fs * OVERSAMPLE as f64, stimulus.len() * OVERSAMPLE);
-        let y = decimate_band_limited(&fine, OVERSAMPLE);
+        let fine = resample_cubic(&t, &v, fs * k as f64, stimulus.len() * k);
+        let y = decimate_band_limited(&fine, k);
         Ok(y.iter().map(|v| v / atten / in_peak).collect())
     }
 
@@ -431,10 +477,33 @@ mod tests {
     /// times the linear hold's sinc^2(f T) (T one point): that must equal the stimulus's own
     /// transform at every frequency (the upsampling is exact and the sinc^2 divided out). A
     /// Hann-windowed 20 kHz tone and one at 1 kHz, to 1e-9 of the tone.
+    /// Closed form of the bilinear transform's warping, (pi f h)^2 / 3 with h = 1 / (k fs):
+    /// at 48 kHz a 1 kHz or 5 kHz tone needs k = 4 (0.22 % at 5 kHz), 8 kHz needs 8 (0.57 % at
+    /// k = 4, 0.14 % at 8), 20 kHz needs 16 (0.22 %); an impulse (every frequency) takes 16.
+    #[test]
+    fn the_oversampling_follows_the_stimulus_top() {
+        let fs = 48_000.0;
+        let tone = |f: f64| -> Vec<f64> {
+            (0..9600)
+                .map(|i| {
+                    (2.0 * PI * f * i as f64 / fs).sin() * (PI * i as f64 / 9600.0).sin().powi(2)
+                })
+                .collect()
+        };
+        assert_eq!(oversample_for(&tone(1000.0), fs), 4);
+        assert_eq!(oversample_for(&tone(5000.0), fs), 4);
+        assert_eq!(oversample_for(&tone(8000.0), fs), 8);
+        assert_eq!(oversample_for(&tone(20_000.0), fs), 16);
+        let mut click = vec![0.0; 4800];
+        click[100] = 1.0;
+        assert_eq!(oversample_for(&click, fs), 16);
+        assert_eq!(oversample_for(&[0.0; 100], fs), 16);
+    }
+
     #[test]
     fn the_upsampled_drive_undoes_the_linear_hold() {
         let fs = 48_000.0;
-        let k = OVERSAMPLE;
+        let k = OVERSAMPLE_MAX;
         let n = 4800;
         for f in [1000.0, 20_000.0] {
             let x: Vec<f64> = (0..n)
