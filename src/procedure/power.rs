@@ -558,27 +558,51 @@ pub fn tone_on_rig(
     channel: usize,
     analyzer: &ToneAnalyzer,
     cal: &Calibration,
-    (frequency_hz, rate): (f64, u32),
+    tone: (f64, u32),
     drive_dbfs: f64,
-    (settle, dwell): (usize, usize),
+    timing: (usize, usize),
 ) -> Result<ToneResult> {
+    let mut one = tones_on_rig(rig, channel, analyzer, cal, tone, &[drive_dbfs], timing)?;
+    Ok(one.remove(0))
+}
+
+/// [`tone_on_rig`] at each of `drives_dbfs`, in order, taken at once where the rig can
+/// ([`Rig::play_and_record_each`]).
+pub fn tones_on_rig(
+    rig: &mut dyn Rig,
+    channel: usize,
+    analyzer: &ToneAnalyzer,
+    cal: &Calibration,
+    (frequency_hz, rate): (f64, u32),
+    drives_dbfs: &[f64],
+    (settle, dwell): (usize, usize),
+) -> Result<Vec<ToneResult>> {
     let fs = rate as f64;
-    let a = 10f64.powf(drive_dbfs / 20.0);
     let w = 2.0 * std::f64::consts::PI * frequency_hz / fs;
-    let tone: Vec<f64> = (0..settle + dwell)
-        .map(|i| a * (w * i as f64).sin())
+    let tones: Vec<Vec<f64>> = drives_dbfs
+        .iter()
+        .map(|d| {
+            let a = 10f64.powf(d / 20.0);
+            (0..settle + dwell)
+                .map(|i| a * (w * i as f64).sin())
+                .collect()
+        })
         .collect();
-    let cap = rig.play_and_record(channel, &tone, rate)?;
-    analyzer.analyze(
-        &ChannelInput {
-            channel,
-            samples: &cap[settle.min(cap.len())..],
-            sample_rate_hz: fs,
-            overload_threshold: rig.overload_threshold(),
-            resolution_bits: rig.resolution_bits(),
-        },
-        cal,
-    )
+    let caps = rig.play_and_record_each(channel, &tones, rate)?;
+    caps.iter()
+        .map(|cap| {
+            analyzer.analyze(
+                &ChannelInput {
+                    channel,
+                    samples: &cap[settle.min(cap.len())..],
+                    sample_rate_hz: fs,
+                    overload_threshold: rig.overload_threshold(),
+                    resolution_bits: rig.resolution_bits(),
+                },
+                cal,
+            )
+        })
+        .collect()
 }
 
 /// Ticks the bar when a step ends, however it ends.
@@ -610,23 +634,35 @@ pub fn run_staircase(
     let settle = (s.settle_s * fs) as usize;
     let dwell = (s.dwell_s * fs) as usize;
     progress.extend(1 + (-s.from_dbfs / s.step_db).ceil().max(0.0) as u64);
-    let measure = |rig: &mut dyn Rig, drive: f64| -> Result<PowerStep> {
-        progress.message(format!(
-            "channel {channel}, {} Hz: {drive:.1} dBFS",
-            s.frequency_hz
-        ));
-        let _tick = StepTick(progress);
-        let r = tone_on_rig(
+    // The steps at `drives`, taken at once where the rig can (a simulator; never a bench with
+    // an amplifier on it, see `Rig::parallel`), each ticking the bar.
+    let measure_each = |rig: &mut dyn Rig, drives: &[f64]| -> Result<Vec<PowerStep>> {
+        progress.message(match drives {
+            [one] => format!("channel {channel}, {} Hz: {one:.1} dBFS", s.frequency_hz),
+            [first, .., last] => format!(
+                "channel {channel}, {} Hz: {first:.1} to {last:.1} dBFS, {} steps at once",
+                s.frequency_hz,
+                drives.len()
+            ),
+            [] => String::new(),
+        });
+        let ticks: Vec<StepTick> = drives.iter().map(|_| StepTick(progress)).collect();
+        let r = tones_on_rig(
             rig,
             channel,
             &analyzer,
             &cal,
             (s.frequency_hz, s.sample_rate_hz),
-            drive,
+            drives,
             (settle, dwell),
         )?;
-        Ok(step_from(drive, &r))
+        drop(ticks);
+        Ok(drives.iter().zip(&r).map(|(&d, r)| step_from(d, r)).collect())
     };
+    let measure = |rig: &mut dyn Rig, drive: f64| -> Result<PowerStep> {
+        Ok(measure_each(rig, &[drive])?.remove(0))
+    };
+    let parallel = rig.parallel().max(1);
     // The first step's power, predicted from a low probe (the gain holds while the amplifier is
     // linear; compression only lowers the real figure): refused before it is played when it
     // would pass the limit.
@@ -647,8 +683,27 @@ pub fn run_staircase(
     let mut steps: Vec<PowerStep> = Vec::new();
     let mut drive = s.from_dbfs;
     let stopped;
+    // Coarse steps measured ahead, for `drive`, `drive + step`, ... (on a rig that takes several
+    // at once; each within full scale and the power limit as predicted from the last step
+    // measured, an upper bound since compression only lowers the real power).
+    let mut ahead: std::collections::VecDeque<PowerStep> = Default::default();
     loop {
-        let cur = measure(rig, drive)?;
+        if ahead.is_empty() {
+            let last = steps.last().unwrap_or(&probe);
+            let mut drives = vec![drive];
+            while drives.len() < parallel {
+                let d = drive + drives.len() as f64 * s.step_db;
+                let within_limit = last
+                    .output_w
+                    .is_none_or(|w| w * 10f64.powf((d - last.drive_dbfs) / 10.0) <= s.max_w);
+                if d > 0.0 || !within_limit {
+                    break;
+                }
+                drives.push(d);
+            }
+            ahead.extend(measure_each(rig, &drives)?);
+        }
+        let cur = ahead.pop_front().expect("measured above");
         // Where THD cannot be measured (harmonics out of band), THD+N stands in: it is never
         // below THD, so the stop limit still holds.
         let distortion = |p: &PowerStep| p.thd_percent.unwrap_or(p.thdn_percent);
@@ -665,15 +720,25 @@ pub fn run_staircase(
             if THD_TARGETS.iter().any(|&t| pt < t && cur_thd >= t) {
                 let fine = s.step_db / 5.0;
                 progress.extend(4);
+                let mut between = Vec::new();
                 let mut d = pd + fine;
                 while d < drive - fine / 2.0 {
-                    let st = measure(rig, d)?;
-                    let o = st.excluded;
-                    steps.push(st);
-                    if o {
+                    between.push(d);
+                    d += fine;
+                }
+                // Between two steps already played: all of them at once where the rig can.
+                for chunk in between.chunks(parallel) {
+                    let mut overloaded = false;
+                    for st in measure_each(rig, chunk)? {
+                        overloaded = st.excluded;
+                        steps.push(st);
+                        if overloaded {
+                            break;
+                        }
+                    }
+                    if overloaded {
                         break;
                     }
-                    d += fine;
                 }
             }
         }

@@ -51,6 +51,26 @@ pub trait Rig {
         sample_rate_hz: u32,
     ) -> Result<Vec<f64>>;
 
+    /// How many captures this rig takes at once: a simulator one per core; a bench with an
+    /// amplifier on it, one (a procedure never plays a step it may not need on a real amplifier).
+    fn parallel(&self) -> usize {
+        1
+    }
+
+    /// One capture per stimulus of `stimuli`, in order, into amplifier channel `channel`; a rig
+    /// whose [`Rig::parallel`] is more than one takes them at once, any other one after another.
+    fn play_and_record_each(
+        &mut self,
+        channel: usize,
+        stimuli: &[Vec<f64>],
+        sample_rate_hz: u32,
+    ) -> Result<Vec<Vec<f64>>> {
+        stimuli
+            .iter()
+            .map(|s| self.play_and_record(channel, s, sample_rate_hz))
+            .collect()
+    }
+
     /// Play `stimulus` into amplifier channel `channel` and record every channel's output at once
     /// (channel separation): one capture per amplifier channel, index 0 for channel 1, each
     /// aligned and of the stimulus's length like [`Rig::play_and_record`]'s. A rig that records

@@ -219,6 +219,70 @@ impl SpiceRig {
             load = self.load_ohms,
         )
     }
+    /// One capture of `stimulus` (at `fs`) simulated in the folder `dir`, with ngspice's
+    /// warnings. Takes `&self` so that several run at once, each in a folder of its own.
+    fn simulate(&self, dir: &Path, stimulus: &[f64], fs: f64) -> Result<(Vec<f64>, Vec<String>)> {
+        let cal = crate::rig::Rig::calibration(self);
+        let full = |v: Option<f64>| v.unwrap_or(DEFAULT_FULL_SCALE_VRMS) * std::f64::consts::SQRT_2;
+        let (out_peak, in_peak) = (full(cal.output_fs_vrms), full(cal.input_fs_vrms));
+        let atten = cal.attenuation.unwrap_or(DEFAULT_ATTENUATION);
+        let k = oversample_for(stimulus, fs);
+        let up = upsample_for_linear_hold(stimulus, k);
+        let step = 1.0 / (fs * k as f64);
+        std::fs::create_dir_all(dir).map_err(|e| Error::Write {
+            path: dir.to_path_buf(),
+            source: e,
+        })?;
+        let source = dir.join("drive.txt");
+        write_drive(&source, &up, step, out_peak).map_err(|e| Error::Write {
+            path: source.clone(),
+            source: e,
+        })?;
+        let seconds = (stimulus.len() as f64 - 1.0) / fs;
+        let outcome = run(&self.deck(&source, step, seconds), dir, TIME_LIMIT)?;
+        let tran = outcome.plot("Transient")?;
+        let (t, v) = rising(&tran.real("time")?, &tran.real("v(ampnote_out)")?);
+        if t.len() < 4 {
+            return Err(Error::Spice {
+                detail: format!("ngspice returned {} time points", t.len()),
+            });
+        }
+        // Read on the stimulus's fine grid, then down to the capture's rate through an ideal
+        // anti-alias filter, as an interface's converter does: harmonics above half the rate
+        // must not fold back into the band.
+        let fine = resample_cubic(&t, &v, fs * k as f64, stimulus.len() * k);
+        let y = decimate_band_limited(&fine, k);
+        Ok((
+            y.iter().map(|v| v / atten / in_peak).collect(),
+            outcome.warnings.clone(),
+        ))
+    }
+
+
+    /// Keeps ngspice's warnings (each once) and the note that the run is a prediction.
+    fn note(&mut self, warnings: &[String]) {
+        let predicted = "predicted by ngspice from the netlist, not measured: noise and hum are only what the netlist's own sources make (none unless it has them), so a predicted noise, hum or THD+N figure is not a bench's";
+        // ngspice notes its own treatment of the XSPICE source; not the user's concern.
+        let theirs = warnings
+            .iter()
+            .filter(|w| !w.contains("Interpolated raw file data"))
+            .map(|w| format!("ngspice: {w}"));
+        for m in std::iter::once(predicted.to_string()).chain(theirs) {
+            if !self.notes.iter().any(|n| n.message == m) {
+                self.notes.push(WarningCode::Rig.say(m));
+            }
+        }
+    }
+
+    fn check_channel(channel: usize) -> Result<()> {
+        if channel != 1 {
+            return Err(Error::NoSuchChannel {
+                requested: channel,
+                available: 1,
+            });
+        }
+        Ok(())
+    }
 }
 
 /// `x` (at rate `fs`) upsampled `k` times in the frequency domain and divided by the linear
@@ -392,56 +456,38 @@ impl crate::rig::Rig for SpiceRig {
         stimulus: &[f64],
         sample_rate_hz: u32,
     ) -> Result<Vec<f64>> {
-        if channel != 1 {
-            return Err(Error::NoSuchChannel {
-                requested: channel,
-                available: 1,
-            });
-        }
+        Self::check_channel(channel)?;
+        let (capture, warnings) =
+            self.simulate(&self.work, stimulus, sample_rate_hz as f64)?;
+        self.note(&warnings);
+        Ok(capture)
+    }
+
+    fn parallel(&self) -> usize {
+        std::thread::available_parallelism().map_or(1, |n| n.get())
+    }
+
+    /// Every stimulus simulated at once (one ngspice per core, each in a folder of its own).
+    fn play_and_record_each(
+        &mut self,
+        channel: usize,
+        stimuli: &[Vec<f64>],
+        sample_rate_hz: u32,
+    ) -> Result<Vec<Vec<f64>>> {
+        use rayon::prelude::*;
+        Self::check_channel(channel)?;
         let fs = sample_rate_hz as f64;
-        let cal = self.calibration();
-        let full = |v: Option<f64>| v.unwrap_or(DEFAULT_FULL_SCALE_VRMS) * std::f64::consts::SQRT_2;
-        let (out_peak, in_peak) = (full(cal.output_fs_vrms), full(cal.input_fs_vrms));
-        let atten = cal.attenuation.unwrap_or(DEFAULT_ATTENUATION);
-        let k = oversample_for(stimulus, fs);
-        let up = upsample_for_linear_hold(stimulus, k);
-        let step = 1.0 / (fs * k as f64);
-        let source = self.work.join("drive.txt");
-        write_drive(&source, &up, step, out_peak).map_err(|e| Error::Write {
-            path: source.clone(),
-            source: e,
-        })?;
-        let seconds = (stimulus.len() as f64 - 1.0) / fs;
-        let outcome = run(&self.deck(&source, step, seconds), &self.work, TIME_LIMIT)?;
-        for w in &outcome.warnings {
-            // ngspice notes its own treatment of the XSPICE source; not the user's concern.
-            if !w.contains("Interpolated raw file data") {
-                self.notes
-                    .push(WarningCode::Rig.say(format!("ngspice: {w}")));
-            }
+        let done: Vec<(Vec<f64>, Vec<String>)> = stimuli
+            .par_iter()
+            .enumerate()
+            .map(|(i, s)| self.simulate(&self.work.join(format!("part-{i}")), s, fs))
+            .collect::<Result<_>>()?;
+        let mut captures = Vec::with_capacity(done.len());
+        for (capture, warnings) in done {
+            self.note(&warnings);
+            captures.push(capture);
         }
-        if !self
-            .notes
-            .iter()
-            .any(|n| n.message.starts_with("predicted by ngspice"))
-        {
-            self.notes.push(WarningCode::Rig.say(
-                "predicted by ngspice from the netlist, not measured: noise and hum are only what the netlist's own sources make (none unless it has them), so a predicted noise, hum or THD+N figure is not a bench's",
-            ));
-        }
-        let tran = outcome.plot("Transient")?;
-        let (t, v) = rising(&tran.real("time")?, &tran.real("v(ampnote_out)")?);
-        if t.len() < 4 {
-            return Err(Error::Spice {
-                detail: format!("ngspice returned {} time points", t.len()),
-            });
-        }
-        // Read on the stimulus's fine grid, then down to the capture's rate through an ideal
-        // anti-alias filter, as an interface's converter does: harmonics above half the rate
-        // must not fold back into the band.
-        let fine = resample_cubic(&t, &v, fs * k as f64, stimulus.len() * k);
-        let y = decimate_band_limited(&fine, k);
-        Ok(y.iter().map(|v| v / atten / in_peak).collect())
+        Ok(captures)
     }
 
     fn take_notes(&mut self, channel: usize) -> Vec<Warning> {
