@@ -37,6 +37,155 @@ pub struct DemoOutcome {
     pub comparison: Comparison,
     pub matches: Vec<MatchResult>,
     pub runs: usize,
+    /// Each example circuit's prediction against the measured label it predicts (channel 1).
+    pub predictions: Vec<Comparison>,
+    /// Why the circuits were not predicted, when they were not.
+    pub circuits_skipped: Option<String>,
+}
+
+/// The example circuits (`examples/circuits/`), built in so an installed binary has them: the
+/// measured label each predicts, its predicted label, the file name and the netlist.
+const CIRCUITS: [(&str, &str, &str, &str); 2] = [
+    (
+        "stock",
+        "stock, predicted",
+        "stock.cir",
+        include_str!("../examples/circuits/stock.cir"),
+    ),
+    (
+        "driver reworked",
+        "driver reworked, predicted",
+        "reworked.cir",
+        include_str!("../examples/circuits/reworked.cir"),
+    ),
+];
+
+/// Predict channel 1 of each example circuit through ngspice (a tone at 1 W, the power
+/// staircase, a sweep) and keep the runs as predictions; what each predicts is compared after.
+fn predict(
+    nb: &Notebook,
+    work: &Path,
+    cal: Calibration,
+    progress: &mut impl FnMut(&str),
+) -> Result<Vec<Comparison>> {
+    use crate::procedure::power::{run_staircase, StaircaseSettings};
+    use crate::rig::spice::rig::SpiceRig;
+    let tone_cfg = ToneAnalyzer::new(ToneConfig {
+        fundamental_hint_hz: Some(997.0),
+        ..ToneConfig::default()
+    })?;
+    let resp = ResponseAnalyzer::new(ResponseConfig::default())?;
+    let mut out = Vec::new();
+    for (measured, label, file, text) in CIRCUITS {
+        progress(&format!("{label} (ngspice)"));
+        let path = work.join(file);
+        std::fs::write(&path, text).map_err(|source| crate::error::Error::Write {
+            path: path.clone(),
+            source,
+        })?;
+        let mut rig = SpiceRig::open(&path, cal, &work.join("spice"))?;
+        let ch = 1;
+        let mut settings = BTreeMap::new();
+        settings.insert("rig".to_string(), rig.describe());
+        let save = |files: Vec<(&str, &Path)>, result: RunResult, notes: &str| {
+            nb.save(NewRun {
+                label,
+                channel: ch,
+                notes,
+                settings: settings.clone(),
+                calibration: cal,
+                analysis: None,
+                files,
+                blobs: Vec::new(),
+                result,
+                predicted: true,
+            })
+        };
+        let base = Common {
+            lead_s: 0.05,
+            tail_s: 0.1,
+            fade_s: 0.01,
+            ..Common::mono(RATE, -20.0)
+        };
+        // A tone at 1 W.
+        let drive =
+            crate::procedure::drive::drive_for_power(&mut rig, ch, 997.0, RATE, 1.0)?.drive_dbfs;
+        let tone = stimulus::tone(
+            &Common {
+                level_dbfs: drive.min(-1.0),
+                ..base.clone()
+            },
+            997.0,
+            1.0,
+        )?;
+        let tone_path = write_stimulus(work, "tone-1w.wav", &tone)?;
+        let cap_path = work.join("capture.wav");
+        let y = record(&mut rig, ch, &tone, &cap_path)?;
+        let mut r = tone_cfg.analyze(&input(ch, steady(&y, &tone), &rig), &cal)?;
+        r.warnings.extend(rig.take_notes(ch));
+        save(
+            vec![("stimulus.wav", &tone_path), ("capture.wav", &cap_path)],
+            r.into(),
+            "997 Hz at 1 W, predicted",
+        )?;
+        // The staircase, step by step (steps taken at once, one per core).
+        let mut p = run_staircase(
+            &mut rig,
+            ch,
+            &StaircaseSettings {
+                frequency_hz: 997.0,
+                sample_rate_hz: RATE,
+                from_dbfs: -30.0,
+                step_db: 2.0,
+                stop_thd_percent: 10.0,
+                max_w: 50.0,
+                settle_s: 0.15,
+                dwell_s: 0.2,
+            },
+            &crate::progress::Progress::hidden(),
+        )?;
+        p.warnings.extend(rig.take_notes(ch));
+        save(
+            Vec::new(),
+            p.into(),
+            "staircase from -30 dBFS in 2 dB steps, predicted",
+        )?;
+        // A short sweep at the measured one's rate and span.
+        let sweep = stimulus::sweep(
+            &Common {
+                fade_s: 0.0,
+                tail_s: 0.2,
+                ..Common {
+                    sample_rate_hz: SWEEP_RATE,
+                    ..base.clone()
+                }
+            },
+            10.0,
+            40_000.0,
+            1.0,
+        )?;
+        let sweep_path = write_stimulus(work, "sweep.wav", &sweep)?;
+        let sp = SweepParams::from_description(&sweep.description).expect("a sweep");
+        let y = record(&mut rig, ch, &sweep, &cap_path)?;
+        let mut r = resp.analyze(
+            ch,
+            &sweep.signal,
+            sp,
+            &y,
+            SWEEP_RATE as f64,
+            rig.overload_threshold(),
+        )?;
+        r.warnings.extend(rig.take_notes(ch));
+        save(
+            vec![("stimulus.wav", &sweep_path), ("capture.wav", &cap_path)],
+            r.into(),
+            "10 Hz - 40 kHz sweep at 96 kHz, 1 s, predicted",
+        )?;
+        let a = nb.select(label, Some(ch))?;
+        let b = nb.select(measured, Some(ch))?;
+        out.push(compare(label, &a, measured, &b));
+    }
+    Ok(out)
 }
 
 fn write_stimulus(dir: &Path, name: &str, s: &Stimulus) -> Result<PathBuf> {
@@ -52,7 +201,7 @@ fn write_stimulus(dir: &Path, name: &str, s: &Stimulus) -> Result<PathBuf> {
     Ok(path)
 }
 
-fn record(rig: &mut SimRig, ch: usize, s: &Stimulus, path: &Path) -> Result<Vec<f64>> {
+fn record(rig: &mut dyn Rig, ch: usize, s: &Stimulus, path: &Path) -> Result<Vec<f64>> {
     let rate = s.description.sample_rate_hz;
     let y = rig.play_and_record(ch, &s.signal, rate)?;
     write_wav(
@@ -74,7 +223,7 @@ fn steady<'a>(y: &'a [f64], s: &Stimulus) -> &'a [f64] {
     &y[from.min(to)..to]
 }
 
-fn input<'a>(ch: usize, y: &'a [f64], rig: &SimRig) -> ChannelInput<'a> {
+fn input<'a>(ch: usize, y: &'a [f64], rig: &dyn Rig) -> ChannelInput<'a> {
     ChannelInput {
         channel: ch,
         samples: y,
@@ -85,7 +234,9 @@ fn input<'a>(ch: usize, y: &'a [f64], rig: &SimRig) -> ChannelInput<'a> {
 }
 
 /// Run the demo into `out` (created if needed; a notebook already there is refused).
-pub fn run(out: &Path, mut progress: impl FnMut(&str)) -> Result<DemoOutcome> {
+/// With `circuits`, the example circuits are predicted too when ngspice is installed (a few
+/// minutes more); without ngspice the demo says so and goes on.
+pub fn run(out: &Path, circuits: bool, mut progress: impl FnMut(&str)) -> Result<DemoOutcome> {
     let stock = Model::load("stock")?;
     let bench = stock.bench;
     let profile = Profile {
@@ -168,6 +319,7 @@ pub fn run(out: &Path, mut progress: impl FnMut(&str)) -> Result<DemoOutcome> {
                     files,
                     blobs: Vec::new(),
                     result,
+                    predicted: false,
                 })
             };
             // A tone at 1 W: the drive found from a probe and a confirming tone.
@@ -356,6 +508,7 @@ pub fn run(out: &Path, mut progress: impl FnMut(&str)) -> Result<DemoOutcome> {
             files: Vec::new(),
             blobs: Vec::new(),
             result: dc.into(),
+            predicted: false,
         })?;
     }
     // The reworked amplifier switched on cold and logged for 20 s at 1 W (left channel): the
@@ -415,6 +568,7 @@ pub fn run(out: &Path, mut progress: impl FnMut(&str)) -> Result<DemoOutcome> {
         files: vec![("stimulus.wav", &log_path), ("capture.wav", &cap_path)],
         blobs: Vec::new(),
         result: t.into(),
+        predicted: false,
     })?;
     let a = nb.select("stock", None)?;
     let b = nb.select("driver reworked", None)?;
@@ -434,11 +588,26 @@ pub fn run(out: &Path, mut progress: impl FnMut(&str)) -> Result<DemoOutcome> {
             ))
         })
         .collect::<Result<Vec<_>>>()?;
+    let (predictions, circuits_skipped) = if !circuits {
+        (Vec::new(), Some("left out (--no-circuits)".to_string()))
+    } else if !crate::rig::spice::available() {
+        (
+            Vec::new(),
+            Some(format!(
+                "skipped: ngspice was not found (`{}`); install it (Debian: apt install ngspice) to see the example circuits predicted against the measurements",
+                crate::rig::spice::binary().display()
+            )),
+        )
+    } else {
+        (predict(&nb, &work, cal, &mut progress)?, None)
+    };
     let _ = std::fs::remove_dir_all(&work);
     Ok(DemoOutcome {
         notebook: nb.dir.clone(),
         comparison,
         matches,
+        predictions,
+        circuits_skipped,
         // Counted from the notebook itself, so a procedure added to the demo is counted too.
         runs: nb.runs()?.len(),
     })

@@ -25,7 +25,7 @@ fn main() -> ExitCode {
         Command::Calibrate(args) => run::calibrate::run(args),
         Command::Devices { json } => run::devices(*json),
         Command::Watch(args) => run::watch::run(args),
-        Command::Demo { out } => run::notebook::demo(out),
+        Command::Demo { out, no_circuits } => run::notebook::demo(out, !no_circuits),
         Command::Notebook { action } => run::notebook::notebook(action),
         Command::Compare(args) => run::notebook::compare(args),
         Command::Match(args) => run::notebook::match_(args),

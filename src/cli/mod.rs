@@ -85,6 +85,9 @@ pub enum Command {
         /// Folder for the demo's notebook.
         #[arg(long, default_value = "ampnote-demo", value_name = "DIR")]
         out: PathBuf,
+        /// Leave out the example circuits' predictions (ngspice, when installed: a few minutes).
+        #[arg(long)]
+        no_circuits: bool,
     },
     /// Keep runs in a folder per amplifier.
     Notebook {

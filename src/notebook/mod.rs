@@ -68,6 +68,9 @@ pub struct RunMeta {
     pub measurement: Option<Measurement>,
     /// Files in the run folder.
     pub files: Vec<String>,
+    /// A prediction (the circuit rig: a simulator run on a netlist), not a measurement.
+    #[serde(default, skip_serializing_if = "std::ops::Not::not")]
+    pub predicted: bool,
 }
 
 /// The channels one command measured together, kept as one measurement.
@@ -167,6 +170,8 @@ pub struct NewRun<'a> {
     pub blobs: Vec<(&'a str, Vec<u8>)>,
     /// The result; its procedure names the run.
     pub result: RunResult,
+    /// A prediction, not a measurement ([`RunMeta::predicted`]).
+    pub predicted: bool,
 }
 
 /// An open notebook.
@@ -338,6 +343,7 @@ impl Notebook {
                     analysis: run.analysis.clone(),
                     measurement: measurement.clone(),
                     files: files.clone(),
+                    predicted: run.predicted,
                 };
                 let meta_text = serde_json::to_string_pretty(&meta).expect("meta serializes");
                 std::fs::write(dir.join("run.json"), meta_text)

@@ -657,7 +657,11 @@ pub fn run_staircase(
             (settle, dwell),
         )?;
         drop(ticks);
-        Ok(drives.iter().zip(&r).map(|(&d, r)| step_from(d, r)).collect())
+        Ok(drives
+            .iter()
+            .zip(&r)
+            .map(|(&d, r)| step_from(d, r))
+            .collect())
     };
     let measure = |rig: &mut dyn Rig, drive: f64| -> Result<PowerStep> {
         Ok(measure_each(rig, &[drive])?.remove(0))

@@ -119,6 +119,44 @@ fn page(m: &ReportModel, charts: &[(&str, &str, String)]) -> Markup {
                          side gives no change (shown as < limit)."
                     }
                 }
+                @if !m.predictions.is_empty() {
+                    h2 { "Predicted against measured" }
+                    p.note {
+                        "A predicted label's runs come from the circuit rig: ngspice run on the \
+                         netlist, not a measurement. Its noise and hum are only what the netlist's \
+                         own sources make. Difference: measured minus predicted."
+                    }
+                    @for p in &m.predictions {
+                        @match (&p.measured, &p.comparison) {
+                            (Some(measured), Some(c)) => {
+                                h3 { (p.predicted) " against " (measured) }
+                                table {
+                                    thead { tr { th { "Channel" } th { "Figure" } th { "Predicted" } th { "Measured" } th { "Difference" } } }
+                                    tbody {
+                                        @for l in &c.lines {
+                                            @let (a, b) = super::model::shown_sides(l);
+                                            tr {
+                                                td { (l.channel) }
+                                                td { (l.figure) }
+                                                td.num { (a) }
+                                                td.num { (b) }
+                                                td { (l.change) }
+                                            }
+                                        }
+                                    }
+                                }
+                                @for w in &c.warnings { p.warn { (crate::notebook::printable(&w.message)) } }
+                            }
+                            _ => {
+                                h3 { (p.predicted) }
+                                p.note {
+                                    "No measured label of the same name yet (the same label without the \
+                                     word \"predicted\"): measure it to set the prediction against it."
+                                }
+                            }
+                        }
+                    }
+                }
                 @if !m.matches.is_empty() {
                     h2 { "Channel match" }
                     @for (label, r) in &m.matches {
@@ -167,7 +205,7 @@ fn page(m: &ReportModel, charts: &[(&str, &str, String)]) -> Markup {
                                     td { (r.id) br; span.note { (r.time) } }
                                     td { (r.label) }
                                     td { (r.channel) }
-                                    td { (r.procedure) }
+                                    td { (r.procedure) @if r.predicted { br; span.note { "predicted" } } }
                                     td {
                                         (r.figure)
                                         @for w in &r.warnings {

@@ -27,12 +27,37 @@ pub struct ReportModel {
     /// The first two labels, side by side (absent with fewer than two labels).
     pub summary: Option<Summary>,
     pub comparison: Option<Comparison>,
+    /// Each predicted label (the circuit rig's runs) against the measured label it predicts:
+    /// A is the prediction, B the measurement, so a line's change is measured minus predicted.
+    pub predictions: Vec<Prediction>,
     /// Left against right, per label.
     pub matches: Vec<(String, MatchResult)>,
     pub benches: Vec<Bench>,
     pub runs: Vec<RunLine>,
     /// Each label's latest left-channel tone run, as the spectrum and residual charts draw it.
     pub tones: Vec<ToneChart>,
+}
+
+/// A predicted label and what it predicts.
+#[derive(Debug, Clone)]
+pub struct Prediction {
+    pub predicted: String,
+    /// The measured label of the same name less the word "predicted" (`driver rework,
+    /// predicted` predicts `driver rework`); `None` when the notebook has none yet.
+    pub measured: Option<String>,
+    /// Predicted (A) against measured (B), when there is a measured label.
+    pub comparison: Option<Comparison>,
+}
+
+/// A label's name with the word "predicted" and punctuation taken out, lower case: what pairs
+/// a prediction with its measurement.
+pub fn prediction_key(label: &str) -> String {
+    label
+        .to_lowercase()
+        .replace("predicted", "")
+        .chars()
+        .filter(|c| c.is_alphanumeric())
+        .collect()
 }
 
 /// One label's tone run for the charts: its figures and its views.
@@ -129,6 +154,8 @@ pub struct RunLine {
     pub procedure: &'static str,
     pub figure: String,
     pub warnings: Vec<Warning>,
+    /// A prediction (the circuit rig), not a measurement.
+    pub predicted: bool,
 }
 
 /// The headline figures, in order: what each row is, and which comparison line fills it per
@@ -316,8 +343,36 @@ impl ReportModel {
                     .collect()
             })
             .collect();
-        let comparison = (labels.len() >= 2)
-            .then(|| compare(&labels[0], &by_label[0], &labels[1], &by_label[1]));
+        // A label is a prediction when every run of it is one.
+        let predicted: Vec<bool> = by_label
+            .iter()
+            .map(|runs| !runs.is_empty() && runs.iter().all(|r| r.meta.predicted))
+            .collect();
+        // Before and after: the first two measured labels (the first two of any kind when
+        // fewer than two are measured), so a prediction never stands in for a measurement.
+        let measured: Vec<usize> = (0..labels.len()).filter(|&i| !predicted[i]).collect();
+        let pair = match measured.as_slice() {
+            [a, b, ..] => Some((*a, *b)),
+            _ => (labels.len() >= 2).then_some((0, 1)),
+        };
+        let comparison =
+            pair.map(|(a, b)| compare(&labels[a], &by_label[a], &labels[b], &by_label[b]));
+        let predictions = (0..labels.len())
+            .filter(|&i| predicted[i])
+            .map(|i| {
+                let key = prediction_key(&labels[i]);
+                let m = measured
+                    .iter()
+                    .copied()
+                    .find(|&j| prediction_key(&labels[j]) == key);
+                Prediction {
+                    predicted: printable(&labels[i]),
+                    measured: m.map(|j| printable(&labels[j])),
+                    comparison: m
+                        .map(|j| compare(&labels[i], &by_label[i], &labels[j], &by_label[j])),
+                }
+            })
+            .collect();
         let mut matches = Vec::new();
         if nb.info.channels >= 2 {
             for (label, mine) in labels.iter().zip(&by_label) {
@@ -365,6 +420,7 @@ impl ReportModel {
                 procedure: r.meta.procedure.name(),
                 figure: printable(&r.result.headline()),
                 warnings: r.result.warnings().to_vec(),
+                predicted: r.meta.predicted,
             })
             .collect();
         ReportModel {
@@ -381,6 +437,7 @@ impl ReportModel {
                 summary(c, load)
             }),
             comparison,
+            predictions,
             matches,
             benches,
             runs: lines,

@@ -51,6 +51,12 @@ pub trait Rig {
         sample_rate_hz: u32,
     ) -> Result<Vec<f64>>;
 
+    /// Whether the captures are predicted (a simulator run on the user's netlist) rather than
+    /// measured; kept with every run, so a prediction is never read as a measurement.
+    fn predicts(&self) -> bool {
+        false
+    }
+
     /// How many captures this rig takes at once: a simulator one per core; a bench with an
     /// amplifier on it, one (a procedure never plays a step it may not need on a real amplifier).
     fn parallel(&self) -> usize {

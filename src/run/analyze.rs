@@ -45,7 +45,8 @@ pub fn run(args: &AnalyzeArgs) -> Result<ExitCode, Failure> {
     let (frames, truncated) = (run.frames, run.truncated);
     let reading = run.reading_warnings(&info);
     let (channels, channel_errors) = super::sort_channels(run.channels, &reading, &notes);
-    let mut keeper = super::Keeper::new(&args.common.save).with_rig(recorded.rig.clone());
+    let mut keeper =
+        super::Keeper::new(&args.common.save).with_rig(recorded.rig.clone(), recorded.predicted);
     keeper.add_each(
         &channels,
         cal,

@@ -71,7 +71,8 @@ pub fn run(args: &ImdArgs) -> Result<ExitCode, Failure> {
     // A truncated file (with --accept-truncated) says so beside its figures.
     let reading = run.reading_warnings(&info);
     let (channels, channel_errors) = super::sort_channels(run.channels, &reading, &notes);
-    let mut keeper = super::Keeper::new(&args.common.save).with_rig(recorded.rig.clone());
+    let mut keeper =
+        super::Keeper::new(&args.common.save).with_rig(recorded.rig.clone(), recorded.predicted);
     let mut files = vec![("capture.wav", capture_path)];
     if let Some(st) = &stimulus {
         files.insert(0, ("stimulus.wav", st.as_path()));

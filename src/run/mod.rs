@@ -277,6 +277,8 @@ pub struct Keeper<'a> {
     pending: Vec<Pending>,
     /// What measured it (the rig's own description), kept as the `rig` setting.
     rig: Option<String>,
+    /// The rig predicts rather than measures.
+    predicted: bool,
 }
 
 struct Pending {
@@ -293,13 +295,16 @@ impl<'a> Keeper<'a> {
             save,
             pending: Vec::new(),
             rig: None,
+            predicted: false,
         }
     }
 
     /// Keep what measured the runs (a rig's description; nothing for a user's file) as the
     /// `rig` setting, unless `--set rig=...` said otherwise: a predicted run must say so.
-    pub fn with_rig(mut self, rig: Option<String>) -> Self {
+    /// `predicted`: the rig predicts rather than measures ([`ampnote::rig::Rig::predicts`]).
+    pub fn with_rig(mut self, rig: Option<String>, predicted: bool) -> Self {
         self.rig = rig;
+        self.predicted = predicted;
         self
     }
 
@@ -375,6 +380,7 @@ impl<'a> Keeper<'a> {
                     .collect(),
                 blobs: Vec::new(),
                 result: p.result.clone(),
+                predicted: self.predicted,
             })
             .collect();
         let kept = nb.save_measurement(runs)?;
@@ -449,6 +455,8 @@ pub struct Recorded {
     pub stimulus: Option<std::path::PathBuf>,
     /// The rig's description on a rig run.
     pub rig: Option<String>,
+    /// The rig predicts rather than measures.
+    pub predicted: bool,
     pub notes: Vec<(usize, ampnote::warning::Warning)>,
     pub calibration: Option<ampnote::calibration::Calibration>,
 }
@@ -661,6 +669,7 @@ impl RigRun {
             capture: cap_path,
             stimulus: Some(self.stim_path),
             rig: Some(self.rig.describe()),
+            predicted: self.rig.predicts(),
             notes,
             calibration: Some(self.rig.calibration()),
         })
@@ -694,6 +703,7 @@ fn prepare(
                 capture: path.clone(),
                 stimulus: None,
                 rig: None,
+                predicted: false,
                 notes: Vec::new(),
                 calibration: None,
             }));

@@ -145,7 +145,8 @@ pub fn run(args: &NoiseArgs) -> Result<ExitCode, Failure> {
     let analyzer = NoiseAnalyzer::new();
     let mut channels = Vec::new();
     let mut channel_errors = Vec::new();
-    let mut keeper = super::Keeper::new(&args.save).with_rig(recorded.rig.clone());
+    let mut keeper =
+        super::Keeper::new(&args.save).with_rig(recorded.rig.clone(), recorded.predicted);
     let run = blocks::each_channel(
         capture_path,
         &info,

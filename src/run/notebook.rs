@@ -10,7 +10,7 @@ use ampnote::results::RunResult;
 use std::path::Path;
 use std::process::ExitCode;
 
-pub fn demo(out: &Path) -> Result<ExitCode, Failure> {
+pub fn demo(out: &Path, circuits: bool) -> Result<ExitCode, Failure> {
     let t0 = std::time::Instant::now();
     // A folder that already holds a demo is kept; the next free name is used instead.
     let mut folder = out.to_path_buf();
@@ -28,7 +28,10 @@ pub fn demo(out: &Path) -> Result<ExitCode, Failure> {
     }
     let out = folder.as_path();
     eprintln!("ampnote demo: an invented stereo single-ended amplifier on the simulated bench");
-    let outcome = ampnote::demo::run(out, |what| eprintln!("  measuring {what} ..."))?;
+    if circuits && ampnote::rig::spice::available() {
+        eprintln!("  ngspice found: the example circuits are predicted too (a few minutes; --no-circuits leaves them out)");
+    }
+    let outcome = ampnote::demo::run(out, circuits, |what| eprintln!("  measuring {what} ..."))?;
     let mut s = String::new();
     s += &format!(
         "\n{} runs kept in {} ({:.1} s)\n\nBefore and after the driver rework\n",
@@ -40,6 +43,16 @@ pub fn demo(out: &Path) -> Result<ExitCode, Failure> {
     for m in &outcome.matches {
         s += "\n";
         s += &m.to_table();
+    }
+    for p in &outcome.predictions {
+        s += &format!(
+            "\nPredicted (ngspice, {}) against measured ({}), channel 1: the change is measured minus predicted\n",
+            p.a, p.b
+        );
+        s += &p.to_table();
+    }
+    if let Some(why) = &outcome.circuits_skipped {
+        s += &format!("\nExample circuits (examples/circuits/): {why}\n");
     }
     let nb = Notebook::open(&outcome.notebook)?;
     let files = ampnote::report::html::write_report(&nb, &out.join("report"))?;
@@ -217,6 +230,7 @@ fn runs_from_file(
                 analysis: None,
                 measurement: None,
                 files: vec![],
+                predicted: false,
             },
             result,
         });
@@ -564,6 +578,7 @@ fn dc(
         files: Vec::new(),
         blobs: Vec::new(),
         result: (&result).into(),
+        predicted: false,
     })?;
     eprintln!("kept as {} in {}", run.meta.id, dir.display());
     Ok(if result.points.iter().any(|p| p.overstressed) {

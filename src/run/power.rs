@@ -129,7 +129,8 @@ pub fn run(args: &PowerArgs) -> Result<ExitCode, Failure> {
             }
         }
     }
-    let mut keeper = super::Keeper::new(&args.common.save).with_rig(Some(source.clone()));
+    let mut keeper =
+        super::Keeper::new(&args.common.save).with_rig(Some(source.clone()), rig.predicts());
     let files = match (&args.capture, &args.stimulus) {
         (Some(c), Some(st)) => vec![("stimulus.wav", st.as_path()), ("capture.wav", c.as_path())],
         _ => Vec::new(),

@@ -111,7 +111,8 @@ pub fn run(args: &ResponseArgs) -> Result<ExitCode, Failure> {
         }
     }
     ampnote::report::add_rig_notes(&mut channels, &notes);
-    let mut keeper = super::Keeper::new(&args.save).with_rig(recorded.rig.clone());
+    let mut keeper =
+        super::Keeper::new(&args.save).with_rig(recorded.rig.clone(), recorded.predicted);
     for r in &channels {
         keeper.add(
             r.channel,

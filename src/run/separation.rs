@@ -183,7 +183,8 @@ pub fn run(args: &SeparationArgs) -> Result<ExitCode, Failure> {
         || csv(&result),
         || table(&file, &result),
     );
-    let mut keeper = super::Keeper::new(&args.common.save).with_rig(recorded.rig.clone());
+    let mut keeper =
+        super::Keeper::new(&args.common.save).with_rig(recorded.rig.clone(), recorded.predicted);
     keeper.add(
         args.driven,
         cal,

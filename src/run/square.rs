@@ -163,7 +163,8 @@ pub fn run(args: &SquareArgs) -> Result<ExitCode, Failure> {
         }
     }
     ampnote::report::add_rig_notes(&mut channels, &recorded.notes);
-    let mut keeper = super::Keeper::new(&args.common.save).with_rig(recorded.rig.clone());
+    let mut keeper =
+        super::Keeper::new(&args.common.save).with_rig(recorded.rig.clone(), recorded.predicted);
     keeper.add_each(
         &channels,
         cal,

@@ -44,7 +44,8 @@ pub fn run(args: &TrendArgs) -> Result<ExitCode, Failure> {
         })?;
     let reading = run.reading_warnings(&info);
     let (channels, channel_errors) = super::sort_channels(run.channels, &reading, &recorded.notes);
-    let mut keeper = super::Keeper::new(&a.common.save).with_rig(recorded.rig.clone());
+    let mut keeper =
+        super::Keeper::new(&a.common.save).with_rig(recorded.rig.clone(), recorded.predicted);
     keeper.add_each(
         &channels,
         cal,

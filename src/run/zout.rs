@@ -95,7 +95,7 @@ pub fn run(args: &ZoutArgs) -> Result<ExitCode, Failure> {
         res.warnings.extend(rig.take_notes(ch));
         results.push(res);
     }
-    let mut keeper = super::Keeper::new(&args.save).with_rig(Some(source.clone()));
+    let mut keeper = super::Keeper::new(&args.save).with_rig(Some(source.clone()), rig.predicts());
     let files = match &args.captures[..] {
         [a, b] => vec![
             ("capture.wav", a.as_path()),

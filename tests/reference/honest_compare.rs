@@ -70,6 +70,7 @@ fn notebook(tag: &str, runs: &[(&str, RunResult)]) -> (std::path::PathBuf, Noteb
             files: vec![],
             blobs: vec![],
             result: result.clone(),
+            predicted: false,
         })
         .unwrap();
     }

@@ -119,6 +119,7 @@ fn runs_are_whole_and_never_overwritten() {
             files: vec![],
             blobs: vec![("capture.wav", vec![1, 2, 3])],
             result: (&tone).into(),
+            predicted: false,
         })
         .unwrap()
     };
@@ -164,7 +165,7 @@ fn runs_are_whole_and_never_overwritten() {
 fn demo_runs_end_to_end() {
     let d = tmpdir("demo");
     let out = d.join("demo");
-    let (code, stdout, err) = run(&["demo", "--out", &out.to_string_lossy()]);
+    let (code, stdout, err) = run(&["demo", "--no-circuits", "--out", &out.to_string_lossy()]);
     assert_eq!(code, 0, "{err}");
     assert!(stdout.contains("31 runs kept"), "{stdout}");
     assert!(stdout.contains("power at 1 % THD"), "{stdout}");
@@ -424,6 +425,7 @@ fn a_write_that_fails_half_way_leaves_the_notebook_intact() {
         files: vec![],
         blobs,
         result: (&tone).into(),
+        predicted: false,
     };
     nb.save(good(vec![("capture.wav", vec![0; 10])])).unwrap();
     let err = nb.save(good(vec![
@@ -474,6 +476,7 @@ fn runs_kept_by_older_versions_read_back_typed() {
             files: vec![],
             blobs: vec![],
             result: (&tone).into(),
+            predicted: false,
         })
         .unwrap();
     let path = kept.dir.join("result.json");

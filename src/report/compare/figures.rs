@@ -97,7 +97,7 @@ pub(super) fn compare_power(s: &mut Sink, a: &[Run], b: &[Run]) {
 }
 
 /// Tone runs, at the same output level only: THD, THD+N, H2..H5, noise and hum.
-pub(super) fn compare_tone(s: &mut Sink, a: &[Run], b: &[Run]) {
+pub(super) fn compare_tone(s: &mut Sink, a: &[Run], b: &[Run], noted: &mut bool) {
     let ch = s.ch;
     if let (Some(ta), Some(tb)) = (latest::<ToneView>(a, ch), latest::<ToneView>(b, ch)) {
         let (diff, at_a, at_b) = tone_levels(ta, tb);
@@ -137,6 +137,9 @@ pub(super) fn compare_tone(s: &mut Sink, a: &[Run], b: &[Run]) {
                 Unit::Dbc,
                 unlike,
             );
+        }
+        if !s.noise_comparable(noted) {
+            return;
         }
         // dBV at the amplifier's output when both sides are calibrated, else dBFS.
         let (na, nb, nu) = match (ta.noise_vrms, tb.noise_vrms) {
@@ -219,9 +222,12 @@ pub(super) fn compare_response(s: &mut Sink, a: &[Run], b: &[Run]) {
 }
 
 /// Noise and hum with no signal (dBV once both sides are calibrated), and S/N re 1 W.
-pub(super) fn compare_noise(s: &mut Sink, a: &[Run], b: &[Run]) {
+pub(super) fn compare_noise(s: &mut Sink, a: &[Run], b: &[Run], noted: &mut bool) {
     let ch = s.ch;
     if let (Some(na), Some(nb)) = (latest::<NoiseView>(a, ch), latest::<NoiseView>(b, ch)) {
+        if !s.noise_comparable(noted) {
+            return;
+        }
         // In dBV at the amplifier's output when both sides are calibrated (comparable across
         // interfaces and attenuators), else in dBFS through the same interface.
         let level = |dbfs_a: f64, dbfs_b: f64, va: Option<f64>, vb: Option<f64>| match (va, vb) {

@@ -62,6 +62,17 @@ pub fn run(deck: &str, dir: &Path, limit: Duration) -> Result<Outcome> {
     run_with(&binary(), deck, dir, limit)
 }
 
+/// Whether the ngspice binary ([`binary`]) runs here.
+pub fn available() -> bool {
+    Command::new(binary())
+        .arg("-v")
+        .stdin(Stdio::null())
+        .stdout(Stdio::null())
+        .stderr(Stdio::null())
+        .status()
+        .is_ok_and(|s| s.success())
+}
+
 /// The settings ngspice reads before the deck (see [`run_with`]).
 const SPICEINIT: &str = "* written by ampnote's circuit rig\nset xtrtol=7\n";
 

@@ -71,7 +71,10 @@ fn top_frequency(x: &[f64], fs: f64) -> f64 {
     if peak == 0.0 {
         return fs / 2.0;
     }
-    let last = mags.iter().rposition(|&m| m >= 1e-4 * peak).unwrap_or(mags.len() - 1);
+    let last = mags
+        .iter()
+        .rposition(|&m| m >= 1e-4 * peak)
+        .unwrap_or(mags.len() - 1);
     last as f64 * fs / n as f64
 }
 
@@ -257,7 +260,6 @@ impl SpiceRig {
             outcome.warnings.clone(),
         ))
     }
-
 
     /// Keeps ngspice's warnings (each once) and the note that the run is a prediction.
     fn note(&mut self, warnings: &[String]) {
@@ -457,10 +459,13 @@ impl crate::rig::Rig for SpiceRig {
         sample_rate_hz: u32,
     ) -> Result<Vec<f64>> {
         Self::check_channel(channel)?;
-        let (capture, warnings) =
-            self.simulate(&self.work, stimulus, sample_rate_hz as f64)?;
+        let (capture, warnings) = self.simulate(&self.work, stimulus, sample_rate_hz as f64)?;
         self.note(&warnings);
         Ok(capture)
+    }
+
+    fn predicts(&self) -> bool {
+        true
     }
 
     fn parallel(&self) -> usize {
