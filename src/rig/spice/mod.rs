@@ -187,6 +187,16 @@ fn judge(log: &str) -> (Vec<String>, Vec<String>) {
             || lower.contains("no such vector");
         // Harmless in batch mode: the run went on.
         let noise = lower.contains("there aren't any circuits loaded");
+        // `.options interp` (a user's netlist may set it): ngspice 39 then writes each kept
+        // point several times over and rewrites the header with a shorter count (seen in its
+        // batch output), so the values read back would be wrong, not short.
+        if lower.contains("interpolated raw file data") {
+            let said = "the deck sets `.options interp`, whose results ngspice 39 writes wrongly (points repeated, the header rewritten): take the option out (ampnote chooses the time steps itself)";
+            if !errors.iter().any(|e| e == said) {
+                errors.push(said.to_string());
+            }
+            continue;
+        }
         if failed && !noise {
             if !errors.iter().any(|e| e == line) {
                 errors.push(line.to_string());
@@ -201,6 +211,15 @@ fn judge(log: &str) -> (Vec<String>, Vec<String>) {
 #[cfg(test)]
 mod tests {
     use super::judge;
+
+    #[test]
+    fn an_interpolated_run_is_refused() {
+        // ngspice 39's own words for a deck with `.options interp`.
+        let (errors, _) =
+            judge("Doing analysis at TEMP = 27.000000\nWarning: Interpolated raw file data!\n");
+        assert_eq!(errors.len(), 1, "{errors:?}");
+        assert!(errors[0].contains("take the option out"), "{errors:?}");
+    }
 
     #[test]
     fn the_log_is_read_for_errors_not_the_exit_code() {
