@@ -151,12 +151,18 @@ fn tone_through_file(
     (rig, r)
 }
 
-/// The circuit rig's sweep response (1 s, 10 Hz-21 kHz at 48 kHz, `level_dbfs`) through the
-/// netlist at `path`, set against ngspice's own `.ac` of the same circuit and 8 ohm load: the
+/// The circuit rig's sweep response (`seconds` from `start_hz` to 21 kHz at 48 kHz,
+/// `level_dbfs`) through the netlist at `path`, set against ngspice's own `.ac` of the same
+/// circuit and 8 ohm load: the
 /// worst difference of the magnitude relative to 1 kHz from 20 Hz to 20 kHz, and the absolute
 /// gain at 1 kHz through the default bench (2 V rms full scale both ways, 20 dB attenuator)
 /// against the `.ac` gain less 20 dB.
-fn sweep_against_ac(tag: &str, path: &std::path::Path, level_dbfs: f64) -> (f64, f64) {
+fn sweep_against_ac(
+    tag: &str,
+    path: &std::path::Path,
+    level_dbfs: f64,
+    (start_hz, seconds): (f64, f64),
+) -> (f64, f64) {
     use ampnote::analysis::sweep::{
         interpolate_log, ResponseAnalyzer, ResponseConfig, SweepParams,
     };
@@ -173,9 +179,9 @@ fn sweep_against_ac(tag: &str, path: &std::path::Path, level_dbfs: f64) -> (f64,
             tail_s: 0.3,
             ..ampnote::signal::stimulus::Common::mono(48_000, level_dbfs)
         },
-        10.0,
+        start_hz,
         21_000.0,
-        1.0,
+        seconds,
     )
     .unwrap();
     let y = rig.play_and_record(1, &s.signal, 48_000).unwrap();
@@ -204,35 +210,42 @@ fn sweep_against_ac(tag: &str, path: &std::path::Path, level_dbfs: f64) -> (f64,
         .map(|(f, v)| (*f, 20.0 * v.norm().log10()))
         .collect();
     let at_1k = interpolate_log(&db, 1000.0);
-    let mut worst: f64 = 0.0;
+    let (mut worst, mut at): (f64, f64) = (0.0, 0.0);
     for p in r
         .points
         .iter()
         .filter(|p| (20.0..=20_000.0).contains(&p.frequency_hz))
     {
-        let want = interpolate_log(&db, p.frequency_hz) - at_1k;
-        worst = worst.max((p.magnitude_db - want).abs());
+        let off = (p.magnitude_db - (interpolate_log(&db, p.frequency_hz) - at_1k)).abs();
+        if off > worst {
+            (worst, at) = (off, p.frequency_hz);
+        }
     }
     // Through the bench: out of a 2 V full scale, down 20 dB, into a 2 V full scale.
-    (worst, r.reference_gain_db - (at_1k - 20.0))
+    let gain = r.reference_gain_db - (at_1k - 20.0);
+    eprintln!(
+        "{tag}: worst {worst:.4} dB relative (at {at:.0} Hz), gain {gain:+.4} dB against ngspice's .ac"
+    );
+    (worst, gain)
 }
 
 /// The test amplifier's sweep against ngspice's `.ac`: within 0.02 dB relative, 0.01 dB absolute.
 #[test]
 fn the_circuit_rigs_sweep_reads_ngspices_own_ac() {
-    let (worst, gain) = sweep_against_ac("sweep", &netlist("sweep", RLC), -20.0);
+    let (worst, gain) = sweep_against_ac("sweep", &netlist("sweep", RLC), -20.0, (10.0, 1.0));
     assert!(worst < 0.02, "worst {worst} dB against ngspice's .ac");
     assert!(gain.abs() < 0.01, "gain {gain} dB off ngspice's .ac");
 }
 
 /// The example amplifier (examples/circuits/stock.cir: two triodes, coupling and bypass
-/// capacitors, an output transformer) swept at -30 dBFS (about 40 mW, where it is all but
+/// capacitors, an output transformer) swept for 2 s from 5 Hz (a 1 s sweep from 10 Hz resolves
+/// the low end's phase too coarsely: 0.018 dB off at 20 Hz, against 0.006 dB) at -30 dBFS (about 40 mW, where it is all but
 /// linear) against ngspice's `.ac` at its operating point: within 0.02 dB relative to 1 kHz from
 /// 20 Hz to 20 kHz; the absolute gain within 0.05 dB (what is left is the stages' own
 /// compression at that level, which a small-signal analysis cannot have).
 #[test]
 fn the_example_amplifiers_response_reads_ngspices_own_ac() {
-    let (worst, gain) = sweep_against_ac("stock-sweep", &example("stock.cir"), -30.0);
+    let (worst, gain) = sweep_against_ac("stock-sweep", &example("stock.cir"), -30.0, (5.0, 2.0));
     assert!(worst < 0.02, "worst {worst} dB against ngspice's .ac");
     assert!(gain.abs() < 0.05, "gain {gain} dB off ngspice's .ac");
 }
@@ -244,62 +257,80 @@ fn example(name: &str) -> std::path::PathBuf {
         .join(name)
 }
 
-/// The example amplifier's harmonics at about 1 W (a 1 kHz tone, -16 dBFS) through the circuit
-/// rig against a many-period DFT of ngspice's own transient of the same circuit and load (a SIN
-/// source, 100 periods after 0.4 s of settling, steps of at most 1 us, tighter tolerances than
-/// the rig's): H2..H5 within 0.05 dB. The DFT integrates over ngspice's own time points by the
-/// trapezoidal rule; the same sum on the pure SIN source checks it (its H2..H5 below -120 dBc).
-#[test]
-fn the_example_amplifiers_harmonics_read_a_many_period_dft() {
-    let path = example("stock.cir");
-    let level = -16.0;
-    let (_, r) = tone_through_file("stock-tone", &path, 1000.0, level, 0.6);
-    // The reference: the same drive as a SIN source, 2 V rms full scale.
-    let amplitude = 2.0 * 10f64.powf(level / 20.0) * std::f64::consts::SQRT_2;
+/// ngspice's own transient of the netlist at `path` driven by a 1 kHz SIN source at
+/// `level_dbfs` of a 2 V rms full scale into 8 ohm, from its operating point, with steps of at
+/// most `step` and tighter tolerances than the rig's: the Fourier amplitudes of orders
+/// 1..=`orders` of the source and of the output over exactly the whole periods from `from` to
+/// `to` seconds. The sum is the trapezoidal rule over ngspice's own time points (the value at
+/// `from` read between its neighbours): a many-period DFT that needs no resampling.
+fn sin_reference(
+    tag: &str,
+    path: &std::path::Path,
+    level_dbfs: f64,
+    (from, to, step): (f64, f64, f64),
+    orders: usize,
+) -> (Vec<f64>, Vec<f64>) {
+    let amplitude = 2.0 * 10f64.powf(level_dbfs / 20.0) * std::f64::consts::SQRT_2;
     let deck = format!(
-        "many-period reference\n.options abstol=1e-10 reltol=1e-4\n.include \"{}\"\nV1 in 0 SIN(0 {amplitude:e} 1000)\nX1 in out amp\nRL out 0 8\n.save v(in) v(out)\n.tran 1u 0.5 0.399 1u\n.end\n",
-        path.display()
+        "many-period reference\n.options abstol=1e-10 reltol=1e-4\n.include \"{}\"\nV1 in 0 SIN(0 {amplitude:e} 1000)\nX1 in out amp\nRL out 0 8\n.save v(in) v(out)\n.tran {step:e} {to:e} {:e} {step:e}\n.end\n",
+        path.display(),
+        from - 0.001
     );
-    let out = run(&deck, &dir("stock-dft"), Duration::from_secs(300)).unwrap();
+    let out = run(&deck, &dir(tag), Duration::from_secs(600)).unwrap();
     let tran = out.plot("Transient").unwrap();
-    // Exactly 100 periods, 0.4 to 0.5 s: the value at 0.4 s read between its neighbours.
-    let (t0, t1) = (0.4, 0.5);
     let clip = |t: &[f64], v: &[f64]| -> (Vec<f64>, Vec<f64>) {
-        let i = t.iter().position(|&x| x > t0).unwrap();
-        assert!(i > 0 && (t.last().unwrap() - t1).abs() < 1e-12);
-        let at = v[i - 1] + (v[i] - v[i - 1]) * (t0 - t[i - 1]) / (t[i] - t[i - 1]);
+        let i = t.iter().position(|&x| x > from).unwrap();
+        assert!(i > 0 && (t.last().unwrap() - to).abs() < 1e-12);
+        let at = v[i - 1] + (v[i] - v[i - 1]) * (from - t[i - 1]) / (t[i] - t[i - 1]);
         (
-            std::iter::once(t0).chain(t[i..].iter().copied()).collect(),
+            std::iter::once(from)
+                .chain(t[i..].iter().copied())
+                .collect(),
             std::iter::once(at).chain(v[i..].iter().copied()).collect(),
         )
     };
     let time = tran.real("time").unwrap();
     let (t, vin) = clip(&time, &tran.real("v(in)").unwrap());
     let (_, vout) = clip(&time, &tran.real("v(out)").unwrap());
-    // Fourier coefficient of `order` over the 100 periods, trapezoidal rule.
-    let bin = |v: &[f64], order: usize| -> f64 {
-        let w = 2.0 * PI * 1000.0 * order as f64;
-        let f = |i: usize| Complex64::new(0.0, -w * (t[i] - t0)).exp() * v[i];
-        let sum: Complex64 = (1..t.len())
-            .map(|i| (f(i) + f(i - 1)) * (t[i] - t[i - 1]) / 2.0)
-            .sum();
-        sum.norm() * 2.0 / (t1 - t0)
+    let amplitudes = |v: &[f64]| -> Vec<f64> {
+        (1..=orders)
+            .map(|order| {
+                let w = 2.0 * PI * 1000.0 * order as f64;
+                let f = |i: usize| Complex64::new(0.0, -w * (t[i] - from)).exp() * v[i];
+                let sum: Complex64 = (1..t.len())
+                    .map(|i| (f(i) + f(i - 1)) * (t[i] - t[i - 1]) / 2.0)
+                    .sum();
+                sum.norm() * 2.0 / (to - from)
+            })
+            .collect()
     };
-    let source = bin(&vin, 1);
-    assert!((source / amplitude - 1.0).abs() < 1e-6, "{source} V");
+    (amplitudes(&vin), amplitudes(&vout))
+}
+
+/// The example amplifier's harmonics at about 1 W (a 1 kHz tone, -16 dBFS) through the circuit
+/// rig against a many-period DFT of ngspice's own transient of the same circuit and load (100
+/// periods after 0.4 s of settling, steps of at most 1 us): H2..H5 within 0.05 dB. The same
+/// sum on the pure SIN source checks the DFT itself (its H2..H5 below -120 dBc).
+#[test]
+fn the_example_amplifiers_harmonics_read_a_many_period_dft() {
+    let path = example("stock.cir");
+    let level = -16.0;
+    let (_, r) = tone_through_file("stock-tone", &path, 1000.0, level, 0.6);
+    let (vin, vout) = sin_reference("stock-dft", &path, level, (0.4, 0.5, 1e-6), 5);
+    let amplitude = 2.0 * 10f64.powf(level / 20.0) * std::f64::consts::SQRT_2;
+    assert!((vin[0] / amplitude - 1.0).abs() < 1e-6, "{} V", vin[0]);
     for order in 2..=5 {
-        let floor = 20.0 * (bin(&vin, order) / source).log10();
+        let floor = 20.0 * (vin[order - 1] / vin[0]).log10();
         assert!(
             floor < -120.0,
             "the DFT's own floor at H{order}: {floor} dBc"
         );
     }
-    let fundamental = bin(&vout, 1);
     // About 1 W into 8 ohm: the level asked for.
-    let watts = (fundamental / std::f64::consts::SQRT_2).powi(2) / 8.0;
+    let watts = (vout[0] / std::f64::consts::SQRT_2).powi(2) / 8.0;
     assert!((0.5..2.0).contains(&watts), "{watts} W");
     for order in 2..=5 {
-        let want = 20.0 * (bin(&vout, order) / fundamental).log10();
+        let want = 20.0 * (vout[order - 1] / vout[0]).log10();
         let got = r.harmonics.iter().find(|h| h.order == order).unwrap();
         eprintln!("H{order}: rig {} dBc, DFT {want} dBc", got.level_dbc);
         assert!(!got.upper_bound, "H{order}: {got:?}");
@@ -309,6 +340,71 @@ fn the_example_amplifiers_harmonics_read_a_many_period_dft() {
             got.level_dbc
         );
     }
+}
+
+/// The example amplifier's power at 1 % THD from the rig's staircase (1 kHz, 2 dB steps from
+/// -22 dBFS, refined to 0.4 dB across the target, 0.15 s settling and 0.2 s read per step)
+/// against a stepped reference: ngspice's own transient at drives 1 dB apart around the
+/// crossing (SIN source, the same settling, 200 periods, steps of at most 2 us), THD from the
+/// DFT's H2..H20 (the rig's 20 kHz band), the 1 % point interpolated on log THD against log
+/// power between the two steps either side (THD follows a power law there). Within 1 %.
+#[test]
+fn the_example_amplifiers_power_at_one_percent_reads_a_stepped_reference() {
+    use ampnote::procedure::power::{run_staircase, StaircaseSettings};
+    let path = example("stock.cir");
+    let mut rig = ampnote::rig::spice::rig::SpiceRig::open(
+        &path,
+        ampnote::calibration::Calibration::default(),
+        &dir("stock-power").join("work"),
+    )
+    .unwrap();
+    let p = run_staircase(
+        &mut rig,
+        1,
+        &StaircaseSettings {
+            frequency_hz: 1000.0,
+            sample_rate_hz: 48_000,
+            from_dbfs: -22.0,
+            step_db: 2.0,
+            stop_thd_percent: 1.5,
+            max_w: 20.0,
+            settle_s: 0.15,
+            dwell_s: 0.2,
+        },
+        &ampnote::progress::Progress::hidden(),
+    )
+    .unwrap();
+    let got = p
+        .power_at_thd
+        .iter()
+        .find(|x| x.thd_percent == 1.0)
+        .and_then(|x| x.output_w)
+        .expect("the 1 % point");
+    // The reference, stepped: (drive, THD %, watts) at -20, -19, -18 and -17 dBFS.
+    let steps: Vec<(f64, f64, f64)> = std::thread::scope(|scope| {
+        let jobs: Vec<_> = [-20.0, -19.0, -18.0, -17.0]
+            .into_iter()
+            .map(|d: f64| {
+                let path = &path;
+                scope.spawn(move || {
+                    let tag = format!("stock-step{}", -d as i32);
+                    let (_, h) = sin_reference(&tag, path, d, (0.15, 0.35, 2e-6), 20);
+                    let thd = h[1..].iter().map(|a| a * a).sum::<f64>().sqrt() / h[0] * 100.0;
+                    (d, thd, (h[0] / std::f64::consts::SQRT_2).powi(2) / 8.0)
+                })
+            })
+            .collect();
+        jobs.into_iter().map(|j| j.join().unwrap()).collect()
+    });
+    let pair = steps
+        .windows(2)
+        .find(|w| w[0].1 < 1.0 && w[1].1 >= 1.0)
+        .unwrap_or_else(|| panic!("1 % not between the reference's steps: {steps:?}"));
+    let (a, b) = (pair[0], pair[1]);
+    let x = (1f64.ln() - a.1.ln()) / (b.1.ln() - a.1.ln());
+    let want = (a.2.ln() + x * (b.2.ln() - a.2.ln())).exp();
+    eprintln!("power at 1 %: rig {got} W, stepped reference {want} W ({steps:?})");
+    assert!((got / want - 1.0).abs() < 0.01, "{got} W against {want} W");
 }
 
 /// Closed form: a square-law stage y = x + k x^2 (a behavioural source, k = 0.02 per volt)
@@ -420,4 +516,83 @@ fn a_hard_driven_limiter_raises_no_oscillation() {
     let (_, r) = tone_through("limiter", text, 997.0, -5.0);
     assert!(r.thd_percent.unwrap() > 5.0, "{:?}", r.thd_percent);
     assert!(r.oscillations.is_empty(), "{:?}", r.oscillations);
+}
+
+/// A tone through `text` on the circuit rig with `limit` per simulation: the error it ends in.
+fn refused(tag: &str, text: &str, limit: Duration) -> Error {
+    use ampnote::rig::Rig;
+    let path = netlist(tag, text);
+    let mut rig = ampnote::rig::spice::rig::SpiceRig::open(
+        &path,
+        ampnote::calibration::Calibration::default(),
+        &dir(tag).join("work"),
+    )
+    .unwrap()
+    .with_time_limit(limit);
+    let tone = ampnote::signal::stimulus::tone(
+        &ampnote::signal::stimulus::Common::mono(48_000, -20.0),
+        1000.0,
+        0.3,
+    )
+    .unwrap();
+    match rig.play_and_record(1, &tone.signal, 48_000) {
+        Ok(y) => panic!("{tag}: read {} samples instead of refusing", y.len()),
+        Err(e) => e,
+    }
+}
+
+/// A netlist with no solution (a behavioural source asked for V(a) = V(a) + 1): ngspice ends its
+/// operating-point search with warnings only and a node at 1e12 V; the rig refuses it, naming
+/// the node, instead of reading megavolts as a tone.
+#[test]
+fn a_netlist_that_does_not_converge_is_refused() {
+    let text = "* no solution\n.subckt amp in out\nB1 a 0 V = V(a) + 1\nR1 a out 1k\nE1 b 0 in 0 1\nR2 b out 1k\n.ends\n";
+    let err = refused("noconv", text, Duration::from_secs(120));
+    assert!(matches!(err, Error::Spice { .. }), "{err:?}");
+    let text = err.to_string();
+    assert!(text.contains("node `a`"), "{text}");
+    assert!(text.contains("no sensible solution"), "{text}");
+    assert!(text.contains("singular matrix"), "{text}");
+    assert_eq!(err.exit_code(), 3);
+}
+
+/// A plate load wired to a misspelt supply node (`bdd` for `bd`): the plate has no DC path to
+/// ground, ngspice warns of a singular matrix and solves it at about 1e8 V; refused, naming
+/// the plate's node.
+#[test]
+fn a_part_on_a_missing_node_is_refused() {
+    let text = "* misspelt node\n.subckt amp in out\nVB bd 0 DC 300\nRA p bdd 10k\nG1 p 0 in 0 0.01\nE2 out 0 p 0 0.1\n.ends\n";
+    let err = refused("missing", text, Duration::from_secs(120));
+    let text = err.to_string();
+    assert!(text.contains("node `p`"), "{text}");
+    assert!(text.contains("check node"), "{text}");
+}
+
+/// An output port no part inside the subcircuit reaches is refused before ngspice runs.
+#[test]
+fn an_unconnected_output_port_is_refused() {
+    let path = netlist(
+        "unused",
+        "* typo\n.subckt amp in out\nR1 in outt 1k\nR2 outt 0 1k\n.ends\n",
+    );
+    let err = ampnote::rig::spice::rig::SpiceRig::open(
+        &path,
+        ampnote::calibration::Calibration::default(),
+        &dir("unused"),
+    )
+    .err()
+    .expect("refused");
+    assert!(err.to_string().contains("output port `out`"), "{err}");
+}
+
+/// A netlist that would run for hours (a 1 GHz source charging a capacitor inside the amplifier
+/// holds the time step under a nanosecond for the whole capture) is stopped at the rig's limit, saying so.
+#[test]
+fn a_netlist_that_hangs_is_stopped_at_the_limit() {
+    let text = "* a 1 GHz source\n.subckt amp in out\nV9 x 0 SIN(0 1 1G)\nR9 x y 1\nC9 y 0 1n\nE1 out 0 in 0 1\n.ends\n";
+    let started = std::time::Instant::now();
+    let err = refused("hang", text, Duration::from_secs(3));
+    assert!(matches!(err, Error::SpiceTimedOut { .. }), "{err:?}");
+    assert!(started.elapsed() < Duration::from_secs(20));
+    assert!(err.to_string().contains("3"), "{err}");
 }

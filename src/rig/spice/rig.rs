@@ -115,6 +115,8 @@ pub struct SpiceRig {
     /// two runs at once never share one).
     work: PathBuf,
     notes: Vec<Warning>,
+    /// A simulation that outlasts this is stopped ([`TIME_LIMIT`] unless set).
+    time_limit: Duration,
 }
 
 /// The bench the circuit rig assumes where the calibration says nothing: 2 V rms full scale
@@ -126,8 +128,42 @@ const DEFAULT_LOAD_OHMS: f64 = 8.0;
 /// A simulation that outlasts this is stopped.
 const TIME_LIMIT: Duration = Duration::from_secs(600);
 
+/// No node of a valve amplifier stands this far from ground (volts); a solution that puts one
+/// there is the arithmetic's, not the circuit's.
+const ABSURD_VOLTS: f64 = 1e5;
+
+/// Refuses a solution with a node voltage no amplifier has: ngspice gives one, with warnings
+/// only, when a node has no DC path to ground (a plate load on a misspelt supply node) or a
+/// behavioural source cannot be satisfied, and the capture would then read in megavolts.
+fn check_voltages(plot: &super::raw::Plot, warnings: &[String], dir: &Path) -> Result<()> {
+    let times = plot.real("time")?;
+    for (name, values) in plot.variables.iter().zip(&plot.values) {
+        let Some(node) = name.strip_prefix("v(").and_then(|n| n.strip_suffix(')')) else {
+            continue;
+        };
+        let Some(i) = values.iter().position(|v| v.re.abs() > ABSURD_VOLTS) else {
+            continue;
+        };
+        let node = node.strip_prefix("x_ampnote_amp.").unwrap_or(node);
+        let said = if warnings.is_empty() {
+            String::new()
+        } else {
+            format!(" ngspice said: {}.", warnings.join("; "))
+        };
+        return Err(Error::Spice {
+            detail: format!(
+                "ngspice's solution puts node `{node}` at {:.3e} V at {:.4} s, which no amplifier has: the netlist has no sensible solution there (a node with no DC path to ground, such as a part on a misspelt node name, a loop of sources, or a behavioural source that cannot be met).{said} The deck and its log are in {}",
+                values[i].re,
+                times.get(i).copied().unwrap_or(0.0),
+                dir.display()
+            ),
+        });
+    }
+    Ok(())
+}
+
 /// Read `text` for `.subckt amp IN OUT ...`: the subcircuit's ports, or why the file does not
-/// follow the convention.
+/// follow the convention (also when a port is used by no part inside it).
 pub fn amp_ports(text: &str) -> std::result::Result<Vec<String>, String> {
     for line in text.lines() {
         let words: Vec<&str> = line.split_whitespace().collect();
@@ -147,10 +183,53 @@ pub fn amp_ports(text: &str) -> std::result::Result<Vec<String>, String> {
                     ports.join(" ")
                 ));
             }
+            let body = subckt_body(text, line);
+            for (what, port) in ["input", "output"].iter().zip(&ports) {
+                if !body.iter().any(|l| uses_node(l, port)) {
+                    return Err(format!(
+                        "its `.subckt amp` never connects its {what} port `{port}`: no part inside the subcircuit uses that node (a misspelt node name?)"
+                    ));
+                }
+            }
             return Ok(ports);
         }
     }
     Err("it defines no `.subckt amp IN OUT`: wrap the amplifier in that subcircuit (its input and its output terminal; supplies inside), and ampnote adds the drive, the dummy load and the attenuator".into())
+}
+
+/// The part lines of the subcircuit whose `.subckt` line is `head` (continuation lines joined,
+/// comments and dot-lines left out), up to its `.ends`.
+fn subckt_body(text: &str, head: &str) -> Vec<String> {
+    let mut body: Vec<String> = Vec::new();
+    let mut inside = false;
+    for line in text.lines() {
+        let t = line.trim();
+        if !inside {
+            inside = std::ptr::eq(line, head);
+            continue;
+        }
+        let lower = t.to_ascii_lowercase();
+        if lower.starts_with(".ends") {
+            break;
+        }
+        if let Some(rest) = t.strip_prefix('+') {
+            if let Some(last) = body.last_mut() {
+                last.push(' ');
+                last.push_str(rest);
+            }
+        } else if !t.is_empty() && !t.starts_with('*') && !t.starts_with('.') {
+            body.push(t.to_string());
+        }
+    }
+    body
+}
+
+/// Whether a part line uses `node` (ngspice's names are case-insensitive; a behavioural
+/// source's `V(node)` counts).
+fn uses_node(line: &str, node: &str) -> bool {
+    line.split(|c: char| !(c.is_ascii_alphanumeric() || "_.#!$[]".contains(c)))
+        .skip(1)
+        .any(|w| w.eq_ignore_ascii_case(node))
 }
 
 impl SpiceRig {
@@ -220,7 +299,14 @@ impl SpiceRig {
             calibration,
             work,
             notes: Vec::new(),
+            time_limit: TIME_LIMIT,
         })
+    }
+
+    /// The same rig with another limit on each simulation's time.
+    pub fn with_time_limit(mut self, limit: Duration) -> SpiceRig {
+        self.time_limit = limit;
+        self
     }
 
     /// The deck that plays `source` (a filesource text file) into the netlist for `seconds`,
@@ -266,8 +352,9 @@ impl SpiceRig {
             source: e,
         })?;
         let seconds = (stimulus.len() as f64 - 1.0) / fs;
-        let outcome = run(&self.deck(&source, step, seconds), dir, TIME_LIMIT)?;
+        let outcome = run(&self.deck(&source, step, seconds), dir, self.time_limit)?;
         let tran = outcome.plot("Transient")?;
+        check_voltages(tran, &outcome.warnings, dir)?;
         let (t, v) = rising(&tran.real("time")?, &tran.real("v(ampnote_out)")?);
         if t.len() < 4 {
             return Err(Error::Spice {
@@ -543,9 +630,15 @@ mod tests {
             .unwrap_err()
             .contains("no `.subckt amp"));
         assert_eq!(
-            amp_ports(".subckt amp in out params: rk=1k\n").unwrap(),
+            amp_ports(".subckt amp in out params: rk=1k\nR1 in OUT {rk}\n.ends\n").unwrap(),
             vec!["in", "out"]
         );
+        // A port no part uses: the output typed `outt` in the only part that should reach it.
+        let unused =
+            amp_ports(".subckt amp in out\nR1 in outt 1k\n* out\n.ends\nR9 out 0 1\n").unwrap_err();
+        assert!(unused.contains("output port `out`"), "{unused}");
+        // Used only inside a behavioural source's expression, and on a continuation line.
+        assert!(amp_ports(".subckt amp in out\nB1 out 0\n+ V = 2 * V(in)\n.ends\n").is_ok());
     }
 
     /// Closed form of the trapezoidal rule's warping and relative error, (pi f h)^2 / 3 with
