@@ -1,7 +1,7 @@
 #!/usr/bin/env bash
 # The circuit rig's tests against a real circuit simulator: installs Debian's ngspice when it is
 # missing, lints with the `circuit` feature and runs its tests (tests/circuit.rs), which start
-# ngspice as a child process for each case.
+# ngspice as a child process for each case, then runs the demo with the example circuits.
 set -euo pipefail
 cd "$(dirname "$0")/.."
 if ! command -v ngspice > /dev/null; then
@@ -14,4 +14,16 @@ echo "== cargo clippy --all-targets --features circuit -- -D warnings"
 cargo clippy --all-targets --features circuit -- -D warnings
 echo "== cargo test --features circuit --test circuit"
 cargo test --features circuit --test circuit
+# The demo with ngspice present predicts the example circuits and sets them against the
+# measured labels: the report must show that table for both versions.
+echo "== the demo with the example circuits predicted"
+work=$(mktemp -d)
+trap 'rm -rf "$work"' EXIT
+cargo run --release -q -- demo --out "$work/demo" > "$work/demo.log"
+grep -q "Predicted against measured" "$work/demo/report/report.html" || {
+  echo "the demo's report has no predicted-against-measured table"; tail -20 "$work/demo.log"; exit 1; }
+for label in "stock, predicted against stock" "driver reworked, predicted against driver reworked"; do
+  grep -q "$label" "$work/demo/report/report.html" || { echo "the report lacks \"$label\""; exit 1; }
+done
+grep -q "power at 1 % THD" "$work/demo.log" || { echo "the demo printed no predicted power"; exit 1; }
 echo "circuit check done"

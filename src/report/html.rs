@@ -53,6 +53,37 @@ fn verdict(v: Verdict) -> Markup {
     }
 }
 
+/// Every line of a comparison, its two sides headed `heads` (first, second, change), with the
+/// better/worse mark when `verdicts` (a prediction against a measurement has none: neither side
+/// is the better one), then the comparison's warnings.
+fn comparison_table(
+    c: &crate::report::compare::Comparison,
+    heads: [&str; 3],
+    verdicts: bool,
+) -> Markup {
+    html! {
+        table {
+            thead { tr { th { "Channel" } th { "Figure" } th { (heads[0]) } th { (heads[1]) } th { (heads[2]) } } }
+            tbody {
+                @for l in &c.lines {
+                    @let (a, b) = super::model::shown_sides(l);
+                    tr {
+                        td { (l.channel) }
+                        td { (l.figure) }
+                        td.num { (a) }
+                        td.num { (b) }
+                        td {
+                            (l.change)
+                            @if verdicts { " " (verdict(l.verdict())) }
+                        }
+                    }
+                }
+            }
+        }
+        @for w in &c.warnings { p.warn { (crate::notebook::printable(&w.message)) } }
+    }
+}
+
 fn channel_name(ch: usize) -> String {
     match ch {
         1 => "left (1)".into(),
@@ -130,22 +161,7 @@ fn page(m: &ReportModel, charts: &[(&str, &str, String)]) -> Markup {
                         @match (&p.measured, &p.comparison) {
                             (Some(measured), Some(c)) => {
                                 h3 { (p.predicted) " against " (measured) }
-                                table {
-                                    thead { tr { th { "Channel" } th { "Figure" } th { "Predicted" } th { "Measured" } th { "Difference" } } }
-                                    tbody {
-                                        @for l in &c.lines {
-                                            @let (a, b) = super::model::shown_sides(l);
-                                            tr {
-                                                td { (l.channel) }
-                                                td { (l.figure) }
-                                                td.num { (a) }
-                                                td.num { (b) }
-                                                td { (l.change) }
-                                            }
-                                        }
-                                    }
-                                }
-                                @for w in &c.warnings { p.warn { (crate::notebook::printable(&w.message)) } }
+                                (comparison_table(c, ["Predicted", "Measured", "Difference"], false))
                             }
                             _ => {
                                 h3 { (p.predicted) }
@@ -227,22 +243,7 @@ fn page(m: &ReportModel, charts: &[(&str, &str, String)]) -> Markup {
                 }
                 @if let Some(c) = &m.comparison {
                     h2 { "Every compared figure: " (c.a) " → " (c.b) }
-                    table {
-                        thead { tr { th { "Channel" } th { "Figure" } th { "Before" } th { "After" } th { "Change" } } }
-                        tbody {
-                            @for l in &c.lines {
-                                @let (a, b) = super::model::shown_sides(l);
-                                tr {
-                                    td { (l.channel) }
-                                    td { (l.figure) }
-                                    td.num { (a) }
-                                    td.num { (b) }
-                                    td { (l.change) " " (verdict(l.verdict())) }
-                                }
-                            }
-                        }
-                    }
-                    @for w in &c.warnings { p.warn { (crate::notebook::printable(&w.message)) } }
+                    (comparison_table(c, ["Before", "After", "Change"], true))
                 }
                 p.note {
                     "Measurements of amplifiers involve lethal voltages inside tube equipment; \

@@ -57,6 +57,15 @@ fn staircase(f: f64, scale: f64) -> RunResult {
 }
 
 fn notebook(tag: &str, runs: &[(&str, RunResult)]) -> (std::path::PathBuf, Notebook) {
+    notebook_with(tag, runs, &[])
+}
+
+/// A notebook with `runs`, those whose label is in `predicted` kept as a circuit rig's.
+fn notebook_with(
+    tag: &str,
+    runs: &[(&str, RunResult)],
+    predicted: &[&str],
+) -> (std::path::PathBuf, Notebook) {
     let d = tmpdir(tag);
     let nb = Notebook::init(&d.join("amp"), "amp", 1, None, None).unwrap();
     for (label, result) in runs {
@@ -70,7 +79,7 @@ fn notebook(tag: &str, runs: &[(&str, RunResult)]) -> (std::path::PathBuf, Noteb
             files: vec![],
             blobs: vec![],
             result: result.clone(),
-            predicted: false,
+            predicted: predicted.contains(label),
         })
         .unwrap();
     }
@@ -120,6 +129,61 @@ fn tone_figures_are_compared_only_at_the_same_level() {
             && w.message.contains("different levels")
     }));
     std::fs::remove_dir_all(&d).ok();
+}
+
+/// A prediction has no noise or hum of its own (a simulator adds none unless the netlist has
+/// sources for them, common practice with circuit simulators): set against a measurement, its
+/// THD and harmonics are compared (the closed-form H2 change, 20 lg(0.5)), its noise, hum and
+/// THD+N are not, and a warning says why.
+#[test]
+fn a_prediction_is_compared_without_noise_or_hum() {
+    let (d, nb) = notebook_with(
+        "cmp-predicted",
+        &[
+            ("stock", tone(-24.0, 0.01, 1)),
+            ("stock, predicted", tone(-24.0, 0.005, 2)),
+        ],
+        &["stock, predicted"],
+    );
+    let sel = |l: &str| nb.select(l, None).unwrap();
+    assert!(sel("stock, predicted")[0].meta.predicted);
+    assert!(!sel("stock")[0].meta.predicted);
+    let c = compare(
+        "stock, predicted",
+        &sel("stock, predicted"),
+        "stock",
+        &sel("stock"),
+    );
+    let h2 = find(&c.lines, "H2");
+    assert!(
+        (h2.delta.unwrap() + 20.0 * 0.5f64.log10()).abs() < 0.05,
+        "{h2:?}"
+    );
+    for gone in ["noise", "strongest hum line", "THD+N"] {
+        assert!(
+            c.lines.iter().all(|l| !l.figure.starts_with(gone)),
+            "{gone}: {:#?}",
+            c.lines
+        );
+    }
+    assert!(c.warnings.iter().any(|w| {
+        w.code == ampnote::warning::WarningCode::NotCompared && w.message.contains("noise, hum")
+    }));
+    // Two measurements: the same figures are compared.
+    let (d2, nb2) = notebook(
+        "cmp-measured",
+        &[("a", tone(-24.0, 0.01, 1)), ("b", tone(-24.0, 0.005, 2))],
+    );
+    let c = compare(
+        "a",
+        &nb2.select("a", None).unwrap(),
+        "b",
+        &nb2.select("b", None).unwrap(),
+    );
+    find(&c.lines, "THD+N");
+    find(&c.lines, "noise");
+    std::fs::remove_dir_all(&d).ok();
+    std::fs::remove_dir_all(&d2).ok();
 }
 
 #[test]

@@ -410,7 +410,7 @@ impl Sink<'_> {
         if self.predicted && !*noted {
             *noted = true;
             self.skipped.push(C::NotCompared.say(format!(
-                "channel {}: noise and hum not compared: a circuit rig's prediction has none of its own (only what the netlist's sources put there)",
+                "channel {}: noise, hum and THD+N not compared: a circuit rig's prediction has no noise or hum of its own (only what the netlist's sources put there)",
                 self.ch
             )));
         }

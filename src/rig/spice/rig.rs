@@ -55,6 +55,10 @@ const STEP_ERROR_LIMIT: f64 = 2.5e-5;
 /// level under [`STEP_ERROR_LIMIT`] at every frequency; at most 16.
 pub fn oversample_for(stimulus: &[f64], fs: f64) -> usize {
     let spectrum = relative_spectrum(stimulus, fs);
+    if spectrum.is_empty() {
+        // Silence (a noise measurement): nothing to step through, so the fewest points.
+        return OVERSAMPLE_MIN;
+    }
     let top = spectrum
         .iter()
         .rev()
@@ -76,12 +80,12 @@ pub fn oversample_for(stimulus: &[f64], fs: f64) -> usize {
     k
 }
 
-/// `x`'s magnitude spectrum as (frequency, level relative to the strongest bin); a signal with
-/// nothing in it reads as every frequency at full level (the safe side: the most points).
+/// `x`'s magnitude spectrum as (frequency, level relative to the strongest bin); empty for a
+/// signal with nothing in it. A stimulus too short to have a spectrum reads as every frequency
+/// at full level (the safe side: the most points).
 fn relative_spectrum(x: &[f64], fs: f64) -> Vec<(f64, f64)> {
-    let flat = || vec![(fs / 2.0, 1.0)];
     if x.len() < 2 {
-        return flat();
+        return vec![(fs / 2.0, 1.0)];
     }
     let n = x.len() + x.len() % 2;
     let mut planner = realfft::RealFftPlanner::<f64>::new();
@@ -94,7 +98,7 @@ fn relative_spectrum(x: &[f64], fs: f64) -> Vec<(f64, f64)> {
     let mags: Vec<f64> = spec.iter().map(|c| c.norm()).collect();
     let peak = mags.iter().cloned().fold(0.0, f64::max);
     if peak == 0.0 {
-        return flat();
+        return Vec::new();
     }
     mags.iter()
         .enumerate()
@@ -644,7 +648,7 @@ mod tests {
     /// Closed form of the trapezoidal rule's warping and relative error, (pi f h)^2 / 3 with
     /// h = 1 / (k fs): the error on the tone itself under 2.5e-5 (k >= pi f / (fs sqrt(7.5e-5)),
     /// 7.6 at 1 kHz and 48 kHz), the window's skirts weighted by their level; the warping at the
-    /// top under 0.25 %. An impulse (every frequency) takes 16.
+    /// top under 0.25 %. An impulse (every frequency) takes 16, silence (a noise run) 4.
     #[test]
     fn the_oversampling_follows_the_stimulus_top() {
         let fs = 48_000.0;
@@ -664,7 +668,12 @@ mod tests {
         let mut click = vec![0.0; 4800];
         click[100] = 1.0;
         assert_eq!(oversample_for(&click, fs), 16);
-        assert_eq!(oversample_for(&[0.0; 100], fs), 16);
+        assert_eq!(oversample_for(&[0.0; 100], fs), 4, "silence: the fewest");
+        assert_eq!(
+            oversample_for(&[0.5], fs),
+            16,
+            "one sample: no spectrum, the most"
+        );
     }
 
     /// Closed form: what the circuit sees of the upsampled drive on the band is its transform
