@@ -85,7 +85,8 @@ pub enum Command {
         /// Folder for the demo's notebook.
         #[arg(long, default_value = "ampnote-demo", value_name = "DIR")]
         out: PathBuf,
-        /// Leave out the example circuits' predictions (ngspice, when installed: a few minutes).
+        /// Leave out the example circuits' predictions (made with ngspice when it is installed;
+        /// several minutes on two cores).
         #[arg(long)]
         no_circuits: bool,
     },

@@ -29,7 +29,7 @@ pub fn demo(out: &Path, circuits: bool) -> Result<ExitCode, Failure> {
     let out = folder.as_path();
     eprintln!("ampnote demo: an invented stereo single-ended amplifier on the simulated bench");
     if circuits && ampnote::rig::spice::available() {
-        eprintln!("  ngspice found: the example circuits are predicted too (a few minutes; --no-circuits leaves them out)");
+        eprintln!("  ngspice found: the example circuits are predicted too (several minutes; --no-circuits leaves them out)");
     }
     let outcome = ampnote::demo::run(out, circuits, |what| eprintln!("  measuring {what} ..."))?;
     let mut s = String::new();
