@@ -50,6 +50,40 @@ impl Keep<'_> {
             predicted: self.predicted,
         })
     }
+
+    /// A 997 Hz tone of `seconds` at 1 W into this channel (the drive found from a probe),
+    /// analysed with `cfg` and kept with the rig's notes; returns the drive, dBFS.
+    fn tone_at_1w(
+        &self,
+        rig: &mut dyn Rig,
+        work: &Path,
+        base: &Common,
+        seconds: f64,
+        cfg: &ToneAnalyzer,
+        notes: &str,
+    ) -> Result<f64> {
+        let ch = self.channel;
+        let drive = crate::procedure::drive::drive_for_power(rig, ch, 997.0, RATE, 1.0)?.drive_dbfs;
+        let tone = stimulus::tone(
+            &Common {
+                level_dbfs: drive.min(-1.0),
+                ..base.clone()
+            },
+            997.0,
+            seconds,
+        )?;
+        let tone_path = write_stimulus(work, "tone-1w.wav", &tone)?;
+        let cap_path = work.join("capture.wav");
+        let y = record(rig, ch, &tone, &cap_path)?;
+        let mut r = cfg.analyze(&input(ch, steady(&y, &tone), rig), &self.calibration)?;
+        r.warnings.extend(rig.take_notes(ch));
+        self.save(
+            vec![("stimulus.wav", &tone_path), ("capture.wav", &cap_path)],
+            r.into(),
+            notes,
+        )?;
+        Ok(drive)
+    }
 }
 
 /// Sample rate of the demo's stimuli.
@@ -130,26 +164,15 @@ fn predict(
             ..Common::mono(RATE, -20.0)
         };
         // A tone at 1 W.
-        let drive =
-            crate::procedure::drive::drive_for_power(&mut rig, ch, 997.0, RATE, 1.0)?.drive_dbfs;
-        let tone = stimulus::tone(
-            &Common {
-                level_dbfs: drive.min(-1.0),
-                ..base.clone()
-            },
-            997.0,
+        keep.tone_at_1w(
+            &mut rig,
+            work,
+            &base,
             0.5,
-        )?;
-        let tone_path = write_stimulus(work, "tone-1w.wav", &tone)?;
-        let cap_path = work.join("capture.wav");
-        let y = record(&mut rig, ch, &tone, &cap_path)?;
-        let mut r = tone_cfg.analyze(&input(ch, steady(&y, &tone), &rig), &cal)?;
-        r.warnings.extend(rig.take_notes(ch));
-        save(
-            vec![("stimulus.wav", &tone_path), ("capture.wav", &cap_path)],
-            r.into(),
+            &tone_cfg,
             "997 Hz at 1 W, predicted",
         )?;
+        let cap_path = work.join("capture.wav");
         // The staircase, step by step (steps taken at once, one per core), to past 3 % THD:
         // the steps into hard clipping are the simulator's slowest, and compare reads 1 and 3 %.
         let mut p = run_staircase(
@@ -342,25 +365,8 @@ pub fn run(out: &Path, circuits: bool, mut progress: impl FnMut(&str)) -> Result
             let save = |files, result, notes| keep.save(files, result, notes);
             // A tone at 1 W: the drive found from a probe and a confirming tone.
             rig.set_load(bench.load_ohms)?;
-            let drive = crate::procedure::drive::drive_for_power(&mut rig, ch, 997.0, RATE, 1.0)?
-                .drive_dbfs;
-            let tone = stimulus::tone(
-                &Common {
-                    level_dbfs: drive.min(-1.0),
-                    ..base.clone()
-                },
-                997.0,
-                2.0,
-            )?;
-            let tone_path = write_stimulus(&work, "tone-1w.wav", &tone)?;
+            let drive = keep.tone_at_1w(&mut rig, &work, &base, 2.0, &tone_cfg, "997 Hz at 1 W")?;
             let cap_path = work.join("capture.wav");
-            let y = record(&mut rig, ch, &tone, &cap_path)?;
-            let r = tone_cfg.analyze(&input(ch, steady(&y, &tone), &rig), &cal)?;
-            save(
-                vec![("stimulus.wav", &tone_path), ("capture.wav", &cap_path)],
-                r.into(),
-                "997 Hz at 1 W",
-            )?;
             // The staircase.
             let y = record(&mut rig, ch, &steps, &cap_path)?;
             let p = power_from_capture(
