@@ -73,8 +73,17 @@ fn comparison_table(
                         td.num { (a) }
                         td.num { (b) }
                         td {
-                            (l.change)
-                            @if verdicts { " " (verdict(l.verdict())) }
+                            @if verdicts {
+                                (l.change) " " (verdict(l.verdict()))
+                            } @else if let (None, Some(at_least)) = (l.delta, l.at_least_change) {
+                                // Before/after words ("now under the noise") do not fit a
+                                // prediction set against a measurement: say the bound plainly.
+                                (crate::report::number::change(at_least, l.delta_unit))
+                                @if at_least < 0.0 { " or more down" } @else { " or more up" }
+                                " (one side is a bound)"
+                            } @else {
+                                (l.change)
+                            }
                         }
                     }
                 }
