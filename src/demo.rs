@@ -156,7 +156,6 @@ fn predict(
             calibration: cal,
             predicted: true,
         };
-        let save = |files, result, notes| keep.save(files, result, notes);
         let base = Common {
             lead_s: 0.05,
             tail_s: 0.1,
@@ -191,7 +190,7 @@ fn predict(
             &crate::progress::Progress::hidden(),
         )?;
         p.warnings.extend(rig.take_notes(ch));
-        save(
+        keep.save(
             Vec::new(),
             p.into(),
             "staircase from -24 dBFS in 2 dB steps to 4 % THD, predicted",
@@ -222,10 +221,10 @@ fn predict(
             rig.overload_threshold(),
         )?;
         r.warnings.extend(rig.take_notes(ch));
-        save(
+        keep.save(
             vec![("stimulus.wav", &sweep_path), ("capture.wav", &cap_path)],
             r.into(),
-            "10 Hz - 40 kHz sweep at 96 kHz, 1 s, predicted",
+            "10 Hz - 40 kHz sweep at 96 kHz, 0.5 s, predicted",
         )?;
         let a = nb.select(label, Some(ch))?;
         let b = nb.select(measured, Some(ch))?;
@@ -280,7 +279,7 @@ fn input<'a>(ch: usize, y: &'a [f64], rig: &dyn Rig) -> ChannelInput<'a> {
 }
 
 /// Run the demo into `out` (created if needed; a notebook already there is refused).
-/// With `circuits`, the example circuits are predicted too when ngspice is installed (a few
+/// With `circuits`, the example circuits are predicted too when ngspice is installed (several
 /// minutes more); without ngspice the demo says so and goes on.
 pub fn run(out: &Path, circuits: bool, mut progress: impl FnMut(&str)) -> Result<DemoOutcome> {
     let stock = Model::load("stock")?;
@@ -362,7 +361,6 @@ pub fn run(out: &Path, circuits: bool, mut progress: impl FnMut(&str)) -> Result
                 calibration: cal,
                 predicted: false,
             };
-            let save = |files, result, notes| keep.save(files, result, notes);
             // A tone at 1 W: the drive found from a probe and a confirming tone.
             rig.set_load(bench.load_ohms)?;
             let drive = keep.tone_at_1w(&mut rig, &work, &base, 2.0, &tone_cfg, "997 Hz at 1 W")?;
@@ -380,7 +378,7 @@ pub fn run(out: &Path, circuits: bool, mut progress: impl FnMut(&str)) -> Result
                 0,
                 &cal,
             )?;
-            save(
+            keep.save(
                 vec![("stimulus.wav", &steps_path), ("capture.wav", &cap_path)],
                 p.into(),
                 "staircase -30..-1 dBFS",
@@ -395,7 +393,7 @@ pub fn run(out: &Path, circuits: bool, mut progress: impl FnMut(&str)) -> Result
                 SWEEP_RATE as f64,
                 rig.overload_threshold(),
             )?;
-            save(
+            keep.save(
                 vec![("stimulus.wav", &sweep_path), ("capture.wav", &cap_path)],
                 r.clone().into(),
                 "10 Hz - 40 kHz sweep at 96 kHz",
@@ -408,7 +406,7 @@ pub fn run(out: &Path, circuits: bool, mut progress: impl FnMut(&str)) -> Result
                 .iter()
                 .map(|&f| crate::analysis::square::from_response(&r, f, bw))
                 .collect::<Result<Vec<_>>>()?;
-            save(
+            keep.save(
                 vec![("stimulus.wav", &sweep_path), ("capture.wav", &cap_path)],
                 crate::analysis::square::SquareResult {
                     channel: ch,
@@ -441,7 +439,7 @@ pub fn run(out: &Path, circuits: bool, mut progress: impl FnMut(&str)) -> Result
                 2.0 * bench.load_ohms,
                 rig.shares_clock().then_some(SWEEP_RATE as f64),
             )?;
-            save(
+            keep.save(
                 vec![
                     ("stimulus.wav", &sweep_path),
                     ("capture.wav", &cap_path),
@@ -478,7 +476,7 @@ pub fn run(out: &Path, circuits: bool, mut progress: impl FnMut(&str)) -> Result
                     resolution_bits: rig.resolution_bits(),
                 },
             )?;
-            save(
+            keep.save(
                 vec![("stimulus.wav", &sep_path), ("capture.wav", &cap_path)],
                 separation.into(),
                 "sweep at the 1 W drive into this channel, both channels recorded",
@@ -499,7 +497,7 @@ pub fn run(out: &Path, circuits: bool, mut progress: impl FnMut(&str)) -> Result
                 Mains::Auto,
                 &cal,
             )?;
-            save(vec![("capture.wav", &cap_path)], nr.into(), "input silent")?;
+            keep.save(vec![("capture.wav", &cap_path)], nr.into(), "input silent")?;
         }
     }
     // DC operating points read with a meter (invented values for the invented amplifier): B+,

@@ -10,6 +10,18 @@ use realfft::num_complex::Complex64;
 use std::f64::consts::PI;
 use std::time::Duration;
 
+/// The circuit rig on the netlist at `path` with the default bench, working in `tag`'s folder.
+fn open_rig(
+    tag: &str,
+    path: &std::path::Path,
+) -> ampnote::error::Result<ampnote::rig::spice::rig::SpiceRig> {
+    ampnote::rig::spice::rig::SpiceRig::open(
+        path,
+        ampnote::calibration::Calibration::default(),
+        &dir(tag).join("work"),
+    )
+}
+
 fn dir(tag: &str) -> std::path::PathBuf {
     std::env::temp_dir().join(format!("ampnote-circuit-{tag}-{}", std::process::id()))
 }
@@ -117,12 +129,7 @@ fn tone_through_file(
 ) {
     use ampnote::analysis::tone::{ChannelInput, ToneAnalyzer, ToneConfig};
     use ampnote::rig::Rig;
-    let mut rig = ampnote::rig::spice::rig::SpiceRig::open(
-        path,
-        ampnote::calibration::Calibration::default(),
-        &dir(tag).join("work"),
-    )
-    .unwrap();
+    let mut rig = open_rig(tag, path).unwrap();
     let tone = ampnote::signal::stimulus::tone(
         &ampnote::signal::stimulus::Common {
             lead_s: 0.0,
@@ -167,12 +174,7 @@ fn sweep_against_ac(
         interpolate_log, ResponseAnalyzer, ResponseConfig, SweepParams,
     };
     use ampnote::rig::Rig;
-    let mut rig = ampnote::rig::spice::rig::SpiceRig::open(
-        path,
-        ampnote::calibration::Calibration::default(),
-        &dir(tag).join("work"),
-    )
-    .unwrap();
+    let mut rig = open_rig(tag, path).unwrap();
     let s = ampnote::signal::stimulus::sweep(
         &ampnote::signal::stimulus::Common {
             lead_s: 0.05,
@@ -352,12 +354,7 @@ fn the_example_amplifiers_harmonics_read_a_many_period_dft() {
 fn the_example_amplifiers_power_at_one_percent_reads_a_stepped_reference() {
     use ampnote::procedure::power::{run_staircase, StaircaseSettings};
     let path = example("stock.cir");
-    let mut rig = ampnote::rig::spice::rig::SpiceRig::open(
-        &path,
-        ampnote::calibration::Calibration::default(),
-        &dir("stock-power").join("work"),
-    )
-    .unwrap();
+    let mut rig = open_rig("stock-power", &path).unwrap();
     let p = run_staircase(
         &mut rig,
         1,
@@ -441,13 +438,7 @@ fn a_square_law_stage_gives_its_closed_form_second_harmonic() {
 #[test]
 fn a_netlist_without_the_amp_subcircuit_is_refused() {
     let path = netlist("nosub", "* bare\nR1 in out 1k\n");
-    let err = ampnote::rig::spice::rig::SpiceRig::open(
-        &path,
-        ampnote::calibration::Calibration::default(),
-        &dir("nosub"),
-    )
-    .err()
-    .expect("refused");
+    let err = open_rig("nosub", &path).err().expect("refused");
     assert!(err.to_string().contains(".subckt amp IN OUT"), "{err}");
 }
 
@@ -522,13 +513,7 @@ fn a_hard_driven_limiter_raises_no_oscillation() {
 fn refused(tag: &str, text: &str, limit: Duration) -> Error {
     use ampnote::rig::Rig;
     let path = netlist(tag, text);
-    let mut rig = ampnote::rig::spice::rig::SpiceRig::open(
-        &path,
-        ampnote::calibration::Calibration::default(),
-        &dir(tag).join("work"),
-    )
-    .unwrap()
-    .with_time_limit(limit);
+    let mut rig = open_rig(tag, &path).unwrap().with_time_limit(limit);
     let tone = ampnote::signal::stimulus::tone(
         &ampnote::signal::stimulus::Common::mono(48_000, -20.0),
         1000.0,
@@ -575,13 +560,7 @@ fn an_unconnected_output_port_is_refused() {
         "unused",
         "* typo\n.subckt amp in out\nR1 in outt 1k\nR2 outt 0 1k\n.ends\n",
     );
-    let err = ampnote::rig::spice::rig::SpiceRig::open(
-        &path,
-        ampnote::calibration::Calibration::default(),
-        &dir("unused"),
-    )
-    .err()
-    .expect("refused");
+    let err = open_rig("unused", &path).err().expect("refused");
     assert!(err.to_string().contains("output port `out`"), "{err}");
 }
 

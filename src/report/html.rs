@@ -167,12 +167,12 @@ fn page(m: &ReportModel, charts: &[(&str, &str, String)]) -> Markup {
                          own sources make. Difference: measured minus predicted."
                     }
                     @for p in &m.predictions {
-                        @match (&p.measured, &p.comparison) {
-                            (Some(measured), Some(c)) => {
-                                h3 { (p.predicted) " against " (measured) }
+                        @match &p.comparison {
+                            Some(c) => {
+                                h3 { (p.predicted) " against " (crate::notebook::printable(&c.b)) }
                                 (comparison_table(c, ["Predicted", "Measured", "Difference"], false))
                             }
-                            _ => {
+                            None => {
                                 h3 { (p.predicted) }
                                 p.note {
                                     "No measured label of the same name yet (the same label without the \

@@ -42,10 +42,9 @@ pub struct ReportModel {
 #[derive(Debug, Clone)]
 pub struct Prediction {
     pub predicted: String,
-    /// The measured label of the same name less the word "predicted" (`driver rework,
-    /// predicted` predicts `driver rework`); `None` when the notebook has none yet.
-    pub measured: Option<String>,
-    /// Predicted (A) against measured (B), when there is a measured label.
+    /// Predicted (A) against measured (B: the label of the same name less the word
+    /// "predicted", `driver rework, predicted` predicting `driver rework`); `None` when the
+    /// notebook has no such measured label yet.
     pub comparison: Option<Comparison>,
 }
 
@@ -367,7 +366,6 @@ impl ReportModel {
                     .find(|&j| prediction_key(&labels[j]) == key);
                 Prediction {
                     predicted: printable(&labels[i]),
-                    measured: m.map(|j| printable(&labels[j])),
                     comparison: m
                         .map(|j| compare(&labels[i], &by_label[i], &labels[j], &by_label[j])),
                 }

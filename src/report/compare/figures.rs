@@ -97,7 +97,7 @@ pub(super) fn compare_power(s: &mut Sink, a: &[Run], b: &[Run]) {
 }
 
 /// Tone runs, at the same output level only: THD, THD+N, H2..H5, noise and hum.
-pub(super) fn compare_tone(s: &mut Sink, a: &[Run], b: &[Run], noted: &mut bool) {
+pub(super) fn compare_tone(s: &mut Sink, a: &[Run], b: &[Run]) {
     let ch = s.ch;
     if let (Some(ta), Some(tb)) = (latest::<ToneView>(a, ch), latest::<ToneView>(b, ch)) {
         let (diff, at_a, at_b) = tone_levels(ta, tb);
@@ -142,7 +142,7 @@ pub(super) fn compare_tone(s: &mut Sink, a: &[Run], b: &[Run], noted: &mut bool)
                 unlike,
             );
         }
-        if !s.noise_comparable(noted) {
+        if !s.noise_comparable() {
             return;
         }
         // dBV at the amplifier's output when both sides are calibrated, else dBFS.
@@ -226,10 +226,10 @@ pub(super) fn compare_response(s: &mut Sink, a: &[Run], b: &[Run]) {
 }
 
 /// Noise and hum with no signal (dBV once both sides are calibrated), and S/N re 1 W.
-pub(super) fn compare_noise(s: &mut Sink, a: &[Run], b: &[Run], noted: &mut bool) {
+pub(super) fn compare_noise(s: &mut Sink, a: &[Run], b: &[Run]) {
     let ch = s.ch;
     if let (Some(na), Some(nb)) = (latest::<NoiseView>(a, ch), latest::<NoiseView>(b, ch)) {
-        if !s.noise_comparable(noted) {
+        if !s.noise_comparable() {
             return;
         }
         // In dBV at the amplifier's output when both sides are calibrated (comparable across

@@ -402,13 +402,15 @@ struct Sink<'a> {
     /// simulator adds none unless the netlist has sources for them), so those figures are not set
     /// against a measurement.
     predicted: bool,
+    /// Whether this channel has said so already.
+    noise_refused: bool,
 }
 
 impl Sink<'_> {
     /// Whether noise and hum figures may be compared; says once per channel why not.
-    fn noise_comparable(&mut self, noted: &mut bool) -> bool {
-        if self.predicted && !*noted {
-            *noted = true;
+    fn noise_comparable(&mut self) -> bool {
+        if self.predicted && !self.noise_refused {
+            self.noise_refused = true;
             self.skipped.push(C::NotCompared.say(format!(
                 "channel {}: noise, hum and THD+N not compared: a circuit rig's prediction has no noise or hum of its own (only what the netlist's sources put there)",
                 self.ch
@@ -478,13 +480,13 @@ pub fn compare(name_a: &str, a: &[Run], name_b: &str, b: &[Run]) -> Comparison {
             warnings: &mut warnings,
             deviation_curves: &mut deviation_curves,
             predicted,
+            noise_refused: false,
         };
-        let mut noted = false;
         compare_dc(&mut s, a, b);
         compare_power(&mut s, a, b);
-        compare_tone(&mut s, a, b, &mut noted);
+        compare_tone(&mut s, a, b);
         compare_response(&mut s, a, b);
-        compare_noise(&mut s, a, b, &mut noted);
+        compare_noise(&mut s, a, b);
         compare_imd(&mut s, a, b);
         compare_zout(&mut s, a, b);
         compare_square(&mut s, a, b);

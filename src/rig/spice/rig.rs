@@ -139,8 +139,12 @@ const ABSURD_VOLTS: f64 = 1e5;
 /// Refuses a solution with a node voltage no amplifier has: ngspice gives one, with warnings
 /// only, when a node has no DC path to ground (a plate load on a misspelt supply node) or a
 /// behavioural source cannot be satisfied, and the capture would then read in megavolts.
-fn check_voltages(plot: &super::raw::Plot, warnings: &[String], dir: &Path) -> Result<()> {
-    let times = plot.real("time")?;
+fn check_voltages(
+    plot: &super::raw::Plot,
+    times: &[f64],
+    warnings: &[String],
+    dir: &Path,
+) -> Result<()> {
     for (name, values) in plot.variables.iter().zip(&plot.values) {
         let Some(node) = name.strip_prefix("v(").and_then(|n| n.strip_suffix(')')) else {
             continue;
@@ -169,7 +173,8 @@ fn check_voltages(plot: &super::raw::Plot, warnings: &[String], dir: &Path) -> R
 /// Read `text` for `.subckt amp IN OUT ...`: the subcircuit's ports, or why the file does not
 /// follow the convention (also when a port is used by no part inside it).
 pub fn amp_ports(text: &str) -> std::result::Result<Vec<String>, String> {
-    for line in text.lines() {
+    let lines: Vec<&str> = text.lines().collect();
+    for (i, line) in lines.iter().enumerate() {
         let words: Vec<&str> = line.split_whitespace().collect();
         if words.len() >= 2
             && words[0].eq_ignore_ascii_case(".subckt")
@@ -187,7 +192,7 @@ pub fn amp_ports(text: &str) -> std::result::Result<Vec<String>, String> {
                     ports.join(" ")
                 ));
             }
-            let body = subckt_body(text, line);
+            let body = subckt_body(&lines[i + 1..]);
             for (what, port) in ["input", "output"].iter().zip(&ports) {
                 if !body.iter().any(|l| uses_node(l, port)) {
                     return Err(format!(
@@ -201,19 +206,13 @@ pub fn amp_ports(text: &str) -> std::result::Result<Vec<String>, String> {
     Err("it defines no `.subckt amp IN OUT`: wrap the amplifier in that subcircuit (its input and its output terminal; supplies inside), and ampnote adds the drive, the dummy load and the attenuator".into())
 }
 
-/// The part lines of the subcircuit whose `.subckt` line is `head` (continuation lines joined,
-/// comments and dot-lines left out), up to its `.ends`.
-fn subckt_body(text: &str, head: &str) -> Vec<String> {
+/// The part lines of a subcircuit, from the `lines` after its `.subckt` line up to its `.ends`
+/// (continuation lines joined, comments and dot-lines left out).
+fn subckt_body(lines: &[&str]) -> Vec<String> {
     let mut body: Vec<String> = Vec::new();
-    let mut inside = false;
-    for line in text.lines() {
+    for line in lines {
         let t = line.trim();
-        if !inside {
-            inside = std::ptr::eq(line, head);
-            continue;
-        }
-        let lower = t.to_ascii_lowercase();
-        if lower.starts_with(".ends") {
+        if t.get(..5).is_some_and(|p| p.eq_ignore_ascii_case(".ends")) {
             break;
         }
         if let Some(rest) = t.strip_prefix('+') {
@@ -358,8 +357,9 @@ impl SpiceRig {
         let seconds = (stimulus.len() as f64 - 1.0) / fs;
         let outcome = run(&self.deck(&source, step, seconds), dir, self.time_limit)?;
         let tran = outcome.plot("Transient")?;
-        check_voltages(tran, &outcome.warnings, dir)?;
-        let (t, v) = rising(&tran.real("time")?, &tran.real("v(ampnote_out)")?);
+        let time = tran.real("time")?;
+        check_voltages(tran, &time, &outcome.warnings, dir)?;
+        let (t, v) = rising(&time, &tran.real("v(ampnote_out)")?);
         if t.len() < 4 {
             return Err(Error::Spice {
                 detail: format!("ngspice returned {} time points", t.len()),
@@ -379,11 +379,7 @@ impl SpiceRig {
     /// Keeps ngspice's warnings (each once) and the note that the run is a prediction.
     fn note(&mut self, warnings: &[String]) {
         let predicted = "predicted by ngspice from the netlist, not measured: noise and hum are only what the netlist's own sources make (none unless it has them), so a predicted noise, hum or THD+N figure is not a bench's";
-        // ngspice notes its own treatment of the XSPICE source; not the user's concern.
-        let theirs = warnings
-            .iter()
-            .filter(|w| !w.contains("Interpolated raw file data"))
-            .map(|w| format!("ngspice: {w}"));
+        let theirs = warnings.iter().map(|w| format!("ngspice: {w}"));
         for m in std::iter::once(predicted.to_string()).chain(theirs) {
             if !self.notes.iter().any(|n| n.message == m) {
                 self.notes.push(WarningCode::Rig.say(m));
