@@ -22,8 +22,11 @@ fn open_rig(
     )
 }
 
+/// Each test's folder, with capitals in its name as a user's folders have (`/home/Ann/Amps`,
+/// `mktemp -d`'s `/tmp/tmp.Xa3k`): ngspice lowercases file names given to a model, and the rig
+/// must work from such a folder all the same.
 fn dir(tag: &str) -> std::path::PathBuf {
-    std::env::temp_dir().join(format!("ampnote-circuit-{tag}-{}", std::process::id()))
+    std::env::temp_dir().join(format!("Ampnote-Circuit-{tag}-{}", std::process::id()))
 }
 
 /// Closed form: 1 / (1 + j w R C), R = 2.2 kohm, C = 47 nF (fc = 1539.2 Hz), over 10 Hz-100 kHz.
@@ -529,6 +532,25 @@ fn refused(tag: &str, text: &str, limit: Duration) -> Error {
 /// A netlist with no solution (a behavioural source asked for V(a) = V(a) + 1): ngspice ends its
 /// operating-point search with warnings only and a node at 1e12 V; the rig refuses it, naming
 /// the node, instead of reading megavolts as a tone.
+/// A netlist whose own file source names a file ngspice cannot open (here a path with a
+/// capital, which ngspice lowercases): ngspice says so on one line and plays zeros; the rig
+/// refuses instead of reading silence as the amplifier's output.
+#[test]
+fn a_file_ngspice_cannot_open_is_refused_not_read_as_silence() {
+    let wave = dir("nofile").join("Wave.txt");
+    std::fs::create_dir_all(dir("nofile")).unwrap();
+    std::fs::write(&wave, "0 0\n1 1\n").unwrap();
+    let text = format!(
+        "* own file source\n.subckt amp in out\n.model w filesource (file=\"{}\" amploffset=[0] amplscale=[1] timeoffset=0 timescale=1 timerelative=false amplstep=false)\na_w %v([w]) w\nR1 w 0 1k\nE1 out 0 in 0 1\n.ends\n",
+        wave.display()
+    );
+    let err = refused("nofile", &text, Duration::from_secs(120));
+    let said = err.to_string();
+    assert!(said.contains("cannot open file"), "{said}");
+    assert!(said.contains("lowercase"), "{said}");
+    assert_eq!(err.exit_code(), 3);
+}
+
 #[test]
 fn a_netlist_that_does_not_converge_is_refused() {
     let text = "* no solution\n.subckt amp in out\nB1 a 0 V = V(a) + 1\nR1 a out 1k\nE1 b 0 in 0 1\nR2 b out 1k\n.ends\n";

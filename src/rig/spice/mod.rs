@@ -197,6 +197,16 @@ fn judge(log: &str) -> (Vec<String>, Vec<String>) {
             }
             continue;
         }
+        // An XSPICE part that could not read its file (the rig's drive, or a file source in
+        // the user's netlist) says so on a `Message:` line and then gives zeros: a silent
+        // output, not an error, unless it is caught here.
+        if lower.contains("cannot open file") {
+            let said = format!("{line} (ngspice lowercases file names given to a model, so a path with capitals in it names a file that is not there: give such files lowercase paths, or paths relative to the netlist's folder)");
+            if !errors.contains(&said) {
+                errors.push(said);
+            }
+            continue;
+        }
         if failed && !noise {
             if !errors.iter().any(|e| e == line) {
                 errors.push(line.to_string());
@@ -219,6 +229,17 @@ mod tests {
             judge("Doing analysis at TEMP = 27.000000\nWarning: Interpolated raw file data!\n");
         assert_eq!(errors.len(), 1, "{errors:?}");
         assert!(errors[0].contains("take the option out"), "{errors:?}");
+    }
+
+    #[test]
+    fn a_file_ngspice_could_not_open_is_an_error() {
+        // ngspice 39's own words when a file source names a path it lowercased.
+        let (errors, _) = judge(
+            "Doing analysis at TEMP = 27.000000 and TNOM = 27.000000\nInstance: a1   Message: cannot open file /tmp/tmp.abcd/drive.txt\nInitial Transient Solution\n",
+        );
+        assert_eq!(errors.len(), 1, "{errors:?}");
+        assert!(errors[0].contains("/tmp/tmp.abcd/drive.txt"), "{errors:?}");
+        assert!(errors[0].contains("lowercases"), "{errors:?}");
     }
 
     #[test]

@@ -131,6 +131,9 @@ const DEFAULT_LOAD_OHMS: f64 = 8.0;
 
 /// A simulation that outlasts this is stopped.
 const TIME_LIMIT: Duration = Duration::from_secs(600);
+/// The stimulus file ngspice's file source reads, in the folder each simulation runs in. Named
+/// relative and in lowercase: ngspice lowercases a model's string parameters (see `deck`).
+const DRIVE_FILE: &str = "drive.txt";
 
 /// No node of a valve amplifier stands this far from ground (volts); a solution that puts one
 /// there is the arithmetic's, not the circuit's.
@@ -319,19 +322,22 @@ impl SpiceRig {
     /// the time step (rounding noise in the windings' currents read as truncation error),
     /// 200 times slower; 100 pA is -150 dB re 1 A. A netlist's own `.options` come after
     /// and win.
-    fn deck(&self, source: &Path, step: f64, seconds: f64) -> String {
+    ///
+    /// The drive file is named relative to the folder ngspice runs in ([`DRIVE_FILE`]): ngspice
+    /// lowercases a model's string parameters, so an absolute path with a capital letter in it
+    /// (`/tmp/tmp.Xa3k`, `/home/Ann/Amps`) names a file that is not there.
+    fn deck(&self, step: f64, seconds: f64) -> String {
         format!(
             "* ampnote circuit rig: {netlist}\n\
              .options abstol=1e-10\n\
              .include \"{netlist}\"\n\
-             .model ampnote_drive filesource (file=\"{source}\" amploffset=[0] amplscale=[1] timeoffset=0 timescale=1 timerelative=false amplstep=false)\n\
+             .model ampnote_drive filesource (file=\"{DRIVE_FILE}\" amploffset=[0] amplscale=[1] timeoffset=0 timescale=1 timerelative=false amplstep=false)\n\
              a_ampnote_drive %v([ampnote_in]) ampnote_drive\n\
              x_ampnote_amp ampnote_in ampnote_out amp\n\
              r_ampnote_load ampnote_out 0 {load:e}\n\
              .tran {step:e} {seconds:e} 0 {step:e}\n\
              .end\n",
             netlist = self.netlist.display(),
-            source = source.display(),
             load = self.load_ohms,
         )
     }
@@ -349,13 +355,13 @@ impl SpiceRig {
             path: dir.to_path_buf(),
             source: e,
         })?;
-        let source = dir.join("drive.txt");
+        let source = dir.join(DRIVE_FILE);
         write_drive(&source, &up, step, out_peak).map_err(|e| Error::Write {
             path: source.clone(),
             source: e,
         })?;
         let seconds = (stimulus.len() as f64 - 1.0) / fs;
-        let outcome = run(&self.deck(&source, step, seconds), dir, self.time_limit)?;
+        let outcome = run(&self.deck(step, seconds), dir, self.time_limit)?;
         let tran = outcome.plot("Transient")?;
         let time = tran.real("time")?;
         check_voltages(tran, &time, &outcome.warnings, dir)?;
