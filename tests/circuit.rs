@@ -532,6 +532,123 @@ fn refused(tag: &str, text: &str, limit: Duration) -> Error {
 /// A netlist with no solution (a behavioural source asked for V(a) = V(a) + 1): ngspice ends its
 /// operating-point search with warnings only and a node at 1e12 V; the rig refuses it, naming
 /// the node, instead of reading megavolts as a tone.
+/// Output impedance on the circuit rig (both loads simulated at once) against the closed form of
+/// an ideal source behind R = 1.5 ohm in series with L = 100 uH: Z(f) = R + j 2 pi f L
+/// (circuit theory), so |Z| = 1.5 ohm and 0 degrees at low frequencies, 1.5 + j 6.283 ohm
+/// (6.460 ohm, 76.6 degrees) at 10 kHz; with a tone at 997 Hz, |Z| = |1.5 + j 0.6264| ohm.
+#[test]
+fn output_impedance_on_the_circuit_rig_reads_its_closed_form() {
+    use ampnote::analysis::sweep::SweepParams;
+    use ampnote::procedure::zout::{measure, ZoutDrive, ZoutPlan};
+    use ampnote::signal::stimulus::{self, Common};
+    let text = "* source behind R + L\n.subckt amp in out\nE1 a 0 in 0 5\nR1 a b 1.5\nL1 b out 100u\n.ends\n";
+    let path = netlist("zout", text);
+    let mut rig = open_rig("zout", &path).unwrap();
+    let (r, l) = (1.5, 100e-6);
+    let z = |f: f64| Complex64::new(r, 2.0 * PI * f * l);
+    let tone = stimulus::tone(&Common::mono(48_000, -20.0), 997.0, 0.5).unwrap();
+    let plan = ZoutPlan {
+        loads: [8.0, 16.0],
+        drive: ZoutDrive::Tone {
+            signal: &tone.signal,
+            hint_hz: Some(997.0),
+        },
+        sample_rate_hz: 48_000,
+        watts: None,
+    };
+    let got = measure(&mut rig, 1, &plan).unwrap();
+    let want = z(997.0).norm();
+    eprintln!(
+        "zout tone: {:.5} ohm, {:.3} deg against {want:.5} ohm, {:.3} deg",
+        got.zout_ohms,
+        got.phase_deg.unwrap_or(f64::NAN),
+        z(997.0).arg().to_degrees()
+    );
+    assert!(
+        (got.phase_deg.expect("a rig's captures share a clock") - z(997.0).arg().to_degrees())
+            .abs()
+            < 0.2,
+        "tone phase {:?}",
+        got.phase_deg
+    );
+    assert!(
+        (got.zout_ohms / want - 1.0).abs() < 0.002,
+        "tone: {} ohm against {want:.4} ohm",
+        got.zout_ohms
+    );
+    // The rig is left on the first load.
+    assert_eq!(ampnote::rig::Rig::calibration(&rig).load_ohms, Some(8.0));
+    let sweep = stimulus::sweep(
+        &Common {
+            lead_s: 0.05,
+            tail_s: 0.3,
+            ..Common::mono(48_000, -20.0)
+        },
+        20.0,
+        21_000.0,
+        1.0,
+    )
+    .unwrap();
+    let plan = ZoutPlan {
+        drive: ZoutDrive::Sweep {
+            signal: &sweep.signal,
+            params: SweepParams::from_description(&sweep.description).unwrap(),
+        },
+        ..plan
+    };
+    let got = measure(&mut rig, 1, &plan).unwrap();
+    // The headline at the sweep's reference frequency is the complex Z there too.
+    let want = z(got.frequency_hz);
+    eprintln!(
+        "zout sweep headline at {:.1} Hz: {:.5} ohm against {:.5}",
+        got.frequency_hz,
+        got.zout_ohms,
+        want.norm()
+    );
+    assert!(
+        (got.zout_ohms / want.norm() - 1.0).abs() < 0.005,
+        "sweep headline {} ohm against {:.4}",
+        got.zout_ohms,
+        want.norm()
+    );
+    for f in [100.0, 1000.0, 10_000.0] {
+        let p = got
+            .points
+            .iter()
+            .min_by(|a, b| {
+                (a.frequency_hz / f)
+                    .ln()
+                    .abs()
+                    .total_cmp(&(b.frequency_hz / f).ln().abs())
+            })
+            .unwrap();
+        let want = z(p.frequency_hz);
+        assert!(
+            (p.zout_ohms / want.norm() - 1.0).abs() < 0.005,
+            "{} Hz: {} ohm against {:.4}",
+            p.frequency_hz,
+            p.zout_ohms,
+            want.norm()
+        );
+        let phase = p
+            .phase_deg
+            .expect("the circuit rig's captures share a clock");
+        eprintln!(
+            "zout sweep {:.1} Hz: {:.5} ohm, {phase:.3} deg against {:.5} ohm, {:.3} deg",
+            p.frequency_hz,
+            p.zout_ohms,
+            want.norm(),
+            want.arg().to_degrees()
+        );
+        assert!(
+            (phase - want.arg().to_degrees()).abs() < 0.5,
+            "{} Hz: {phase} degrees against {:.2}",
+            p.frequency_hz,
+            want.arg().to_degrees()
+        );
+    }
+}
+
 /// A netlist whose own file source names a file ngspice cannot open (here a path with a
 /// capital, which ngspice lowercases): ngspice says so on one line and plays zeros; the rig
 /// refuses instead of reading silence as the amplifier's output.

@@ -124,14 +124,15 @@ pub struct ZoutReport {
 impl ZoutReport {
     /// One row per channel.
     pub fn to_csv(&self) -> String {
-        let mut s = String::from("channel,frequency_hz,zout_ohms,zout_sigma_ohms,damping_factor,nominal_load_ohms,load_a_ohms,load_b_ohms\n");
+        let mut s = String::from("channel,frequency_hz,zout_ohms,zout_phase_deg,zout_sigma_ohms,damping_factor,nominal_load_ohms,load_a_ohms,load_b_ohms\n");
         for r in &self.results {
             let _ = writeln!(
                 s,
-                "{},{},{},{},{},{},{},{}",
+                "{},{},{},{},{},{},{},{},{}",
                 r.channel,
                 r.frequency_hz,
                 r.zout_ohms,
+                super::csv_num(r.phase_deg),
                 super::csv_num(r.zout_sigma_ohms),
                 r.damping_factor,
                 r.nominal_load_ohms,
@@ -148,10 +149,12 @@ impl ZoutReport {
         for r in &self.results {
             let _ = writeln!(
                 s,
-                "\nChannel {}: output impedance {:.3}{} ohm at {:.0} Hz, damping factor {:.2} (re {} ohm; loads {} and {} ohm)",
+                "\nChannel {}: output impedance {:.3}{} ohm{} at {:.0} Hz, damping factor {:.2} (re {} ohm; loads {} and {} ohm)",
                 r.channel,
                 r.zout_ohms,
                 r.zout_sigma_ohms.map_or(String::new(), |s| format!(" +/- {s:.3}")),
+                r.phase_deg
+                    .map_or(String::new(), |p| format!(", phase {p:+.1} degrees")),
                 r.frequency_hz,
                 r.damping_factor,
                 r.nominal_load_ohms,

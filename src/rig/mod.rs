@@ -77,6 +77,25 @@ pub trait Rig {
             .collect()
     }
 
+    /// One capture of `stimulus` into each of `loads` (ohms), in order; the rig is left on the
+    /// last load. A bench switches its dummy load between captures ([`Rig::set_load`]); a
+    /// simulator takes them all at once.
+    fn play_and_record_loads(
+        &mut self,
+        channel: usize,
+        stimulus: &[f64],
+        sample_rate_hz: u32,
+        loads: &[f64],
+    ) -> Result<Vec<Vec<f64>>> {
+        loads
+            .iter()
+            .map(|&r| {
+                self.set_load(r)?;
+                self.play_and_record(channel, stimulus, sample_rate_hz)
+            })
+            .collect()
+    }
+
     /// Play `stimulus` into amplifier channel `channel` and record every channel's output at once
     /// (channel separation): one capture per amplifier channel, index 0 for channel 1, each
     /// aligned and of the stimulus's length like [`Rig::play_and_record`]'s. A rig that records

@@ -586,3 +586,60 @@ fn two_load_sweep_gives_the_phase_of_an_inductive_source() {
         res.warnings
     );
 }
+
+#[test]
+fn two_load_tone_on_a_rig_reads_a_reactive_source_as_its_modulus() {
+    // Closed form: Z = R + jwL (1.5 ohm and 100 uH, values our own) at 997 Hz and 10 kHz,
+    // against 8 and 16 ohm. A rig's two captures share its clock, so the tone's two voltages are
+    // set against each other as complex numbers: |Z| within 0.2 % and its phase within 0.2
+    // degree of sqrt(R^2 + (wL)^2) and atan(wL / R). The magnitudes alone (two AC voltmeter
+    // readings) would give 1.532 ohm at 997 Hz, 6 % under |Z| = 1.626 ohm (worked here from the
+    // same divider), and much less at 10 kHz.
+    use ampnote::procedure::zout::{measure, two_load, ZoutDrive, ZoutPlan};
+    use ampnote::signal::stimulus::tone;
+    let (r, l) = (1.5, 100e-6);
+    for f in [997.0, 10_000.0] {
+        let t = tone(
+            &Common {
+                lead_s: 0.1,
+                tail_s: 0.1,
+                ..Common::mono(48_000, -12.0)
+            },
+            f,
+            1.0,
+        )
+        .unwrap();
+        let mut rig = InductiveSource {
+            r,
+            l,
+            load: 8.0,
+            delay: 37.4,
+        };
+        let plan = ZoutPlan {
+            loads: [8.0, 16.0],
+            drive: ZoutDrive::Tone {
+                signal: &t.signal,
+                hint_hz: Some(f),
+            },
+            sample_rate_hz: 48_000,
+            watts: None,
+        };
+        let res = measure(&mut rig, 1, &plan).unwrap();
+        let wl = 2.0 * PI * f * l;
+        let (mag, ph) = ((r * r + wl * wl).sqrt(), wl.atan2(r).to_degrees());
+        let got = res
+            .phase_deg
+            .expect("a rig shares its clock: phase measured");
+        assert!(
+            (res.zout_ohms / mag - 1.0).abs() < 0.002,
+            "{f} Hz: |Z| {} vs {mag}",
+            res.zout_ohms
+        );
+        assert!((got - ph).abs() < 0.2, "{f} Hz: phase {got} vs {ph}");
+        assert!((res.damping_factor - 8.0 / res.zout_ohms).abs() < 1e-9);
+        // What the magnitudes alone give, from the same divider: below |Z|.
+        let v = |rl: f64| rl / ((rl + r).powi(2) + wl * wl).sqrt();
+        let scalar = two_load(v(8.0), 8.0, v(16.0), 16.0).unwrap();
+        assert!(scalar < 0.95 * mag, "{f} Hz: {scalar} vs {mag}");
+    }
+}

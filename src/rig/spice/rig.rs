@@ -326,7 +326,7 @@ impl SpiceRig {
     /// The drive file is named relative to the folder ngspice runs in ([`DRIVE_FILE`]): ngspice
     /// lowercases a model's string parameters, so an absolute path with a capital letter in it
     /// (`/tmp/tmp.Xa3k`, `/home/Ann/Amps`) names a file that is not there.
-    fn deck(&self, step: f64, seconds: f64) -> String {
+    fn deck(&self, step: f64, seconds: f64, load_ohms: f64) -> String {
         format!(
             "* ampnote circuit rig: {netlist}\n\
              .options abstol=1e-10\n\
@@ -338,12 +338,18 @@ impl SpiceRig {
              .tran {step:e} {seconds:e} 0 {step:e}\n\
              .end\n",
             netlist = self.netlist.display(),
-            load = self.load_ohms,
+            load = load_ohms,
         )
     }
-    /// One capture of `stimulus` (at `fs`) simulated in the folder `dir`, with ngspice's
-    /// warnings. Takes `&self` so that several run at once, each in a folder of its own.
-    fn simulate(&self, dir: &Path, stimulus: &[f64], fs: f64) -> Result<(Vec<f64>, Vec<String>)> {
+    /// One capture of `stimulus` (at `fs`) into `load_ohms` simulated in the folder `dir`, with
+    /// ngspice's warnings. Takes `&self` so that several run at once, each in a folder of its own.
+    fn simulate(
+        &self,
+        dir: &Path,
+        stimulus: &[f64],
+        fs: f64,
+        load_ohms: f64,
+    ) -> Result<(Vec<f64>, Vec<String>)> {
         let cal = crate::rig::Rig::calibration(self);
         let full = |v: Option<f64>| v.unwrap_or(DEFAULT_FULL_SCALE_VRMS) * std::f64::consts::SQRT_2;
         let (out_peak, in_peak) = (full(cal.output_fs_vrms), full(cal.input_fs_vrms));
@@ -361,7 +367,7 @@ impl SpiceRig {
             source: e,
         })?;
         let seconds = (stimulus.len() as f64 - 1.0) / fs;
-        let outcome = run(&self.deck(step, seconds), dir, self.time_limit)?;
+        let outcome = run(&self.deck(step, seconds, load_ohms), dir, self.time_limit)?;
         let tran = outcome.plot("Transient")?;
         let time = tran.real("time")?;
         check_voltages(tran, &time, &outcome.warnings, dir)?;
@@ -380,6 +386,16 @@ impl SpiceRig {
             y.iter().map(|v| v / atten / in_peak).collect(),
             outcome.warnings.clone(),
         ))
+    }
+
+    /// The captures of several simulations, their warnings kept.
+    fn noted(&mut self, done: Vec<(Vec<f64>, Vec<String>)>) -> Vec<Vec<f64>> {
+        done.into_iter()
+            .map(|(capture, warnings)| {
+                self.note(&warnings);
+                capture
+            })
+            .collect()
     }
 
     /// Keeps ngspice's warnings (each once) and the note that the run is a prediction.
@@ -576,7 +592,8 @@ impl crate::rig::Rig for SpiceRig {
         sample_rate_hz: u32,
     ) -> Result<Vec<f64>> {
         Self::check_channel(channel)?;
-        let (capture, warnings) = self.simulate(&self.work, stimulus, sample_rate_hz as f64)?;
+        let (capture, warnings) =
+            self.simulate(&self.work, stimulus, sample_rate_hz as f64, self.load_ohms)?;
         self.note(&warnings);
         Ok(capture)
     }
@@ -602,14 +619,35 @@ impl crate::rig::Rig for SpiceRig {
         let done: Vec<(Vec<f64>, Vec<String>)> = stimuli
             .par_iter()
             .enumerate()
-            .map(|(i, s)| self.simulate(&self.work.join(format!("part-{i}")), s, fs))
+            .map(|(i, s)| {
+                self.simulate(&self.work.join(format!("part-{i}")), s, fs, self.load_ohms)
+            })
             .collect::<Result<_>>()?;
-        let mut captures = Vec::with_capacity(done.len());
-        for (capture, warnings) in done {
-            self.note(&warnings);
-            captures.push(capture);
-        }
-        Ok(captures)
+        Ok(self.noted(done))
+    }
+
+    /// The stimulus into every load at once (one ngspice per core); the rig's load is left
+    /// as it was.
+    fn play_and_record_loads(
+        &mut self,
+        channel: usize,
+        stimulus: &[f64],
+        sample_rate_hz: u32,
+        loads: &[f64],
+    ) -> Result<Vec<Vec<f64>>> {
+        use rayon::prelude::*;
+        Self::check_channel(channel)?;
+        let loads = loads
+            .iter()
+            .map(|&r| crate::rig::checked_load(r))
+            .collect::<Result<Vec<f64>>>()?;
+        let fs = sample_rate_hz as f64;
+        let done: Vec<(Vec<f64>, Vec<String>)> = loads
+            .par_iter()
+            .enumerate()
+            .map(|(i, &r)| self.simulate(&self.work.join(format!("load-{i}")), stimulus, fs, r))
+            .collect::<Result<_>>()?;
+        Ok(self.noted(done))
     }
 
     fn take_notes(&mut self, channel: usize) -> Vec<Warning> {
