@@ -209,6 +209,40 @@ pub fn amp_ports(text: &str) -> std::result::Result<Vec<String>, String> {
     Err("it defines no `.subckt amp IN OUT`: wrap the amplifier in that subcircuit (its input and its output terminal; supplies inside), and ampnote adds the drive, the dummy load and the attenuator".into())
 }
 
+/// Lines the rig must run without: analyses (the rig adds its own `.tran`; a netlist's own
+/// would run too, or in ngspice's order replace the rig's), a `.control` block (its commands
+/// run in batch mode: `quit` ends the run with no results, `alter` changes parts unseen), and
+/// `.save` (it keeps only the vectors it names, so the output the rig reads is not saved).
+fn no_analyses(text: &str) -> std::result::Result<(), String> {
+    const REFUSED: [&str; 13] = [
+        ".tran", ".ac", ".dc", ".op", ".noise", ".tf", ".pz", ".disto", ".sens", ".sp", ".pss",
+        ".control", ".save",
+    ];
+    let found: Vec<String> = text
+        .lines()
+        .enumerate()
+        .filter(|(_, l)| {
+            l.split_whitespace()
+                .next()
+                .is_some_and(|w| REFUSED.iter().any(|r| w.eq_ignore_ascii_case(r)))
+        })
+        .map(|(i, l)| format!("line {} `{}`", i + 1, l.trim()))
+        .collect();
+    if found.is_empty() {
+        return Ok(());
+    }
+    Err(format!(
+        "{}{}: the netlist must hold the circuit only, since ampnote adds its own transient analysis and reads every node it needs (a netlist's own analysis would run too or replace the rig's, a `.control` block's commands run in batch mode, `.save` drops the output the rig reads). Comment {} out with `*`",
+        found.iter().take(4).cloned().collect::<Vec<_>>().join(", "),
+        if found.len() > 4 {
+            format!(" and {} more", found.len() - 4)
+        } else {
+            String::new()
+        },
+        if found.len() == 1 { "it" } else { "them" }
+    ))
+}
+
 /// The part lines of a subcircuit, from the `lines` after its `.subckt` line up to its `.ends`
 /// (continuation lines joined, comments and dot-lines left out).
 fn subckt_body(lines: &[&str]) -> Vec<String> {
@@ -257,9 +291,11 @@ impl SpiceRig {
             path: path.to_path_buf(),
             source,
         })?;
-        amp_ports(&text).map_err(|why| Error::Spice {
-            detail: format!("{}: {why}", path.display()),
-        })?;
+        amp_ports(&text)
+            .and_then(|_| no_analyses(&text))
+            .map_err(|why| Error::Spice {
+                detail: format!("{}: {why}", path.display()),
+            })?;
         let source = std::fs::canonicalize(path).map_err(|source| Error::Open {
             path: path.to_path_buf(),
             source,
@@ -660,6 +696,21 @@ impl crate::rig::Rig for SpiceRig {
 mod tests {
     use super::*;
     use realfft::num_complex::Complex64;
+
+    #[test]
+    fn analyses_control_blocks_and_saves_are_refused_by_line() {
+        let amp = ".subckt amp in out\nE1 out 0 in 0 2\n.ends\n";
+        assert!(no_analyses(&format!("* ok\n{amp}.options reltol=1e-4\n.end\n")).is_ok());
+        let e = no_analyses(&format!("* t\n{amp}.TRAN 1u 10m\n")).unwrap_err();
+        assert!(e.starts_with("line 5 `.TRAN 1u 10m`"), "{e}");
+        assert!(e.contains("Comment it out"), "{e}");
+        let e = no_analyses(&format!("* c\n{amp}.control\nquit\n.endc\n.save v(x)\n"))
+            .unwrap_err();
+        assert!(e.contains("line 5 `.control`, line 8 `.save v(x)`"), "{e}");
+        assert!(e.contains("Comment them out"), "{e}");
+        // A part whose name begins like a dot-line is not one.
+        assert!(no_analyses(&format!("* p\n{amp}Rtran a b 1k\n")).is_ok());
+    }
 
     #[test]
     fn the_convention_is_read_from_the_netlist() {
