@@ -704,8 +704,7 @@ mod tests {
         let e = no_analyses(&format!("* t\n{amp}.TRAN 1u 10m\n")).unwrap_err();
         assert!(e.starts_with("line 5 `.TRAN 1u 10m`"), "{e}");
         assert!(e.contains("Comment it out"), "{e}");
-        let e = no_analyses(&format!("* c\n{amp}.control\nquit\n.endc\n.save v(x)\n"))
-            .unwrap_err();
+        let e = no_analyses(&format!("* c\n{amp}.control\nquit\n.endc\n.save v(x)\n")).unwrap_err();
         assert!(e.contains("line 5 `.control`, line 8 `.save v(x)`"), "{e}");
         assert!(e.contains("Comment them out"), "{e}");
         // A part whose name begins like a dot-line is not one.
