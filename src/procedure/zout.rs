@@ -147,6 +147,12 @@ pub fn from_levels(
     })
 }
 
+/// Above this a tone's output impedance from two separate recordings is said to lack its phase:
+/// an output transformer's leakage inductance (tens of microhenries at the secondary, common
+/// practice) adds a tenth of an ohm of reactance by 1 kHz, where |Z| from the magnitudes is
+/// still within a fraction of a percent, and ten times that by 10 kHz.
+const PHASE_MATTERS_HZ: f64 = 2000.0;
+
 impl ZoutResult {
     /// The headline set from the complex Z at `frequency_hz` (both captures on one time base).
     fn set_complex(&mut self, z: Complex64) {
@@ -376,6 +382,11 @@ pub fn measure(rig: &mut dyn Rig, channel: usize, plan: &ZoutPlan) -> Result<Zou
                     let z = two_load_complex(Complex64::new(1.0, 0.0), ra, pb / pa, rb)?;
                     res.set_complex(z);
                 }
+            } else if res.frequency_hz > PHASE_MATTERS_HZ {
+                res.warnings.push(C::PhaseUnknown.say(format!(
+                    "two recordings of a tone give |Z| from their magnitudes alone, exact only where Z is resistive; at {:.0} Hz an output transformer's leakage inductance can make it reactive, and the figure then reads low (1.53 ohm for 1.5 + j0.63 ohm between 8 and 16 ohm). Measure on a rig (--rig) for |Z| with its phase, or at 1 kHz",
+                    res.frequency_hz
+                )));
             }
             Ok(res)
         }

@@ -406,6 +406,33 @@ fn two_load_procedure_on_the_file_rig_matches_the_divider() {
         "DF {}",
         r.damping_factor
     );
+    // Two recordings: no phase. At 1 kHz nothing more is said (a valve amplifier's Z is close
+    // to resistive there, common practice); at 10 kHz the result says the phase is unknown.
+    let phase_unknown = |r: &ampnote::procedure::zout::ZoutResult| {
+        r.warnings
+            .iter()
+            .any(|w| w.code == ampnote::warning::WarningCode::PhaseUnknown)
+    };
+    assert!(
+        r.phase_deg.is_none() && !phase_unknown(&r),
+        "{:?}",
+        r.warnings
+    );
+    let t10 = tone(&c, 10_000.0, 1.5).unwrap();
+    let (a10, b10) = divider_takes("zout-file-tone-10k", &t10.signal, 2.0);
+    let mut rig10 =
+        FileRig::with_loads(&[(&a10, 8.0), (&b10, 16.0)], Calibration::default(), false).unwrap();
+    let r = measure(&mut rig10, 1, &plan).unwrap();
+    assert!(
+        (r.zout_ohms - 2.0).abs() < 0.01,
+        "10 kHz tone: Z {}",
+        r.zout_ohms
+    );
+    assert!(
+        r.phase_deg.is_none() && phase_unknown(&r),
+        "{:?}",
+        r.warnings
+    );
 
     let c = Common {
         fade_s: 0.0,
