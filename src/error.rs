@@ -195,7 +195,7 @@ pub enum Error {
     #[error("the circuit simulation took longer than {seconds:.0} s and was stopped (the deck is {deck}); a netlist that does not converge, or a time step far too small, does this: check the circuit, or allow more time")]
     SpiceTimedOut { seconds: f64, deck: PathBuf },
 
-    #[error("{rig} records one channel at a time; channel separation needs every channel recorded while one is driven. Use --rig sim or --rig card with --inputs naming every channel, or record all channels at once and give the file")]
+    #[error("{rig} records one channel at a time; channel separation needs every channel recorded while one is driven. Use --rig sim, --rig card with --inputs naming every channel, or a circuit with two channels (`.subckt amp IN1 IN2 OUT1 OUT2`), or record all channels at once and give the file")]
     RecordsOneChannel { rig: String },
 
     /// The audio interface or its server failed. `retryable`: a transient fault (a stalled

@@ -649,6 +649,89 @@ fn output_impedance_on_the_circuit_rig_reads_its_closed_form() {
     }
 }
 
+/// Two channels (`.subckt amp IN1 IN2 OUT1 OUT2`): each a gain-2 source behind 1 ohm into its
+/// own 8 ohm load, coupled by C = 100 nF between the outputs. Driving channel 1 with channel 2's
+/// input held at 0 V, channel 2's output is V1 Zp / (Zp + 1 / (j w C)) with Zp = 1 || 8 ohm
+/// (circuit theory): -65.06 dB at 1 kHz and -45.06 dB at 10 kHz, leading by nearly 90 degrees.
+/// The two channels come from one simulation, on one time base, as a bench records them.
+#[test]
+fn two_channels_give_their_crosstalk_in_closed_form() {
+    use ampnote::rig::Rig;
+    use ampnote::signal::stimulus::{self, Common};
+    let text = "* two channels\n.subckt amp in1 in2 out1 out2\nE1 a1 0 in1 0 2\nR1 a1 out1 1\nE2 a2 0 in2 0 2\nR2 a2 out2 1\nCx out1 out2 100n\n.ends\n";
+    let path = netlist("stereo", text);
+    let mut rig = open_rig("stereo", &path).unwrap();
+    assert_eq!(rig.channels(), 2);
+    assert!(
+        rig.describe().contains("two channels"),
+        "{}",
+        rig.describe()
+    );
+    let fs = 48_000.0;
+    let zp = 8.0 / 9.0;
+    for f in [1000.0, 10_000.0] {
+        let t = stimulus::tone(&Common::mono(48_000, -20.0), f, 0.3).unwrap();
+        let all = rig.play_and_record_all(1, &t.signal, 48_000).unwrap();
+        assert_eq!(all.len(), 2);
+        let (from, to) = (4800, all[0].len() - 2400);
+        let ratio = hann_phasor(&all[1], from, to, f, fs) / hann_phasor(&all[0], from, to, f, fs);
+        let xc = 1.0 / (2.0 * PI * f * 100e-9);
+        let want = Complex64::new(zp, 0.0) / Complex64::new(zp, -xc);
+        let (got_db, want_db) = (20.0 * ratio.norm().log10(), 20.0 * want.norm().log10());
+        let (got_deg, want_deg) = (ratio.arg().to_degrees(), want.arg().to_degrees());
+        eprintln!("crosstalk {f} Hz: {got_db:.3} dB {got_deg:.2} deg against {want_db:.3} dB {want_deg:.2} deg");
+        assert!(
+            (got_db - want_db).abs() < 0.05,
+            "{f} Hz: {got_db} dB against {want_db}"
+        );
+        assert!(
+            (got_deg - want_deg).abs() < 0.5,
+            "{f} Hz: {got_deg} deg against {want_deg}"
+        );
+    }
+    // Channel 2 driven on its own: gain 2 x 8/9 through the default bench's 20 dB attenuator.
+    let t = stimulus::tone(&Common::mono(48_000, -20.0), 1000.0, 0.3).unwrap();
+    let y = rig.play_and_record(2, &t.signal, 48_000).unwrap();
+    let rms = |x: &[f64]| {
+        (x[4800..x.len() - 2400].iter().map(|v| v * v).sum::<f64>() / (x.len() - 7200) as f64)
+            .sqrt()
+    };
+    let gain = rms(&y) / rms(&t.signal);
+    assert!(
+        (gain / (2.0 * zp / 10.0) - 1.0).abs() < 1e-3,
+        "channel 2 gain {gain}"
+    );
+    // No third channel; a one-channel netlist cannot record both.
+    assert!(matches!(
+        rig.play_and_record(3, &t.signal, 48_000),
+        Err(Error::NoSuchChannel {
+            requested: 3,
+            available: 2
+        })
+    ));
+    let mono = netlist(
+        "mono",
+        "* one\n.subckt amp in out\nE1 out 0 in 0 2\n.ends\n",
+    );
+    let mut rig = open_rig("mono", &mono).unwrap();
+    let err = rig.play_and_record_all(1, &t.signal, 48_000).unwrap_err();
+    assert!(matches!(err, Error::RecordsOneChannel { .. }), "{err:?}");
+    assert!(err.to_string().contains("IN1 IN2 OUT1 OUT2"), "{err}");
+}
+
+/// The Hann-weighted complex amplitude of `x[from..to]` at `f_hz`.
+fn hann_phasor(x: &[f64], from: usize, to: usize, f_hz: f64, fs: f64) -> Complex64 {
+    let n = (to - from) as f64;
+    x[from..to]
+        .iter()
+        .enumerate()
+        .map(|(i, v)| {
+            let w = 0.5 - 0.5 * (2.0 * PI * i as f64 / (n - 1.0)).cos();
+            v * w * Complex64::from_polar(1.0, -2.0 * PI * f_hz * (from + i) as f64 / fs)
+        })
+        .sum()
+}
+
 /// A netlist whose own file source names a file ngspice cannot open (here a path with a
 /// capital, which ngspice lowercases): ngspice says so on one line and plays zeros; the rig
 /// refuses instead of reading silence as the amplifier's output.

@@ -115,6 +115,8 @@ pub struct SpiceRig {
     changes: Vec<PartChange>,
     calibration: Calibration,
     load_ohms: f64,
+    /// 1 (`.subckt amp IN OUT`) or 2 (`.subckt amp IN1 IN2 OUT1 OUT2`).
+    channels: usize,
     /// This rig's own folder for its decks, drive files and ngspice's output (one per rig, so
     /// two runs at once never share one).
     work: PathBuf,
@@ -148,13 +150,28 @@ fn check_voltages(
     warnings: &[String],
     dir: &Path,
 ) -> Result<()> {
-    for (name, values) in plot.variables.iter().zip(&plot.values) {
-        let Some(node) = name.strip_prefix("v(").and_then(|n| n.strip_suffix(')')) else {
-            continue;
-        };
-        let Some(i) = values.iter().position(|v| v.re.abs() > ABSURD_VOLTS) else {
-            continue;
-        };
+    // The node named is the worst one inside the user's circuit (the cause is there; the rig's
+    // own output node only follows it), the worst of all when none inside is absurd.
+    let worst = plot
+        .variables
+        .iter()
+        .zip(&plot.values)
+        .filter_map(|(name, values)| {
+            let node = name.strip_prefix("v(")?.strip_suffix(')')?;
+            let (i, peak) = values
+                .iter()
+                .map(|v| v.re.abs())
+                .enumerate()
+                .max_by(|a, b| a.1.total_cmp(&b.1))?;
+            (peak > ABSURD_VOLTS).then_some((node, i, values[i].re))
+        })
+        .max_by(|a, b| {
+            let inside = |n: &str| !n.starts_with("ampnote_");
+            (inside(a.0), a.2.abs())
+                .partial_cmp(&(inside(b.0), b.2.abs()))
+                .unwrap_or(std::cmp::Ordering::Equal)
+        });
+    if let Some((node, i, volts)) = worst {
         let node = node.strip_prefix("x_ampnote_amp.").unwrap_or(node);
         let said = if warnings.is_empty() {
             String::new()
@@ -163,8 +180,7 @@ fn check_voltages(
         };
         return Err(Error::Spice {
             detail: format!(
-                "ngspice's solution puts node `{node}` at {:.3e} V at {:.4} s, which no amplifier has: the netlist has no sensible solution there (a node with no DC path to ground, such as a part on a misspelt node name, a loop of sources, or a behavioural source that cannot be met).{said} The deck and its log are in {}",
-                values[i].re,
+                "ngspice's solution puts node `{node}` at {volts:.3e} V at {:.4} s, which no amplifier has: the netlist has no sensible solution there (a node with no DC path to ground, such as a part on a misspelt node name, a loop of sources, or a behavioural source that cannot be met).{said} The deck and its log are in {}",
                 times.get(i).copied().unwrap_or(0.0),
                 dir.display()
             ),
@@ -188,15 +204,23 @@ pub fn amp_ports(text: &str) -> std::result::Result<Vec<String>, String> {
                 .take_while(|w| !w.contains('=') && !w.eq_ignore_ascii_case("params:"))
                 .map(|w| w.to_string())
                 .collect();
-            if ports.len() != 2 {
-                return Err(format!(
-                    "its `.subckt amp` has {} port(s) ({}); the convention is two, `.subckt amp IN OUT` (the amplifier's input and its output terminal)",
-                    ports.len(),
-                    ports.join(" ")
-                ));
-            }
+            let roles: &[&str] = match ports.len() {
+                2 => &["input", "output"],
+                4 => &[
+                    "channel 1 input",
+                    "channel 2 input",
+                    "channel 1 output",
+                    "channel 2 output",
+                ],
+                n => {
+                    return Err(format!(
+                        "its `.subckt amp` has {n} port(s) ({}); the convention is two for one channel, `.subckt amp IN OUT` (the amplifier's input and its output terminal), or four for two channels, `.subckt amp IN1 IN2 OUT1 OUT2`",
+                        ports.join(" ")
+                    ))
+                }
+            };
             let body = subckt_body(&lines[i + 1..]);
-            for (what, port) in ["input", "output"].iter().zip(&ports) {
+            for (what, port) in roles.iter().zip(&ports) {
                 if !body.iter().any(|l| uses_node(l, port)) {
                     return Err(format!(
                         "its `.subckt amp` never connects its {what} port `{port}`: no part inside the subcircuit uses that node (a misspelt node name?)"
@@ -291,8 +315,8 @@ impl SpiceRig {
             path: path.to_path_buf(),
             source,
         })?;
-        amp_ports(&text)
-            .and_then(|_| no_analyses(&text))
+        let channels = amp_ports(&text)
+            .and_then(|ports| no_analyses(&text).map(|_| ports.len() / 2))
             .map_err(|why| Error::Spice {
                 detail: format!("{}: {why}", path.display()),
             })?;
@@ -338,6 +362,7 @@ impl SpiceRig {
             source,
             changes: changes.to_vec(),
             load_ohms,
+            channels,
             calibration,
             work,
             notes: Vec::new(),
@@ -362,30 +387,63 @@ impl SpiceRig {
     /// The drive file is named relative to the folder ngspice runs in ([`DRIVE_FILE`]): ngspice
     /// lowercases a model's string parameters, so an absolute path with a capital letter in it
     /// (`/tmp/tmp.Xa3k`, `/home/Ann/Amps`) names a file that is not there.
-    fn deck(&self, step: f64, seconds: f64, load_ohms: f64) -> String {
+    ///
+    /// With two channels, `driven` gets the drive and the other input is held at 0 V (an
+    /// interface output playing silence); each output has its own load.
+    fn deck(&self, step: f64, seconds: f64, load_ohms: f64, driven: usize) -> String {
+        let mut parts = String::new();
+        for ch in 1..=self.channels {
+            if ch == driven {
+                parts += &format!("a_ampnote_drive %v([ampnote_in{ch}]) ampnote_drive\n");
+            } else {
+                parts += &format!("v_ampnote_idle{ch} ampnote_in{ch} 0 0\n");
+            }
+            parts += &format!("r_ampnote_load{ch} ampnote_out{ch} 0 {load_ohms:e}\n");
+        }
+        let ins: Vec<String> = (1..=self.channels)
+            .map(|c| format!("ampnote_in{c}"))
+            .collect();
+        let outs: Vec<String> = (1..=self.channels)
+            .map(|c| format!("ampnote_out{c}"))
+            .collect();
         format!(
             "* ampnote circuit rig: {netlist}\n\
              .options abstol=1e-10\n\
              .include \"{netlist}\"\n\
              .model ampnote_drive filesource (file=\"{DRIVE_FILE}\" amploffset=[0] amplscale=[1] timeoffset=0 timescale=1 timerelative=false amplstep=false)\n\
-             a_ampnote_drive %v([ampnote_in]) ampnote_drive\n\
-             x_ampnote_amp ampnote_in ampnote_out amp\n\
-             r_ampnote_load ampnote_out 0 {load:e}\n\
+             {parts}\
+             x_ampnote_amp {ins} {outs} amp\n\
              .tran {step:e} {seconds:e} 0 {step:e}\n\
              .end\n",
             netlist = self.netlist.display(),
-            load = load_ohms,
+            ins = ins.join(" "),
+            outs = outs.join(" "),
         )
     }
-    /// One capture of `stimulus` (at `fs`) into `load_ohms` simulated in the folder `dir`, with
-    /// ngspice's warnings. Takes `&self` so that several run at once, each in a folder of its own.
+    /// One capture of `stimulus` (at `fs`) played into channel `driven`, into `load_ohms`,
+    /// simulated in the folder `dir`, with ngspice's warnings.
     fn simulate(
         &self,
         dir: &Path,
         stimulus: &[f64],
         fs: f64,
         load_ohms: f64,
+        driven: usize,
     ) -> Result<(Vec<f64>, Vec<String>)> {
+        let (mut all, warnings) = self.simulate_all(dir, stimulus, fs, load_ohms, driven)?;
+        Ok((all.swap_remove(driven - 1), warnings))
+    }
+
+    /// [`Self::simulate`] with every channel's output (index 0 for channel 1). Takes `&self` so
+    /// that several run at once, each in a folder of its own.
+    fn simulate_all(
+        &self,
+        dir: &Path,
+        stimulus: &[f64],
+        fs: f64,
+        load_ohms: f64,
+        driven: usize,
+    ) -> Result<(Vec<Vec<f64>>, Vec<String>)> {
         let cal = crate::rig::Rig::calibration(self);
         let full = |v: Option<f64>| v.unwrap_or(DEFAULT_FULL_SCALE_VRMS) * std::f64::consts::SQRT_2;
         let (out_peak, in_peak) = (full(cal.output_fs_vrms), full(cal.input_fs_vrms));
@@ -403,25 +461,30 @@ impl SpiceRig {
             source: e,
         })?;
         let seconds = (stimulus.len() as f64 - 1.0) / fs;
-        let outcome = run(&self.deck(step, seconds, load_ohms), dir, self.time_limit)?;
+        let outcome = run(
+            &self.deck(step, seconds, load_ohms, driven),
+            dir,
+            self.time_limit,
+        )?;
         let tran = outcome.plot("Transient")?;
         let time = tran.real("time")?;
         check_voltages(tran, &time, &outcome.warnings, dir)?;
-        let (t, v) = rising(&time, &tran.real("v(ampnote_out)")?);
-        if t.len() < 4 {
-            return Err(Error::Spice {
-                detail: format!("ngspice returned {} time points", t.len()),
-            });
+        let mut captures = Vec::with_capacity(self.channels);
+        for ch in 1..=self.channels {
+            let (t, v) = rising(&time, &tran.real(&format!("v(ampnote_out{ch})"))?);
+            if t.len() < 4 {
+                return Err(Error::Spice {
+                    detail: format!("ngspice returned {} time points", t.len()),
+                });
+            }
+            // Read on the stimulus's fine grid, then down to the capture's rate through an
+            // ideal anti-alias filter, as an interface's converter does: harmonics above half
+            // the rate must not fold back into the band.
+            let fine = resample_cubic(&t, &v, fs * k as f64, stimulus.len() * k);
+            let y = decimate_band_limited(&fine, k);
+            captures.push(y.iter().map(|v| v / atten / in_peak).collect());
         }
-        // Read on the stimulus's fine grid, then down to the capture's rate through an ideal
-        // anti-alias filter, as an interface's converter does: harmonics above half the rate
-        // must not fold back into the band.
-        let fine = resample_cubic(&t, &v, fs * k as f64, stimulus.len() * k);
-        let y = decimate_band_limited(&fine, k);
-        Ok((
-            y.iter().map(|v| v / atten / in_peak).collect(),
-            outcome.warnings.clone(),
-        ))
+        Ok((captures, outcome.warnings.clone()))
     }
 
     /// The captures of several simulations, their warnings kept.
@@ -445,11 +508,11 @@ impl SpiceRig {
         }
     }
 
-    fn check_channel(channel: usize) -> Result<()> {
-        if channel != 1 {
+    fn check_channel(&self, channel: usize) -> Result<()> {
+        if channel == 0 || channel > self.channels {
             return Err(Error::NoSuchChannel {
                 requested: channel,
-                available: 1,
+                available: self.channels,
             });
         }
         Ok(())
@@ -586,9 +649,14 @@ impl crate::rig::Rig for SpiceRig {
             )
         };
         format!(
-            "circuit rig: {}{parts} through ngspice into {} ohm",
+            "circuit rig: {}{parts} through ngspice into {} ohm{}",
             self.source.display(),
-            self.load_ohms
+            self.load_ohms,
+            if self.channels == 2 {
+                " (two channels)"
+            } else {
+                ""
+            }
         )
     }
 
@@ -600,7 +668,7 @@ impl crate::rig::Rig for SpiceRig {
     }
 
     fn channels(&self) -> usize {
-        1
+        self.channels
     }
 
     fn overload_threshold(&self) -> f64 {
@@ -627,11 +695,41 @@ impl crate::rig::Rig for SpiceRig {
         stimulus: &[f64],
         sample_rate_hz: u32,
     ) -> Result<Vec<f64>> {
-        Self::check_channel(channel)?;
-        let (capture, warnings) =
-            self.simulate(&self.work, stimulus, sample_rate_hz as f64, self.load_ohms)?;
+        self.check_channel(channel)?;
+        let (capture, warnings) = self.simulate(
+            &self.work,
+            stimulus,
+            sample_rate_hz as f64,
+            self.load_ohms,
+            channel,
+        )?;
         self.note(&warnings);
         Ok(capture)
+    }
+
+    /// Both channels' outputs from one simulation (a netlist with two channels; one with one
+    /// channel refuses, as a bench that records one channel does).
+    fn play_and_record_all(
+        &mut self,
+        channel: usize,
+        stimulus: &[f64],
+        sample_rate_hz: u32,
+    ) -> Result<Vec<Vec<f64>>> {
+        if self.channels < 2 {
+            return Err(Error::RecordsOneChannel {
+                rig: crate::rig::Rig::describe(self),
+            });
+        }
+        self.check_channel(channel)?;
+        let (captures, warnings) = self.simulate_all(
+            &self.work,
+            stimulus,
+            sample_rate_hz as f64,
+            self.load_ohms,
+            channel,
+        )?;
+        self.note(&warnings);
+        Ok(captures)
     }
 
     fn predicts(&self) -> bool {
@@ -650,13 +748,19 @@ impl crate::rig::Rig for SpiceRig {
         sample_rate_hz: u32,
     ) -> Result<Vec<Vec<f64>>> {
         use rayon::prelude::*;
-        Self::check_channel(channel)?;
+        self.check_channel(channel)?;
         let fs = sample_rate_hz as f64;
         let done: Vec<(Vec<f64>, Vec<String>)> = stimuli
             .par_iter()
             .enumerate()
             .map(|(i, s)| {
-                self.simulate(&self.work.join(format!("part-{i}")), s, fs, self.load_ohms)
+                self.simulate(
+                    &self.work.join(format!("part-{i}")),
+                    s,
+                    fs,
+                    self.load_ohms,
+                    channel,
+                )
             })
             .collect::<Result<_>>()?;
         Ok(self.noted(done))
@@ -672,7 +776,7 @@ impl crate::rig::Rig for SpiceRig {
         loads: &[f64],
     ) -> Result<Vec<Vec<f64>>> {
         use rayon::prelude::*;
-        Self::check_channel(channel)?;
+        self.check_channel(channel)?;
         let loads = loads
             .iter()
             .map(|&r| crate::rig::checked_load(r))
@@ -681,7 +785,15 @@ impl crate::rig::Rig for SpiceRig {
         let done: Vec<(Vec<f64>, Vec<String>)> = loads
             .par_iter()
             .enumerate()
-            .map(|(i, &r)| self.simulate(&self.work.join(format!("load-{i}")), stimulus, fs, r))
+            .map(|(i, &r)| {
+                self.simulate(
+                    &self.work.join(format!("load-{i}")),
+                    stimulus,
+                    fs,
+                    r,
+                    channel,
+                )
+            })
             .collect::<Result<_>>()?;
         Ok(self.noted(done))
     }
