@@ -225,6 +225,9 @@ pub struct Located {
     pub slip_samples: f64,
     /// The slip as clock drift, parts per million (input clock relative to output clock).
     pub drift_ppm: f64,
+    /// The latency less the whole samples the stimulus was cut at (-0.5 to 0.5 for the first
+    /// capture of a path; [`assess_near`] keeps later ones on its grid). 0 until [`assess`].
+    pub residual: f64,
 }
 
 /// Why a capture could not be located.
@@ -265,6 +268,7 @@ pub fn locate(capture: &[f64], framed: &Framed, rate: u32) -> Result<Located, Lo
         gain: first.gain,
         slip_samples: slip,
         drift_ppm: slip / played * 1e6,
+        residual: 0.0,
     })
 }
 
@@ -352,6 +356,24 @@ pub enum Verdict {
 /// (within [`slip_tolerance`]), no holes, and no gaps the audio layer itself reported
 /// (`reported_gaps`: xruns, dropped or late callbacks). A whole capture comes back aligned.
 pub fn assess(capture: &[f64], framed: &Framed, rate: u32, reported_gaps: u64) -> Verdict {
+    assess_near(capture, framed, rate, reported_gaps, 0.0)
+}
+
+/// [`assess`] with the stimulus cut out on the whole-sample grid of an earlier capture of the
+/// same path: `residual` is that capture's latency less the whole samples it was cut at
+/// ([`Located::residual`], -0.5 to 0.5). Cut by plain rounding, two captures of one path whose
+/// latencies sit either side of a half sample (123.49 and 123.51) would land a sample apart,
+/// 7.5 degrees at 1 kHz at 48 kHz, and their phases could not be set against each other
+/// (zout's two loads). No fractional shift is made: what the amplifier itself does to the phase
+/// between two captures (a load's effect on an inductive output) must stay in them, and the
+/// markers pass through the amplifier too.
+pub fn assess_near(
+    capture: &[f64],
+    framed: &Framed,
+    rate: u32,
+    reported_gaps: u64,
+    residual: f64,
+) -> Verdict {
     let fs = rate as f64;
     let located = match locate(capture, framed, rate) {
         Ok(l) => l,
@@ -382,10 +404,14 @@ pub fn assess(capture: &[f64], framed: &Framed, rate: u32, reported_gaps: u64) -
             located.slip_samples.abs() / fs * 1e3
         ));
     }
-    let start = (located.latency_samples + framed.stimulus_start as f64).round();
+    let start = (located.latency_samples + framed.stimulus_start as f64 - residual).round();
     if start < 0.0 || start as usize + framed.stimulus_len > capture.len() {
         return Verdict::Broken("the capture does not hold the whole stimulus".into());
     }
+    let located = Located {
+        residual: located.latency_samples + framed.stimulus_start as f64 - start,
+        ..located
+    };
     let start = stimulus_start(&located, framed);
     let aligned = capture[start..start + framed.stimulus_len].to_vec();
     let stim = &framed.signal[framed.stimulus_start..framed.stimulus_start + framed.stimulus_len];
@@ -403,7 +429,7 @@ pub fn assess(capture: &[f64], framed: &Framed, rate: u32, reported_gaps: u64) -
 /// Where the stimulus starts in a capture whose markers were `located` (every input recorded in
 /// the same stream shares it); [`assess`] has checked it lies inside the capture.
 pub fn stimulus_start(located: &Located, framed: &Framed) -> usize {
-    (located.latency_samples + framed.stimulus_start as f64)
+    (located.latency_samples + framed.stimulus_start as f64 - located.residual)
         .round()
         .max(0.0) as usize
 }

@@ -87,6 +87,54 @@ fn fractional_latency_to_a_tenth_of_a_sample() {
 }
 
 #[test]
+fn captures_of_one_path_keep_one_grid_whichever_way_their_latency_rounds() {
+    // Closed form: two captures of one path, 500.45 and 500.55 samples late (the amplifier's
+    // delay moved by a tenth of a sample between them, as a load change can move it). Cut by
+    // rounding they land a whole sample apart and a 1 kHz tone's phase between them reads
+    // 0.1 - 1 = -0.9 samples (-6.75 degrees at 48 kHz); cut on the first one's grid it reads
+    // the true 0.1 sample (0.75 degrees): the phase the amplifier itself added is kept, and
+    // nothing else is.
+    use ampnote::rig::framing::assess_near;
+    let f = frame(&tone(1000.0, 0.2, 0.5), RATE);
+    let n = f.signal.len() + 2000;
+    let take = |d: f64| -> Vec<f64> { (0..n).map(|k| at(&f.signal, k as f64 - d)).collect() };
+    let (a, b) = (take(500.45), take(500.55));
+    let whole = |v: Verdict| match v {
+        Verdict::Whole { aligned, located } => (aligned, located),
+        Verdict::Broken(why) => panic!("rejected: {why}"),
+    };
+    let (ya, la) = whole(assess(&a, &f, RATE, 0));
+    assert!((la.residual - 0.45).abs() < 0.1, "{la:?}");
+    let phase = |y: &[f64]| {
+        let (mut re, mut im) = (0.0, 0.0);
+        for (i, v) in y.iter().enumerate().take(20_000).skip(1_000) {
+            let w = 2.0 * PI * 1000.0 * i as f64 / RATE as f64;
+            re += v * w.cos();
+            im -= v * w.sin();
+        }
+        im.atan2(re).to_degrees()
+    };
+    let lag = |y: &[f64]| {
+        let d = phase(&ya) - phase(y);
+        (d + 540.0).rem_euclid(360.0) - 180.0
+    };
+    let (yb_rounded, _) = whole(assess(&b, &f, RATE, 0));
+    let (yb, lb) = whole(assess_near(&b, &f, RATE, 0, la.residual));
+    let one_sample = 360.0 * 1000.0 / RATE as f64;
+    assert!(
+        (lag(&yb_rounded) - (0.1 - 1.0) * one_sample).abs() < 0.1,
+        "rounded: {}",
+        lag(&yb_rounded)
+    );
+    assert!(
+        (lag(&yb) - 0.1 * one_sample).abs() < 0.1,
+        "on one grid: {}",
+        lag(&yb)
+    );
+    assert!((lb.residual - 0.55).abs() < 0.1, "{lb:?}");
+}
+
+#[test]
 fn lost_frames_are_counted_exactly() {
     // Closed form: 256 frames cut out of the stimulus shorten the marker distance by 256.
     let f = frame(&tone(997.0, 0.3, 2.0), RATE);

@@ -49,6 +49,10 @@ pub struct CardRig {
     opts: RigOptions,
     engine: Option<Engine>,
     preflight: Vec<Option<Preflight>>,
+    /// Per channel, the rate and the latency residual of its first whole capture: later
+    /// captures are cut on the same whole-sample grid ([`framing::assess_near`]), so their
+    /// phases stay comparable however the latency rounds.
+    grid: Vec<Option<(u32, f64)>>,
     /// Latest gain from output to input per channel (peak in / peak out), for the headroom check.
     gain: Vec<Option<f64>>,
     load_ohms: Option<f64>,
@@ -83,6 +87,7 @@ impl CardRig {
             opts: opts.clone(),
             engine: None,
             preflight: vec![None; n],
+            grid: vec![None; n],
             gain: vec![None; n],
             load_ohms: opts.calibration.load_ohms,
             notes: vec![Vec::new(); n],
@@ -544,13 +549,20 @@ impl CardRig {
         };
         for attempt in 0..2 {
             let raw = self.run_signal(out, &ins, &framed.signal, sample_rate_hz)?;
-            match framing::assess(
+            let near = self.grid[k]
+                .filter(|(rate, _)| *rate == sample_rate_hz)
+                .map_or(0.0, |(_, r)| r);
+            match framing::assess_near(
                 &raw.channels[mine],
                 &framed,
                 sample_rate_hz,
                 raw.reported_gaps,
+                near,
             ) {
                 Verdict::Whole { aligned, located } => {
+                    if self.grid[k].is_none_or(|(rate, _)| rate != sample_rate_hz) {
+                        self.grid[k] = Some((sample_rate_hz, located.residual));
+                    }
                     let fs = sample_rate_hz as f64;
                     if located.drift_ppm.abs() >= 1.0 {
                         let note = format!(
