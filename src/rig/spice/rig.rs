@@ -245,11 +245,7 @@ fn no_analyses(text: &str) -> std::result::Result<(), String> {
     let found: Vec<String> = text
         .lines()
         .enumerate()
-        .filter(|(_, l)| {
-            l.split_whitespace()
-                .next()
-                .is_some_and(|w| REFUSED.iter().any(|r| w.eq_ignore_ascii_case(r)))
-        })
+        .filter(|(_, l)| REFUSED.iter().any(|r| first_word_is(l, r)))
         .map(|(i, l)| format!("line {} `{}`", i + 1, l.trim()))
         .collect();
     if found.is_empty() {
@@ -265,6 +261,13 @@ fn no_analyses(text: &str) -> std::result::Result<(), String> {
         },
         if found.len() == 1 { "it" } else { "them" }
     ))
+}
+
+/// Whether `line`'s first word is `word` (ngspice's names are case-insensitive).
+fn first_word_is(line: &str, word: &str) -> bool {
+    line.split_whitespace()
+        .next()
+        .is_some_and(|w| w.eq_ignore_ascii_case(word))
 }
 
 /// The part lines of a subcircuit, from the `lines` after its `.subckt` line up to its `.ends`
@@ -487,6 +490,25 @@ impl SpiceRig {
         Ok((captures, outcome.warnings.clone()))
     }
 
+    /// Every channel's output with `channel` driven, in the rig's own folder, warnings kept.
+    fn record_all(
+        &mut self,
+        channel: usize,
+        stimulus: &[f64],
+        sample_rate_hz: u32,
+    ) -> Result<Vec<Vec<f64>>> {
+        self.check_channel(channel)?;
+        let (captures, warnings) = self.simulate_all(
+            &self.work,
+            stimulus,
+            sample_rate_hz as f64,
+            self.load_ohms,
+            channel,
+        )?;
+        self.note(&warnings);
+        Ok(captures)
+    }
+
     /// The captures of several simulations, their warnings kept.
     fn noted(&mut self, done: Vec<(Vec<f64>, Vec<String>)>) -> Vec<Vec<f64>> {
         done.into_iter()
@@ -695,16 +717,8 @@ impl crate::rig::Rig for SpiceRig {
         stimulus: &[f64],
         sample_rate_hz: u32,
     ) -> Result<Vec<f64>> {
-        self.check_channel(channel)?;
-        let (capture, warnings) = self.simulate(
-            &self.work,
-            stimulus,
-            sample_rate_hz as f64,
-            self.load_ohms,
-            channel,
-        )?;
-        self.note(&warnings);
-        Ok(capture)
+        let mut all = self.record_all(channel, stimulus, sample_rate_hz)?;
+        Ok(all.swap_remove(channel - 1))
     }
 
     /// Both channels' outputs from one simulation (a netlist with two channels; one with one
@@ -720,16 +734,7 @@ impl crate::rig::Rig for SpiceRig {
                 rig: crate::rig::Rig::describe(self),
             });
         }
-        self.check_channel(channel)?;
-        let (captures, warnings) = self.simulate_all(
-            &self.work,
-            stimulus,
-            sample_rate_hz as f64,
-            self.load_ohms,
-            channel,
-        )?;
-        self.note(&warnings);
-        Ok(captures)
+        self.record_all(channel, stimulus, sample_rate_hz)
     }
 
     fn predicts(&self) -> bool {
@@ -982,11 +987,7 @@ pub fn with_changes(text: &str, dir: &Path, changes: &[PartChange]) -> Result<St
         let hits: Vec<usize> = lines
             .iter()
             .enumerate()
-            .filter(|(_, l)| {
-                l.split_whitespace()
-                    .next()
-                    .is_some_and(|w| w.eq_ignore_ascii_case(&c.name))
-            })
+            .filter(|(_, l)| first_word_is(l, &c.name))
             .map(|(i, _)| i)
             .collect();
         let i = match hits.as_slice() {
