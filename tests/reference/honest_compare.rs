@@ -187,6 +187,44 @@ fn a_prediction_is_compared_without_noise_or_hum() {
 }
 
 #[test]
+fn output_impedance_is_compared_only_at_the_same_frequency() {
+    // Closed form (voltage divider): a 2 ohm source read into 8 and 16 ohm is 2 ohm, a 2.5 ohm
+    // one 2.5 ohm. At the same frequency the change is +0.5 ohm; at 1 kHz against 10 kHz it is
+    // not a before and after (an output transformer's Z rises with frequency, common practice).
+    use ampnote::procedure::zout::from_levels;
+    let z = |src: f64, f: f64| {
+        let v = |rl: f64| rl / (rl + src);
+        RunResult::Zout(from_levels(1, f, v(8.0), 8.0, v(16.0), 16.0).unwrap())
+    };
+    let (d, nb) = notebook(
+        "cmp-zout",
+        &[
+            ("a", z(2.0, 1000.0)),
+            ("b", z(2.5, 1000.0)),
+            ("c", z(2.5, 10_000.0)),
+        ],
+    );
+    let sel = |l: &str| nb.select(l, None).unwrap();
+    let c = compare("a", &sel("a"), "b", &sel("b"));
+    let line = find(&c.lines, "output impedance");
+    assert!((line.delta.unwrap() - 0.5).abs() < 1e-6, "{line:?}");
+    let c = compare("a", &sel("a"), "c", &sel("c"));
+    assert!(
+        c.lines
+            .iter()
+            .all(|l| !l.figure.starts_with("output impedance")
+                && !l.figure.starts_with("damping factor")),
+        "{:#?}",
+        c.lines
+    );
+    assert!(c.warnings.iter().any(|w| {
+        w.code == ampnote::warning::WarningCode::NotCompared
+            && w.message.contains("output impedance measured at")
+    }));
+    std::fs::remove_dir_all(&d).ok();
+}
+
+#[test]
 fn bounds_are_shown_as_bounds_and_give_no_delta() {
     let (d, nb) = notebook(
         "cmp-bound",

@@ -326,6 +326,16 @@ pub(super) fn compare_imd(s: &mut Sink, a: &[Run], b: &[Run]) {
 pub(super) fn compare_zout(s: &mut Sink, a: &[Run], b: &[Run]) {
     let ch = s.ch;
     if let (Some(za), Some(zb)) = (latest::<ZoutView>(a, ch), latest::<ZoutView>(b, ch)) {
+        // An output transformer's impedance rises with frequency (its leakage inductance), so
+        // two frequencies' figures are not a before and after.
+        if (za.frequency_hz / zb.frequency_hz - 1.0).abs() > 0.01 {
+            s.skipped.push(C::NotCompared.say(format!(
+                "channel {ch}: output impedance measured at {} on one side and {} on the other: not compared (measure both at the same frequency)",
+                fmt(za.frequency_hz, Unit::Hz),
+                fmt(zb.frequency_hz, Unit::Hz)
+            )));
+            return;
+        }
         s.add(
             "output impedance",
             measured(Some(za.zout_ohms)),
