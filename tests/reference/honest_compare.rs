@@ -225,6 +225,50 @@ fn output_impedance_is_compared_only_at_the_same_frequency() {
 }
 
 #[test]
+fn channels_are_matched_on_staircases_at_one_frequency() {
+    // Power at 1 % THD is 2 W on one channel and 3 W on the other (10 lg 1.5 = +1.76 dB) when
+    // both staircases are at 1 kHz; a 40 Hz staircase against a 1 kHz one is no match (an output
+    // transformer gives less power at low frequencies, common practice) and is left out.
+    use ampnote::report::compare::{match_channels, MatchTolerances};
+    let (d, nb) = notebook(
+        "match-freq",
+        &[
+            ("left", staircase(1000.0, 1.0)),
+            ("right", staircase(1000.0, 1.5)),
+            ("right 40 Hz", staircase(40.0, 1.5)),
+        ],
+    );
+    let sel = |l: &str| nb.select(l, None).unwrap();
+    let tol = MatchTolerances::default();
+    let m = match_channels("left", &sel("left"), "right", &sel("right"), &tol);
+    let p1 = m
+        .checks
+        .iter()
+        .find(|c| c.name == "power at 1 % THD difference")
+        .expect("matched at one frequency");
+    assert!((p1.value - 10.0 * 1.5f64.log10()).abs() < 1e-6, "{p1:?}");
+    let m = match_channels(
+        "left",
+        &sel("left"),
+        "right 40 Hz",
+        &sel("right 40 Hz"),
+        &tol,
+    );
+    assert!(
+        m.checks
+            .iter()
+            .all(|c| !c.name.starts_with("power at 1 %") && !c.name.starts_with("THD difference")),
+        "{:#?}",
+        m.checks
+    );
+    assert!(m.warnings.iter().any(|w| {
+        w.code == ampnote::warning::WarningCode::NotCompared
+            && w.message.contains("different frequencies")
+    }));
+    std::fs::remove_dir_all(&d).ok();
+}
+
+#[test]
 fn bounds_are_shown_as_bounds_and_give_no_delta() {
     let (d, nb) = notebook(
         "cmp-bound",

@@ -146,7 +146,20 @@ pub fn match_channels(
         );
     }
     let (pa, pb) = (power_runs(a, ca), power_runs(b, cb));
-    if let (Some(x), Some(y)) = (pa.first(), pb.first()) {
+    // Staircases at the same frequency only: power at 1 % at 100 Hz against 1 kHz is no match.
+    let same_f = pa.iter().find_map(|x| {
+        pb.iter()
+            .find(|y| (y.frequency_hz / x.frequency_hz - 1.0).abs() < 1e-3)
+            .map(|y| (x, y))
+    });
+    if same_f.is_none() && !pa.is_empty() && !pb.is_empty() {
+        warnings.push(C::NotCompared.say(format!(
+            "channels {ca} and {cb}: their staircases are at different frequencies ({} and {}): power and THD at 1 W not matched (run both at one frequency)",
+            fmt(pa[0].frequency_hz, Unit::Hz),
+            fmt(pb[0].frequency_hz, Unit::Hz)
+        )));
+    }
+    if let Some((x, y)) = same_f {
         let thd = thd_at_power(x, 1.0)
             .zip(thd_at_power(y, 1.0))
             .map(|(p, q)| 20.0 * (q / p).log10());
