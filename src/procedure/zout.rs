@@ -6,6 +6,7 @@
 //! amplifier's output transformer must not run unloaded (common practice). The voltages may be in
 //! any unit common to both (dBFS through the same interface and attenuator will do).
 
+use crate::analysis::fit::sine_fit_time_domain;
 use crate::analysis::sweep::{
     ResponseAnalyzer, ResponseConfig, ResponsePoint, ResponseResult, SweepParams,
 };
@@ -163,21 +164,20 @@ impl ZoutResult {
     }
 }
 
-/// The fundamental's complex amplitude at `f_hz` (rate `fs`) over `x[from..to]`, Hann-weighted
-/// (its side lobes keep the harmonics and DC out): two captures of one steady tone on the same
-/// span give their ratio as a complex voltage ratio.
-fn phasor(x: &[f64], from: usize, to: usize, f_hz: f64, fs: f64) -> Complex64 {
+/// The fundamental's complex amplitude at `f_hz` (rate `fs`) over `x[from..to]`, by the IEEE
+/// 1057 sine fit ([`sine_fit_time_domain`]) with DC and the second and third harmonics fitted
+/// beside it so they do not lean on it: two captures of one steady tone on the same span give
+/// their ratio as a complex voltage ratio.
+fn phasor(x: &[f64], from: usize, to: usize, f_hz: f64, fs: f64) -> Option<Complex64> {
     let span = &x[from.min(x.len())..to.min(x.len())];
-    let n = span.len().max(2) as f64;
-    let mean = span.iter().sum::<f64>() / n;
-    span.iter()
-        .enumerate()
-        .map(|(i, v)| {
-            let w = 0.5 - 0.5 * (2.0 * std::f64::consts::PI * i as f64 / (n - 1.0)).cos();
-            let t = (from + i) as f64 / fs;
-            (v - mean) * w * Complex64::from_polar(1.0, -2.0 * std::f64::consts::PI * f_hz * t)
-        })
-        .sum()
+    let freqs: Vec<f64> = (1..=3)
+        .map(|k| k as f64 * f_hz / fs)
+        .filter(|&f| f < 0.5)
+        .collect();
+    // x = A cos(wn) + B sin(wn) = Re[(A - jB) e^{jwn}].
+    let (lines, _dc) = sine_fit_time_domain(span, &freqs)?;
+    let (a, b) = lines[0];
+    Some(Complex64::new(a, -b))
 }
 
 /// Two readings differ by a real change only past four standard deviations of their noise
@@ -374,11 +374,9 @@ pub fn measure(rig: &mut dyn Rig, channel: usize, plan: &ZoutPlan) -> Result<Zou
                     (ta.analysed_to_s * fs).round() as usize,
                 );
                 let f = ta.fundamental_hz;
-                let (pa, pb) = (
-                    phasor(&caps[0], span.0, span.1, f, fs),
-                    phasor(&caps[1], span.0, span.1, f, fs),
-                );
-                if pa.norm() > 0.0 {
+                let pa = phasor(&caps[0], span.0, span.1, f, fs);
+                let pb = phasor(&caps[1], span.0, span.1, f, fs);
+                if let Some((pa, pb)) = pa.zip(pb).filter(|(pa, _)| pa.norm() > 0.0) {
                     let z = two_load_complex(Complex64::new(1.0, 0.0), ra, pb / pa, rb)?;
                     res.set_complex(z);
                 }

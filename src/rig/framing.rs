@@ -412,7 +412,7 @@ pub fn assess_near(
         residual: located.latency_samples + framed.stimulus_start as f64 - start,
         ..located
     };
-    let start = stimulus_start(&located, framed);
+    let start = start as usize;
     let aligned = capture[start..start + framed.stimulus_len].to_vec();
     let stim = &framed.signal[framed.stimulus_start..framed.stimulus_start + framed.stimulus_len];
     let holes = find_holes(&aligned, stim, rate);

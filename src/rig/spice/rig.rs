@@ -167,9 +167,9 @@ fn check_voltages(
         })
         .max_by(|a, b| {
             let inside = |n: &str| !n.starts_with("ampnote_");
-            (inside(a.0), a.2.abs())
-                .partial_cmp(&(inside(b.0), b.2.abs()))
-                .unwrap_or(std::cmp::Ordering::Equal)
+            inside(a.0)
+                .cmp(&inside(b.0))
+                .then(a.2.abs().total_cmp(&b.2.abs()))
         });
     if let Some((node, i, volts)) = worst {
         let node = node.strip_prefix("x_ampnote_amp.").unwrap_or(node);
@@ -509,14 +509,27 @@ impl SpiceRig {
         Ok(captures)
     }
 
-    /// The captures of several simulations, their warnings kept.
-    fn noted(&mut self, done: Vec<(Vec<f64>, Vec<String>)>) -> Vec<Vec<f64>> {
-        done.into_iter()
+    /// Several simulations at once (one ngspice per core), each `(folder, stimulus, load)` in a
+    /// folder of its own under the rig's, `channel` driven; their warnings kept.
+    fn simulate_each(
+        &mut self,
+        channel: usize,
+        fs: f64,
+        jobs: &[(String, &[f64], f64)],
+    ) -> Result<Vec<Vec<f64>>> {
+        use rayon::prelude::*;
+        self.check_channel(channel)?;
+        let done: Vec<(Vec<f64>, Vec<String>)> = jobs
+            .par_iter()
+            .map(|(folder, s, load)| self.simulate(&self.work.join(folder), s, fs, *load, channel))
+            .collect::<Result<_>>()?;
+        Ok(done
+            .into_iter()
             .map(|(capture, warnings)| {
                 self.note(&warnings);
                 capture
             })
-            .collect()
+            .collect())
     }
 
     /// Keeps ngspice's warnings (each once) and the note that the run is a prediction.
@@ -752,23 +765,12 @@ impl crate::rig::Rig for SpiceRig {
         stimuli: &[Vec<f64>],
         sample_rate_hz: u32,
     ) -> Result<Vec<Vec<f64>>> {
-        use rayon::prelude::*;
-        self.check_channel(channel)?;
-        let fs = sample_rate_hz as f64;
-        let done: Vec<(Vec<f64>, Vec<String>)> = stimuli
-            .par_iter()
+        let jobs: Vec<(String, &[f64], f64)> = stimuli
+            .iter()
             .enumerate()
-            .map(|(i, s)| {
-                self.simulate(
-                    &self.work.join(format!("part-{i}")),
-                    s,
-                    fs,
-                    self.load_ohms,
-                    channel,
-                )
-            })
-            .collect::<Result<_>>()?;
-        Ok(self.noted(done))
+            .map(|(i, s)| (format!("part-{i}"), s.as_slice(), self.load_ohms))
+            .collect();
+        self.simulate_each(channel, sample_rate_hz as f64, &jobs)
     }
 
     /// The stimulus into every load at once (one ngspice per core); the rig's load is left
@@ -780,27 +782,12 @@ impl crate::rig::Rig for SpiceRig {
         sample_rate_hz: u32,
         loads: &[f64],
     ) -> Result<Vec<Vec<f64>>> {
-        use rayon::prelude::*;
-        self.check_channel(channel)?;
-        let loads = loads
+        let jobs = loads
             .iter()
-            .map(|&r| crate::rig::checked_load(r))
-            .collect::<Result<Vec<f64>>>()?;
-        let fs = sample_rate_hz as f64;
-        let done: Vec<(Vec<f64>, Vec<String>)> = loads
-            .par_iter()
             .enumerate()
-            .map(|(i, &r)| {
-                self.simulate(
-                    &self.work.join(format!("load-{i}")),
-                    stimulus,
-                    fs,
-                    r,
-                    channel,
-                )
-            })
-            .collect::<Result<_>>()?;
-        Ok(self.noted(done))
+            .map(|(i, &r)| Ok((format!("load-{i}"), stimulus, crate::rig::checked_load(r)?)))
+            .collect::<Result<Vec<_>>>()?;
+        self.simulate_each(channel, sample_rate_hz as f64, &jobs)
     }
 
     fn take_notes(&mut self, channel: usize) -> Vec<Warning> {
